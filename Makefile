@@ -1,0 +1,27 @@
+# pacewire: `make demo`, `make test`, `make bench`; each creates .venv if missing.
+PYTHON ?= python3
+VENV   := .venv
+PY     := $(VENV)/bin/python
+STAMP  := $(VENV)/.installed
+
+.PHONY: test bench demo venv clean
+
+venv: $(STAMP)
+
+$(STAMP): pyproject.toml
+	test -x $(PY) || $(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+test: $(STAMP)
+	$(PY) -m pytest $(PYTEST_ARGS)
+
+bench: $(STAMP)
+	$(PY) tests/bench/run.py $(if $(QUICK),--quick,)
+
+demo: $(STAMP)
+	$(PY) -m service.cli demo
+
+clean:
+	rm -rf $(VENV) bench-results.json
