@@ -1,0 +1,66 @@
+"""Reading a recording: a CDF folder with meta.json, match.json and tracking.jsonl[.gz]."""
+from __future__ import annotations
+
+import gzip
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterator
+
+import orjson
+
+
+class RecordingError(ValueError):
+    """The folder is not a readable CDF recording."""
+
+
+@dataclass(frozen=True)
+class Recording:
+    folder: Path
+    meta: dict[str, Any]
+    sheet: dict[str, Any]
+    tracking: Path
+
+    def lines(self) -> Iterator[bytes]:
+        """The tracking file's lines, raw bytes, in file order."""
+        opener = gzip.open if self.tracking.suffix == ".gz" else open
+        with opener(self.tracking, "rb") as fh:
+            yield from fh
+
+    def batches(self, size: int = 1500) -> Iterator[tuple[int, list[bytes]]]:
+        """(first line number, lines) in batches of ``size`` lines."""
+        batch: list[bytes] = []
+        first = 1
+        for i, line in enumerate(self.lines(), start=1):
+            if not batch:
+                first = i
+            batch.append(line)
+            if len(batch) >= size:
+                yield first, batch
+                batch = []
+        if batch:
+            yield first, batch
+
+
+def _load_json(path: Path) -> dict[str, Any]:
+    try:
+        data = orjson.loads(path.read_bytes())
+    except FileNotFoundError:
+        raise RecordingError(f"{path.name} is missing in {path.parent}") from None
+    except orjson.JSONDecodeError as exc:
+        raise RecordingError(f"{path} is not valid JSON: {exc}") from None
+    if not isinstance(data, dict):
+        raise RecordingError(f"{path} must hold a JSON object")
+    return data
+
+
+def open_recording(folder: str | Path) -> Recording:
+    """Open a CDF folder; raises RecordingError naming what is missing."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise RecordingError(f"{folder} is not a folder")
+    meta = _load_json(folder / "meta.json")
+    sheet = _load_json(folder / "match.json")
+    for name in ("tracking.jsonl", "tracking.jsonl.gz"):
+        if (folder / name).is_file():
+            return Recording(folder, meta, sheet, folder / name)
+    raise RecordingError(f"no tracking.jsonl or tracking.jsonl.gz in {folder}")

@@ -1,0 +1,85 @@
+"""Offline analysis of a recording with the same engine the live service runs."""
+from __future__ import annotations
+
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from replay.recording import open_recording
+from service.config import Settings, load_settings
+from service.engine.match import MatchState
+from service.wire.cdf import FrameDecoder, FrameError, parse_setup
+
+
+@dataclass
+class AnalyzeResult:
+    state: MatchState
+    errors: list[FrameError] = field(default_factory=list)
+    error_count: int = 0
+
+    def snapshot(self) -> dict[str, Any]:
+        return self.state.snapshot()
+
+
+class StrictError(ValueError):
+    def __init__(self, error: FrameError) -> None:
+        super().__init__(f"line {error.line}: {error.code}: {error.message}")
+        self.error = error
+
+
+def new_match(meta: dict[str, Any], sheet: dict[str, Any], settings: Settings,
+              match_id: str | None = None) -> tuple[MatchState, FrameDecoder]:
+    """Engine state and decoder for a match set up from CDF meta + sheet."""
+    roster = parse_setup(meta, sheet, match_id)
+    decoder = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
+    return MatchState(roster, settings), decoder
+
+
+def analyze_folder(folder: str | Path, settings: Settings | None = None, strict: bool = False,
+                   on_error: Callable[[FrameError], None] | None = None,
+                   keep_errors: int = 100, batch: int = 1500) -> AnalyzeResult:
+    """Run the engine over a CDF folder; bad lines are skipped and counted."""
+    settings = settings or load_settings()
+    rec = open_recording(folder)
+    state, decoder = new_match(rec.meta, rec.sheet, settings)
+    result = AnalyzeResult(state)
+    for first, lines in rec.batches(batch):
+        res = decoder.decode_lines(lines, first_line=first)
+        if res.errors:
+            if strict:
+                raise StrictError(res.errors[0])
+            result.error_count += len(res.errors)
+            for err in res.errors:
+                if len(result.errors) < keep_errors:
+                    result.errors.append(err)
+                if on_error is not None:
+                    on_error(err)
+        state.ingest(res)
+    state.finish()
+    return result
+
+
+def print_table(snapshot: dict[str, Any], out: Any = sys.stdout) -> None:
+    """A readable per-player table of the final figures."""
+    cols = [("#", "jersey_number", "{:>3}"), ("team", "team_id", "{:<10.10}"), ("player", "name", "{:<22.22}"),
+            ("min", "minutes", "{:>6.1f}"), ("dist m", "distance_m", "{:>8.0f}"), ("m/min", "m_per_min", "{:>6.1f}"),
+            ("HSR m", "hsr_m", "{:>6.0f}"), ("spr m", "sprint_m", "{:>6.0f}"), ("HSR#", "hsr_efforts", "{:>5}"),
+            ("spr#", "sprints", "{:>5}"), ("acc", "accels", "{:>4}"), ("dec", "decels", "{:>4}"),
+            ("vmax", "max_speed_ms", "{:>5.2f}"), ("W/kg", "metabolic_power_wkg", "{:>5.2f}"), ("cov", "coverage", "{:>5.2f}")]
+    head = "  ".join(f"{h:>{len(fmt.format(0) if 'f' in fmt or '>' in fmt else h)}}" for h, _, fmt in cols)
+    print(head, file=out)
+    players = sorted(snapshot["players"].items(), key=lambda kv: (kv[1]["team_id"], kv[1]["jersey_number"]))
+    for pid, p in players:
+        if not p["minutes"]:
+            continue
+        cells = []
+        for _, key, fmt in cols:
+            v = p.get(key)
+            cells.append(fmt.format(v if v is not None else 0) if key != "name" else fmt.format(p.get("name") or pid))
+        print("  ".join(cells), file=out)
+    h = snapshot["health"]
+    print(f"\nframes {h['frames']}  rejected {h['rejected']}  duplicates {h['duplicates']}  late {h['late']}  "
+          f"jumps {h['jumps']}", file=out)
+    print("Figures are estimates from positional data; decisions on injury, return-to-play and "
+          "substitution stay with the club's qualified medical and performance staff.", file=out)

@@ -1,0 +1,79 @@
+"""The ``pacewire`` command."""
+from __future__ import annotations
+
+import argparse
+import sys
+
+import orjson
+
+
+def _analyze(args: argparse.Namespace) -> int:
+    from replay.recording import RecordingError
+    from service.analyze import StrictError, analyze_folder, print_table
+    from service.config import ConfigError, load_settings
+    from service.wire.cdf import SetupError
+
+    try:
+        settings = load_settings(args.config)
+    except ConfigError as exc:
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
+
+    def report(err):  # noqa: ANN001
+        where = f"line {err.line}" if err.line is not None else f"frame {err.frame_id}"
+        print(f"pacewire: {where}: {err.code}: {err.message}", file=sys.stderr)
+
+    try:
+        result = analyze_folder(args.folder, settings, strict=args.strict, on_error=report)
+    except StrictError as exc:
+        print(f"pacewire: {exc} (--strict)", file=sys.stderr)
+        return 1
+    except (RecordingError, SetupError) as exc:
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
+    snap = result.snapshot()
+    if args.json:
+        msg = {"type": "snapshot", "match_id": snap["match_id"], "seq": 0, **snap}
+        sys.stdout.buffer.write(orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
+    else:
+        print_table(snap)
+    return 0
+
+
+def _not_yet(name: str, issue: str):  # noqa: ANN202
+    def run(args: argparse.Namespace) -> int:
+        print(f"pacewire {name}: not yet available ({issue})", file=sys.stderr)
+        return 3
+    return run
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="pacewire", description="Live exertion service for football.")
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    p = sub.add_parser("analyze", help="run the engine over a CDF folder and print the final figures")
+    p.add_argument("folder")
+    p.add_argument("--json", action="store_true", help="print the final snapshot message as JSON")
+    p.add_argument("--config", help="a TOML file overriding config/default.toml")
+    p.add_argument("--strict", action="store_true", help="exit non-zero on the first bad line")
+    p.set_defaults(func=_analyze)
+
+    p = sub.add_parser("synth", help="write the synthetic demo match as a CDF folder", add_help=False)
+    p.set_defaults(func=None, passthrough="synth")
+
+    p = sub.add_parser("demo", help="generate the demo match, serve it and replay it")
+    p.set_defaults(func=_not_yet("demo", "the live service and replay are still being built"))
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if argv and argv[0] == "synth":
+        from replay.synth import main as synth_main
+        return synth_main(argv[1:])
+    args = build_parser().parse_args(argv)
+    return args.func(args)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,169 @@
+"""Settings: config/default.toml, overridden by a user file, validated by one model.
+
+Every threshold the engine uses is read from here; an invalid value fails at
+start-up with a message naming the key (``kinematics.smooth_order: ...``).
+"""
+from __future__ import annotations
+
+import tomllib
+from pathlib import Path
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+
+DEFAULT_PATH = Path(__file__).resolve().parent.parent / "config" / "default.toml"
+
+
+class _Section(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class Decode(_Section):
+    outside_margin_m: float = Field(ge=0, le=100)
+    recent_ids: int = Field(ge=1, le=1_000_000)
+
+
+class Kinematics(_Section):
+    smooth_window_s: float = Field(gt=0, le=5)
+    smooth_order: int = Field(ge=1, le=5)
+    bridge_gap_s: float = Field(ge=0, le=10)
+    max_step_speed_ms: float = Field(gt=0, le=50)
+    jump_tolerance_m: float = Field(ge=0, le=10)
+    still_speed_ms: float = Field(ge=0, le=1)
+
+
+class Speed(_Section):
+    hsr_ms: float = Field(gt=0, le=15)
+    sprint_ms: float = Field(gt=0, le=15)
+
+    @model_validator(mode="after")
+    def _ordered(self) -> "Speed":
+        if self.sprint_ms <= self.hsr_ms:
+            raise ValueError("sprint_ms must be above hsr_ms")
+        return self
+
+
+class Efforts(_Section):
+    speed_min_s: float = Field(gt=0, le=10)
+    accel_min_s: float = Field(gt=0, le=10)
+    accel_ms2: float = Field(gt=0, le=10)
+    decel_ms2: float = Field(lt=0, ge=-10)
+
+
+class Metabolic(_Section):
+    model: Literal["osgnach2010", "diprampero2018"]
+    kt: float = Field(gt=0, le=3)
+    air_k: float = Field(ge=0, le=0.1)
+    flat_cost_jkgm: float = Field(gt=0, le=10)
+    high_power_wkg: float = Field(gt=0, le=100)
+
+
+class Zones(_Section):
+    mode: Literal["absolute", "relative"]
+    edges_ms: list[float] = Field(min_length=1, max_length=10)
+    edges_pct: list[float] = Field(min_length=1, max_length=10)
+    default_max_speed_ms: float = Field(gt=0, le=15)
+    max_speed_ms: dict[str, float] = Field(default_factory=dict)
+
+    @model_validator(mode="after")
+    def _increasing(self) -> "Zones":
+        for name in ("edges_ms", "edges_pct"):
+            edges = getattr(self, name)
+            if any(b <= a for a, b in zip(edges, edges[1:])) or edges[0] <= 0:
+                raise ValueError(f"{name} must be positive and strictly increasing")
+        if any(not 0 < v <= 15 for v in self.max_speed_ms.values()):
+            raise ValueError("max_speed_ms values must be in (0, 15] m/s")
+        return self
+
+
+class Windows(_Section):
+    last_min: list[int] = Field(min_length=1, max_length=8)
+    peak_min: list[int] = Field(min_length=1, max_length=8)
+    block_min: int = Field(ge=1, le=45)
+
+    @model_validator(mode="after")
+    def _positive(self) -> "Windows":
+        if any(m < 1 or m > 120 for m in [*self.last_min, *self.peak_min]):
+            raise ValueError("window lengths must be 1..120 minutes")
+        return self
+
+
+class Periods(_Section):
+    first_half: int = Field(ge=0, le=60)
+    second_half: int = Field(ge=0, le=60)
+    first_half_extratime: int = Field(ge=0, le=30)
+    second_half_extratime: int = Field(ge=0, le=30)
+    shootout: int = Field(ge=0, le=0)
+
+
+class Health(_Section):
+    rate_window_s: float = Field(gt=0, le=120)
+    min_rate_share: float = Field(gt=0, le=1)
+    max_dropout: float = Field(ge=0, le=1)
+    max_lag_s: float = Field(gt=0, le=600)
+    stall_s: float = Field(gt=0, le=600)
+    on_pitch_timeout_s: float = Field(gt=0, le=3600)
+
+
+class Settings(_Section):
+    decode: Decode
+    kinematics: Kinematics
+    speed: Speed
+    efforts: Efforts
+    metabolic: Metabolic
+    zones: Zones
+    windows: Windows
+    periods: Periods
+    health: Health
+    # Sections owned by the shell (server, limits, ...) validate themselves there.
+    extra: dict[str, Any] = Field(default_factory=dict)
+
+
+class ConfigError(ValueError):
+    """A configuration file is unreadable or holds an invalid value."""
+
+
+def _merge(base: dict[str, Any], over: dict[str, Any]) -> dict[str, Any]:
+    out = dict(base)
+    for key, value in over.items():
+        if isinstance(value, dict) and isinstance(out.get(key), dict):
+            out[key] = _merge(out[key], value)
+        else:
+            out[key] = value
+    return out
+
+
+def _read(path: Path) -> dict[str, Any]:
+    try:
+        return tomllib.loads(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise ConfigError(f"cannot read config file {path}: {exc.strerror}") from exc
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"config file {path} is not valid TOML: {exc}") from exc
+
+
+def settings_from_dict(data: dict[str, Any], source: str = "config") -> Settings:
+    """Validate a merged config dict; errors name the offending key."""
+    known = set(Settings.model_fields) - {"extra"}
+    core = {k: v for k, v in data.items() if k in known}
+    core["extra"] = {k: v for k, v in data.items() if k not in known}
+    try:
+        return Settings.model_validate(core)
+    except ValidationError as exc:
+        lines = []
+        for err in exc.errors():
+            key = ".".join(str(p) for p in err["loc"])
+            lines.append(f"{key}: {err['msg']}")
+        raise ConfigError(f"invalid {source}: " + "; ".join(lines)) from None
+
+
+def load_settings(path: str | Path | None = None, overrides: dict[str, Any] | None = None) -> Settings:
+    """Defaults from config/default.toml, then the user file, then ``overrides``."""
+    data = _read(DEFAULT_PATH)
+    source = "config"
+    if path is not None:
+        data = _merge(data, _read(Path(path)))
+        source = f"config file {path}"
+    if overrides:
+        data = _merge(data, overrides)
+    return settings_from_dict(data, source)

@@ -1,0 +1,1 @@
+"""Pure computation on numpy arrays: no asyncio, no I/O, no JSON."""

@@ -1,0 +1,98 @@
+"""Feed-health rules: frame rate, dropout, arrival lag, staleness.
+
+Pure: the caller passes the clock in (wall-clock seconds live, frame time
+offline), so the same rules run in the service, in replay and in tests.
+"""
+from __future__ import annotations
+
+from collections import deque
+from dataclasses import dataclass, field
+
+import numpy as np
+
+OK, DEGRADED, STALLED = "ok", "degraded", "stalled"
+
+
+@dataclass(frozen=True)
+class HealthParams:
+    rate_window_s: float
+    min_rate_share: float
+    max_dropout: float
+    max_lag_s: float
+    stall_s: float
+
+
+@dataclass
+class FeedHealth:
+    """Arrival bookkeeping for one match and the rules that turn it into a state."""
+
+    params: HealthParams
+    fps_nominal: int
+    late: int = 0
+    duplicates: int = 0
+    rejected: int = 0
+    frames: int = 0
+    first_arrival: float | None = None
+    last_arrival: float | None = None
+    # arrival time of each frame within the rate window, s
+    _arrivals: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    _lags: deque[tuple[float, float]] = field(default_factory=deque)
+
+    def on_frames(self, now: float, frame_times: np.ndarray, n: int, measure_lag: bool = True) -> None:
+        """``n`` frames with timestamps ``frame_times`` (s) arrived at ``now``.
+
+        Offline (``measure_lag=False``) each frame "arrives" at its own timestamp.
+        """
+        if n <= 0:
+            return
+        self.frames += n
+        arrivals = np.full(n, now) if measure_lag else np.asarray(frame_times, float)
+        if self.first_arrival is None:
+            self.first_arrival = float(arrivals[0])
+        self.last_arrival = now
+        keep = self._arrivals[self._arrivals >= now - self.params.rate_window_s]
+        self._arrivals = np.concatenate([keep, arrivals[arrivals >= now - self.params.rate_window_s]])
+        if measure_lag and len(frame_times):
+            self._lags.append((now, float(now - frame_times[-1])))
+        self._expire(now)
+
+    def _expire(self, now: float) -> None:
+        horizon = now - self.params.rate_window_s
+        while self._lags and self._lags[0][0] < horizon:
+            self._lags.popleft()
+
+    def fps_observed(self, now: float) -> float:
+        """Frames per second that arrived over the rate window ending at ``now``."""
+        if self.first_arrival is None:
+            return 0.0
+        span = min(self.params.rate_window_s, max(now - self.first_arrival, 1.0 / self.fps_nominal))
+        return int((self._arrivals > now - span).sum()) / span
+
+    def lag(self, now: float) -> tuple[float | None, float | None]:
+        """Median and p95 arrival lag over the rate window, s (None when not measured)."""
+        self._expire(now)
+        if not self._lags:
+            return None, None
+        lags = np.fromiter((v for _, v in self._lags), float)
+        return float(np.median(lags)), float(np.percentile(lags, 95))
+
+    def evaluate(self, now: float, dropout: float, extra_reasons: list[str] | None = None) -> tuple[str, list[str]]:
+        """State and reasons at ``now``."""
+        p = self.params
+        reasons: list[str] = []
+        if self.last_arrival is None:
+            return STALLED, ["no frames received yet"]
+        idle = now - self.last_arrival
+        if idle > p.stall_s:
+            return STALLED, [f"no frame for {idle:.1f} s (limit {p.stall_s:g} s)"]
+        warmed = now - self.first_arrival >= p.rate_window_s  # type: ignore[operator]
+        fps = self.fps_observed(now)
+        if warmed and fps < p.min_rate_share * self.fps_nominal:
+            reasons.append(f"frame rate {fps:.1f}/s below {p.min_rate_share:.0%} of nominal {self.fps_nominal}/s")
+        if dropout > p.max_dropout:
+            reasons.append(f"dropout {dropout:.0%} above {p.max_dropout:.0%}")
+        _, p95 = self.lag(now)
+        if p95 is not None and p95 > p.max_lag_s:
+            reasons.append(f"arrival lag p95 {p95:.2f} s above {p.max_lag_s:g} s")
+        reasons.extend(extra_reasons or [])
+        return (DEGRADED if reasons else OK), reasons

@@ -1,0 +1,349 @@
+"""Streaming kinematics for one period: jumps, gap bridging, smoothing, speed, acceleration.
+
+The track is a deterministic function of the period's samples: feeding them one
+frame at a time, in blocks, or all at once gives the same figures. Samples
+become final a lag after they arrive: half the smoothing window when the data
+is clean, a little more while a player's gap or a jump is still undecided.
+
+Steps, each vectorised over slots and players:
+
+1. jumps: a sample whose step from the previous sample is longer than
+   ``max_step_speed_ms`` allows (plus ``jump_tolerance_m`` for position noise)
+   is a jump. An isolated outlier (the steps into and
+   out of it are both jumps, the step over it is not) is removed; otherwise
+   the track splits there (common practice).
+2. bridging: gaps up to ``bridge_gap_s`` between seen samples are filled by
+   linear interpolation unless a split lies at their end (common practice).
+3. runs of valid samples shorter than the smoothing window are dropped.
+4. centred Savitzky-Golay fit (window ~1 s, order 3; derivatives from the same
+   fit; Savitzky & Golay 1964); at the ends of a run the window is shifted
+   inside the run (one-sided fit), like scipy's ``mode="interp"``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
+from scipy.signal import savgol_coeffs
+
+_BIG = np.iinfo(np.int64).max // 4
+
+
+@dataclass(frozen=True)
+class KinematicParams:
+    fps: int
+    window: int  # samples, odd
+    order: int
+    bridge: int  # longest bridged gap, samples
+    max_step_speed_ms: float
+    jump_tolerance_m: float
+    still_speed_ms: float
+
+    @property
+    def half(self) -> int:
+        return self.window // 2
+
+    @property
+    def context(self) -> int:
+        """Slots kept before the first unfinished slot so every rule sees its inputs."""
+        return self.window + 3 * (self.bridge + 1) + 2
+
+    @staticmethod
+    def make(fps: int, window_s: float, order: int, bridge_s: float, max_step: float, tolerance: float,
+             still: float) -> "KinematicParams":
+        w = max(int(round(window_s * fps)), order + 2)
+        if w % 2 == 0:
+            w += 1
+        return KinematicParams(fps, w, order, int(round(bridge_s * fps)), max_step, tolerance, still)
+
+
+@dataclass
+class Final:
+    """Samples that became final in one call, shaped (n, players)."""
+
+    slot0: int  # slot of the first row
+    valid: np.ndarray  # bool: credited (seen or bridged, in a long-enough run)
+    seen: np.ndarray  # bool: a raw sample was kept (not a jump)
+    xy: np.ndarray  # (n, P, 2) smoothed position, m
+    speed: np.ndarray  # m/s (0 where not valid)
+    accel: np.ndarray  # m/s^2, tangential: d|v|/dt (0 where not valid)
+
+    def __len__(self) -> int:
+        return int(self.valid.shape[0])
+
+
+def _prev_true(mask: np.ndarray) -> np.ndarray:
+    """Index of the last True at or before each row (per column), -1 if none."""
+    idx = np.where(mask, np.arange(mask.shape[0])[:, None], -1)
+    return np.maximum.accumulate(idx, axis=0)
+
+
+def _next_true(mask: np.ndarray) -> np.ndarray:
+    """Index of the first True at or after each row (per column), _BIG if none."""
+    idx = np.where(mask, np.arange(mask.shape[0])[:, None], _BIG)
+    return np.minimum.accumulate(idx[::-1], axis=0)[::-1]
+
+
+def _shift_down(a: np.ndarray, fill: int) -> np.ndarray:
+    out = np.empty_like(a)
+    out[0] = fill
+    out[1:] = a[:-1]
+    return out
+
+
+def _shift_up(a: np.ndarray, fill: int) -> np.ndarray:
+    out = np.empty_like(a)
+    out[-1] = fill
+    out[:-1] = a[1:]
+    return out
+
+
+def _gather(a: np.ndarray, idx: np.ndarray) -> np.ndarray:
+    """a[idx[i, p], p] for a (N, P) or (N, P, 2) array; idx must be in range."""
+    cols = np.arange(idx.shape[1])[None, :]
+    return a[idx, cols]
+
+
+class Track:
+    """All players' kinematics within one period."""
+
+    def __init__(self, params: KinematicParams, n_players: int) -> None:
+        self.p = params
+        self.n = n_players
+        self.dt = 1.0 / params.fps
+        w, h = params.window, params.half
+        # coefficients[d, j]: derivative d evaluated at position j of the window.
+        self._coef = np.stack([
+            np.stack([savgol_coeffs(w, params.order, deriv=d, delta=self.dt, pos=j, use="dot") for j in range(w)])
+            for d in range(3)
+        ])
+        self._centre = np.ascontiguousarray(self._coef[:, h, :].T)  # (W, 3)
+        self.base = 0  # slot of buf[0]
+        self.buf = np.full((0, n_players, 2), np.nan)
+        self.end = 0  # one past the last slot received
+        self.fin = 0  # first slot not yet final
+        self.jumps = 0  # jumps counted in final slots
+        self.cut = 0  # slots below this belong to an earlier, closed stretch
+
+    # -- input -----------------------------------------------------------------
+    def feed(self, slots: np.ndarray, xy: np.ndarray) -> list[Final]:
+        """Add samples at increasing slots (all >= ``self.end``); return what became final."""
+        out: list[Final] = []
+        if len(slots) == 0:
+            return out
+        first = int(slots[0])
+        if first < self.end:
+            raise ValueError(f"slot {first} is not after {self.end - 1}")
+        if first - self.end > self.p.context and self.end > self.fin:
+            # A gap longer than any rule looks across: finish the stretch before
+            # it as if the empty slots had been pushed, then start afresh.
+            self._extend(self.end + self.p.context)
+            self._collect(out, self.advance())
+        if first - self.end > self.p.context:
+            self.base = self.end = self.fin = self.cut = first
+            self.buf = np.full((0, self.n, 2), np.nan)
+        self._extend(int(slots[-1]) + 1)
+        self.buf[slots - self.base] = xy
+        self._collect(out, self.advance())
+        return out
+
+    def close(self) -> list[Final]:
+        """No more samples for this stretch: finalise the tail with one-sided fits."""
+        out: list[Final] = []
+        self._collect(out, self.advance(closed=True))
+        return out
+
+    @staticmethod
+    def _collect(out: list[Final], item: Final | None) -> None:
+        if item is not None and len(item):
+            out.append(item)
+
+    def _extend(self, new_end: int) -> None:
+        if new_end <= self.end:
+            return
+        ext = np.full((new_end - self.base, self.n, 2), np.nan)
+        ext[: self.buf.shape[0]] = self.buf
+        self.buf = ext
+        self.end = new_end
+
+    # -- classification ----------------------------------------------------------
+    def _classify(self, closed: bool) -> tuple[np.ndarray, ...]:
+        """Per buffered slot: valid mask, run bounds, bridged positions and the
+        first slot per player whose status may still change (``doubt``)."""
+        p = self.p
+        buf = self.buf
+        n_rows = buf.shape[0]
+        rows = np.arange(n_rows)[:, None]
+        seen = ~np.isnan(buf[..., 0])
+        # slots before the cut were closed by a flush: treat the cut as a long gap
+        lo = max(self.cut - self.base, 0)
+        if lo:
+            seen[:lo] = False
+        reach = p.bridge + 1
+        vmax_step = p.max_step_speed_ms * self.dt
+        tol = p.jump_tolerance_m
+
+        prev_s = _shift_down(_prev_true(seen), -1)  # previous seen, strictly before
+        next_s = _shift_up(_next_true(seen), _BIG)  # next seen, strictly after
+        has_prev = seen & (prev_s >= 0) & (rows - prev_s <= reach)
+        prev_c = np.clip(prev_s, 0, n_rows - 1)
+        step = np.linalg.norm(buf - _gather(buf, prev_c), axis=2)
+        jprev = has_prev & (step > vmax_step * (rows - prev_c) + tol)
+        has_next = seen & (next_s < _BIG) & (next_s - rows <= reach)
+        next_c = np.clip(next_s, 0, n_rows - 1)
+        jnext = has_next & _gather(jprev, next_c)
+        skip = np.linalg.norm(_gather(buf, next_c) - _gather(buf, prev_c), axis=2)
+        jskip = skip > vmax_step * (next_c - prev_c) + tol
+        spike = jprev & jnext & ~jskip
+        split = jprev & ~spike & ~_gather(spike, prev_c)
+        kept = seen & ~spike
+
+        # bridging gaps of up to p.bridge slots between kept samples
+        pk = _prev_true(kept)
+        nk = _next_true(kept)
+        nk_c = np.clip(nk, 0, n_rows - 1)
+        bridged = ~kept & (pk >= 0) & (nk < _BIG) & (nk - pk - 1 <= p.bridge) & ~_gather(split, nk_c)
+        valid1 = kept | bridged
+        xyb = buf.copy()
+        if bridged.any():
+            pk_c = np.clip(pk, 0, n_rows - 1)
+            frac = ((rows - pk_c) / np.maximum(nk_c - pk_c, 1))[..., None]
+            a = _gather(buf, pk_c)
+            b = _gather(buf, nk_c)
+            xyb = np.where(bridged[..., None], a + (b - a) * frac, xyb)
+
+        # runs: bounded by invalid slots and by splits
+        run_s = np.maximum(_prev_true(~valid1) + 1, _prev_true(split))
+        nsplit = _shift_up(_next_true(split), _BIG)
+        run_e = np.minimum(_next_true(~valid1) - 1, nsplit - 1)
+        run_e = np.minimum(run_e, n_rows - 1)
+
+        # doubt: first slot whose status future samples may still change
+        doubt = np.full(self.n, n_rows, np.int64)
+        if not closed:
+            last_seen = _prev_true(seen)[-1]  # per player, -1 if none
+            e = n_rows - 1
+            have = last_seen >= 0
+            ls = np.clip(last_seen, 0, e)
+            cols = np.arange(self.n)
+            trailing = e - ls
+            # last seen sample is a jump still awaiting its successor
+            j_open = have & jprev[ls, cols] & (trailing < reach)
+            prev_of_ls = np.clip(prev_s[ls, cols], 0, e)
+            doubt = np.where(j_open, prev_of_ls + 1, doubt)
+            # a short trailing gap may yet be bridged
+            gap_open = have & ~j_open & (trailing > 0) & (trailing <= p.bridge)
+            doubt = np.where(gap_open, ls + 1, doubt)
+            # the run that reaches the doubt slot must already be long enough
+            last_row = np.clip(doubt - 1, 0, e)
+            in_run = valid1[last_row, cols] & (doubt > 0)
+            rs = run_s[last_row, cols]
+            short = in_run & (last_row - rs + 1 < p.window)
+            doubt = np.where(short, rs, doubt)
+        # a run's length counts only its decided part
+        run_e_dec = np.minimum(run_e, doubt[None, :] - 1)
+        valid = valid1 & (run_e_dec - run_s + 1 >= p.window) & (rows < doubt[None, :])
+        jumps = spike | split
+        return valid, kept, run_s, run_e, xyb, doubt, jumps
+
+    # -- output --------------------------------------------------------------------
+    def advance(self, closed: bool = False) -> Final | None:
+        """Finalise every slot whose figures can no longer change.
+
+        ``closed``: no more samples will come for this stretch (period end, end
+        of recording, or a stall flush); the tail is finalised with one-sided fits.
+        """
+        if self.end <= self.fin:
+            if closed:
+                self.cut = self.end
+            return None
+        h = self.p.half
+        clean = None if closed else self._clean()
+        if clean is not None:
+            stop = self.end - h
+            if stop <= self.fin:
+                return None
+            out = self._smooth_clean(self.fin - self.base, stop - self.base, clean)
+            self.fin = stop
+            self._trim()
+            return out
+        valid, kept, run_s, run_e, xyb, doubt, jumps = self._classify(closed)
+        if closed:
+            stop = self.end
+        else:
+            stop = min(self.end - h, self.base + int(doubt.min()) - h)
+        if stop <= self.fin:
+            return None
+        out = self._smooth(self.fin - self.base, stop - self.base, valid, kept, run_s, run_e, xyb, jumps)
+        self.fin = stop
+        if closed:
+            self.cut = self.end
+        self._trim()
+        return out
+
+    def _trim(self) -> None:
+        """Keep only the context the rules need."""
+        keep_from = max(self.fin - self.p.context, self.base)
+        if keep_from > self.base:
+            self.buf = self.buf[keep_from - self.base:]
+            self.base = keep_from
+
+    def _clean(self) -> np.ndarray | None:
+        """The common case, decided cheaply: every player either seen in every
+        buffered slot with no jump, or not seen at all; the stretch started long
+        enough ago. Returns the per-player seen mask, or None for the full rules."""
+        p = self.p
+        if self.fin - p.half - max(self.cut, self.base) < 0 or self.end - self.cut < p.context:
+            return None
+        seen = ~np.isnan(self.buf[:, :, 0])
+        cols = seen[0]
+        if not (seen == cols).all():
+            return None
+        d = np.diff(self.buf[:, cols], axis=0)
+        lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
+        if (d[..., 0] ** 2 + d[..., 1] ** 2 > lim * lim).any():
+            return None
+        return cols
+
+    def _smooth_clean(self, r0: int, r1: int, cols: np.ndarray) -> Final:
+        h = self.p.half
+        win = sliding_window_view(self.buf, self.p.window, axis=0)
+        res = win[r0 - h: r1 - h] @ self._centre
+        return self._finish(r0, r1, np.broadcast_to(cols, (r1 - r0, self.n)), res)
+
+    def _smooth(self, r0: int, r1: int, valid: np.ndarray, kept: np.ndarray, run_s: np.ndarray,
+                run_e: np.ndarray, xyb: np.ndarray, jumps: np.ndarray) -> Final:
+        p = self.p
+        w, h = p.window, p.half
+        n_rows = xyb.shape[0]
+        rows = np.arange(r0, r1)[:, None]
+        v = valid[r0:r1]
+        self.jumps += int(jumps[r0:r1].sum())
+        # window start inside the run; rows with j != h use a one-sided fit
+        w0 = np.clip(rows - h, run_s[r0:r1], run_e[r0:r1] - 2 * h)
+        j = rows - w0
+        # pad so that centred windows near the buffer ends exist (their values are unused)
+        pad = np.full((h, self.n, 2), np.nan)
+        win = sliding_window_view(np.concatenate([pad, xyb, pad]), w, axis=0)  # (rows + 2h - W + 1, P, 2, W)
+        centred = win[r0:r1]  # padded row r0 + h is buffer row r0: window starts at row - h
+        res = centred @ self._centre  # (n, P, 2, 3)
+        edge = v & (j != h)
+        if edge.any():
+            ei, ep = np.nonzero(edge)
+            ew = win[w0[ei, ep] + h, ep]  # (m, 2, W)
+            ec = self._coef[:, j[ei, ep], :]  # (3, m, W)
+            res[ei, ep] = np.einsum("mcw,dmw->mcd", ew, ec)
+        return self._finish(r0, r1, v, res, kept[r0:r1])
+
+    def _finish(self, r0: int, r1: int, v: np.ndarray, res: np.ndarray, kept: np.ndarray | None = None) -> Final:
+        p = self.p
+        pos = res[..., 0]
+        vel = res[..., 1]
+        acc = res[..., 2]
+        speed = np.hypot(vel[..., 0], vel[..., 1])
+        moving = speed > p.still_speed_ms
+        tang = (vel[..., 0] * acc[..., 0] + vel[..., 1] * acc[..., 1]) / np.where(moving, speed, 1.0)
+        speed = np.where(v, speed, 0.0)
+        tang = np.where(v & moving, tang, 0.0)
+        return Final(self.base + r0, v, v if kept is None else kept, pos, speed, tang)

@@ -1,0 +1,303 @@
+"""MatchState: a match's roster, periods, players and team totals.
+
+``step(block)`` applies frames; the figures depend only on the frames, never
+on how they were split into blocks. ``snapshot()`` returns the contract's
+snapshot body (DESIGN §3): ``players``, ``teams``, ``health``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from service.config import Settings
+from service.engine import exertion as ex
+from service.engine.exertion import Exertion, ExertionParams
+from service.engine.health import FeedHealth, HealthParams
+from service.engine.kinematics import Final, KinematicParams, Track
+from service.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIODS, Block, Roster
+from service.engine.windows import SecondBins
+
+# Football clock: minute at which each period starts (Laws of the Game).
+CLOCK_START_MIN = {"first_half": 0, "second_half": 45, "first_half_extratime": 90,
+                   "second_half_extratime": 105, "shootout": 120}
+CONTEXTS = ("in_possession", "out_of_possession", "out_of_play")
+_U = 1e-6  # micro-units to units
+
+
+@dataclass
+class _Period:
+    """One period's running state."""
+
+    index: int
+    t0: float  # timestamp of slot 0, s
+    track: Track
+    exertion: Exertion
+    bins: SecondBins
+    sums: np.ndarray  # (P, N_FIG) int64
+    zones: np.ndarray  # (P, Z) int64 µm
+    poss: np.ndarray  # (P, 3, 2) int64 µm: context × (distance, hsr)
+    max_speed: np.ndarray  # (P,) m/s
+    first_seen: np.ndarray  # (P,) slot, -1 never
+    last_seen: np.ndarray  # (P,) slot, -1 never
+    off_slots: np.ndarray  # (P,) slots in gaps long enough to mean "off the pitch"
+    last_valid: np.ndarray  # (P,) slot of the latest credited sample, -1 never
+    last_speed: np.ndarray  # (P,) m/s at last_valid
+    ball: np.ndarray  # (slots,) int8
+    poss_team: np.ndarray  # (slots,) int8
+    last_slot: int = -1  # latest slot received
+    ended: bool = False
+
+    @property
+    def name(self) -> str:
+        return PERIODS[self.index]
+
+    def onpitch_slots(self) -> np.ndarray:
+        return np.where(self.first_seen >= 0, self.last_seen - self.first_seen + 1 - self.off_slots, 0)
+
+
+class MatchState:
+    """All figures of one match, from its frames."""
+
+    def __init__(self, roster: Roster, settings: Settings) -> None:
+        self.roster = roster
+        self.settings = settings
+        s = settings
+        fps = roster.fps
+        self.fps = fps
+        self.kin = KinematicParams.make(fps, s.kinematics.smooth_window_s, s.kinematics.smooth_order,
+                                        s.kinematics.bridge_gap_s, s.kinematics.max_step_speed_ms,
+                                        s.kinematics.jump_tolerance_m, s.kinematics.still_speed_ms)
+        self.exp = ExertionParams(
+            fps=fps, hsr_ms=s.speed.hsr_ms, sprint_ms=s.speed.sprint_ms,
+            speed_min_n=int(round(s.efforts.speed_min_s * fps)), accel_min_n=int(round(s.efforts.accel_min_s * fps)),
+            accel_ms2=s.efforts.accel_ms2, decel_ms2=s.efforts.decel_ms2, model=s.metabolic.model,
+            kt=s.metabolic.kt, air_k=s.metabolic.air_k, flat_cost=s.metabolic.flat_cost_jkgm,
+            high_power_wkg=s.metabolic.high_power_wkg,
+        )
+        self.n = roster.n
+        self.team = roster.team_of()
+        self.gk = roster.goalkeepers()
+        self.zone_edges, self.zone_names = _zone_edges(roster, settings)
+        self.peak_s = [m * 60 for m in s.windows.peak_min]
+        self.timeout_slots = int(round(s.health.on_pitch_timeout_s * fps))
+        self.periods: list[_Period] = []
+        self.has_ball = False
+        self.frames = 0
+        self.last_frame_id: int | None = None
+        self.last_t: float | None = None
+        self.health = FeedHealth(
+            HealthParams(s.health.rate_window_s, s.health.min_rate_share, s.health.max_dropout,
+                         s.health.max_lag_s, s.health.stall_s),
+            fps_nominal=fps,
+        )
+        self.off_override: dict[int, int] = {}  # player -> period index after which he is off (events)
+
+    # -- input ---------------------------------------------------------------------
+    @property
+    def current(self) -> _Period | None:
+        return self.periods[-1] if self.periods else None
+
+    def ingest(self, result: Any, now: float | None = None) -> None:
+        """Count a decoder result's drops and apply its block.
+
+        ``now``: arrival wall-clock time (live); None uses the frames' own
+        time (offline), which measures no arrival lag.
+        """
+        h = self.health
+        h.rejected += result.rejected
+        h.duplicates += result.duplicates
+        h.late += result.late
+        b = result.block
+        if len(b):
+            h.on_frames(float(b.t[-1]) if now is None else now, b.t, len(b), measure_lag=now is not None)
+            self.step(b)
+
+    def step(self, block: Block) -> None:
+        """Apply a block of accepted frames (from :class:`service.wire.cdf.FrameDecoder`)."""
+        n = len(block)
+        if n == 0:
+            return
+        self.frames += n
+        self.last_frame_id = int(block.frame_id[-1])
+        self.last_t = float(block.t[-1])
+        if (block.ball != BALL_UNKNOWN).any():
+            self.has_ball = True
+        bounds = np.flatnonzero(np.diff(block.period)) + 1
+        for part in np.split(np.arange(n), bounds):
+            self._step_period(block.take(slice(int(part[0]), int(part[-1]) + 1)))
+
+    def _step_period(self, b: Block) -> None:
+        idx = int(b.period[0])
+        cur = self.current
+        if cur is None or cur.index != idx:
+            if cur is not None and not cur.ended:
+                self._end(cur)
+            cur = self._start(idx, float(b.t[0]))
+        slots = b.slot
+        last = int(slots[-1])
+        if last >= cur.ball.shape[0]:
+            cap = max(2 * cur.ball.shape[0], last + 1)
+            cur.ball = np.concatenate([cur.ball, np.full(cap - cur.ball.shape[0], BALL_UNKNOWN, np.int8)])
+            cur.poss_team = np.concatenate([cur.poss_team, np.full(cap - cur.poss_team.shape[0], NO_TEAM, np.int8)])
+        cur.ball[slots] = b.ball
+        cur.poss_team[slots] = b.poss
+        cur.last_slot = last
+        for fin in cur.track.feed(slots, b.xy):
+            self._apply(cur, fin)
+
+    def _start(self, idx: int, t0: float) -> _Period:
+        n = self.n
+        per = _Period(
+            index=idx, t0=t0, track=Track(self.kin, n), exertion=Exertion(self.exp, n, self.zone_edges),
+            bins=SecondBins(self.fps, n, self.peak_s),
+            sums=np.zeros((n, ex.N_FIG), np.int64), zones=np.zeros((n, self.zone_edges.shape[1] + 1), np.int64),
+            poss=np.zeros((n, 3, 2), np.int64), max_speed=np.zeros(n), first_seen=np.full(n, -1, np.int64),
+            last_seen=np.full(n, -1, np.int64), off_slots=np.zeros(n, np.int64), last_valid=np.full(n, -1, np.int64),
+            last_speed=np.zeros(n), ball=np.full(1024, BALL_UNKNOWN, np.int8), poss_team=np.full(1024, NO_TEAM, np.int8),
+        )
+        self.periods.append(per)
+        return per
+
+    def _end(self, per: _Period) -> None:
+        for fin in per.track.close():
+            self._apply(per, fin)
+        per.bins.finish()
+        per.ended = True
+
+    def end_period(self) -> None:
+        """The current period is over (whistle, or the feed moved on)."""
+        cur = self.current
+        if cur is not None and not cur.ended:
+            self._end(cur)
+
+    def finish(self) -> None:
+        """End of the recording: finalise everything still pending."""
+        self.end_period()
+
+    def flush(self) -> None:
+        """The feed stalled: finalise the tail now (one-sided fits); later frames
+        of the same period start a new stretch."""
+        cur = self.current
+        if cur is not None and not cur.ended:
+            for fin in cur.track.close():
+                self._apply(cur, fin)
+
+    # -- accumulation ----------------------------------------------------------------
+    def _apply(self, per: _Period, fin: Final) -> None:
+        n = len(fin)
+        fig, dist_um, zone, _power = per.exertion.step(fin.valid, fin.seen, fin.speed, fin.accel)
+        per.sums += fig.sum(axis=0)
+        nz = per.zones.shape[1]
+        cols = np.arange(self.n)
+        per.zones += np.bincount((zone * self.n + cols).ravel(), weights=dist_um.ravel(),
+                                 minlength=nz * self.n).reshape(nz, self.n).T.astype(np.int64)
+        per.bins.add(fin.slot0, fig)
+        sp = np.where(fin.valid, fin.speed, 0.0)
+        np.maximum(per.max_speed, sp.max(axis=0), out=per.max_speed)
+        slots = np.arange(fin.slot0, fin.slot0 + n)
+        # latest credited sample
+        lv = np.where(fin.valid, slots[:, None], -1).max(axis=0)
+        got = lv >= 0
+        per.last_valid = np.where(got, lv, per.last_valid)
+        per.last_speed = np.where(got, fin.speed[np.clip(lv - fin.slot0, 0, n - 1), cols], per.last_speed)
+        self._onpitch(per, fin.seen, slots)
+        if self.has_ball:
+            self._possession(per, fin, fig, slots)
+
+    def _onpitch(self, per: _Period, seen: np.ndarray, slots: np.ndarray) -> None:
+        """On the pitch from first to last seen sample; gaps longer than the
+        on-pitch timeout count as off the pitch (substituted, sent off)."""
+        idx = np.where(seen, slots[:, None], -1)
+        if not (idx >= 0).any():
+            return
+        run = np.maximum.accumulate(np.vstack([per.last_seen[None, :], idx]), axis=0)
+        prev = run[:-1]  # latest seen before each row
+        gap = np.where(seen & (prev >= 0), slots[:, None] - prev - 1, 0)
+        per.off_slots += np.where(gap > self.timeout_slots, gap, 0).sum(axis=0)
+        first = np.where(seen, slots[:, None], np.iinfo(np.int64).max).min(axis=0)
+        per.first_seen = np.where((per.first_seen < 0) & (first < np.iinfo(np.int64).max), first, per.first_seen)
+        per.last_seen = run[-1]
+
+    def _possession(self, per: _Period, fin: Final, fig: np.ndarray, slots: np.ndarray) -> None:
+        ball = per.ball[slots][:, None]
+        poss = per.poss_team[slots][:, None]
+        team = self.team[None, :]
+        ctx = (
+            (ball == BALL_IN) & (poss == team),
+            (ball == BALL_IN) & (poss != team) & (poss != NO_TEAM),
+            ball == BALL_OUT,
+        )
+        for k, m in enumerate(ctx):
+            per.poss[:, k, 0] += np.where(m, fig[..., ex.DIST], 0).sum(axis=0)
+            per.poss[:, k, 1] += np.where(m, fig[..., ex.HSR], 0).sum(axis=0)
+
+    # -- output ------------------------------------------------------------------------
+    def match_time_s(self) -> float:
+        cur = self.current
+        if cur is None:
+            return 0.0
+        return CLOCK_START_MIN[cur.name] * 60.0 + max(cur.last_slot, 0) / self.fps
+
+    def period_name(self) -> str | None:
+        cur = self.current
+        return cur.name if cur is not None else None
+
+    @property
+    def jumps(self) -> int:
+        return sum(p.track.jumps for p in self.periods)
+
+    def on_pitch(self) -> np.ndarray:
+        cur = self.current
+        if cur is None or cur.ended:
+            return np.zeros(self.n, bool)
+        recent = (cur.last_seen >= 0) & (cur.last_slot - cur.last_seen <= self.timeout_slots)
+        return recent
+
+    def coverage(self) -> np.ndarray:
+        """Credited samples ÷ samples on the pitch, whole match, per player."""
+        valid = sum((p.sums[:, ex.VALID] for p in self.periods), np.zeros(self.n, np.int64))
+        onp = sum((p.onpitch_slots() for p in self.periods), np.zeros(self.n, np.int64))
+        return np.where(onp > 0, np.minimum(valid / np.maximum(onp, 1), 1.0), 0.0)
+
+    def dropout(self) -> float:
+        """Share of expected samples of players on the pitch missing over the rate window."""
+        cur = self.current
+        if cur is None or cur.bins.complete == 0:
+            return 0.0
+        on = self.on_pitch()
+        if not on.any():
+            return 0.0
+        w = max(int(self.settings.health.rate_window_s), 1)
+        stop = cur.bins.complete
+        start = max(stop - w, 0)
+        seen = cur.bins.span(start, stop)[:, ex.SEEN]
+        span = np.minimum(stop - np.maximum(start, cur.first_seen // self.fps), stop - start)
+        expected = (np.clip(span, 0, None) * self.fps)[on].sum()
+        if expected <= 0:
+            return 0.0
+        return float(max(0.0, 1.0 - seen[on].sum() / expected))
+
+    def snapshot(self, now: float | None = None, extra_reasons: list[str] | None = None) -> dict[str, Any]:
+        """The snapshot body plus ``match_time_s`` and ``period`` (envelope fields).
+
+        ``now``: wall-clock seconds for health (live); None evaluates at the last
+        frame's time (offline: no arrival lag is known).
+        """
+        from service.engine.snapshot import build_snapshot  # keeps this module small
+
+        return build_snapshot(self, now, extra_reasons)
+
+
+def _zone_edges(roster: Roster, s: Settings) -> tuple[np.ndarray, list[str]]:
+    """Per-player speed band edges (P, Z-1), m/s, and the band names."""
+    z = s.zones
+    if z.mode == "absolute":
+        edges = np.array(z.edges_ms, float)
+        names = [f"{a:.1f}-{b:.1f}" for a, b in zip([0.0, *edges[:-1]], edges)] + [f"{edges[-1]:.1f}+"]
+        return np.tile(edges, (roster.n, 1)), names
+    pct = np.array(z.edges_pct, float)
+    vmax = np.array([z.max_speed_ms.get(p.id) or p.max_speed_ms or z.default_max_speed_ms for p in roster.players])
+    names = [f"{a:g}-{b:g}%" for a, b in zip([0.0, *pct[:-1]], pct)] + [f"{pct[-1]:g}%+"]
+    return vmax[:, None] * pct[None, :] / 100.0, names

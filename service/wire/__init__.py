@@ -1,0 +1,1 @@
+"""Everything on the wire: pydantic models and orjson codecs."""

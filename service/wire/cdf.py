@@ -1,0 +1,476 @@
+"""CDF v0.3.2 (Anzer et al. 2025) on the wire: setup models and the frame decoder.
+
+The decoder turns JSON frames into engine blocks. It never raises on bad input:
+every rejected frame comes back as a :class:`FrameError` with a code, a reason
+and the frame id or line number, and nothing of a rejected frame reaches the
+engine.
+"""
+from __future__ import annotations
+
+import math
+from collections import deque
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import Any, Iterable, Literal, Sequence
+
+import numpy as np
+import orjson
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+
+from service.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
+
+PeriodName = Literal["first_half", "second_half", "first_half_extratime", "second_half_extratime", "shootout"]
+
+
+# --- setup: the live subset of the CDF meta object and match sheet -------------------
+
+class _Open(BaseModel):
+    model_config = ConfigDict(extra="allow")
+
+
+class MetaTracking(_Open):
+    fps: int = Field(ge=1, le=1000)
+
+
+class MetaVendors(_Open):
+    tracking: MetaTracking
+
+
+class MetaTeam(_Open):
+    id: str = Field(min_length=1, max_length=128)
+    name: str | None = None
+
+
+class MetaTeams(_Open):
+    home: MetaTeam
+    away: MetaTeam
+
+
+class MetaPeriod(_Open):
+    period: PeriodName
+    frame_id_start: int | None = None
+    frame_id_end: int | None = None
+
+
+class MetaMatch(_Open):
+    id: str = Field(min_length=1, max_length=128)
+    periods: list[MetaPeriod] = Field(default_factory=list)
+
+
+class MetaVenue(_Open):
+    pitch_length: float = Field(default=105.0, gt=50, lt=130)
+    pitch_width: float = Field(default=68.0, gt=30, lt=100)
+
+
+class CdfMeta(_Open):
+    """CDF meta object; live setup needs only match.id, teams and meta.tracking.fps."""
+
+    match: MetaMatch
+    teams: MetaTeams
+    meta: MetaVendors
+    venue: MetaVenue = Field(default_factory=MetaVenue)
+
+
+class SheetPlayer(_Open):
+    id: str = Field(min_length=1, max_length=128)
+    team_id: str
+    jersey_number: int = Field(ge=0, le=999)
+    is_starter: bool
+    position_group: str | None = None
+    first_name: str | None = None
+    last_name: str | None = None
+    short_name: str | None = None
+    # pacewire extension: the player's own max speed (m/s) for relative zones.
+    max_speed_ms: float | None = Field(default=None, gt=0, le=15)
+
+
+class SheetTeam(_Open):
+    id: str = Field(min_length=1, max_length=128)
+    name: str | None = None
+    short_name: str | None = None
+    players: list[SheetPlayer] = Field(min_length=0, max_length=60)
+
+
+class SheetTeams(_Open):
+    home: SheetTeam
+    away: SheetTeam
+
+
+class CdfSheet(_Open):
+    """CDF match sheet; result, goals, cards and officials are optional on input."""
+
+    teams: SheetTeams
+
+
+class MatchSetup(BaseModel):
+    """Body of ``PUT /api/matches/{id}``."""
+
+    model_config = ConfigDict(extra="forbid")
+    meta: CdfMeta
+    sheet: CdfSheet
+
+    @field_validator("sheet")
+    @classmethod
+    def _unique_players(cls, sheet: CdfSheet) -> CdfSheet:
+        seen: set[str] = set()
+        for side in ("home", "away"):
+            team = getattr(sheet.teams, side)
+            for p in team.players:
+                if p.id in seen:
+                    raise ValueError(f"player id {p.id!r} appears twice in the sheet")
+                if p.team_id != team.id:
+                    raise ValueError(f"player {p.id!r} has team_id {p.team_id!r} but is listed under {side} team {team.id!r}")
+                seen.add(p.id)
+        return sheet
+
+
+class SetupError(ValueError):
+    """Meta and sheet do not describe one match."""
+
+
+def roster_from_setup(setup: MatchSetup, match_id: str | None = None) -> Roster:
+    """Build the engine roster; the sheet's team ids must equal the meta's."""
+    meta, sheet = setup.meta, setup.sheet
+    mid = match_id or meta.match.id
+    if match_id is not None and meta.match.id != match_id:
+        raise SetupError(f"meta.match.id {meta.match.id!r} differs from the match id {match_id!r}")
+    team_ids = (meta.teams.home.id, meta.teams.away.id)
+    if team_ids[0] == team_ids[1]:
+        raise SetupError("home and away team ids are the same")
+    if (sheet.teams.home.id, sheet.teams.away.id) != team_ids:
+        raise SetupError(f"sheet team ids {(sheet.teams.home.id, sheet.teams.away.id)} differ from meta team ids {team_ids}")
+    players = []
+    for side, team in ((0, sheet.teams.home), (1, sheet.teams.away)):
+        for p in team.players:
+            name = p.short_name or " ".join(n for n in (p.first_name, p.last_name) if n)
+            players.append(Player(
+                id=p.id, team=side, jersey_number=p.jersey_number,
+                is_goalkeeper=(p.position_group or "").upper() == "GK",
+                is_starter=p.is_starter, name=name, max_speed_ms=p.max_speed_ms,
+            ))
+    names = tuple(getattr(sheet.teams, s).name or getattr(meta.teams, s).name or getattr(sheet.teams, s).short_name or ""
+                  for s in ("home", "away"))
+    return Roster(
+        match_id=mid, team_ids=team_ids, players=tuple(players), fps=meta.meta.tracking.fps,
+        pitch_length_m=meta.venue.pitch_length, pitch_width_m=meta.venue.pitch_width,
+        team_names=names,  # type: ignore[arg-type]
+    )
+
+
+def parse_setup(meta: Any, sheet: Any, match_id: str | None = None) -> Roster:
+    """Validate raw meta + sheet dicts; raises SetupError with a readable reason."""
+    try:
+        setup = MatchSetup.model_validate({"meta": meta, "sheet": sheet})
+    except ValidationError as exc:
+        raise SetupError(describe_validation(exc)) from None
+    return roster_from_setup(setup, match_id)
+
+
+def describe_validation(exc: ValidationError) -> str:
+    return "; ".join(f"{'.'.join(str(p) for p in e['loc']) or 'body'}: {e['msg']}" for e in exc.errors()[:10])
+
+
+# --- tracking frames ------------------------------------------------------------
+
+class FramePlayer(BaseModel):
+    id: str
+    x: float | None
+    y: float | None
+
+
+class FrameTeam(BaseModel):
+    id: str | None = None
+    players: list[FramePlayer]
+
+
+class FrameTeams(BaseModel):
+    home: FrameTeam
+    away: FrameTeam
+
+
+class FrameBall(BaseModel):
+    x: float | None = None
+    y: float | None = None
+    z: float | None = None
+    status: bool | None = None
+    poss_team_id: str | None = None
+
+
+class FrameMatch(BaseModel):
+    id: str
+
+
+class TrackingFrame(BaseModel):
+    """One CDF tracking object (documentation and schema; the hot path is :func:`decode`)."""
+
+    frame_id: int
+    timestamp: datetime
+    period: PeriodName
+    match: FrameMatch
+    teams: FrameTeams
+    ball: FrameBall | None = None
+
+
+@dataclass(frozen=True)
+class FrameError:
+    code: str
+    message: str
+    frame_id: int | None = None
+    line: int | None = None
+
+    def as_dict(self) -> dict[str, Any]:
+        d: dict[str, Any] = {"code": self.code, "message": self.message}
+        if self.frame_id is not None:
+            d["frame_id"] = self.frame_id
+        if self.line is not None:
+            d["line"] = self.line
+        return d
+
+
+@dataclass
+class FrameGate:
+    """Ordering state across decode calls: drops duplicate and late frames."""
+
+    fps: int = 25
+    recent_size: int = 512
+    last_id: int = -1
+    last_t: float = -math.inf
+    period: int = -1
+    period_t0: float = 0.0
+    last_slot: int = -1
+    recent: deque[int] = field(default_factory=deque)
+    recent_set: set[int] = field(default_factory=set)
+
+    def slot_of(self, period: int, t: float) -> int:
+        """Frame slot of a frame within its period; raises _Reject if it does not advance."""
+        if period < self.period:
+            raise _Reject("bad_value", f"period {PERIODS[period]} comes after {PERIODS[self.period]}")
+        if period > self.period:
+            return 0
+        slot = math.floor((t - self.period_t0) * self.fps + 0.5)
+        if slot <= self.last_slot:
+            raise _Reject("bad_timestamp", "timestamp is less than one frame period after the previous frame")
+        return slot
+
+    def admit(self, frame_id: int, t: float, period: int, slot: int) -> None:
+        self.last_id, self.last_t = frame_id, t
+        if period != self.period:
+            self.period, self.period_t0 = period, t
+        self.last_slot = slot
+        self.recent.append(frame_id)
+        self.recent_set.add(frame_id)
+        if len(self.recent) > self.recent_size:
+            self.recent_set.discard(self.recent.popleft())
+
+
+@dataclass
+class DecodeResult:
+    block: Block
+    errors: list[FrameError]
+    rejected: int = 0
+    duplicates: int = 0
+    late: int = 0
+
+
+class _Reject(Exception):
+    def __init__(self, code: str, message: str) -> None:
+        self.code, self.message = code, message
+
+
+_NUM = (float, int)
+
+
+def _timestamp(value: Any) -> float:
+    if type(value) is not str or len(value) < 20 or value[10] not in "Tt ":
+        raise _Reject("bad_timestamp", f"timestamp {value!r} is not an RFC 3339 date-time")
+    try:
+        dt = datetime.fromisoformat(value)
+    except ValueError:
+        raise _Reject("bad_timestamp", f"timestamp {value!r} is not an RFC 3339 date-time") from None
+    if dt.tzinfo is None:
+        raise _Reject("bad_timestamp", f"timestamp {value!r} has no UTC offset")
+    return dt.timestamp()
+
+
+class FrameDecoder:
+    """Decodes CDF frames for one match into blocks for the engine."""
+
+    def __init__(self, roster: Roster, outside_margin_m: float = 12.5, recent_ids: int = 512) -> None:
+        self.roster = roster
+        self.gate = FrameGate(fps=roster.fps, recent_size=recent_ids)
+        self.x_lim = roster.pitch_length_m / 2 + outside_margin_m
+        self.y_lim = roster.pitch_width_m / 2 + outside_margin_m
+        self._team_index = {tid: i for i, tid in enumerate(roster.team_ids)}
+
+    def decode_lines(self, lines: Iterable[bytes | str], first_line: int = 1) -> DecodeResult:
+        """JSON Lines (one frame per line); blank lines are skipped."""
+        objs: list[Any] = []
+        numbers: list[int] = []
+        errors: list[FrameError] = []
+        for i, line in enumerate(lines, start=first_line):
+            if not line.strip():
+                continue
+            try:
+                objs.append(orjson.loads(line))
+                numbers.append(i)
+            except orjson.JSONDecodeError as exc:
+                errors.append(FrameError("bad_json", f"not valid JSON: {exc}", None, i))
+        result = self.decode_objects(objs, numbers)
+        result.errors[:0] = errors
+        result.rejected += len(errors)
+        return result
+
+    def decode_message(self, data: bytes | str) -> DecodeResult:
+        """One WebSocket message: a frame object or a JSON array of frames."""
+        try:
+            obj = orjson.loads(data)
+        except orjson.JSONDecodeError as exc:
+            return DecodeResult(Block.empty(self.roster.n), [FrameError("bad_json", f"not valid JSON: {exc}")], rejected=1)
+        if isinstance(obj, list):
+            return self.decode_objects(obj)
+        return self.decode_objects([obj])
+
+    def decode_objects(self, objs: Sequence[Any], lines: Sequence[int] | None = None) -> DecodeResult:
+        n_players = self.roster.n
+        fids: list[int] = []
+        ts: list[float] = []
+        periods: list[int] = []
+        slots: list[int] = []
+        balls: list[int] = []
+        poss: list[int] = []
+        # Flat (frame, player, x, y) samples of accepted frames.
+        s_f: list[int] = []
+        s_p: list[int] = []
+        s_x: list[float] = []
+        s_y: list[float] = []
+        errors: list[FrameError] = []
+        res = DecodeResult(Block.empty(n_players), errors)
+        gate = self.gate
+        for k, obj in enumerate(objs):
+            line = lines[k] if lines is not None else None
+            fid = obj.get("frame_id") if type(obj) is dict else None
+            fid_known = fid if type(fid) is int else None
+            mark = len(s_f)
+            try:
+                if type(obj) is not dict:
+                    raise _Reject("bad_type", f"a frame must be a JSON object, got {type(obj).__name__}")
+                if fid_known is None:
+                    raise _Reject("missing_field" if fid is None else "bad_type", "frame_id must be an integer")
+                t = self._check_frame(obj)
+                if fid <= gate.last_id:
+                    if fid in gate.recent_set:
+                        res.duplicates += 1
+                        errors.append(FrameError("duplicate", f"frame {fid} was already applied", fid, line))
+                    else:
+                        res.late += 1
+                        errors.append(FrameError("late", f"frame {fid} arrived after frame {gate.last_id}", fid, line))
+                    continue
+                if t < gate.last_t:
+                    raise _Reject("bad_timestamp", "timestamp goes back in time")
+                period = PERIOD_INDEX[obj["period"]]
+                slot = gate.slot_of(period, t)
+                row = len(fids)
+                for side in (0, 1):
+                    self._players(obj["teams"][("home", "away")[side]], side, row, s_f, s_p, s_x, s_y)
+                ball, team = self._ball(obj.get("ball"))
+            except _Reject as rej:
+                del s_f[mark:], s_p[mark:], s_x[mark:], s_y[mark:]
+                res.rejected += 1
+                errors.append(FrameError(rej.code, rej.message, fid_known, line))
+                continue
+            fids.append(fid)
+            ts.append(t)
+            periods.append(period)
+            slots.append(slot)
+            balls.append(ball)
+            poss.append(team)
+            gate.admit(fid, t, period, slot)
+        n = len(fids)
+        if n:
+            xy = np.full((n, n_players, 2), np.nan)
+            if s_f:
+                f = np.asarray(s_f)
+                p = np.asarray(s_p)
+                xy[f, p, 0] = s_x
+                xy[f, p, 1] = s_y
+            res.block = Block(
+                frame_id=np.asarray(fids, np.int64), t=np.asarray(ts, np.float64),
+                period=np.asarray(periods, np.int8), slot=np.asarray(slots, np.int64), xy=xy,
+                ball=np.asarray(balls, np.int8), poss=np.asarray(poss, np.int8),
+            )
+        return res
+
+    def _check_frame(self, obj: dict[str, Any]) -> float:
+        for key in ("timestamp", "period", "teams"):
+            if key not in obj:
+                raise _Reject("missing_field", f"missing required field {key!r}")
+        period = obj["period"]
+        if type(period) is not str or period not in PERIOD_INDEX:
+            raise _Reject("bad_value", f"period {period!r} is not one of {', '.join(PERIODS)}")
+        match = obj.get("match")
+        if match is not None:
+            mid = match.get("id") if type(match) is dict else None
+            if mid != self.roster.match_id:
+                raise _Reject("wrong_match", f"match.id {mid!r} is not {self.roster.match_id!r}")
+        teams = obj["teams"]
+        if type(teams) is not dict or "home" not in teams or "away" not in teams:
+            raise _Reject("missing_field", "teams must hold 'home' and 'away'")
+        for side, tid in zip(("home", "away"), self.roster.team_ids):
+            team = teams[side]
+            if type(team) is not dict:
+                raise _Reject("bad_type", f"teams.{side} must be an object")
+            got = team.get("id", tid)
+            if got != tid:
+                raise _Reject("unknown_team", f"teams.{side}.id {got!r} is not {tid!r}")
+            if type(team.get("players")) is not list:
+                raise _Reject("missing_field" if "players" not in team else "bad_type", f"teams.{side}.players must be an array")
+        return _timestamp(obj["timestamp"])
+
+    def _players(self, team: dict[str, Any], side: int, row: int,
+                 s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> None:
+        index = self.roster.index
+        players = self.roster.players
+        x_lim, y_lim = self.x_lim, self.y_lim
+        for pl in team["players"]:
+            if type(pl) is not dict:
+                raise _Reject("bad_type", "a player entry must be an object")
+            pid = pl.get("id")
+            i = index.get(pid)  # type: ignore[arg-type]
+            if i is None:
+                raise _Reject("unknown_player", f"player {pid!r} is not in the match sheet")
+            if players[i].team != side:
+                raise _Reject("unknown_player", f"player {pid!r} is listed under the other team")
+            x = pl.get("x")
+            y = pl.get("y")
+            if x is None or y is None:
+                if "x" not in pl or "y" not in pl:
+                    raise _Reject("missing_field", f"player {pid!r} lacks x or y")
+                continue  # null: not seen this frame (the schema allows it)
+            if type(x) not in _NUM or type(y) not in _NUM:
+                raise _Reject("bad_type", f"player {pid!r} x/y must be numbers")
+            if not (-x_lim <= x <= x_lim and -y_lim <= y <= y_lim):
+                raise _Reject("out_of_pitch", f"player {pid!r} at ({x}, {y}) is far outside the pitch")
+            s_f.append(row)
+            s_p.append(i)
+            s_x.append(x)
+            s_y.append(y)
+
+    def _ball(self, ball: Any) -> tuple[int, int]:
+        if ball is None:
+            return BALL_UNKNOWN, NO_TEAM
+        if type(ball) is not dict:
+            raise _Reject("bad_type", "ball must be an object")
+        status = ball.get("status")
+        if status is None:
+            state = BALL_UNKNOWN
+        elif type(status) is bool:
+            state = BALL_IN if status else BALL_OUT
+        else:
+            raise _Reject("bad_type", "ball.status must be a boolean")
+        team = NO_TEAM
+        tid = ball.get("poss_team_id")
+        if tid is not None:
+            team = self._team_index.get(tid, -2)
+            if team == -2:
+                raise _Reject("unknown_team", f"ball.poss_team_id {tid!r} is neither team")
+        return state, team
