@@ -105,7 +105,8 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[s
         for m in last_min:
             start = max(stop - m * 60, 0)
             sums = b.span(start, stop)
-            span = np.clip(stop - np.maximum(start, first_sec), 0, None).astype(float)
+            covered = b.covered_s(start, stop)
+            span = np.clip(covered - np.clip(first_sec - start, 0, None), 0, None).astype(float)
             team_last[m] = sums
             key = f"last_{m}min"
             for i in range(n):
@@ -132,7 +133,7 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[s
             if s0 >= bins.complete:
                 continue
             sums = bins.span(s0, s1)
-            span = float(min(s1, bins.complete) - s0)
+            span = bins.covered_s(s0, s1)
             for i in range(n):
                 windows[i][key] = _window(sums[i], span)
 
@@ -184,7 +185,7 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[s
         if cur is not None:
             stop = cur.bins.complete
             for m, sums in team_last.items():
-                span = float(stop - max(stop - m * 60, 0))
+                span = cur.bins.covered_s(stop - m * 60, stop)
                 tw[f"last_{m}min"] = _window(sums[mask].sum(axis=0), span)
         outfield["windows"] = tw
         teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "outfield": outfield}

@@ -20,6 +20,7 @@ class SecondBins:
         self.partial = np.zeros((n_players, N_FIG), np.int64)  # the second in progress
         self.partial_sec = 0
         self.complete = 0  # seconds fully final
+        self.end_slot = 0  # one past the last final slot
         self.peak_s = peak_s
         self.peak = {w: np.full((n_players, N_FIG), -1, np.int64) for w in peak_s}
         self.peak_start = {w: np.full(n_players, -1, np.int64) for w in peak_s}
@@ -30,6 +31,7 @@ class SecondBins:
         if n == 0:
             return
         fps = self.fps
+        self.end_slot = slot0 + n
         s_first = slot0 // fps
         s_last = (slot0 + n - 1) // fps
         if s_first > self.partial_sec:
@@ -95,6 +97,13 @@ class SecondBins:
             better = sums[arg, np.arange(self.n), DIST] > self.peak[w][:, DIST]
             self.peak_start[w] = np.where(better, lo + arg - w, self.peak_start[w])
             np.maximum(self.peak[w], best, out=self.peak[w])
+
+    def covered_s(self, start: int, stop: int) -> float:
+        """Seconds of final data in complete seconds [start, stop): the last
+        second of an ended period may be partial."""
+        start = min(max(start, 0), self.complete)
+        stop = min(max(stop, start), self.complete)
+        return max(min(stop * self.fps, self.end_slot) - start * self.fps, 0) / self.fps
 
     def span(self, start: int, stop: int) -> np.ndarray:
         """Sum over complete seconds [start, stop) → (P, F)."""
