@@ -378,6 +378,11 @@ class FrameDecoder:
                 res.rejected += 1
                 errors.append(FrameError(rej.code, rej.message, fid_known, line))
                 continue
+            except Exception as exc:  # a shape no rule above foresaw: still a clear rejection
+                del s_f[mark:], s_p[mark:], s_x[mark:], s_y[mark:]
+                res.rejected += 1
+                errors.append(FrameError("bad_frame", f"frame could not be read: {type(exc).__name__}: {exc}", fid_known, line))
+                continue
             fids.append(fid)
             ts.append(t)
             periods.append(period)
@@ -435,7 +440,9 @@ class FrameDecoder:
             if type(pl) is not dict:
                 raise _Reject("bad_type", "a player entry must be an object")
             pid = pl.get("id")
-            i = index.get(pid)  # type: ignore[arg-type]
+            if type(pid) is not str:
+                raise _Reject("bad_type" if "id" in pl else "missing_field", "a player entry needs a string id")
+            i = index.get(pid)
             if i is None:
                 raise _Reject("unknown_player", f"player {pid!r} is not in the match sheet")
             if players[i].team != side:
@@ -470,6 +477,8 @@ class FrameDecoder:
         team = NO_TEAM
         tid = ball.get("poss_team_id")
         if tid is not None:
+            if type(tid) is not str:
+                raise _Reject("bad_type", "ball.poss_team_id must be a string")
             team = self._team_index.get(tid, -2)
             if team == -2:
                 raise _Reject("unknown_team", f"ball.poss_team_id {tid!r} is neither team")

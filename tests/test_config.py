@@ -1,0 +1,58 @@
+"""Configuration: defaults load, a user file overrides, invalid values name their key."""
+from __future__ import annotations
+
+import pytest
+
+from service.config import DEFAULT_PATH, ConfigError, load_settings
+
+
+def test_defaults_carry_the_design_thresholds():
+    s = load_settings()
+    # DESIGN §4: Bradley et al. 2009 / Di Salvo et al. 2009 bands, Akenhead et al. 2013 accel band
+    assert (s.speed.hsr_ms, s.speed.sprint_ms) == (5.5, 7.0)
+    assert (s.efforts.accel_ms2, s.efforts.decel_ms2) == (3.0, -3.0)
+    assert s.metabolic.model == "osgnach2010" and s.metabolic.kt == 1.29
+    assert s.kinematics.max_step_speed_ms == 12.5
+
+
+def test_every_default_key_has_a_source_comment():
+    lines = DEFAULT_PATH.read_text().splitlines()
+    for i, line in enumerate(lines):
+        if "=" in line and not line.lstrip().startswith("#"):
+            above = lines[i - 1].strip() if i else ""
+            assert above.startswith("#"), f"config/default.toml line {i + 1} ({line.strip()}) has no comment above it"
+
+
+def test_user_file_overrides_one_key(tmp_path):
+    f = tmp_path / "club.toml"
+    f.write_text('[speed]\nhsr_ms = 5.8\n[metabolic]\nmodel = "diprampero2018"\n')
+    s = load_settings(f)
+    assert s.speed.hsr_ms == 5.8 and s.speed.sprint_ms == 7.0
+    assert s.metabolic.model == "diprampero2018"
+
+
+@pytest.mark.parametrize("text,key", [
+    ("[speed]\nhsr_ms = -1\n", "speed.hsr_ms"),
+    ("[speed]\nsprint_ms = 5.0\n", "speed"),
+    ("[kinematics]\nsmooth_order = 9\n", "kinematics.smooth_order"),
+    ('[metabolic]\nmodel = "guess"\n', "metabolic.model"),
+    ("[zones]\nedges_ms = [4.0, 2.0]\n", "zones"),
+    ("[speed]\nhrs_ms = 5.0\n", "speed.hrs_ms"),
+    ('[windows]\nlast_min = "five"\n', "windows.last_min"),
+])
+def test_invalid_value_names_the_key(tmp_path, text, key):
+    f = tmp_path / "bad.toml"
+    f.write_text(text)
+    with pytest.raises(ConfigError) as exc:
+        load_settings(f)
+    assert key in str(exc.value)
+    assert str(f) in str(exc.value)
+
+
+def test_unreadable_or_broken_file(tmp_path):
+    with pytest.raises(ConfigError, match="cannot read"):
+        load_settings(tmp_path / "missing.toml")
+    f = tmp_path / "broken.toml"
+    f.write_text("[speed\n")
+    with pytest.raises(ConfigError, match="not valid TOML"):
+        load_settings(f)
