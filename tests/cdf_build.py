@@ -89,3 +89,34 @@ def write_folder(folder: Path, meta_obj: dict, sheet_obj: dict, frame_objs: list
     else:
         (folder / "tracking.jsonl").write_bytes(body)
     return folder
+
+
+def meta_with_rosters(meta_obj: dict[str, Any], sheet_obj: dict[str, Any]) -> dict[str, Any]:
+    """A copy of a meta object with each team's players copied from the sheet (the CDF
+    validator requires ``teams.*.players`` in meta; pacewire's live setup does not)."""
+    out = orjson.loads(orjson.dumps(meta_obj))
+    for side in ("home", "away"):
+        out["teams"][side]["players"] = [
+            {k: p[k] for k in ("id", "team_id", "jersey_number", "is_starter") if k in p}
+            for p in sheet_obj["teams"][side]["players"]
+        ]
+    return out
+
+
+def post_match_sheet(sheet_obj: dict[str, Any], match_id: str = "m_test", vendor: str = "pacewire tests") -> dict[str, Any]:
+    """A copy of a live sheet with the post-match fields the CDF validator requires
+    (match status and a goalless result, officials, empty events, meta.vendor,
+    ``has_played``): what a full-time match sheet holds. Fictional officials."""
+    out = orjson.loads(orjson.dumps(sheet_obj))
+    for side in ("home", "away"):
+        for p in out["teams"][side]["players"]:
+            p.setdefault("first_name", "Test")
+            p.setdefault("last_name", p["id"].upper())
+            p.setdefault("has_played", bool(p.get("is_starter", False)))
+    nil = {"home": 0, "away": 0}
+    out["match"] = {"id": match_id, "status": {"is_neutral": False, "has_extratime": False, "has_shootout": False},
+                    "result": {"final": {**nil, "winning_team_id": None}, "first_half": dict(nil), "second_half": dict(nil)}}
+    out["officials"] = [{"id": "o_ref", "type": "main_referee", "first_name": "Test", "last_name": "Referee"}]
+    out["events"] = {"goals": [], "substitutions": [], "cards": []}
+    out["meta"] = {"vendor": vendor}
+    return out
