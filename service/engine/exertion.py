@@ -98,26 +98,26 @@ def metabolic_power(speed: np.ndarray, accel: np.ndarray, p: ExertionParams) -> 
 class EffortCounter:
     """Counts runs of a condition held at least ``min_n`` samples; one run counts once.
 
-    The run length carries across calls, so a run split over blocks counts once.
+    Columns are independent, each with its own minimum; the run length carries
+    across calls, so a run split over blocks counts once.
     """
 
-    def __init__(self, n_players: int, min_n: int) -> None:
-        self.min_n = max(int(min_n), 1)
-        self.carry = np.zeros(n_players, np.int64)
+    def __init__(self, min_n: np.ndarray) -> None:
+        self.min_n = np.maximum(np.asarray(min_n, np.int64), 1)
+        self.carry = np.zeros(self.min_n.shape, np.int64)
 
     def reset(self) -> None:
         self.carry[:] = 0
 
     def step(self, cond: np.ndarray) -> np.ndarray:
-        """``cond`` (n, P) bool → (n, P) bool marking the sample where a run reaches ``min_n``."""
+        """``cond`` (n, C) bool → (n, C) bool marking the sample where a run reaches its minimum."""
         n = cond.shape[0]
         if n == 0:
             return cond
         rows = np.arange(1, n + 1)[:, None]
-        # index (1-based) of the last False at or before each row; 0 means none in this block
+        # (1-based) row of the last False at or before each row; 0: none in this block
         last_false = np.maximum.accumulate(np.where(cond, 0, rows), axis=0)
-        length = np.where(last_false == 0, rows + self.carry[None, :], rows - last_false)
-        length = np.where(cond, length, 0)
+        length = np.where(cond, rows - last_false + np.where(last_false == 0, self.carry, 0), 0)
         self.carry = length[-1].copy()
         return length == self.min_n
 
@@ -125,44 +125,42 @@ class EffortCounter:
 class Exertion:
     """Turns final kinematic samples into the figure matrix for one period."""
 
-    def __init__(self, params: ExertionParams, n_players: int, zone_edges: np.ndarray) -> None:
+    def __init__(self, params: ExertionParams, n_players: int, zone_edges: np.ndarray, zone_scale: np.ndarray) -> None:
         self.p = params
         self.dt = 1.0 / params.fps
         self.n = n_players
-        # zone_edges: (P, Z-1) per-player band edges, m/s
+        # band of a sample: searchsorted(zone_edges, speed / zone_scale[player])
         self.zone_edges = zone_edges
-        self.n_zones = zone_edges.shape[1] + 1
-        self.hsr = EffortCounter(n_players, params.speed_min_n)
-        self.spr = EffortCounter(n_players, params.speed_min_n)
-        self.acc = EffortCounter(n_players, params.accel_min_n)
-        self.dec = EffortCounter(n_players, params.accel_min_n)
+        self.inv_scale = 1.0 / zone_scale
+        self.n_zones = zone_edges.shape[0] + 1
+        # one counter for HSR, sprint, accel, decel runs of every player: columns (4, P)
+        mins = np.repeat([params.speed_min_n, params.speed_min_n, params.accel_min_n, params.accel_min_n], n_players)
+        self.efforts = EffortCounter(mins)
 
     def reset(self) -> None:
-        for c in (self.hsr, self.spr, self.acc, self.dec):
-            c.reset()
+        self.efforts.reset()
 
     def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray
-             ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """Returns (figures (n, P, N_FIG) int64 micro-units/counts, zone distance (n, P) µm,
+             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Returns (figures (n, P, N_FIG) int64 in micro-units or counts,
         zone index (n, P), metabolic power (n, P) W/kg)."""
         p = self.p
-        dt = self.dt
         n = speed.shape[0]
-        dist_um = np.rint(speed * (dt * MICRO)).astype(np.int64)
-        power = np.where(valid, metabolic_power(speed, accel, p), 0.0)
-        fig = np.zeros((n, self.n, N_FIG), np.int64)
-        fig[..., DIST] = dist_um
+        dist_um = np.rint(speed * (self.dt * MICRO)).astype(np.int64)
+        power = metabolic_power(speed, accel, p)
+        power[~valid] = 0.0
         in_hsr = valid & (speed >= p.hsr_ms)
         in_spr = valid & (speed >= p.sprint_ms)
-        fig[..., HSR] = np.where(in_hsr & ~in_spr, dist_um, 0)
-        fig[..., SPRINT] = np.where(in_spr, dist_um, 0)
-        fig[..., ENERGY] = np.rint(power * (dt * MICRO)).astype(np.int64)
-        fig[..., HIPOW] = np.where(power > p.high_power_wkg, dist_um, 0)
-        fig[..., N_HSR] = self.hsr.step(in_hsr)
-        fig[..., N_SPR] = self.spr.step(in_spr)
-        fig[..., N_ACC] = self.acc.step(valid & (accel >= p.accel_ms2))
-        fig[..., N_DEC] = self.dec.step(valid & (accel <= p.decel_ms2))
+        conds = np.concatenate([in_hsr, in_spr, valid & (accel >= p.accel_ms2), valid & (accel <= p.decel_ms2)], axis=1)
+        counts = self.efforts.step(conds).reshape(n, 4, self.n)
+        fig = np.empty((n, self.n, N_FIG), np.int64)
+        fig[..., DIST] = dist_um
+        fig[..., HSR] = dist_um * (in_hsr & ~in_spr)
+        fig[..., SPRINT] = dist_um * in_spr
+        fig[..., ENERGY] = np.rint(power * (self.dt * MICRO))
+        fig[..., HIPOW] = dist_um * (power > p.high_power_wkg)
+        fig[..., N_HSR:N_DEC + 1] = counts.transpose(0, 2, 1)
         fig[..., VALID] = valid
         fig[..., SEEN] = seen
-        zone = (speed[..., None] >= self.zone_edges[None, :, :]).sum(axis=2)
-        return fig, dist_um, zone, power
+        zone = np.searchsorted(self.zone_edges, speed * self.inv_scale, side="right")
+        return fig, zone, power

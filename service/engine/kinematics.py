@@ -118,7 +118,7 @@ class Track:
             np.stack([savgol_coeffs(w, params.order, deriv=d, delta=self.dt, pos=j, use="dot") for j in range(w)])
             for d in range(3)
         ])
-        self._centre = np.ascontiguousarray(self._coef[:, h, :].T)  # (W, 3)
+        self._band: dict[int, np.ndarray] = {}  # banded matrices of the centred fit, by row count
         self.base = 0  # slot of buf[0]
         self.buf = np.full((0, n_players, 2), np.nan)
         self.end = 0  # one past the last slot received
@@ -296,20 +296,45 @@ class Track:
         p = self.p
         if self.fin - p.half - max(self.cut, self.base) < 0 or self.end - self.cut < p.context:
             return None
-        seen = ~np.isnan(self.buf[:, :, 0])
+        buf = self.buf
+        seen = ~np.isnan(buf[:, :, 0])
         cols = seen[0]
         if not (seen == cols).all():
             return None
-        d = np.diff(self.buf[:, cols], axis=0)
+        d = buf[1:] - buf[:-1]  # unseen players give NaN, which compares False
         lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
-        if (d[..., 0] ** 2 + d[..., 1] ** 2 > lim * lim).any():
+        if ((d * d).sum(axis=2) > lim * lim).any():
             return None
         return cols
 
-    def _smooth_clean(self, r0: int, r1: int, cols: np.ndarray) -> Final:
+    _CHUNK = 64  # rows per banded product: small enough that the band matrix stays cheap
+
+    def _band_matrix(self, n: int) -> np.ndarray:
+        """(3n, n + 2h): row d*n + i holds derivative d's centred coefficients for output row i."""
+        m = self._band.get(n)
+        if m is None:
+            w = self.p.window
+            m = np.zeros((3, n, n + w - 1))
+            for i in range(n):
+                m[:, i, i:i + w] = self._coef[:, self.p.half, :]
+            m = m.reshape(3 * n, n + w - 1)
+            self._band[n] = m
+        return m
+
+    def _centred(self, src: np.ndarray, r0: int, r1: int) -> np.ndarray:
+        """Centred fit for rows r0..r1 of ``src`` (rows r0-h .. r1+h-1 must exist)
+        as one matrix product per chunk → (3, n, P, 2): position, velocity, acceleration."""
         h = self.p.half
-        win = sliding_window_view(self.buf, self.p.window, axis=0)
-        res = win[r0 - h: r1 - h] @ self._centre
+        out = np.empty((3, r1 - r0, self.n, 2))
+        for a in range(r0, r1, self._CHUNK):
+            b = min(a + self._CHUNK, r1)
+            k = b - a
+            rows = src[a - h: b + h].reshape(k + 2 * h, self.n * 2)
+            out[:, a - r0: b - r0] = (self._band_matrix(k) @ rows).reshape(3, k, self.n, 2)
+        return out
+
+    def _smooth_clean(self, r0: int, r1: int, cols: np.ndarray) -> Final:
+        res = self._centred(self.buf, r0, r1)
         return self._finish(r0, r1, np.broadcast_to(cols, (r1 - r0, self.n)), res)
 
     def _smooth(self, r0: int, r1: int, valid: np.ndarray, kept: np.ndarray, run_s: np.ndarray,
@@ -323,24 +348,23 @@ class Track:
         # window start inside the run; rows with j != h use a one-sided fit
         w0 = np.clip(rows - h, run_s[r0:r1], run_e[r0:r1] - 2 * h)
         j = rows - w0
-        # pad so that centred windows near the buffer ends exist (their values are unused)
-        pad = np.full((h, self.n, 2), np.nan)
-        win = sliding_window_view(np.concatenate([pad, xyb, pad]), w, axis=0)  # (rows + 2h - W + 1, P, 2, W)
-        centred = win[r0:r1]  # padded row r0 + h is buffer row r0: window starts at row - h
-        res = centred @ self._centre  # (n, P, 2, 3)
+        # pad so that centred windows near the buffer ends exist; unseen values
+        # become 0 (rows whose window holds one use a one-sided fit or are invalid)
+        pad = np.zeros((h, self.n, 2))
+        src = np.concatenate([pad, np.where(np.isnan(xyb), 0.0, xyb), pad])
+        res = self._centred(src, r0 + h, r1 + h)
         edge = v & (j != h)
         if edge.any():
+            win = sliding_window_view(src, w, axis=0)  # padded row i + h is buffer row i
             ei, ep = np.nonzero(edge)
             ew = win[w0[ei, ep] + h, ep]  # (m, 2, W)
             ec = self._coef[:, j[ei, ep], :]  # (3, m, W)
-            res[ei, ep] = np.einsum("mcw,dmw->mcd", ew, ec)
+            res[:, ei, ep] = np.einsum("mcw,dmw->dmc", ew, ec)
         return self._finish(r0, r1, v, res, kept[r0:r1])
 
     def _finish(self, r0: int, r1: int, v: np.ndarray, res: np.ndarray, kept: np.ndarray | None = None) -> Final:
         p = self.p
-        pos = res[..., 0]
-        vel = res[..., 1]
-        acc = res[..., 2]
+        pos, vel, acc = res
         speed = np.hypot(vel[..., 0], vel[..., 1])
         moving = speed > p.still_speed_ms
         tang = (vel[..., 0] * acc[..., 0] + vel[..., 1] * acc[..., 1]) / np.where(moving, speed, 1.0)

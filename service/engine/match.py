@@ -79,7 +79,7 @@ class MatchState:
         self.n = roster.n
         self.team = roster.team_of()
         self.gk = roster.goalkeepers()
-        self.zone_edges, self.zone_names = _zone_edges(roster, settings)
+        self.zone_edges, self.zone_scale, self.zone_names = _zone_edges(roster, settings)
         self.peak_s = [m * 60 for m in s.windows.peak_min]
         self.timeout_slots = int(round(s.health.on_pitch_timeout_s * fps))
         self.periods: list[_Period] = []
@@ -150,9 +150,9 @@ class MatchState:
     def _start(self, idx: int, t0: float) -> _Period:
         n = self.n
         per = _Period(
-            index=idx, t0=t0, track=Track(self.kin, n), exertion=Exertion(self.exp, n, self.zone_edges),
+            index=idx, t0=t0, track=Track(self.kin, n), exertion=Exertion(self.exp, n, self.zone_edges, self.zone_scale),
             bins=SecondBins(self.fps, n, self.peak_s),
-            sums=np.zeros((n, ex.N_FIG), np.int64), zones=np.zeros((n, self.zone_edges.shape[1] + 1), np.int64),
+            sums=np.zeros((n, ex.N_FIG), np.int64), zones=np.zeros((n, self.zone_edges.shape[0] + 1), np.int64),
             poss=np.zeros((n, 3, 2), np.int64), max_speed=np.zeros(n), first_seen=np.full(n, -1, np.int64),
             last_seen=np.full(n, -1, np.int64), off_slots=np.zeros(n, np.int64), last_valid=np.full(n, -1, np.int64),
             last_speed=np.zeros(n), ball=np.full(1024, BALL_UNKNOWN, np.int8), poss_team=np.full(1024, NO_TEAM, np.int8),
@@ -187,51 +187,60 @@ class MatchState:
     # -- accumulation ----------------------------------------------------------------
     def _apply(self, per: _Period, fin: Final) -> None:
         n = len(fin)
-        fig, dist_um, zone, _power = per.exertion.step(fin.valid, fin.seen, fin.speed, fin.accel)
-        per.sums += fig.sum(axis=0)
+        fig, zone, _power = per.exertion.step(fin.valid, fin.seen, fin.speed, fin.accel)
+        secs = per.bins.add(fin.slot0, fig)
+        per.sums += secs.sum(axis=0)
         nz = per.zones.shape[1]
         cols = np.arange(self.n)
-        per.zones += np.bincount((zone * self.n + cols).ravel(), weights=dist_um.ravel(),
-                                 minlength=nz * self.n).reshape(nz, self.n).T.astype(np.int64)
-        per.bins.add(fin.slot0, fig)
-        sp = np.where(fin.valid, fin.speed, 0.0)
-        np.maximum(per.max_speed, sp.max(axis=0), out=per.max_speed)
-        slots = np.arange(fin.slot0, fin.slot0 + n)
+        flat = (cols * nz + zone).ravel()
+        per.zones += np.bincount(flat, weights=fig[..., ex.DIST].ravel(), minlength=nz * self.n).reshape(self.n, nz).astype(np.int64)
+        np.maximum(per.max_speed, fin.speed.max(axis=0), out=per.max_speed)
         # latest credited sample
-        lv = np.where(fin.valid, slots[:, None], -1).max(axis=0)
-        got = lv >= 0
-        per.last_valid = np.where(got, lv, per.last_valid)
-        per.last_speed = np.where(got, fin.speed[np.clip(lv - fin.slot0, 0, n - 1), cols], per.last_speed)
-        self._onpitch(per, fin.seen, slots)
+        last_row = n - 1 - np.argmax(fin.valid[::-1], axis=0)
+        got = fin.valid[last_row, cols]
+        per.last_valid = np.where(got, fin.slot0 + last_row, per.last_valid)
+        per.last_speed = np.where(got, fin.speed[last_row, cols], per.last_speed)
+        self._onpitch(per, fin.seen, fin.slot0)
         if self.has_ball:
-            self._possession(per, fin, fig, slots)
+            self._possession(per, fin, fig)
 
-    def _onpitch(self, per: _Period, seen: np.ndarray, slots: np.ndarray) -> None:
+    def _onpitch(self, per: _Period, seen: np.ndarray, slot0: int) -> None:
         """On the pitch from first to last seen sample; gaps longer than the
         on-pitch timeout count as off the pitch (substituted, sent off)."""
-        idx = np.where(seen, slots[:, None], -1)
-        if not (idx >= 0).any():
+        n = seen.shape[0]
+        anyseen = seen.any(axis=0)
+        if not anyseen.any():
             return
-        run = np.maximum.accumulate(np.vstack([per.last_seen[None, :], idx]), axis=0)
-        prev = run[:-1]  # latest seen before each row
-        gap = np.where(seen & (prev >= 0), slots[:, None] - prev - 1, 0)
-        per.off_slots += np.where(gap > self.timeout_slots, gap, 0).sum(axis=0)
-        first = np.where(seen, slots[:, None], np.iinfo(np.int64).max).min(axis=0)
-        per.first_seen = np.where((per.first_seen < 0) & (first < np.iinfo(np.int64).max), first, per.first_seen)
-        per.last_seen = run[-1]
+        first_row = np.argmax(seen, axis=0)
+        last_row = n - 1 - np.argmax(seen[::-1], axis=0)
+        # gap before this chunk's first seen sample, from the last one seen before it
+        lead = np.where(anyseen & (per.last_seen >= 0), slot0 + first_row - per.last_seen - 1, 0)
+        off = np.where(lead > self.timeout_slots, lead, 0)
+        if not seen[:, anyseen].all():
+            # gaps inside the chunk (rare: dropouts): previous seen row of each seen row
+            rows = np.arange(n)[:, None]
+            prev = np.maximum.accumulate(np.where(seen, rows, -1), axis=0)
+            prev = np.vstack([np.full((1, self.n), -1), prev[:-1]])
+            gap = np.where(seen & (prev >= 0), rows - prev - 1, 0)
+            off = off + np.where(gap > self.timeout_slots, gap, 0).sum(axis=0)
+        per.off_slots += off
+        per.first_seen = np.where((per.first_seen < 0) & anyseen, slot0 + first_row, per.first_seen)
+        per.last_seen = np.where(anyseen, slot0 + last_row, per.last_seen)
 
-    def _possession(self, per: _Period, fin: Final, fig: np.ndarray, slots: np.ndarray) -> None:
+    def _possession(self, per: _Period, fin: Final, fig: np.ndarray) -> None:
+        """Distance and HSR split by ball context: in possession, out of possession, out of play."""
+        slots = slice(fin.slot0, fin.slot0 + len(fin))
         ball = per.ball[slots][:, None]
         poss = per.poss_team[slots][:, None]
-        team = self.team[None, :]
-        ctx = (
-            (ball == BALL_IN) & (poss == team),
-            (ball == BALL_IN) & (poss != team) & (poss != NO_TEAM),
-            ball == BALL_OUT,
-        )
-        for k, m in enumerate(ctx):
-            per.poss[:, k, 0] += np.where(m, fig[..., ex.DIST], 0).sum(axis=0)
-            per.poss[:, k, 1] += np.where(m, fig[..., ex.HSR], 0).sum(axis=0)
+        own = poss == self.team[None, :]
+        # context 0 in, 1 out of possession, 2 out of play, 3 unknown
+        ctx = np.where(ball == BALL_OUT, 2, np.where(ball != BALL_IN, 3, np.where(own, 0, np.where(poss == NO_TEAM, 3, 1))))
+        flat = (np.arange(self.n) * 4 + ctx).ravel()
+        size = 4 * self.n
+        d = np.bincount(flat, weights=fig[..., ex.DIST].ravel(), minlength=size).reshape(self.n, 4)
+        h = np.bincount(flat, weights=fig[..., ex.HSR].ravel(), minlength=size).reshape(self.n, 4)
+        per.poss[:, :, 0] += d[:, :3].astype(np.int64)
+        per.poss[:, :, 1] += h[:, :3].astype(np.int64)
 
     # -- output ------------------------------------------------------------------------
     def match_time_s(self) -> float:
@@ -290,14 +299,15 @@ class MatchState:
         return build_snapshot(self, now, extra_reasons)
 
 
-def _zone_edges(roster: Roster, s: Settings) -> tuple[np.ndarray, list[str]]:
-    """Per-player speed band edges (P, Z-1), m/s, and the band names."""
+def _zone_edges(roster: Roster, s: Settings) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    """Speed band edges, per-player scale (a sample's band is searchsorted(edges,
+    speed / scale)) and band names."""
     z = s.zones
     if z.mode == "absolute":
         edges = np.array(z.edges_ms, float)
         names = [f"{a:.1f}-{b:.1f}" for a, b in zip([0.0, *edges[:-1]], edges)] + [f"{edges[-1]:.1f}+"]
-        return np.tile(edges, (roster.n, 1)), names
+        return edges, np.ones(roster.n), names
     pct = np.array(z.edges_pct, float)
     vmax = np.array([z.max_speed_ms.get(p.id) or p.max_speed_ms or z.default_max_speed_ms for p in roster.players])
     names = [f"{a:g}-{b:g}%" for a, b in zip([0.0, *pct[:-1]], pct)] + [f"{pct[-1]:g}%+"]
-    return vmax[:, None] * pct[None, :] / 100.0, names
+    return pct, vmax / 100.0, names

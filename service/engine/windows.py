@@ -25,11 +25,10 @@ class SecondBins:
         self.peak = {w: np.full((n_players, N_FIG), -1, np.int64) for w in peak_s}
         self.peak_start = {w: np.full(n_players, -1, np.int64) for w in peak_s}
 
-    def add(self, slot0: int, fig: np.ndarray) -> None:
-        """Add final rows starting at ``slot0`` (contiguous slots)."""
+    def add(self, slot0: int, fig: np.ndarray) -> np.ndarray:
+        """Add final rows starting at ``slot0`` (contiguous slots); returns their
+        per-second sums (seconds touched, P, F)."""
         n = fig.shape[0]
-        if n == 0:
-            return
         fps = self.fps
         self.end_slot = slot0 + n
         s_first = slot0 // fps
@@ -37,7 +36,8 @@ class SecondBins:
         if s_first > self.partial_sec:
             self._close_to(s_first)
         if s_first == s_last:
-            self.partial += fig.sum(axis=0)
+            sums = fig.sum(axis=0)[None]
+            self.partial += sums[0]
         else:
             starts = np.arange(s_first + 1, s_last + 1) * fps - slot0
             sums = np.add.reduceat(fig, np.concatenate(([0], starts)), axis=0)
@@ -49,6 +49,7 @@ class SecondBins:
             self.partial = sums[-1].copy()
         if (slot0 + n) % fps == 0:
             self._close_to(s_last + 1)
+        return sums
 
     def finish(self) -> None:
         """The period ended: the second in progress counts as complete."""
