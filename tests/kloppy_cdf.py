@@ -115,14 +115,62 @@ def _players(team: Any) -> list[dict[str, Any]]:
     return out
 
 
+def play_directions(dataset: "TrackingDataset") -> dict[int, str]:
+    """Home team's direction of play per kloppy period id: "left_right" or "right_left".
+
+    From the data where the period has frames (the home team's mean x in its first frame:
+    a team starts a period in its own half, Laws of the Game), else from kloppy's
+    orientation, else by alternation from a known period (teams change ends at half time).
+    Needs a dataset in CDF coordinates.
+    """
+    from kloppy.domain import Ground, Orientation
+
+    md = dataset.metadata
+    out: dict[int, str] = {}
+    for fr in dataset.frames:
+        pid = fr.period.id
+        if pid in out:
+            continue
+        xs = [float(d.coordinates.x) for pl, d in fr.players_data.items()
+              if pl.team.ground == Ground.HOME and d.coordinates is not None and _num(d.coordinates.x) is not None]
+        if xs:
+            out[pid] = "left_right" if sum(xs) / len(xs) < 0 else "right_left"
+    flip = {"left_right": "right_left", "right_left": "left_right"}
+    first = {Orientation.HOME_AWAY: "left_right", Orientation.AWAY_HOME: "right_left",
+             Orientation.STATIC_HOME_AWAY: "left_right", Orientation.STATIC_AWAY_HOME: "right_left"}
+    static = md.orientation in (Orientation.STATIC_HOME_AWAY, Orientation.STATIC_AWAY_HOME)
+    for per in md.periods:
+        if per.id in out:
+            continue
+        if md.orientation in first:
+            d = first[md.orientation]
+            out[per.id] = d if static or per.id % 2 == 1 else flip[d]
+        elif out:
+            known, d = next(iter(out.items()))
+            out[per.id] = d if (per.id - known) % 2 == 0 else flip[d]
+        else:
+            out[per.id] = "left_right"  # nothing to go on; irrelevant to load figures
+    return out
+
+
 def meta(dataset: "TrackingDataset", match_id: str | None = None) -> dict[str, Any]:
-    """CDF meta object (with rosters, so the CDF validator accepts it)."""
+    """CDF meta object (with rosters and play directions, so the CDF validator accepts it).
+
+    Needs a dataset in CDF coordinates (for the play directions).
+    """
     md = dataset.metadata
     length, width = pitch_size(dataset)
     mid = match_id or str(md.game_id or "kloppy_match")
+    directions = play_directions(dataset)
+    sides = dict(_sides(dataset))
     periods = []
     for per in md.periods:
         entry: dict[str, Any] = {"period": CDF_PERIODS[per.id]}
+        if CDF_PERIODS[per.id] != "shootout":
+            d = directions[per.id]
+            entry["play_direction"] = d
+            left, right = (sides["home"], sides["away"]) if d == "left_right" else (sides["away"], sides["home"])
+            entry["left_team_id"], entry["right_team_id"] = str(left.team_id), str(right.team_id)
         if per.start_timestamp is not None and per.end_timestamp is not None:
             entry["start_time"] = _stamp(_utc(per.start_timestamp))
             entry["end_time"] = _stamp(_utc(per.end_timestamp))
