@@ -10,12 +10,16 @@ from __future__ import annotations
 import argparse
 import importlib.util
 import json
+import os
 import platform
 import sys
 import time
 import traceback
 from datetime import datetime, timezone
 from pathlib import Path
+
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")  # one-core figures, before any benchmark loads numpy
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parents[1]
