@@ -373,6 +373,22 @@ def test_decoder_accepts_what_the_validator_accepts(frame):
             assert res.block.xy[0, state.roster.index[p["id"]]].tolist() == [p["x"], p["y"]]
 
 
+@pytest.mark.xfail(strict=True, reason="decoder bound is pitch/2 + outside_margin_m (service/wire/cdf.py "
+                   "FrameDecoder.__init__), the validator's is a fixed |x| <= 65, |y| <= 42.5: on a pitch shorter "
+                   "than 105 m the decoder rejects frames the validator accepts")
+def test_decoder_accepts_validator_bounds_on_a_smaller_legal_pitch():
+    import cdf
+
+    # Laws of the Game, Law 1: international pitches are 100-110 m x 64-75 m; take the minimum.
+    meta = cb.meta(venue={"id": "v_fict_small", "pitch_length": 100.0, "pitch_width": 64.0})
+    # the CDF validator's bounds (common.py X_MAX = 65, Y_MAX = 42.5)
+    frame = cb.frames(np.array([[[65.0, 0.0], [0.0, 42.5]]]), cb.player_ids(2, 0), 2)[0]
+    validate(cdf.TrackingSchemaValidator, frame)
+    _, dec = new_match(meta, cb.sheet(2, 0, gk=()), load_settings())
+    res = dec.decode_objects([frame])
+    assert res.rejected == 0, [e.message for e in res.errors]
+
+
 # --- real data: a 50 Hz optical sample shipped with kloppy 3.19.1 ---------------------------
 
 KLOPPY_SAMPLE = "hawkeye_2_46"  # 60 s at 50 Hz, 22 players + ball, provider speed and distance per sample
