@@ -61,6 +61,12 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("synth", help="write the synthetic demo match as a CDF folder", add_help=False)
     p.set_defaults(func=None, passthrough="synth")
 
+    from service.live import server
+
+    p = sub.add_parser("serve", help="run the live service")
+    server.add_arguments(p)
+    p.set_defaults(func=server.run)
+
     p = sub.add_parser("demo", help="generate the demo match, serve it and replay it")
     p.set_defaults(func=_not_yet("demo", "the live service and replay are still being built"))
     return parser

@@ -105,6 +105,18 @@ class Health(_Section):
     on_pitch_timeout_s: float = Field(gt=0, le=3600)
 
 
+class Server(_Section):
+    max_message_bytes: int = Field(ge=1024, le=64 * 1024 * 1024)
+    max_batch_frames: int = Field(ge=1, le=1_000_000)
+    max_subscribers: int = Field(ge=1, le=1_000_000)
+    resume_buffer_s: float = Field(ge=0, le=24 * 3600)
+    subscriber_queue: int = Field(ge=1, le=100_000)
+    fsync_interval_s: float = Field(gt=0, le=60)
+    health_check_s: float = Field(gt=0, le=10)
+    default_every_s: float = Field(gt=0, le=3600)
+    max_every_s: float = Field(gt=0, le=3600)
+
+
 class Settings(_Section):
     decode: Decode
     kinematics: Kinematics
@@ -115,6 +127,7 @@ class Settings(_Section):
     windows: Windows
     periods: Periods
     health: Health
+    server: Server
     # Sections owned by the shell (server, limits, ...) validate themselves there.
     extra: dict[str, Any] = Field(default_factory=dict)
 

@@ -373,9 +373,6 @@ def test_decoder_accepts_what_the_validator_accepts(frame):
             assert res.block.xy[0, state.roster.index[p["id"]]].tolist() == [p["x"], p["y"]]
 
 
-@pytest.mark.xfail(strict=True, reason="decoder bound is pitch/2 + outside_margin_m (service/wire/cdf.py "
-                   "FrameDecoder.__init__), the validator's is a fixed |x| <= 65, |y| <= 42.5: on a pitch shorter "
-                   "than 105 m the decoder rejects frames the validator accepts")
 def test_decoder_accepts_validator_bounds_on_a_smaller_legal_pitch():
     import cdf
 

@@ -37,6 +37,10 @@ class FeedHealth:
     # arrival time of each frame within the rate window, s
     _arrivals: np.ndarray = field(default_factory=lambda: np.zeros(0))
     _lags: deque[tuple[float, float]] = field(default_factory=deque)
+    # smallest (arrival - timestamp) over the offset window: the clock offset
+    # between provider and us, which a replay or a skewed clock makes large
+    _offsets: deque[tuple[float, float]] = field(default_factory=deque)
+    offset_window_s: float = 60.0
 
     def on_frames(self, now: float, frame_times: np.ndarray, n: int, measure_lag: bool = True) -> None:
         """``n`` frames with timestamps ``frame_times`` (s) arrived at ``now``.
@@ -53,13 +57,19 @@ class FeedHealth:
         keep = self._arrivals[self._arrivals >= now - self.params.rate_window_s]
         self._arrivals = np.concatenate([keep, arrivals[arrivals >= now - self.params.rate_window_s]])
         if measure_lag and len(frame_times):
-            self._lags.append((now, float(now - frame_times[-1])))
+            lag = float(now - frame_times[-1])
+            self._lags.append((now, lag))
+            while self._offsets and self._offsets[-1][1] >= lag:
+                self._offsets.pop()  # monotonic deque: the front is the window minimum
+            self._offsets.append((now, lag))
         self._expire(now)
 
     def _expire(self, now: float) -> None:
         horizon = now - self.params.rate_window_s
         while self._lags and self._lags[0][0] < horizon:
             self._lags.popleft()
+        while self._offsets and self._offsets[0][0] < now - self.offset_window_s:
+            self._offsets.popleft()
 
     def fps_observed(self, now: float) -> float:
         """Frames per second that arrived over the rate window ending at ``now``."""
@@ -76,23 +86,37 @@ class FeedHealth:
         lags = np.fromiter((v for _, v in self._lags), float)
         return float(np.median(lags)), float(np.percentile(lags, 95))
 
-    def evaluate(self, now: float, dropout: float, extra_reasons: list[str] | None = None) -> tuple[str, list[str]]:
-        """State and reasons at ``now``."""
+    def excess_lag(self, now: float) -> float | None:
+        """p95 lag above the clock offset (the smallest lag of the last minute), s."""
+        _, p95 = self.lag(now)
+        if p95 is None or not self._offsets:
+            return None
+        return p95 - self._offsets[0][1]
+
+    def evaluate(self, now: float, dropout: float, extra_reasons: list[dict[str, str]] | None = None
+                 ) -> tuple[str, list[dict[str, str]]]:
+        """State and reasons (``{"code", "message"}``) at ``now``.
+
+        Lag degrades the feed only as delay above the provider's clock offset:
+        a replay or a skewed provider clock is reported in ``lag_s`` but does
+        not make a steady feed look late.
+        """
         p = self.params
-        reasons: list[str] = []
+        reasons: list[dict[str, str]] = []
         if self.last_arrival is None:
-            return STALLED, ["no frames received yet"]
+            return STALLED, [{"code": "no_frames", "message": "no frames received yet"}]
         idle = now - self.last_arrival
         if idle > p.stall_s:
-            return STALLED, [f"no frame for {idle:.1f} s (limit {p.stall_s:g} s)"]
+            return STALLED, [{"code": "no_frames", "message": f"no frame for {idle:.1f} s (limit {p.stall_s:g} s)"}]
         warmed = now - self.first_arrival >= p.rate_window_s  # type: ignore[operator]
         fps = self.fps_observed(now)
         if warmed and fps < p.min_rate_share * self.fps_nominal:
-            reasons.append(f"frame rate {fps:.1f}/s below {p.min_rate_share:.0%} of nominal {self.fps_nominal}/s")
+            reasons.append({"code": "low_rate",
+                            "message": f"frame rate {fps:.1f}/s below {p.min_rate_share:.0%} of nominal {self.fps_nominal}/s"})
         if dropout > p.max_dropout:
-            reasons.append(f"dropout {dropout:.0%} above {p.max_dropout:.0%}")
-        _, p95 = self.lag(now)
-        if p95 is not None and p95 > p.max_lag_s:
-            reasons.append(f"arrival lag p95 {p95:.2f} s above {p.max_lag_s:g} s")
+            reasons.append({"code": "dropout", "message": f"dropout {dropout:.0%} above {p.max_dropout:.0%}"})
+        excess = self.excess_lag(now)
+        if excess is not None and excess > p.max_lag_s:
+            reasons.append({"code": "late_delivery", "message": f"frames arrive {excess:.2f} s later than usual (limit {p.max_lag_s:g} s)"})
         reasons.extend(extra_reasons or [])
         return (DEGRADED if reasons else OK), reasons

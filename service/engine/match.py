@@ -92,7 +92,9 @@ class MatchState:
                          s.health.max_lag_s, s.health.stall_s),
             fps_nominal=fps,
         )
-        self.off_override: dict[int, int] = {}  # player -> period index after which he is off (events)
+        # on-pitch state set by match events (substitutions, red cards) over what frames suggest
+        self.forced_off = np.zeros(self.n, bool)
+        self.forced_on = np.zeros(self.n, bool)
 
     # -- input ---------------------------------------------------------------------
     @property
@@ -177,12 +179,30 @@ class MatchState:
         self.end_period()
 
     def flush(self) -> None:
-        """The feed stalled: finalise the tail now (one-sided fits); later frames
-        of the same period start a new stretch."""
+        """Finalise the current tail now (one-sided fits); later frames of the
+        same period start a new stretch. Prefer :meth:`provisional` live: it
+        leaves the figures of later frames unchanged."""
         cur = self.current
         if cur is not None and not cur.ended:
             for fin in cur.track.close():
                 self._apply(cur, fin)
+
+    def provisional(self) -> "MatchState":
+        """A copy with the tail finalised (one-sided fits), for showing a stalled
+        feed's figures in full; this state itself is untouched, so frames that
+        come later give exactly the figures an offline pass gives. The copy
+        shares this state's feed-health bookkeeping."""
+        import copy
+
+        health = self.health
+        self.health = None  # type: ignore[assignment]
+        try:
+            twin = copy.deepcopy(self)
+        finally:
+            self.health = health
+        twin.health = health
+        twin.flush()
+        return twin
 
     # -- accumulation ----------------------------------------------------------------
     def _apply(self, per: _Period, fin: Final) -> None:
@@ -262,7 +282,16 @@ class MatchState:
         if cur is None or cur.ended:
             return np.zeros(self.n, bool)
         recent = (cur.last_seen >= 0) & (cur.last_slot - cur.last_seen <= self.timeout_slots)
-        return recent
+        return (recent | self.forced_on) & ~self.forced_off
+
+    def substitute(self, off: str | None, on: str | None) -> None:
+        """A substitution (or a red card: ``on`` None) from the match events."""
+        if off is not None:
+            i = self.roster.index[off]
+            self.forced_off[i], self.forced_on[i] = True, False
+        if on is not None:
+            i = self.roster.index[on]
+            self.forced_on[i], self.forced_off[i] = True, False
 
     def coverage(self) -> np.ndarray:
         """Credited samples ÷ samples on the pitch, whole match, per player."""
@@ -288,7 +317,7 @@ class MatchState:
             return 0.0
         return float(max(0.0, 1.0 - seen[on].sum() / expected))
 
-    def snapshot(self, now: float | None = None, extra_reasons: list[str] | None = None) -> dict[str, Any]:
+    def snapshot(self, now: float | None = None, extra_reasons: list[dict[str, str]] | None = None) -> dict[str, Any]:
         """The snapshot body plus ``match_time_s`` and ``period`` (envelope fields).
 
         ``now``: wall-clock seconds for health (live); None evaluates at the last

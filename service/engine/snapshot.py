@@ -68,7 +68,7 @@ def _blocks(state: "MatchState", per: "_Period") -> list[tuple[str, int, int]]:
     return out
 
 
-def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[str] | None) -> dict[str, Any]:
+def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
     roster = state.roster
     n = state.n
     fps = state.fps

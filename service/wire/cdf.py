@@ -252,6 +252,15 @@ class FrameGate:
             raise _Reject("bad_timestamp", "timestamp is less than one frame period after the previous frame")
         return slot
 
+    def checkpoint(self) -> tuple:
+        return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, len(self.recent))
+
+    def restore(self, cp: tuple) -> None:
+        """Undo admissions since ``checkpoint()`` (frames that could not be recorded)."""
+        self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, n = cp
+        while len(self.recent) > n:
+            self.recent_set.discard(self.recent.pop())
+
     def admit(self, frame_id: int, t: float, period: int, slot: int) -> None:
         self.last_id, self.last_t = frame_id, t
         if period != self.period:
@@ -270,6 +279,16 @@ class DecodeResult:
     rejected: int = 0
     duplicates: int = 0
     late: int = 0
+    accepted: list[int] = field(default_factory=list)  # input positions of the accepted frames
+
+    @staticmethod
+    def merge(results: list["DecodeResult"]) -> "DecodeResult":
+        if len(results) == 1:
+            return results[0]
+        blocks = [r.block for r in results if len(r.block)]
+        block = Block.concat(blocks) if blocks else results[0].block
+        return DecodeResult(block, [e for r in results for e in r.errors], sum(r.rejected for r in results),
+                            sum(r.duplicates for r in results), sum(r.late for r in results))
 
 
 class _Reject(Exception):
@@ -298,8 +317,9 @@ class FrameDecoder:
     def __init__(self, roster: Roster, outside_margin_m: float = 12.5, recent_ids: int = 512) -> None:
         self.roster = roster
         self.gate = FrameGate(fps=roster.fps, recent_size=recent_ids)
-        self.x_lim = roster.pitch_length_m / 2 + outside_margin_m
-        self.y_lim = roster.pitch_width_m / 2 + outside_margin_m
+        # never tighter than the CDF validator (|x| <= 65, |y| <= 42.5, Anzer et al. 2025)
+        self.x_lim = max(roster.pitch_length_m / 2 + outside_margin_m, 65.0)
+        self.y_lim = max(roster.pitch_width_m / 2 + outside_margin_m, 42.5)
         self._team_index = {tid: i for i, tid in enumerate(roster.team_ids)}
 
     def decode_lines(self, lines: Iterable[bytes | str], first_line: int = 1) -> DecodeResult:
@@ -318,6 +338,7 @@ class FrameDecoder:
         result = self.decode_objects(objs, numbers)
         result.errors[:0] = errors
         result.rejected += len(errors)
+        result.accepted = [numbers[k] - first_line for k in result.accepted]
         return result
 
     def decode_message(self, data: bytes | str) -> DecodeResult:
@@ -383,6 +404,7 @@ class FrameDecoder:
                 res.rejected += 1
                 errors.append(FrameError("bad_frame", f"frame could not be read: {type(exc).__name__}: {exc}", fid_known, line))
                 continue
+            res.accepted.append(k)
             fids.append(fid)
             ts.append(t)
             periods.append(period)

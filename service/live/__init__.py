@@ -1,0 +1,1 @@
+"""The asyncio shell: ingest, broadcaster, recorder and the FastAPI app."""

@@ -1,0 +1,244 @@
+"""The broadcaster: subscription streams per (view, cadence), one serialisation each.
+
+Each stream has its own ``seq`` (one more per message), a bounded buffer for
+``since=SEQ`` resumes, and the last state it sent, which deltas are computed
+from. A slow subscriber never holds anyone up: its own bounded queue, and on
+overflow its backlog is replaced by one fresh snapshot (the drop is counted).
+"""
+from __future__ import annotations
+
+import asyncio
+import logging
+import time
+from collections import deque
+from dataclasses import dataclass, field
+from typing import Any, Awaitable, Callable
+
+from service.wire.messages import changed, dumps, envelope
+
+log = logging.getLogger("pacewire.broadcaster")
+
+
+class ViewError(ValueError):
+    """A subscription asked for a view that does not exist."""
+
+
+@dataclass(frozen=True)
+class View:
+    kind: str  # "all" | "team" | "players"
+    ids: tuple[str, ...] = ()
+
+    @property
+    def key(self) -> str:
+        return self.kind if self.kind == "all" else f"{self.kind}:{','.join(self.ids)}"
+
+    @staticmethod
+    def parse(text: str, team_ids: tuple[str, ...], player_ids: set[str]) -> "View":
+        if text == "all":
+            return View("all")
+        kind, _, rest = text.partition(":")
+        ids = tuple(i for i in rest.split(",") if i)
+        if kind == "team":
+            if len(ids) != 1 or ids[0] not in team_ids:
+                raise ViewError(f"view {text!r}: team must be one of {', '.join(team_ids)}")
+            return View("team", ids)
+        if kind == "players":
+            unknown = [i for i in ids if i not in player_ids]
+            if not ids or unknown:
+                raise ViewError(f"view {text!r}: unknown players {', '.join(unknown) or '(none given)'}")
+            return View("players", tuple(sorted(set(ids))))
+        raise ViewError(f"view {text!r} is not 'all', 'team:ID' or 'players:ID,ID'")
+
+    def body(self, snap: dict[str, Any]) -> dict[str, Any]:
+        """The part of a snapshot this view shows."""
+        if self.kind == "all":
+            return {"players": snap["players"], "teams": snap["teams"], "health": snap["health"]}
+        if self.kind == "team":
+            tid = self.ids[0]
+            players = {k: v for k, v in snap["players"].items() if v["team_id"] == tid}
+            return {"players": players, "teams": {tid: snap["teams"][tid]}, "health": snap["health"]}
+        players = {k: snap["players"][k] for k in self.ids}
+        return {"players": players, "teams": snap["teams"], "health": snap["health"]}
+
+    def shows_player(self, player_id: str | None, team_id: str | None) -> bool:
+        if self.kind == "all" or player_id is None:
+            return True
+        if self.kind == "team":
+            return team_id == self.ids[0]
+        return player_id in self.ids
+
+
+class Subscriber:
+    def __init__(self, send: Callable[[str], Awaitable[None]], queue_size: int) -> None:
+        self.send = send
+        self.limit = queue_size  # the opening messages may exceed it; later ones may not
+        self.queue: asyncio.Queue[str] = asyncio.Queue()
+        self.dropped = 0
+        self.closed = False
+        self.task: asyncio.Task | None = None
+        self.group: "Group | None" = None
+
+
+@dataclass
+class Group:
+    view: View
+    every: float
+    seq: int = 0
+    state: dict[str, Any] | None = None  # the last state sent (view body)
+    meta: tuple[float, str | None] = (0.0, None)  # match_time_s, period of that state
+    last_sent: float = 0.0
+    buffer: deque[tuple[int, float, str]] = field(default_factory=deque)
+    subscribers: set[Subscriber] = field(default_factory=set)
+    idle_since: float | None = None
+
+
+class Broadcaster:
+    """All subscription streams of one match."""
+
+    def __init__(self, match_id: str, snapshot: Callable[[], dict[str, Any]], buffer_s: float,
+                 queue_size: int, max_subscribers: int, on_message: Callable[[int], None] | None = None,
+                 on_drop: Callable[[], None] | None = None) -> None:
+        self.match_id = match_id
+        self._snapshot_fn = snapshot
+        self.buffer_s = buffer_s
+        self.buffer_max = 100_000
+        self.queue_size = queue_size
+        self.max_subscribers = max_subscribers
+        self.groups: dict[tuple[str, float], Group] = {}
+        self._snap: dict[str, Any] | None = None
+        self._on_message = on_message or (lambda n: None)
+        self._on_drop = on_drop or (lambda: None)
+        self.dropped = 0
+
+    # -- state -----------------------------------------------------------------------
+    def invalidate(self) -> None:
+        """The engine state changed: the next read builds a fresh snapshot."""
+        self._snap = None
+
+    def snapshot(self) -> dict[str, Any]:
+        if self._snap is None:
+            self._snap = self._snapshot_fn()
+        return self._snap
+
+    @property
+    def subscriber_count(self) -> int:
+        return sum(len(g.subscribers) for g in self.groups.values())
+
+    def group(self, view: View, every: float) -> Group:
+        key = (view.key, round(every, 4))
+        g = self.groups.get(key)
+        if g is None:
+            g = self.groups[key] = Group(view, every)
+        return g
+
+    def _message(self, g: Group, kind: str, **body: Any) -> str:
+        g.seq += 1
+        snap_time, period = g.meta
+        period = body.pop("period", period)
+        text = dumps(envelope(kind, self.match_id, g.seq, snap_time, period, **body)).decode()
+        now = time.monotonic()
+        g.buffer.append((g.seq, now, text))
+        horizon = now - self.buffer_s
+        while g.buffer and (g.buffer[0][1] < horizon or len(g.buffer) > self.buffer_max):
+            g.buffer.popleft()
+        return text
+
+    def _fan_out(self, g: Group, text: str) -> None:
+        for sub in list(g.subscribers):
+            self._offer(sub, text)
+        self._on_message(len(g.subscribers))
+
+    def _offer(self, sub: Subscriber, text: str) -> None:
+        if sub.queue.qsize() < sub.limit:
+            sub.queue.put_nowait(text)
+            return
+        # slow reader: replace its backlog by one fresh snapshot
+        while not sub.queue.empty():
+            sub.queue.get_nowait()
+        sub.dropped += 1
+        self.dropped += 1
+        self._on_drop()
+        assert sub.group is not None
+        sub.queue.put_nowait(self._snapshot_text(sub.group, resync=True))
+
+    def _snapshot_text(self, g: Group, resync: bool = False) -> str:
+        if g.state is None:
+            self._refresh_state(g)
+        snap_time, period = g.meta
+        body: dict[str, Any] = dict(g.state or {})
+        if resync:
+            body["resync"] = True
+        return dumps(envelope("snapshot", self.match_id, g.seq, snap_time, period, **body)).decode()
+
+    def _refresh_state(self, g: Group) -> dict[str, Any] | None:
+        """Move the group to the current state; returns the delta body (None if unchanged)."""
+        snap = self.snapshot()
+        new = g.view.body(snap)
+        d = changed(g.state, new) if g.state is not None else None
+        g.state = new
+        g.meta = (snap["match_time_s"], snap["period"])
+        return d
+
+    # -- output ------------------------------------------------------------------------
+    def tick(self, now: float | None = None, force: bool = False) -> None:
+        """After the state changed: send a delta to every stream whose cadence is due."""
+        now = time.monotonic() if now is None else now
+        for g in list(self.groups.values()):
+            if not force and now - g.last_sent < g.every - 1e-3:
+                continue
+            if g.state is None:
+                self._refresh_state(g)
+                g.last_sent = now
+                continue
+            old_meta = g.meta
+            d = self._refresh_state(g)
+            if d is None and g.meta == old_meta:
+                continue
+            g.last_sent = now
+            self._fan_out(g, self._message(g, "delta", **(d or {})))
+        self._expire(now)
+
+    def publish(self, kind: str, player_id: str | None = None, team_id: str | None = None, **body: Any) -> None:
+        """An event message (health, alert, period, report) to every stream that shows it."""
+        for g in list(self.groups.values()):
+            if g.view.shows_player(player_id, team_id):
+                if g.state is None:
+                    self._refresh_state(g)
+                self._fan_out(g, self._message(g, kind, **body))
+
+    def _expire(self, now: float) -> None:
+        """Forget streams nobody follows once their resume buffer has run out."""
+        for key, g in list(self.groups.items()):
+            if g.subscribers:
+                g.idle_since = None
+            elif g.idle_since is None:
+                g.idle_since = now
+            elif now - g.idle_since > self.buffer_s:
+                del self.groups[key]
+
+    # -- subscribers ----------------------------------------------------------------------
+    def attach(self, sub: Subscriber, view: View, every: float, since: int | None) -> None:
+        """Queue the opening messages: a snapshot, or what was missed after ``since``."""
+        g = self.group(view, every)
+        sub.group = g
+        g.idle_since = None
+        first: list[str]
+        if since is not None and g.buffer is not None and 0 <= since <= g.seq and (
+                since == g.seq or (g.buffer and g.buffer[0][0] <= since + 1)):
+            first = [text for seq, _, text in g.buffer if seq > since]
+        else:
+            first = [self._snapshot_text(g, resync=since is not None)]
+        for text in first:
+            sub.queue.put_nowait(text)
+        g.subscribers.add(sub)
+
+    def detach(self, sub: Subscriber) -> None:
+        if sub.group is not None:
+            sub.group.subscribers.discard(sub)
+        sub.closed = True
+
+    async def pump(self, sub: Subscriber) -> None:
+        """Send a subscriber's queue to its socket until it closes."""
+        while not sub.closed:
+            text = await sub.queue.get()
+            await sub.send(text)
