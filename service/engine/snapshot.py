@@ -1,4 +1,10 @@
-"""The snapshot body (DESIGN §3): players, teams and health, from a MatchState."""
+"""The snapshot body (DESIGN §3): players, teams and health, from a MatchState.
+
+Built vectorised over players. Parts that change only when a second of data
+completes (windows) or never again (ended periods) are cached on the state
+and reused as the same objects, so consumers that diff snapshots skip them
+at once.
+"""
 from __future__ import annotations
 
 import math
@@ -13,42 +19,60 @@ if TYPE_CHECKING:
     from service.engine.match import MatchState, _Period
 
 _U = 1e-6
+_WINDOW_KEYS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",
+                "high_power_m", "m_per_min", "metabolic_power_wkg")
 
 
-def _r(x: float, nd: int) -> float:
-    return round(float(x), nd)
+def _col(a: np.ndarray, nd: int) -> list:
+    return np.round(a.astype(float), nd).tolist()
 
 
-def _window(sums: np.ndarray, span_s: float) -> dict[str, Any]:
-    """Figures of one window for one player or team; sums in micro-units."""
-    dist = sums[ex.DIST] * _U
+def _window_cols(sums: np.ndarray, span_s: np.ndarray) -> dict[str, list]:
+    """Figures of one window for every row of ``sums`` (rows, F) in micro-units; span_s (rows,)."""
+    dist = sums[:, ex.DIST] * _U
+    ok = span_s > 0
+    safe = np.where(ok, span_s, 1.0)
+    mpm = np.round(dist / (safe / 60.0), 1)
+    mp = np.round(sums[:, ex.ENERGY] * _U / safe, 2)
     return {
-        "distance_m": _r(dist, 1),
-        "hsr_m": _r(sums[ex.HSR] * _U, 1),
-        "sprint_m": _r(sums[ex.SPRINT] * _U, 1),
-        "hsr_efforts": int(sums[ex.N_HSR]),
-        "sprints": int(sums[ex.N_SPR]),
-        "accels": int(sums[ex.N_ACC]),
-        "decels": int(sums[ex.N_DEC]),
-        "energy_jkg": _r(sums[ex.ENERGY] * _U, 1),
-        "high_power_m": _r(sums[ex.HIPOW] * _U, 1),
-        "m_per_min": _r(dist / (span_s / 60.0), 1) if span_s > 0 else None,
-        "metabolic_power_wkg": _r(sums[ex.ENERGY] * _U / span_s, 2) if span_s > 0 else None,
-        "span_s": _r(span_s, 1),
+        "distance_m": _col(dist, 1),
+        "hsr_m": _col(sums[:, ex.HSR] * _U, 1),
+        "sprint_m": _col(sums[:, ex.SPRINT] * _U, 1),
+        "hsr_efforts": sums[:, ex.N_HSR].tolist(),
+        "sprints": sums[:, ex.N_SPR].tolist(),
+        "accels": sums[:, ex.N_ACC].tolist(),
+        "decels": sums[:, ex.N_DEC].tolist(),
+        "energy_jkg": _col(sums[:, ex.ENERGY] * _U, 1),
+        "high_power_m": _col(sums[:, ex.HIPOW] * _U, 1),
+        "m_per_min": [v if o else None for v, o in zip(mpm.tolist(), ok.tolist())],
+        "metabolic_power_wkg": [v if o else None for v, o in zip(mp.tolist(), ok.tolist())],
     }
 
 
-def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: list[str], onpitch_s: float,
-             max_speed: float, coverage: float) -> dict[str, Any]:
-    """Scalar figures + zones for one player over one stretch (match or period)."""
-    w = _window(sums, onpitch_s)
-    span = w.pop("span_s")
-    del span
-    w["minutes"] = _r(onpitch_s / 60.0, 2)
-    w["max_speed_ms"] = _r(max_speed, 2)
-    w["coverage"] = _r(coverage, 3)
-    w["zones"] = {name: _r(zones[k] * _U, 1) for k, name in enumerate(zone_names)}
-    return w
+def _rows(cols: dict[str, list], n: int) -> list[dict[str, Any]]:
+    keys = list(cols)
+    vals = [cols[k] for k in keys]
+    return [dict(zip(keys, [v[i] for v in vals])) for i in range(n)]
+
+
+def _windows(sums: np.ndarray, span_s: np.ndarray, extra: dict[str, list] | None = None) -> list[dict[str, Any]]:
+    cols = _window_cols(sums, span_s)
+    cols["span_s"] = _col(span_s, 1)
+    if extra:
+        cols.update(extra)
+    return _rows(cols, sums.shape[0])
+
+
+def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: list[str], onpitch_s: np.ndarray,
+             max_speed: np.ndarray, coverage: np.ndarray) -> list[dict[str, Any]]:
+    """Scalar figures + zones per player over one stretch (match or period)."""
+    cols = _window_cols(sums, onpitch_s)
+    cols["minutes"] = _col(onpitch_s / 60.0, 2)
+    cols["max_speed_ms"] = _col(max_speed, 2)
+    cols["coverage"] = _col(coverage, 3)
+    zm = np.round(zones * _U, 1).tolist()
+    cols["zones"] = [dict(zip(zone_names, z)) for z in zm]
+    return _rows(cols, sums.shape[0])
 
 
 def _blocks(state: "MatchState", per: "_Period") -> list[tuple[str, int, int]]:
@@ -68,49 +92,39 @@ def _blocks(state: "MatchState", per: "_Period") -> list[tuple[str, int, int]]:
     return out
 
 
-def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
-    roster = state.roster
-    n = state.n
-    fps = state.fps
+def _cache(state: "MatchState") -> dict[Any, Any]:
+    c = getattr(state, "_snapshot_cache", None)
+    if c is None:
+        c = state._snapshot_cache = {}  # type: ignore[attr-defined]
+    return c
+
+
+def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int, np.ndarray]]:
+    """windows per player, and the last-N sums of the current period; cached per completed second."""
     periods = state.periods
-    zone_names = state.zone_names
     cur = state.current
-
-    total = np.zeros((n, ex.N_FIG), np.int64)
-    zones = np.zeros((n, len(zone_names)), np.int64)
-    poss = np.zeros((n, 3, 2), np.int64)
-    onp = np.zeros(n, np.int64)
-    vmax = np.zeros(n)
-    per_period: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = {}
-    for per in periods:
-        total += per.sums
-        zones += per.zones
-        poss += per.poss
-        o = per.onpitch_slots()
-        onp += o
-        np.maximum(vmax, per.max_speed, out=vmax)
-        per_period[per.name] = (per.sums, per.zones, o, per.max_speed)
-    onp_s = onp / fps
-    cov = state.coverage()
-    on_pitch = state.on_pitch()
-
-    # windows of the current period
-    last_min = state.settings.windows.last_min
-    windows: list[dict[str, Any]] = [{} for _ in range(n)]
+    seen_players = int((cur.first_seen >= 0).sum()) if cur is not None else 0
+    key = ("windows", seen_players,
+           tuple((p.index, p.bins.complete, p.bins.end_slot if p.ended else -1) for p in periods))
+    cache = _cache(state)
+    hit = cache.get("windows")
+    if hit is not None and hit[0] == key:
+        return hit[1], hit[2]
+    n, fps = state.n, state.fps
+    per_player: list[dict[str, Any]] = [{} for _ in range(n)]
     team_last: dict[int, np.ndarray] = {}
     if cur is not None:
         b = cur.bins
         stop = b.complete
         first_sec = np.where(cur.first_seen >= 0, cur.first_seen // fps, stop)
-        for m in last_min:
+        for m in state.settings.windows.last_min:
             start = max(stop - m * 60, 0)
             sums = b.span(start, stop)
             covered = b.covered_s(start, stop)
             span = np.clip(covered - np.clip(first_sec - start, 0, None), 0, None).astype(float)
             team_last[m] = sums
-            key = f"last_{m}min"
-            for i in range(n):
-                windows[i][key] = _window(sums[i], float(span[i]))
+            for i, w in enumerate(_windows(sums, span)):
+                per_player[i][f"last_{m}min"] = w
     for w_s in state.peak_s:
         best = np.full((n, ex.N_FIG), -1, np.int64)
         start_clock = np.full(n, -1.0)
@@ -119,74 +133,111 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
             better = pk[:, ex.DIST] > best[:, ex.DIST]
             start_clock = np.where(better, CLOCK_START_MIN[per.name] * 60 + per.bins.peak_start[w_s], start_clock)
             best = np.maximum(best, pk)
-        key = f"peak_{w_s // 60}min"
+        rows = _windows(np.maximum(best, 0), np.full(n, float(w_s)), {"start_s": _col(start_clock, 1)})
+        k = f"peak_{w_s // 60}min"
         for i in range(n):
-            if best[i, ex.DIST] < 0:
-                windows[i][key] = None
-            else:
-                d = _window(best[i], float(w_s))
-                d["start_s"] = _r(start_clock[i], 1)
-                windows[i][key] = d
+            per_player[i][k] = rows[i] if best[i, ex.DIST] >= 0 else None
     for per in periods:
         bins = per.bins
-        for key, s0, s1 in _blocks(state, per):
+        for k, s0, s1 in _blocks(state, per):
             if s0 >= bins.complete:
                 continue
-            sums = bins.span(s0, s1)
             span = bins.covered_s(s0, s1)
-            for i in range(n):
-                windows[i][key] = _window(sums[i], span)
+            for i, w in enumerate(_windows(bins.span(s0, s1), np.full(n, span))):
+                per_player[i][k] = w
+    cache["windows"] = (key, per_player, team_last)
+    return per_player, team_last
+
+
+def _period_figures(state: "MatchState", per: "_Period") -> list[dict[str, Any]]:
+    """Per-player figures of one period; cached for good once the period ended."""
+    cache = _cache(state)
+    key = ("period", per.index)
+    if per.ended and key in cache:
+        return cache[key]
+    o = per.onpitch_slots()
+    cov = np.where(o > 0, np.minimum(per.sums[:, ex.VALID] / np.maximum(o, 1), 1.0), 0.0)
+    figs = _figures(per.sums, per.zones, state.zone_names, o / state.fps, per.max_speed, cov)
+    if per.ended:
+        cache[key] = figs
+    return figs
+
+
+def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
+    roster = state.roster
+    n = state.n
+    fps = state.fps
+    periods = state.periods
+    cur = state.current
+
+    total = np.zeros((n, ex.N_FIG), np.int64)
+    zones = np.zeros((n, len(state.zone_names)), np.int64)
+    poss = np.zeros((n, 3, 2), np.int64)
+    onp = np.zeros(n, np.int64)
+    vmax = np.zeros(n)
+    for per in periods:
+        total += per.sums
+        zones += per.zones
+        poss += per.poss
+        onp += per.onpitch_slots()
+        np.maximum(vmax, per.max_speed, out=vmax)
+    onp_s = onp / fps
+    cov = state.coverage()
+    on_pitch = state.on_pitch().tolist()
+    figs = _figures(total, zones, state.zone_names, onp_s, vmax, cov)
+    windows, team_last = _player_windows(state)
+    per_figs = [(per.name, _period_figures(state, per)) for per in periods]
+    speed = [None] * n
+    if cur is not None:
+        recent = (cur.last_valid >= 0) & (cur.track.fin - cur.last_valid <= fps)
+        sp = np.round(cur.last_speed, 2).tolist()
+        speed = [s if r else None for s, r in zip(sp, recent.tolist())]
+    poss_rows = None
+    if state.has_ball:
+        pm = np.round(poss * _U, 1).tolist()
+        poss_rows = [{ctx: {"distance_m": pm[i][k][0], "hsr_m": pm[i][k][1]} for k, ctx in enumerate(CONTEXTS)}
+                     for i in range(n)]
 
     players: dict[str, Any] = {}
     for i, pl in enumerate(roster.players):
-        fig = _figures(total[i], zones[i], zone_names, float(onp_s[i]), float(vmax[i]), float(cov[i]))
-        speed = None
-        if cur is not None and cur.last_valid[i] >= 0 and cur.track.fin - cur.last_valid[i] <= fps:
-            speed = _r(cur.last_speed[i], 2)
         obj: dict[str, Any] = {
             "team_id": roster.team_ids[pl.team],
             "jersey_number": pl.jersey_number,
             "name": pl.name,
             "is_goalkeeper": pl.is_goalkeeper,
-            "on_pitch": bool(on_pitch[i]),
-            "speed_ms": speed,
-            **fig,
+            "on_pitch": on_pitch[i],
+            "speed_ms": speed[i],
+            **figs[i],
             "windows": windows[i],
-            "periods": {},
+            "periods": {name: pf[i] for name, pf in per_figs},
         }
-        for name, (psums, pzones, po, pvmax) in per_period.items():
-            pcov = min(psums[i, ex.VALID] / po[i], 1.0) if po[i] > 0 else 0.0
-            obj["periods"][name] = _figures(psums[i], pzones[i], zone_names, float(po[i] / fps), float(pvmax[i]), pcov)
-        if state.has_ball:
-            obj["possession"] = {
-                ctx: {"distance_m": _r(poss[i, k, 0] * _U, 1), "hsr_m": _r(poss[i, k, 1] * _U, 1)}
-                for k, ctx in enumerate(CONTEXTS)
-            }
+        if poss_rows is not None:
+            obj["possession"] = poss_rows[i]
         players[pl.id] = obj
 
     elapsed_s = sum((max(p.last_slot, 0) + 1) / fps for p in periods) if periods else 0.0
     teams: dict[str, Any] = {}
     for k, tid in enumerate(roster.team_ids):
         mask = (state.team == k) & ~state.gk & (onp > 0)
-        tsum = total[mask].sum(axis=0)
-        minutes = onp_s[mask].sum() / 60.0
+        tsum = total[mask].sum(axis=0).tolist()
+        minutes = float(onp_s[mask].sum()) / 60.0
         count = int(mask.sum())
-        outfield = _window(tsum, elapsed_s)
+        outfield = _windows(np.array([tsum], np.int64), np.array([elapsed_s]))[0]
         outfield.pop("span_s")
         outfield["players"] = count
-        outfield["minutes"] = _r(elapsed_s / 60.0, 2)
+        outfield["minutes"] = round(elapsed_s / 60.0, 2)
         outfield["per_player"] = {
-            "distance_m": _r(tsum[ex.DIST] * _U / count, 1) if count else None,
-            "hsr_m": _r(tsum[ex.HSR] * _U / count, 1) if count else None,
-            "sprint_m": _r(tsum[ex.SPRINT] * _U / count, 1) if count else None,
-            "m_per_min": _r(tsum[ex.DIST] * _U / minutes, 1) if minutes > 0 else None,
+            "distance_m": round(tsum[ex.DIST] * _U / count, 1) if count else None,
+            "hsr_m": round(tsum[ex.HSR] * _U / count, 1) if count else None,
+            "sprint_m": round(tsum[ex.SPRINT] * _U / count, 1) if count else None,
+            "m_per_min": round(tsum[ex.DIST] * _U / minutes, 1) if minutes > 0 else None,
         }
         tw: dict[str, Any] = {}
         if cur is not None:
             stop = cur.bins.complete
             for m, sums in team_last.items():
                 span = cur.bins.covered_s(stop - m * 60, stop)
-                tw[f"last_{m}min"] = _window(sums[mask].sum(axis=0), span)
+                tw[f"last_{m}min"] = _windows(sums[mask].sum(axis=0)[None], np.array([span]))[0]
         outfield["windows"] = tw
         teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "outfield": outfield}
 
@@ -195,24 +246,25 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
     dropout = state.dropout()
     status, reasons = h.evaluate(clock, dropout, extra_reasons)
     lag_med, lag_p95 = h.lag(clock)
+    cov_r = np.round(cov, 3).tolist()
     health = {
         "state": status,
         "reasons": reasons,
-        "fps_observed": _r(h.fps_observed(clock), 2),
+        "fps_observed": round(h.fps_observed(clock), 2),
         "fps_nominal": state.fps,
-        "dropout": _r(dropout, 3),
-        "lag_s": None if lag_med is None else _r(lag_med, 3),
-        "lag_p95_s": None if lag_p95 is None else _r(lag_p95, 3),
+        "dropout": round(dropout, 3),
+        "lag_s": None if lag_med is None else round(lag_med, 3),
+        "lag_p95_s": None if lag_p95 is None else round(lag_p95, 3),
         "late": h.late,
         "duplicates": h.duplicates,
         "rejected": h.rejected,
         "jumps": state.jumps,
         "frames": state.frames,
-        "coverage": {pl.id: _r(cov[i], 3) for i, pl in enumerate(roster.players)},
+        "coverage": {pl.id: cov_r[i] for i, pl in enumerate(roster.players)},
     }
     return {
         "match_id": roster.match_id,
-        "match_time_s": _r(state.match_time_s(), 2),
+        "match_time_s": round(state.match_time_s(), 2),
         "period": state.period_name(),
         "players": players,
         "teams": teams,

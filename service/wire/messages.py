@@ -20,6 +20,8 @@ def diff(old: Any, new: Any) -> Any:
 
     A key that disappeared is sent as None.
     """
+    if old is new:
+        return _MISSING
     if type(old) is not dict or type(new) is not dict:
         return _MISSING if old == new else new
     out: dict[str, Any] = {}
