@@ -120,7 +120,12 @@ class Track:
         ])
         self._band: dict[int, np.ndarray] = {}  # banded matrices of the centred fit, by row count
         self.base = 0  # slot of buf[0]
-        self.buf = np.full((0, n_players, 2), np.nan)
+        # buf is a window onto a larger store, so extending and trimming rarely copy
+        self._store = np.full((256, n_players, 2), np.nan)
+        self._off = 0
+        self._rows = 0
+        self._clean_upto = 0  # slots below this were checked uniform and jump-free
+        self._clean_cols: np.ndarray | None = None
         self.end = 0  # one past the last slot received
         self.fin = 0  # first slot not yet final
         self.jumps = 0  # jumps counted in final slots
@@ -142,7 +147,9 @@ class Track:
             self._collect(out, self.advance())
         if first - self.end > self.p.context:
             self.base = self.end = self.fin = self.cut = first
-            self.buf = np.full((0, self.n, 2), np.nan)
+            self._off, self._rows = 0, 0
+            self._store[:] = np.nan
+            self._clean_cols = None
         self._extend(int(slots[-1]) + 1)
         self.buf[slots - self.base] = xy
         self._collect(out, self.advance())
@@ -159,12 +166,22 @@ class Track:
         if item is not None and len(item):
             out.append(item)
 
+    @property
+    def buf(self) -> np.ndarray:
+        return self._store[self._off: self._off + self._rows]
+
     def _extend(self, new_end: int) -> None:
         if new_end <= self.end:
             return
-        ext = np.full((new_end - self.base, self.n, 2), np.nan)
-        ext[: self.buf.shape[0]] = self.buf
-        self.buf = ext
+        rows = new_end - self.base
+        if self._off + rows > self._store.shape[0]:
+            cap = max(self._store.shape[0], 2 * rows)
+            store = np.full((cap, self.n, 2), np.nan)
+            store[: self._rows] = self.buf
+            self._store, self._off = store, 0
+        # rows past the old end are NaN already (new or reset store), except after a trim
+        self._store[self._off + self._rows: self._off + rows] = np.nan
+        self._rows = rows
         self.end = new_end
 
     # -- classification ----------------------------------------------------------
@@ -286,7 +303,9 @@ class Track:
         """Keep only the context the rules need."""
         keep_from = max(self.fin - self.p.context, self.base)
         if keep_from > self.base:
-            self.buf = self.buf[keep_from - self.base:]
+            drop = keep_from - self.base
+            self._off += drop
+            self._rows -= drop
             self.base = keep_from
 
     def _clean(self) -> np.ndarray | None:
@@ -297,14 +316,21 @@ class Track:
         if self.fin - p.half - max(self.cut, self.base) < 0 or self.end - self.cut < p.context:
             return None
         buf = self.buf
-        seen = ~np.isnan(buf[:, :, 0])
-        cols = seen[0]
+        # only rows not checked before (and the one before them, for the step)
+        start = max(self._clean_upto - 1 - self.base, 0) if self._clean_cols is not None else 0
+        part = buf[start:]
+        seen = ~np.isnan(part[:, :, 0])
+        cols = seen[0] if start == 0 else self._clean_cols
         if not (seen == cols).all():
+            self._clean_cols = None
             return None
-        d = buf[1:] - buf[:-1]  # unseen players give NaN, which compares False
+        d = part[1:] - part[:-1]  # unseen players give NaN, which compares False
         lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
         if ((d * d).sum(axis=2) > lim * lim).any():
+            self._clean_cols = None
             return None
+        self._clean_cols = cols
+        self._clean_upto = self.end
         return cols
 
     _CHUNK = 64  # rows per banded product: small enough that the band matrix stays cheap
