@@ -11,6 +11,8 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
+from service.reports.alerts import AlertsSection  # alert rules are data; their models live beside the rules
+
 DEFAULT_PATH = Path(__file__).resolve().parent.parent / "config" / "default.toml"
 
 
@@ -117,6 +119,21 @@ class Server(_Section):
     max_every_s: float = Field(gt=0, le=3600)
 
 
+class Reports(_Section):
+    enabled: bool
+    period_timeout_s: float = Field(gt=0, le=3600)
+    intensity_block_min: int = Field(ge=1, le=15)
+    low_coverage: float = Field(ge=0, le=1)
+
+
+class History(_Section):
+    enabled: bool
+    path: str = Field(min_length=1)
+    baseline_matches: int = Field(ge=1, le=50)
+    min_minutes: float = Field(ge=0, le=150)
+    block_min: int = Field(ge=1, le=45)
+
+
 class Settings(_Section):
     decode: Decode
     kinematics: Kinematics
@@ -128,6 +145,9 @@ class Settings(_Section):
     periods: Periods
     health: Health
     server: Server
+    reports: Reports
+    alerts: AlertsSection
+    history: History
     # Sections owned by the shell (server, limits, ...) validate themselves there.
     extra: dict[str, Any] = Field(default_factory=dict)
 

@@ -1,0 +1,12 @@
+"""Half-time and full-time reports, and the player alert rules beside them.
+
+``builder``  writes a report folder (report.html, report.csv, snapshot.json)
+``charts``   the matplotlib (SVG backend) charts of a report
+``page``     the self-contained HTML page
+``table``    the flat one-row-per-player table (CSV)
+``alerts``   drop-off and load-budget rules: data (TOML/JSON) validated by pydantic
+``offline``  ``pacewire report FOLDER --out DIR``
+
+Importing this package loads nothing heavy: matplotlib is imported by
+``charts`` only when a report is drawn.
+"""
