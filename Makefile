@@ -4,7 +4,7 @@ VENV   := .venv
 PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: test bench demo venv clean
+.PHONY: test bench demo venv clean schema
 
 venv: $(STAMP)
 
@@ -22,6 +22,9 @@ bench: $(STAMP)
 
 demo: $(STAMP)
 	$(PY) -m service.cli demo
+
+schema: $(STAMP)
+	$(PY) -m service.wire.schema --out docs/schema
 
 clean:
 	rm -rf $(VENV) bench-results.json

@@ -1,0 +1,397 @@
+"""Pydantic models of every message out (DESIGN §3) and their JSON Schemas (2020-12).
+
+The models are the one source of truth for the published schemas: ``docs/schema/``
+is written from them (``make schema``), ``GET /api/schema/messages`` serves them,
+and the tests check that both agree with the models and with what a real server
+sends. The models describe; the server builds its messages elsewhere
+(``service.engine.snapshot``, ``service.live``), so a test validates real
+messages against these schemas.
+
+Units are SI and part of every field name (``_m`` metres, ``_ms`` m/s, ``_s``
+seconds, ``_wkg`` W/kg, ``_jkg`` J/kg). Window keys, zone band names and period
+keys depend on ``config/default.toml``, so they are described by patterns.
+
+The published schemas are open (unknown fields allowed): within a contract
+version fields are only added. :func:`strict` closes every object, which the
+tests use to catch a field the server sends but the models do not describe.
+
+Run ``python -m service.wire.schema --out docs/schema`` to write the files.
+"""
+from __future__ import annotations
+
+import argparse
+import copy
+import json
+import sys
+import types
+import typing
+from pathlib import Path
+from typing import Annotated, Any, Literal, Union
+
+from pydantic import BaseModel, ConfigDict, Field, create_model
+
+from service.engine.types import PERIODS
+from service.wire.messages import CONTRACT_VERSION
+
+JSON_SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
+
+Period = Literal[PERIODS]  # type: ignore[valid-type]
+WINDOW_KEY = r"^(last_[0-9]+min|peak_[0-9]+min|block_[0-9]+_[0-9]+)$"
+LAST_WINDOW_KEY = r"^last_[0-9]+min$"
+ZONE_KEY = r"^[0-9]+(\.[0-9]+)?(-[0-9]+(\.[0-9]+)?%?|%?\+)$"
+ID = Annotated[str, Field(min_length=1)]
+
+
+class _Shape(BaseModel):
+    # described, not enforced: the published schema stays open for added fields
+    model_config = ConfigDict(extra="ignore")
+
+
+# -- the snapshot body -------------------------------------------------------------------------
+class WindowFigures(_Shape):
+    """Distance and effort figures over a stretch of play (window, block, period, team)."""
+
+    distance_m: float = Field(ge=0, description="Distance covered, m.")
+    hsr_m: float = Field(ge=0, description="High-speed running distance, 5.5-7.0 m/s (19.8-25.2 km/h), m "
+                                           "(Bradley et al. 2009; Di Salvo et al. 2009).")
+    sprint_m: float = Field(ge=0, description="Sprint distance, >= 7.0 m/s (25.2 km/h), m (Di Salvo et al. 2009).")
+    hsr_efforts: int = Field(ge=0, description="High-speed efforts: >= 5.5 m/s held >= 1 s (a sprint is one too), count.")
+    sprints: int = Field(ge=0, description="Sprint efforts: >= 7.0 m/s held >= 1 s, count.")
+    accels: int = Field(ge=0, description="Accelerations above +3 m/s^2 held >= 0.5 s, count (Akenhead et al. 2013).")
+    decels: int = Field(ge=0, description="Decelerations below -3 m/s^2 held >= 0.5 s, count (Akenhead et al. 2013).")
+    energy_jkg: float = Field(ge=0, description="Metabolic energy spent, J/kg (di Prampero et al. 2005; Osgnach et al. 2010).")
+    high_power_m: float = Field(ge=0, description="Distance covered while metabolic power exceeded 20 W/kg, m "
+                                                  "(Osgnach et al. 2010).")
+    m_per_min: float | None = Field(description="Distance per minute on the pitch, m/min; null before any time on the pitch.")
+    metabolic_power_wkg: float | None = Field(description="Mean metabolic power, W/kg; null before any time on the pitch.")
+
+
+class Window(WindowFigures):
+    """A rolling window (``last_Nmin``), a fixed block (``block_A_B``) or a peak (``peak_Nmin``)."""
+
+    span_s: float = Field(ge=0, description="Seconds of play the window covers (shorter than N minutes early on).")
+    start_s: float = Field(None, description="Peak windows only: match clock at the window's start, s.")
+
+
+class Zones(_Shape):
+    """Distance per speed band, m; band names come from the configured edges, e.g. ``0.0-2.0`` (m/s)
+    and ``7.0+``, or ``0-30%`` and ``85%+`` (share of the player's max speed)."""
+
+    model_config = ConfigDict(json_schema_extra={"patternProperties": {ZONE_KEY: {"type": "number", "minimum": 0}}})
+
+
+class PeriodFigures(WindowFigures):
+    """A player's figures over one stretch of the match (the whole match, or one period)."""
+
+    minutes: float = Field(ge=0, description="Minutes on the pitch.")
+    max_speed_ms: float = Field(ge=0, description="Top speed, m/s.")
+    coverage: float = Field(ge=0, le=1, description="Credited samples / samples on the pitch (1 = no gaps).")
+    zones: Zones = Field(description="Distance per speed band, m.")
+
+
+class ContextFigures(_Shape):
+    distance_m: float = Field(ge=0, description="Distance covered in this ball context, m.")
+    hsr_m: float = Field(ge=0, description="High-speed running distance in this ball context, m.")
+
+
+class Possession(_Shape):
+    """Distance split by ball context (only when the feed carries ball status and possession)."""
+
+    in_possession: ContextFigures
+    out_of_possession: ContextFigures
+    out_of_play: ContextFigures
+
+
+class Player(PeriodFigures):
+    """One player: identity, whole-match figures, windows, per-period figures."""
+
+    team_id: ID = Field(description="The player's team (a key of ``teams``).")
+    jersey_number: int = Field(description="Shirt number from the match sheet.")
+    name: str = Field(description="Display name from the match sheet (may be empty).")
+    is_goalkeeper: bool = Field(description="position_group GK in the match sheet; goalkeepers are left out of team figures.")
+    on_pitch: bool = Field(description="On the pitch now (seen recently, or brought on by a substitution event).")
+    speed_ms: float | None = Field(description="Current speed, m/s; null when not seen in the last second.")
+    windows: dict[Annotated[str, Field(pattern=WINDOW_KEY)], Window | None] = Field(
+        description="last_Nmin: rolling windows of the current period; peak_Nmin: the best N-minute window so far "
+                    "(null until N minutes were played; Fereday et al. 2020); block_A_B: fixed blocks of the "
+                    "match clock, minutes A to B.")
+    periods: dict[Period, PeriodFigures] = Field(description="The same figures per period played.")
+    possession: Possession = Field(None, description="Distance by ball context; present when the feed has possession.")
+
+
+class PerPlayer(_Shape):
+    """Team outfield figures per outfield player who played."""
+
+    distance_m: float | None = Field(description="Distance per outfield player, m.")
+    hsr_m: float | None = Field(description="High-speed running distance per outfield player, m.")
+    sprint_m: float | None = Field(description="Sprint distance per outfield player, m.")
+    m_per_min: float | None = Field(description="Outfield distance per outfield player-minute, m/min.")
+
+
+class TeamWindow(WindowFigures):
+    span_s: float = Field(ge=0, description="Seconds of play the window covers.")
+
+
+class Outfield(WindowFigures):
+    """A team's outfield totals (goalkeepers excluded); rates per minute of match time."""
+
+    players: int = Field(ge=0, description="Outfield players who have played.")
+    minutes: float = Field(ge=0, description="Minutes of match time played.")
+    per_player: PerPlayer
+    windows: dict[Annotated[str, Field(pattern=LAST_WINDOW_KEY)], TeamWindow] = Field(
+        description="Rolling windows of the current period, summed over outfield players.")
+
+
+class Team(_Shape):
+    name: str = Field(description="Team name from the set-up.")
+    side: Literal["home", "away"]
+    score: int = Field(None, ge=0, description="Goals from match events (live service only).")
+    outfield: Outfield
+
+
+class Reason(_Shape):
+    code: str = Field(description="Machine-readable reason: no_frames, low_rate, dropout, late_delivery, recorder, ...")
+    message: str = Field(description="Human-readable explanation.")
+
+
+class Health(_Shape):
+    """Feed health: its state, why, and the counters behind it."""
+
+    state: Literal["ok", "degraded", "stalled"]
+    reasons: list[Reason] = Field(description="Empty when ok.")
+    fps_observed: float = Field(ge=0, description="Frames per second received over the rate window, 1/s.")
+    fps_nominal: int = Field(gt=0, description="Frame rate of the set-up, 1/s.")
+    dropout: float = Field(ge=0, le=1, description="Share of expected samples of players on the pitch missing.")
+    lag_s: float | None = Field(description="Median arrival lag behind the frame timestamps, s; null when unknown.")
+    lag_p95_s: float | None = Field(description="95th percentile of the arrival lag, s; null when unknown.")
+    late: int = Field(ge=0, description="Frames dropped for arriving after a later frame, count.")
+    duplicates: int = Field(ge=0, description="Frames dropped as repeats of an applied frame id, count.")
+    rejected: int = Field(ge=0, description="Frames refused as invalid, count.")
+    jumps: int = Field(ge=0, description="Implausible position steps (> 12.5 m/s) rejected, count.")
+    frames: int = Field(ge=0, description="Frames applied, count.")
+    coverage: dict[str, float] = Field(description="Per player id: credited samples / samples on the pitch, 0-1.")
+
+
+class SnapshotBody(_Shape):
+    """The full state of a match (also ``GET /api/matches/{id}/snapshot``)."""
+
+    players: dict[str, Player] = Field(description="Per player id.")
+    teams: dict[str, Team] = Field(description="Per team id.")
+    health: Health
+
+
+# -- messages ------------------------------------------------------------------------------------
+class Envelope(_Shape):
+    """Fields every message carries; the body's fields sit beside them."""
+
+    match_id: ID
+    seq: int = Field(ge=0, description="Position in this subscription's stream: one more per message; 0 on errors.")
+    match_time_s: float = Field(ge=0, description="Match clock of the state the message reflects, s.")
+    period: Period | None = Field(description="Current period; null before the first frame.")
+    v: Literal[CONTRACT_VERSION] = Field(  # type: ignore[valid-type]
+        description="Contract major version; within it fields are only added, never removed or renamed.")
+
+
+class SnapshotMessage(SnapshotBody, Envelope):
+    """The full state: on connect, and on resync."""
+
+    type: Literal["snapshot"]
+    resync: Literal[True] = Field(None, description="Present (true) when it replaces messages a resume could not deliver.")
+
+
+class HealthMessage(Envelope):
+    """The feed-health state or the kinds of its reasons changed."""
+
+    type: Literal["health"]
+    health: Health
+
+
+class PeriodMessage(Envelope):
+    """A period started or ended."""
+
+    type: Literal["period"]
+    event: Literal["start", "end"]
+    frame_id: int | None = Field(description="Frame that started (or ended) the period, when known.")
+
+
+class AlertMessage(Envelope):
+    """A player crossed a configured rule."""
+
+    type: Literal["alert"]
+    rule: str = Field(description="Rule id from the configuration.")
+    player_id: str
+    value: float = Field(description="The player's value of the rule's figure (the figure's unit).")
+    limit: float = Field(description="The rule's limit (same unit).")
+    message: str = Field(description="Human-readable text.")
+
+
+class ReportMessage(Envelope):
+    """A report is ready."""
+
+    type: Literal["report"]
+    kind: Literal["half_time", "full_time"]
+    url: str = Field(description="Where to fetch it (path on this server).")
+
+
+class ErrorMessage(Envelope):
+    """A bad frame (ingest socket) or a refused subscription (live socket, then closed with 1008)."""
+
+    type: Literal["error"]
+    code: str = Field(description="Machine-readable: bad_json, duplicate, late, unknown_team, unknown_match, "
+                                  "bad_request, too_many_subscribers, not_stored, ...")
+    message: str = Field(description="Human-readable explanation.")
+    frame_id: int = Field(None, description="The frame's id, when it could be read.")
+    line: int = Field(None, description="Line number within an HTTP batch.")
+
+
+def partial(model: type[BaseModel], suffix: str = "Delta") -> type[BaseModel]:
+    """The same shape with every field optional and nullable (a delta: changed leaves only;
+    null means the key went away). Nested models become partial too."""
+    cache: dict[type, type[BaseModel]] = {}
+
+    def conv(tp: Any) -> Any:
+        if isinstance(tp, type) and issubclass(tp, BaseModel):
+            return make(tp)
+        origin = typing.get_origin(tp)
+        args = typing.get_args(tp)
+        if origin is Annotated:
+            return Annotated[(conv(args[0]), *tp.__metadata__)]  # type: ignore[misc]
+        if origin in (Union, types.UnionType):
+            return Union[tuple(conv(a) for a in args)]  # type: ignore[return-value]
+        if origin is dict:
+            return dict[args[0], Union[conv(args[1]), None]]  # type: ignore[index]
+        return tp
+
+    def make(m: type[BaseModel]) -> type[BaseModel]:
+        if m not in cache:
+            fields: dict[str, Any] = {}
+            for name, info in m.model_fields.items():
+                tp = conv(info.annotation)
+                if info.metadata:  # keep the bounds (ge, le, pattern) of the full shape
+                    tp = Annotated[(tp, *info.metadata)]
+                fields[name] = (Union[tp, None], Field(None, description=info.description))
+            extra = m.model_config.get("json_schema_extra")
+            cache[m] = create_model(f"{m.__name__}{suffix}", __base__=_Shape, __doc__=m.__doc__, **fields)
+            if extra:
+                cache[m].model_config["json_schema_extra"] = extra
+                cache[m].model_rebuild(force=True)
+        return cache[m]
+
+    return make(model)
+
+
+PlayerDelta = partial(Player)
+TeamDelta = partial(Team)
+HealthDelta = partial(Health)
+
+
+class DeltaMessage(Envelope):
+    """Only the leaves that changed since the previous message to this view: a partial snapshot.
+    Apply it by merging nested objects; a null value means the key went away."""
+
+    type: Literal["delta"]
+    players: dict[str, PlayerDelta | None] | None = None  # type: ignore[valid-type]
+    teams: dict[str, TeamDelta | None] | None = None  # type: ignore[valid-type]
+    health: HealthDelta | None = None  # type: ignore[valid-type]
+
+
+MESSAGES: dict[str, type[Envelope]] = {
+    "snapshot": SnapshotMessage,
+    "delta": DeltaMessage,
+    "health": HealthMessage,
+    "period": PeriodMessage,
+    "alert": AlertMessage,
+    "report": ReportMessage,
+    "error": ErrorMessage,
+}
+
+Message = Annotated[Union[tuple(MESSAGES.values())], Field(discriminator="type")]  # type: ignore[valid-type]
+
+
+# -- JSON Schema --------------------------------------------------------------------------------------
+def _tidy(node: Any) -> None:
+    """Drop what pydantic adds but the wire does not mean: property titles and defaults
+    (an absent field is just absent)."""
+    if isinstance(node, dict):
+        node.pop("default", None)
+        for prop in (node.get("properties") or {}).values():
+            if isinstance(prop, dict):
+                prop.pop("title", None)
+        for v in node.values():
+            _tidy(v)
+    elif isinstance(node, list):
+        for v in node:
+            _tidy(v)
+
+
+def _document(schema: dict[str, Any], name: str) -> dict[str, Any]:
+    _tidy(schema)
+    return {"$schema": JSON_SCHEMA_DIALECT, "$comment": f"pacewire contract v{CONTRACT_VERSION}: {name}", **schema}
+
+
+def json_schemas() -> dict[str, dict[str, Any]]:
+    """Every published JSON Schema by name: one per message type, ``snapshot_body`` and
+    ``message`` (any message, chosen by ``type``)."""
+    from pydantic import TypeAdapter
+
+    out = {kind: _document(model.model_json_schema(), kind) for kind, model in MESSAGES.items()}
+    out["snapshot_body"] = _document(SnapshotBody.model_json_schema(), "snapshot_body")
+    union = TypeAdapter(Message).json_schema()
+    union["title"] = "Message"
+    union["description"] = "Any message on /live/{match_id} (and error messages on /ingest/{match_id})."
+    out["message"] = _document(union, "message")
+    return out
+
+
+def strict(schema: dict[str, Any]) -> dict[str, Any]:
+    """A copy with every described object closed (``additionalProperties: false``)."""
+    s = copy.deepcopy(schema)
+
+    def walk(node: Any) -> None:
+        if isinstance(node, dict):
+            if node.get("type") == "object" and ("properties" in node or "patternProperties" in node) \
+                    and "additionalProperties" not in node:
+                node["additionalProperties"] = False
+            for v in node.values():
+                walk(v)
+        elif isinstance(node, list):
+            for v in node:
+                walk(v)
+
+    walk(s)
+    return s
+
+
+def dump(schema: dict[str, Any]) -> str:
+    return json.dumps(schema, indent=2, ensure_ascii=False) + "\n"
+
+
+def write(out: Path) -> list[Path]:
+    """Write every schema to ``out/NAME.json``; stale ``*.json`` files there are removed."""
+    out.mkdir(parents=True, exist_ok=True)
+    schemas = json_schemas()
+    written = []
+    for name, schema in schemas.items():
+        path = out / f"{name}.json"
+        path.write_text(dump(schema), encoding="utf-8")
+        written.append(path)
+    for old in out.glob("*.json"):
+        if old.stem not in schemas:
+            old.unlink()
+    return written
+
+
+def main(argv: list[str] | None = None) -> int:
+    p = argparse.ArgumentParser(prog="python -m service.wire.schema", description=__doc__.splitlines()[0])
+    p.add_argument("--out", type=Path, help="folder to write NAME.json files into (default: print `message`)")
+    args = p.parse_args(argv)
+    if args.out is None:
+        sys.stdout.write(dump(json_schemas()["message"]))
+        return 0
+    for path in write(args.out):
+        print(path)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
