@@ -18,6 +18,7 @@ from prometheus_client import CONTENT_TYPE_LATEST, CollectorRegistry, Counter, G
 from service.config import Settings
 from service.live.broadcaster import Subscriber, View, ViewError
 from service.live.ingest import EventError, Hooks
+from service.live.integrations import make_router
 from service.live.matches import MATCH_ID, Matches, SetupConflict
 from service.wire.cdf import SetupError
 from service.wire.messages import envelope
@@ -98,6 +99,8 @@ def create_app(opts: ServerOptions) -> FastAPI:
         if opts.view_token is None:
             return True
         return _same(token, opts.view_token) or (opts.ingest_token is not None and _same(token, opts.ingest_token))
+
+    app.include_router(make_router(matches, can_read))  # schemas, AsyncAPI, exports (integrations.py)
 
     def unauthorised() -> JSONResponse:
         return _error(401, "unauthorised", "a valid token is needed (Authorization: Bearer ... or ?token=)")
