@@ -58,8 +58,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--strict", action="store_true", help="exit non-zero on the first bad line")
     p.set_defaults(func=_analyze)
 
-    p = sub.add_parser("synth", help="write the synthetic demo match as a CDF folder", add_help=False)
-    p.set_defaults(func=None, passthrough="synth")
+    for name, text in (("synth", "write the synthetic demo match as a CDF folder"),
+                       ("replay", "stream a CDF folder into a server at X times real time"),
+                       ("import", "convert a recording kloppy reads into a CDF folder")):
+        sub.add_parser(name, help=text, add_help=False)
 
     from service.live import server
 
@@ -74,9 +76,16 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
+    # these parse their own options
     if argv and argv[0] == "synth":
         from replay.synth import main as synth_main
         return synth_main(argv[1:])
+    if argv and argv[0] == "replay":
+        from replay.player import main as replay_main
+        return replay_main(argv[1:])
+    if argv and argv[0] == "import":
+        from replay.importer import main as import_main
+        return import_main(argv[1:])
     args = build_parser().parse_args(argv)
     return args.func(args)
 

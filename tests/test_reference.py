@@ -30,7 +30,7 @@ from hypothesis import given, settings as hsettings, strategies as st
 from scipy.integrate import cumulative_trapezoid
 
 import cdf_build as cb
-import kloppy_cdf as kc
+from replay import kloppy_cdf as kc
 from service.analyze import new_match
 from service.config import load_settings
 from service.engine.exertion import metabolic_power, minetti_cost

@@ -53,7 +53,7 @@ class SecondBins:
 
     def finish(self) -> None:
         """The period ended: the second in progress counts as complete."""
-        if self.partial.any() or self.partial_sec >= self.complete:
+        if self.end_slot > self.complete * self.fps:  # final rows in a second not yet closed
             self._close_to(self.partial_sec + 1)
 
     def _close_to(self, sec: int) -> None:

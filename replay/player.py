@@ -1,0 +1,304 @@
+"""``pacewire replay``: stream a CDF folder into a server at X times real time.
+
+Pacing follows the frames' own timestamps on a monotonic clock: frame k is
+due at ``start + (t_k - t_0) / speed``, so errors never accumulate over a
+match. The break between periods is skipped (the next period starts one
+second of wall time after the last frame of the previous one).
+
+Seek (``--from MM:SS``): the frames before that match-clock time are sent at
+once as HTTP batches (the server analyses them immediately and they count in
+every figure), then streaming continues at the chosen speed.
+"""
+from __future__ import annotations
+
+import argparse
+import asyncio
+import signal
+import sys
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterator
+from urllib.parse import urlsplit, urlunsplit
+
+import orjson
+
+from replay.recording import Recording, open_recording
+from service.engine.match import CLOCK_START_MIN
+from service.wire.cdf import _timestamp
+
+BREAK_WALL_S = 1.0  # wall time between periods in a replay
+TICK_S = 0.02  # frames due within one tick go in one message
+MAX_BYTES = 512 * 1024  # per message or batch, well under the server's 1 MiB default
+
+
+class ReplayError(RuntimeError):
+    pass
+
+
+@dataclass
+class Frame:
+    line: bytes
+    t: float  # timestamp, s
+    clock_s: float  # football clock, s
+    period: str
+
+
+def parse_clock(text: str) -> float:
+    """"MM:SS" (or "MM:SS.s", or plain seconds) → seconds of the football clock."""
+    try:
+        if ":" in text:
+            m, s = text.split(":", 1)
+            value = int(m) * 60 + float(s)
+        else:
+            value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not MM:SS") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError("a match time cannot be negative")
+    return value
+
+
+def fmt_clock(seconds: float) -> str:
+    return f"{int(seconds // 60):02d}:{int(seconds % 60):02d}"
+
+
+def frames_of(rec: Recording) -> Iterator[Frame]:
+    """Every parsable frame line with its time; unreadable lines go as they are (the server judges them)."""
+    t0: dict[str, float] = {}
+    last = (0.0, 0.0, "first_half")
+    for line in rec.lines():
+        raw = line.rstrip(b"\r\n")
+        if not raw.strip():
+            continue
+        try:
+            obj = orjson.loads(raw)
+            period = obj["period"]
+            t = _timestamp(obj["timestamp"])
+            start = t0.setdefault(period, t)
+            clock = CLOCK_START_MIN.get(period, 0) * 60.0 + (t - start)
+            last = (t, clock, period)
+        except Exception:  # not ours to judge: the server answers it with a reason
+            t, clock, period = last
+        yield Frame(raw, t, clock, period)
+
+
+def _http_base(ws_url: str) -> tuple[str, str]:
+    """ws://host:port/ingest/MATCH → (http://host:port, MATCH)."""
+    parts = urlsplit(ws_url)
+    if parts.scheme not in ("ws", "wss") or not parts.path.startswith("/ingest/"):
+        raise ReplayError(f"--to must look like ws://HOST:PORT/ingest/MATCH, not {ws_url!r}")
+    match_id = parts.path[len("/ingest/"):]
+    scheme = "https" if parts.scheme == "wss" else "http"
+    return urlunsplit((scheme, parts.netloc, "", "", "")), match_id
+
+
+class Progress:
+    def __init__(self, stream: Any = sys.stderr) -> None:
+        self.stream = stream
+        self.last = 0.0
+        self.t0 = time.monotonic()
+        self.sent = 0
+
+    def show(self, fr: Frame, sent: int, force: bool = False) -> None:
+        now = time.monotonic()
+        self.sent = sent
+        if not force and now - self.last < 0.5:
+            return
+        self.last = now
+        rate = sent / max(now - self.t0, 1e-9)
+        if self.stream.isatty():
+            self.stream.write(f"\r{fr.period:<22} {fmt_clock(fr.clock_s)}  {sent:>8} frames  {rate:8.0f} frames/s ")
+        else:
+            self.stream.write(f"{fr.period} {fmt_clock(fr.clock_s)} {sent} frames {rate:.0f} frames/s\n")
+        self.stream.flush()
+
+
+async def replay(folder: Path, to: str, speed: float | None, start_s: float | None = None, until_s: float | None = None,
+                 token: str | None = None, match_id: str | None = None, progress: Progress | None = None,
+                 stop: asyncio.Event | None = None) -> tuple[int, Frame | None]:
+    """Stream a folder; returns (frames sent, last frame sent). ``speed`` None: as fast as possible."""
+    import httpx
+    import websockets
+
+    rec = open_recording(folder)
+    base, url_match = _http_base(to)
+    mid = match_id or url_match
+    headers = {"Authorization": f"Bearer {token}"} if token else {}
+    meta = dict(rec.meta)
+    meta["match"] = {**meta.get("match", {}), "id": mid}
+    async with httpx.AsyncClient(base_url=base, headers=headers, timeout=60) as http:
+        r = await http.put(f"/api/matches/{mid}", json={"meta": meta, "sheet": rec.sheet})
+        if r.status_code >= 400:
+            raise ReplayError(f"set-up refused ({r.status_code}): {r.text}")
+        frames = frames_of(rec)
+        sent = 0
+        last: Frame | None = None
+        pending: Frame | None = None
+        if start_s is not None:
+            batch: list[bytes] = []
+            size = 0
+            for fr in frames:
+                if fr.clock_s >= start_s:
+                    pending = fr
+                    break
+                line = _rename(fr.line, mid, url_match, rec)
+                if batch and size + len(line) > MAX_BYTES:
+                    await _post(http, mid, batch)
+                    sent += len(batch)
+                    batch, size = [], 0
+                batch.append(line)
+                size += len(line) + 1
+                last = fr
+            if batch:
+                await _post(http, mid, batch)
+                sent += len(batch)
+        ws_url = to if match_id is None else to.rsplit("/", 1)[0] + "/" + mid
+        async with websockets.connect(ws_url, additional_headers=headers, max_size=None) as ws:
+            drain = asyncio.create_task(_drain(ws))
+            try:
+                wall0 = time.monotonic()
+                ref_t: float | None = None
+                period: str | None = None
+                shift = 0.0  # skipped break time, s of frame time
+                out: list[bytes] = []
+                out_size = 0
+                due_at = 0.0
+
+                def stream() -> Iterator[Frame]:
+                    if pending is not None:
+                        yield pending
+                    yield from frames
+
+                for fr in stream():
+                    if stop is not None and stop.is_set():
+                        break
+                    if until_s is not None and fr.clock_s > until_s:
+                        break
+                    if ref_t is None:
+                        ref_t, period = fr.t, fr.period
+                    if fr.period != period:
+                        # skip the break: the new period starts BREAK_WALL_S after the last frame
+                        gap = fr.t - (last.t if last is not None else fr.t)
+                        shift += max(gap - BREAK_WALL_S * (speed or 1.0), 0.0)
+                        period = fr.period
+                    due = 0.0 if speed is None else (fr.t - shift - ref_t) / speed
+                    line = _rename(fr.line, mid, url_match, rec)
+                    full = out_size + len(line) > MAX_BYTES or (speed is None and len(out) >= 250)
+                    if out and (full or speed is not None and due - due_at > TICK_S):
+                        sent += await _send(ws, out, wall0, due_at, speed)
+                        out, out_size = [], 0
+                    if not out:
+                        due_at = due
+                    out.append(line)
+                    out_size += len(line) + 1
+                    last = fr
+                    if progress is not None:
+                        progress.show(fr, sent)
+                if out:
+                    sent += await _send(ws, out, wall0, due_at, speed)
+            finally:
+                drain.cancel()
+    if progress is not None and last is not None:
+        progress.show(last, sent, force=True)
+    return sent, last
+
+
+def _rename(line: bytes, mid: str, url_match: str, rec: Recording) -> bytes:
+    """Frames keep their match id unless the replay goes to another match id."""
+    original = str(rec.meta.get("match", {}).get("id", ""))
+    if mid == original:
+        return line
+    return line.replace(f'"id":"{original}"'.encode(), f'"id":"{mid}"'.encode(), 1)
+
+
+async def _post(http: Any, mid: str, lines: list[bytes]) -> None:
+    r = await http.post(f"/api/matches/{mid}/frames", content=b"\n".join(lines))
+    if r.status_code >= 400:
+        raise ReplayError(f"batch refused ({r.status_code}): {r.text[:300]}")
+
+
+async def _send(ws: Any, lines: list[bytes], wall0: float, due: float, speed: float | None) -> int:
+    if speed is not None:
+        wait = wall0 + due - time.monotonic()
+        if wait > 0:
+            await asyncio.sleep(wait)
+    payload = lines[0] if len(lines) == 1 else b"[" + b",".join(lines) + b"]"
+    await ws.send(payload.decode())
+    return len(lines)
+
+
+async def _drain(ws: Any) -> None:
+    """Read what the server says on the ingest socket (errors) so its buffers never fill."""
+    try:
+        async for msg in ws:
+            try:
+                m = orjson.loads(msg)
+                if m.get("type") == "error" and m.get("code") not in ("duplicate", "late"):
+                    print(f"server: {m.get('code')}: {m.get('message')}", file=sys.stderr)
+            except orjson.JSONDecodeError:
+                pass
+    except Exception:
+        pass
+
+
+def _speed(text: str) -> float | None:
+    if text == "max":
+        return None
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError("speed is a number from 0.25 to 100, or max") from None
+    if not 0.25 <= v <= 100:
+        raise argparse.ArgumentTypeError("speed is a number from 0.25 to 100, or max")
+    return v
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="pacewire replay", description="Stream a recorded match into a pacewire server.")
+    p.add_argument("folder", type=Path, help="a CDF folder (meta.json, match.json, tracking.jsonl[.gz])")
+    p.add_argument("--to", required=True, help="ws://HOST:PORT/ingest/MATCH")
+    p.add_argument("--speed", type=_speed, default=1.0, help="times real time, 0.25 to 100, or max (default 1)")
+    p.add_argument("--from", dest="start", type=parse_clock, help="start at this match time (MM:SS); earlier frames are sent at once")
+    p.add_argument("--until", type=parse_clock, help="stop at this match time (MM:SS)")
+    p.add_argument("--token", help="ingest token")
+    p.add_argument("--loop", action="store_true", help="start again at the end, as a new match MATCH-2, MATCH-3, ...")
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    stop = asyncio.Event()
+
+    async def run() -> int:
+        loop = asyncio.get_running_loop()
+        try:
+            loop.add_signal_handler(signal.SIGINT, stop.set)
+            loop.add_signal_handler(signal.SIGTERM, stop.set)
+        except (NotImplementedError, RuntimeError):
+            pass
+        _, url_match = _http_base(args.to)
+        round_no = 1
+        while True:
+            mid = url_match if round_no == 1 else f"{url_match}-{round_no}"
+            prog = Progress()
+            sent, last = await replay(args.folder, args.to, args.speed, args.start, args.until, args.token,
+                                      None if round_no == 1 else mid, prog, stop)
+            if stop.is_set():
+                where = fmt_clock(last.clock_s) if last else "00:00"
+                print(f"\nstopped at {where} ({last.period if last else 'before the first frame'}, {sent} frames sent); "
+                      f"resume with --from {where}", file=sys.stderr)
+                return 0
+            print(f"\nreplay of {args.folder} into {mid} done: {sent} frames", file=sys.stderr)
+            if not args.loop:
+                return 0
+            round_no += 1
+
+    try:
+        return asyncio.run(run())
+    except ReplayError as exc:
+        print(f"pacewire replay: {exc}", file=sys.stderr)
+        return 2
+    except OSError as exc:
+        print(f"pacewire replay: cannot reach the server: {exc}", file=sys.stderr)
+        return 2
