@@ -40,13 +40,6 @@ def _analyze(args: argparse.Namespace) -> int:
     return 0
 
 
-def _not_yet(name: str, issue: str):  # noqa: ANN202
-    def run(args: argparse.Namespace) -> int:
-        print(f"pacewire {name}: not yet available ({issue})", file=sys.stderr)
-        return 3
-    return run
-
-
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="pacewire", description="Live exertion service for football.")
     sub = parser.add_subparsers(dest="command", required=True)
@@ -69,8 +62,11 @@ def build_parser() -> argparse.ArgumentParser:
     server.add_arguments(p)
     p.set_defaults(func=server.run)
 
+    from service import demo
+
     p = sub.add_parser("demo", help="generate the demo match, serve it and replay it")
-    p.set_defaults(func=_not_yet("demo", "the live service and replay are still being built"))
+    demo.add_arguments(p)
+    p.set_defaults(func=demo.run)
     return parser
 
 

@@ -267,3 +267,22 @@ def test_stall_flush_then_resume_keeps_every_frame():
 def test_block_take_and_concat_round_trip():
     b = Block.empty(3)
     assert len(Block.concat([b, b])) == 0
+
+
+def test_health_lag_rules():
+    from service.engine.health import FeedHealth, HealthParams
+
+    def feed(offset_fn, seconds=30):
+        h = FeedHealth(HealthParams(5.0, 0.9, 0.2, 2.0, 2.0), fps_nominal=25)
+        for k in range(seconds * 25):
+            now = 1000.0 + k / 25
+            h.on_frames(now, np.array([now - offset_fn(k / 25)]), 1)
+        return h.evaluate(now, 0.0)
+
+    # a provider clock 1 h off, steady: lag reported, feed fine (common practice: judge delay, not offset)
+    assert feed(lambda t: 3600.0)[0] == "ok"
+    # a 10x replay: frame time runs ahead of the wall clock, never "late"
+    assert feed(lambda t: 5000.0 - 9 * t)[0] == "ok"
+    # a feed falling behind by 0.5 s every second is late within seconds
+    state, reasons = feed(lambda t: 0.5 * t)
+    assert state == "degraded" and [r["code"] for r in reasons] == ["late_delivery"]

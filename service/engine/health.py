@@ -41,6 +41,8 @@ class FeedHealth:
     # between provider and us, which a replay or a skewed clock makes large
     _offsets: deque[tuple[float, float]] = field(default_factory=deque)
     offset_window_s: float = 60.0
+    # each frame's lag above the best lag of the minute before it
+    _excess: deque[tuple[float, float]] = field(default_factory=deque)
 
     def on_frames(self, now: float, frame_times: np.ndarray, n: int, measure_lag: bool = True) -> None:
         """``n`` frames with timestamps ``frame_times`` (s) arrived at ``now``.
@@ -62,12 +64,15 @@ class FeedHealth:
             while self._offsets and self._offsets[-1][1] >= lag:
                 self._offsets.pop()  # monotonic deque: the front is the window minimum
             self._offsets.append((now, lag))
+            self._excess.append((now, lag - self._offsets[0][1]))
         self._expire(now)
 
     def _expire(self, now: float) -> None:
         horizon = now - self.params.rate_window_s
         while self._lags and self._lags[0][0] < horizon:
             self._lags.popleft()
+        while self._excess and self._excess[0][0] < horizon:
+            self._excess.popleft()
         while self._offsets and self._offsets[0][0] < now - self.offset_window_s:
             self._offsets.popleft()
 
@@ -87,11 +92,14 @@ class FeedHealth:
         return float(np.median(lags)), float(np.percentile(lags, 95))
 
     def excess_lag(self, now: float) -> float | None:
-        """p95 lag above the clock offset (the smallest lag of the last minute), s."""
-        _, p95 = self.lag(now)
-        if p95 is None or not self._offsets:
+        """p95 over the rate window of each frame's lag above the smallest lag of
+        the minute before it (the clock offset), s. A constant offset (skewed
+        clock) or a shrinking one (a fast replay) gives zero; a feed falling
+        behind gives its delay."""
+        self._expire(now)
+        if not self._excess:
             return None
-        return p95 - self._offsets[0][1]
+        return float(np.percentile(np.fromiter((v for _, v in self._excess), float), 95))
 
     def evaluate(self, now: float, dropout: float, extra_reasons: list[dict[str, str]] | None = None
                  ) -> tuple[str, list[dict[str, str]]]:
