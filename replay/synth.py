@@ -52,7 +52,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import orjson
 from scipy.ndimage import uniform_filter1d
-from scipy.signal import lfilter
+from scipy.signal import lfilter, savgol_filter
 
 __all__ = ["write_match", "simulate_match", "movement_stats", "main"]
 
@@ -87,6 +87,7 @@ CATCH_UP_GAIN = 0.30  # 1/s: extra speed per metre beyond CATCH_UP_FROM_M from t
 CATCH_UP_FROM_M = 8.0
 CHASE_MAX_MS = 6.0
 PRESS_MAX_MS = 5.5
+HEADING_NOISE = 0.4  # rad per sqrt(s): random-walk wander of the heading
 BRAKE_MS2 = 2.5  # planned braking towards the touchlines / goal lines
 X_SOFT_M = 51.4  # where braking aims to stop (inside the pitch)
 Y_SOFT_M = 33.0
@@ -121,12 +122,12 @@ class RoleProfile:
 # midfielders least (Di Salvo et al. 2009).
 ROLES: dict[str, RoleProfile] = {
     "GK": RoleProfile((0.42, 0.48, 0.09, 0.01), 0.90, 1.5, 4.0),
-    "CB": RoleProfile((0.14, 0.50, 0.28, 0.08), 0.93, 28.0, 15.0),
-    "FB": RoleProfile((0.10, 0.48, 0.31, 0.11), 0.86, 34.0, 25.0),
-    "CM": RoleProfile((0.07, 0.45, 0.35, 0.13), 0.89, 30.0, 28.0),
-    "WM": RoleProfile((0.09, 0.46, 0.33, 0.12), 0.83, 38.0, 28.0),
-    "W": RoleProfile((0.10, 0.47, 0.31, 0.12), 0.82, 40.0, 25.0),
-    "CF": RoleProfile((0.13, 0.50, 0.28, 0.09), 0.80, 34.0, 22.0),
+    "CB": RoleProfile((0.14, 0.50, 0.28, 0.08), 0.93, 31.0, 15.0),
+    "FB": RoleProfile((0.10, 0.48, 0.31, 0.11), 0.92, 34.0, 25.0),
+    "CM": RoleProfile((0.07, 0.45, 0.35, 0.13), 0.845, 32.0, 28.0),
+    "WM": RoleProfile((0.09, 0.46, 0.33, 0.12), 0.84, 38.0, 28.0),
+    "W": RoleProfile((0.10, 0.47, 0.31, 0.12), 0.81, 40.0, 25.0),
+    "CF": RoleProfile((0.13, 0.50, 0.28, 0.09), 0.78, 34.0, 22.0),
 }
 POSITION_ROLE = {
     "GK": "GK", "LCB": "CB", "RCB": "CB", "CB": "CB", "LB": "FB", "RB": "FB",
@@ -307,8 +308,12 @@ def team_anchors(ball: np.ndarray, poss_share: np.ndarray, direction: float, off
     bx = np.clip(0.6 * b.real + 4.0 * poss_share - 5.0 * (1.0 - poss_share), -24.0, 26.0)[:, None]
     depth = 0.85 + 0.25 * ps
     width = 0.85 + 0.20 * ps
-    ax = np.clip(bx + offsets.real[None, :] * depth, -49.0, 49.0)
-    ay = np.clip(offsets.imag[None, :] * width + 0.35 * b.imag[:, None], -31.0, 31.0)
+    ax = bx + offsets.real[None, :] * depth
+    ay = offsets.imag[None, :] * width + 0.35 * b.imag[:, None]
+    # players near the ball are drawn towards it (support / pressure), far ones hold shape
+    pull = 0.35 * np.exp(-np.hypot(ax - b.real[:, None], ay - b.imag[:, None]) / 15.0)
+    ax = np.clip(ax + pull * (b.real[:, None] - ax), -49.0, 49.0)
+    ay = np.clip(ay + pull * (b.imag[:, None] - ay), -31.0, 31.0)
     # goalkeeper: stays near goal, edges out when the ball is far away
     ax[:, 0] = np.clip(-50.3 + 0.13 * (b.real + HALF_LENGTH_M), -50.3, -36.0)
     ay[:, 0] = np.clip(0.22 * b.imag, -6.0, 6.0)
@@ -398,7 +403,8 @@ class _BallScript:
         w = np.exp(-dist / 14.0) * np.where(fwd > 0, 1.7, 1.0) * np.where(dist < 4.0, 0.15, 1.0)
         j = int(rng.choice(len(an), p=w / w.sum()))
         dest = an[j] + complex(rng.normal(0, 4.0), rng.normal(0, 4.0))
-        out = rng.random() < 0.06
+        late = self.t / self.half_s  # more and longer stoppages late in a half
+        out = rng.random() < 0.05 + 0.04 * late
         if out:
             side = np.sign(dest.imag) if dest.imag != 0 else 1.0
             dest = complex(dest.real, side * 33.9)
@@ -413,7 +419,7 @@ class _BallScript:
             self.add(max(dur, 0.3), "roll", dest, True)
         if out:
             self.poss = 1 - team
-            self.stoppage(rng.uniform(6.0, 22.0))
+            self.stoppage(rng.uniform(6.0, 22.0) * (1.0 + 0.4 * late))
             return
         attacking_third = d * self.p.real > 17.5
         if rng.random() < 0.14 + (0.10 if attacking_third else 0.0):
@@ -648,17 +654,17 @@ def _spread_count(rng: np.random.Generator, mean: float) -> int:
 
 
 def _sample_bursts(rng: np.random.Generator, weight: np.ndarray, sprint90: np.ndarray, hsr90: np.ndarray,
-                   fps: int, min_gap_s: float = 5.0) -> list[Burst]:
+                   fps: int, min_gap_s: float = 4.0) -> list[Burst]:
     """Sprint and high-speed bursts of every slot, never overlapping.
 
-    Onset density is proportional to ``weight`` (n, k); the counts are
-    near sprint90 / hsr90 per 90 min (see _spread_count). Candidates are drawn in
-    excess, thinned to non-overlapping windows (longest burst + min_gap_s),
-    and the first ones (in random order) become the sprints, the next the
-    high-speed runs.
+    Onset density is proportional to ``weight`` (n, k); the counts are near
+    sprint90 / hsr90 per 90 min (see _spread_count). Candidate onsets are
+    drawn from the density and accepted in random order when their window
+    (burst + min_gap_s either side) is still free, which keeps the accepted
+    onsets close to the density (occupancy stays low).
     """
     n, k = weight.shape
-    window = int((max(SPRINT_COMMAND_S[1], HSR_COMMAND_S[1]) + min_gap_s) * fps)
+    gap = int(min_gap_s * fps)
     bursts = []
     for j in range(k):
         cw = np.cumsum(weight[:, j])
@@ -666,17 +672,21 @@ def _sample_bursts(rng: np.random.Generator, weight: np.ndarray, sprint90: np.nd
             continue
         n_sprint = _spread_count(rng, sprint90[j] * n / fps / 5400.0)
         n_hsr = _spread_count(rng, hsr90[j] * n / fps / 5400.0)
-        cand = np.sort(np.searchsorted(cw, rng.random(2 * (n_sprint + n_hsr) + 4) * cw[-1]))
-        kept = []
-        free_from = 0
-        for s in cand.tolist():
-            if s >= free_from and s + window < n:
-                kept.append(s)
-                free_from = s + window
-        kept = [kept[i] for i in rng.permutation(len(kept))]
-        for i, s in enumerate(kept[:n_sprint + n_hsr]):
-            lo, hi = (SPRINT_SPEED_MS, SPRINT_COMMAND_S) if i < n_sprint else (HSR_SPEED_MS, HSR_COMMAND_S)
-            bursts.append(Burst(j, s, int(rng.uniform(*hi) * fps), float(rng.uniform(*lo))))
+        kinds = [(SPRINT_SPEED_MS, SPRINT_COMMAND_S)] * n_sprint + [(HSR_SPEED_MS, HSR_COMMAND_S)] * n_hsr
+        cand = np.searchsorted(cw, rng.random(3 * len(kinds) + 4) * cw[-1]).tolist()
+        taken = np.zeros(n + 1, bool)
+        i = 0
+        for s in cand:
+            if i == len(kinds):
+                break
+            speed_rng, dur_rng = kinds[i]
+            length = int(rng.uniform(*dur_rng) * fps)
+            a, b = max(s - gap, 0), s + length + gap
+            if b >= n or taken[a:b].any():
+                continue
+            taken[a:b] = True
+            bursts.append(Burst(j, s, length, float(rng.uniform(*speed_rng))))
+            i += 1
     return sorted(bursts, key=lambda b: (b.start, b.slot))
 
 
@@ -724,17 +734,18 @@ def plan_half(rng: np.random.Generator, n: int, fps: int, ball: BallTrack, dirs:
     prox = np.exp(-np.abs(anchors - ball.xy[:, None]) / 20.0)
     prox_n = prox / max(prox.mean(), 1e-9)
     frac = np.arange(n) / n
-    fatigue = (1.0 - 0.25 * frac**2) * (0.97 if half_index == 1 else 1.0)
-    jog_fatigue = 1.0 - 0.10 * frac**2
+    fatigue = (1.0 - 0.40 * frac**2) * (0.97 if half_index == 1 else 1.0)
+    jog_fatigue = 1.0 - 0.25 * frac**2
 
     base = np.array([p.probs for p in prof])  # (k, 4)
     probs = np.broadcast_to(base[None, :, :], (n, k, 4)).copy()
-    probs[:, :, 2] *= (0.8 + 0.2 * prox_n) * jog_fatigue[:, None]
-    probs[:, :, 3] *= (0.6 + 0.4 * prox_n) * fatigue[:, None]
+    probs[:, :, :2] *= np.maximum(1.4 - 0.4 * prox_n, 0.4)[:, :, None]  # far from the ball: walk
+    probs[:, :, 2] *= (0.6 + 0.4 * prox_n) * jog_fatigue[:, None]
+    probs[:, :, 3] *= (0.3 + 0.7 * prox_n) * fatigue[:, None]
     probs /= probs.sum(axis=2, keepdims=True)
     probs[~ball.in_play] = STOPPAGE_PROBS
     scale = np.array([p.speed_scale for p in prof])
-    speed = _segment_speeds(rng, n, fps, probs, scale)
+    speed = _segment_speeds(rng, n, fps, probs, scale) * (1.0 - 0.10 * frac**2)[:, None]
 
     kappa = np.full((n, k), 1.2)
     catch = np.ones((n, k), bool)
@@ -782,7 +793,7 @@ def plan_half(rng: np.random.Generator, n: int, fps: int, ball: BallTrack, dirs:
 
     # smooth speed commands over 0.4 s so accelerations ramp
     speed = uniform_filter1d(speed, size=max(1, int(0.4 * fps)), axis=0, mode="nearest")
-    heading_noise = rng.normal(0.0, 0.6 * np.sqrt(dt), size=(n, k))
+    heading_noise = rng.normal(0.0, HEADING_NOISE * np.sqrt(dt), size=(n, k))
     # kick-off: every player in his own half
     init = anchors[0].copy()
     for team in (0, 1):
@@ -871,7 +882,7 @@ def integrate(plans: list[HalfPlan], fps: int) -> list[np.ndarray]:
         d = target[t] - pos
         dist = np.abs(d) + 1e-9
         u = d / dist
-        w = mn(mx(dist * (1.0 / 6.0) - (1.0 / 3.0), 0.0), 1.0)
+        w = mn(mx((dist - 1.5) * 0.25, 0.0), 1.0)  # heading pull grows from 1.5 m to 5.5 m off target
         z = u * np.conj(h)
         theta = theta + kdt[t] * w * np.arctan2(z.imag, z.real) + noise[t]
         s = speed[t]
@@ -947,7 +958,8 @@ def simulate_match(minutes: float = 95, fps: int = 25, seed: int = 0) -> SynthMa
         for s in subs:
             if start <= s.frame < start + n:
                 a = max(s.frame - s.walk_frames, start)
-                forced.append(((a - start) / fps - 2.0, (s.frame - start) / fps + max(3.0, 8.0 * scale)))
+                stop_from = (s.frame - start - s.walk_frames // 2) / fps  # ball out for the change
+                forced.append((stop_from, (s.frame - start) / fps + max(2.0, 6.0 * scale)))
                 walkoffs.append((11 * s.team + s.slot, a - start, s.frame - start))
         goals = [((f - start) / fps, team) for team, f in goal_plan if start <= f < start + n]
         script = _BallScript(rng, n / fps, dirs, offsets, scale)
@@ -1061,9 +1073,19 @@ def plan_faults(rng: np.random.Generator, m: SynthMatch, minutes: float, *, outa
         length = int(round(OUTAGE_S * fps))
         fits = [h for h, (s, n) in enumerate(tl.halves) if n >= length + 8 * fps]
         if fits:
-            h = int(rng.choice(fits))
-            s, n = tl.halves[h]
-            f = s + int(rng.uniform(0.3, 0.6) * (n - length))
+            cs = np.concatenate([[0], np.cumsum(busy)])
+            starts = []
+            for h in fits:
+                f0, f1 = tl.halves[h][0] + 4 * fps, sum(tl.halves[h]) - length - 4 * fps
+                cand = np.arange(f0, max(f0, f1))
+                starts += cand[cs[cand + length + margin] - cs[cand - margin] == 0].tolist()
+            if starts:  # clear of substitutions and period edges
+                f = int(rng.choice(starts))
+                h = int(half_of[f])
+            else:
+                h = int(rng.choice(fits))
+                s, n = tl.halves[h]
+                f = s + int(rng.uniform(0.3, 0.6) * (n - length))
             busy[max(f - margin, 0):f + length + margin] = True
             fp.outage = set(range(f, f + length))
             fp.records.append({
@@ -1380,28 +1402,28 @@ def _runs(mask: np.ndarray, min_len: int) -> int:
 def movement_stats(m: SynthMatch) -> dict[str, dict[str, float]]:
     """Per-role distance per 90 min (km), sprints per 90, max speed, max |accel|.
 
-    Kinematics: central differences of positions, velocity smoothed with a 1 s
-    moving average, acceleration from the smoothed velocity smoothed over 0.5 s.
-    A sprint is >= 7.0 m/s held >= 1 s (Di Salvo et al. 2009 band; duration by
-    common practice). Per-player figures are per slot and player stint.
+    Kinematics: centred Savitzky-Golay fit (1 s window, cubic) of the positions,
+    speed and acceleration from the same fit (common practice). A sprint is
+    >= 7.0 m/s held >= 1 s (Di Salvo et al. 2009 band; duration by common
+    practice). Figures are pooled over each player stint of a role.
     """
     fps = m.timeline.fps
+    win = fps + 1 - fps % 2  # odd window of about 1 s
     per_role: dict[str, list[tuple[float, float, float, float, float]]] = {}
     for start, n in m.timeline.halves:
-        seg = m.positions[start:start + n]
-        vel = np.gradient(seg, axis=0) * fps
-        vel = uniform_filter1d(vel.real, fps, axis=0) + 1j * uniform_filter1d(vel.imag, fps, axis=0)
-        acc = np.gradient(vel, axis=0) * fps
-        acc = uniform_filter1d(acc.real, fps // 2, axis=0) + 1j * uniform_filter1d(acc.imag, fps // 2, axis=0)
-        speed = np.abs(vel)
         who = m.squad_index[start:start + n]
         for col in range(22):
             for sq in np.unique(who[:, col]):
                 sel = who[:, col] == sq
-                if sel.sum() < 10 * fps:
+                if sel.sum() < 3 * win:
                     continue
-                sp = speed[sel, col]
-                row = (sp.sum() / fps, _runs(sp >= 7.0, fps), sp.max(), np.abs(acc[sel, col]).max(), sel.sum() / fps)
+                p = m.positions[start:start + n, col][sel]
+                xy = np.column_stack([p.real, p.imag])
+                vel = savgol_filter(xy, win, 3, deriv=1, delta=1.0 / fps, axis=0)
+                acc = savgol_filter(xy, win, 3, deriv=2, delta=1.0 / fps, axis=0)
+                sp = np.hypot(vel[:, 0], vel[:, 1])
+                row = (sp.sum() / fps, _runs(sp >= 7.0, fps), sp.max(), np.hypot(acc[:, 0], acc[:, 1]).max(),
+                       sel.sum() / fps)
                 per_role.setdefault(m.slot_roles[col], []).append(row)
     out = {}
     for role, rows in per_role.items():
