@@ -67,6 +67,16 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("demo", help="generate the demo match, serve it and replay it")
     demo.add_arguments(p)
     p.set_defaults(func=demo.run)
+
+    from service.reports import offline
+    from service.store import commands as history_commands
+
+    p = sub.add_parser("report", help="build the half-time and full-time reports of a recording")
+    offline.add_arguments(p)
+    p.set_defaults(func=offline.cli_report)
+
+    p = sub.add_parser("history", help="match history: import a recording, list what is stored")
+    history_commands.add_arguments(p)
     return parser
 
 

@@ -1,0 +1,172 @@
+"""Reports from a recording, offline: ``pacewire report FOLDER --out DIR``.
+
+The recording runs through the same engine as live (decoder, MatchState),
+then the same report builder writes the half-time report (the state as it
+stood when the first half ended) and the full-time report. For the same
+frames, the CSV and JSON equal those the live service wrote.
+"""
+from __future__ import annotations
+
+import argparse
+import copy
+import sys
+import time
+from pathlib import Path
+from typing import Any, TextIO
+
+from replay.recording import Recording, open_recording
+from service.config import Settings
+from service.engine.blocks import block_series
+from service.engine.match import MatchState
+from service.engine.types import PERIOD_INDEX
+from service.reports.builder import ReportInput, build_report, report_kind
+
+
+class ProgressBar:
+    """A one-line progress bar on stderr (redrawn at most ten times a second)."""
+
+    def __init__(self, total: int, label: str, stream: TextIO | None = None, width: int = 30) -> None:
+        self.total = max(total, 1)
+        self.label = label
+        self.stream = stream or sys.stderr
+        self.width = width
+        self.done = 0
+        self.t0 = time.monotonic()
+        self._drawn = -1.0
+
+    def update(self, n: int) -> None:
+        self.done += n
+        now = time.monotonic()
+        if now - self._drawn >= 0.1:
+            self._draw(now)
+
+    def _draw(self, now: float) -> None:
+        self._drawn = now
+        share = min(self.done / self.total, 1.0)
+        fill = int(round(share * self.width))
+        self.stream.write(f"\r{self.label} [{'#' * fill}{'.' * (self.width - fill)}] {share:4.0%} "
+                          f"{now - self.t0:5.1f} s")
+        self.stream.flush()
+
+    def close(self, note: str = "") -> None:
+        self.done = self.total
+        self._draw(time.monotonic())
+        self.stream.write(f"  {note}\n" if note else "\n")
+        self.stream.flush()
+
+
+def _size(rec: Recording) -> int:
+    """Uncompressed bytes of the tracking file (gzip keeps it, mod 2^32, in its last 4 bytes)."""
+    if rec.tracking.suffix == ".gz":
+        with open(rec.tracking, "rb") as fh:
+            fh.seek(-4, 2)
+            return int.from_bytes(fh.read(4), "little")
+    return rec.tracking.stat().st_size
+
+
+def run_recording(folder: str | Path, settings: Settings, progress: bool = True,
+                  batch: int = 1500) -> tuple[MatchState, Recording, int]:
+    """Run a recording through the engine (as ``pacewire analyze`` does) with a progress
+    bar on stderr. Returns (finished state, recording, bad lines skipped)."""
+    from service.analyze import new_match
+
+    rec = open_recording(folder)
+    state, decoder = new_match(rec.meta, rec.sheet, settings)
+    bar = ProgressBar(_size(rec), f"{state.roster.match_id}: frames") if progress else None
+    bad = 0
+    for first, lines in rec.batches(batch):
+        res = decoder.decode_lines(lines, first_line=first)
+        bad += len(res.errors)
+        state.ingest(res)
+        if bar is not None:
+            bar.update(sum(len(line) for line in lines))
+    state.finish()
+    if bar is not None:
+        bar.close(f"{state.frames} frames, {bad} bad lines skipped")
+    return state, rec, bad
+
+
+def state_until(state: MatchState, period_index: int) -> MatchState:
+    """The state as it stood when period ``period_index`` ended: later periods left out.
+
+    Ended periods never change again, so a shallow copy sharing them is safe;
+    the copy gets its own snapshot cache."""
+    if state.current is None or state.current.index <= period_index:
+        return state
+    view = copy.copy(state)
+    view.periods = [p for p in state.periods if p.index <= period_index]
+    view.__dict__.pop("_snapshot_cache", None)
+    return view
+
+
+def report_input(state: MatchState, period_index: int, source: str, created_at: float, now: float | None = None,
+                 extra_reasons: list[dict[str, str]] | None = None, score: list[int] | None = None) -> ReportInput:
+    """What a report of the match up to the end of ``period_index`` is built from
+    (cheap: one snapshot and the block sums; run it where the state lives)."""
+    view = state_until(state, period_index)
+    snap = view.snapshot(now=now, extra_reasons=extra_reasons)
+    if score is not None:
+        for k, tid in enumerate(state.roster.team_ids):
+            snap["teams"][tid]["score"] = score[k]
+    series = block_series(view, state.settings.reports.intensity_block_min, "split")
+    name = view.period_name() or "first_half"
+    return ReportInput(report_kind(name), snap, series, source, created_at)
+
+
+def source_of(meta: dict[str, Any]) -> str:
+    """replay for data collected live (the same engine gives the live figures), offline otherwise."""
+    timing = ((meta.get("meta") or {}).get("tracking") or {}).get("collection_timing")
+    return "replay" if timing == "live" else "offline"
+
+
+def build_offline(folder: str | Path, out: str | Path, settings: Settings, progress: bool = True
+                  ) -> list[dict[str, Any]]:
+    """Write the half-time and full-time reports of a recording under ``out``."""
+    state, rec, _ = run_recording(folder, settings, progress)
+    source = source_of(rec.meta)
+    out = Path(out)
+    entries = []
+    indices = sorted({p.index for p in state.periods})
+    wanted = []
+    if PERIOD_INDEX["first_half"] in indices:
+        wanted.append(PERIOD_INDEX["first_half"])
+    if indices and indices[-1] > PERIOD_INDEX["first_half"]:
+        wanted.append(indices[-1])
+    for idx in wanted:
+        t0 = time.perf_counter()
+        inp = report_input(state, idx, source, time.time())
+        entry = build_report(inp, out, settings.reports.low_coverage)
+        entries.append(entry)
+        if progress:
+            print(f"{inp.kind}: {out / inp.kind / 'report.html'} ({time.perf_counter() - t0:.1f} s)", file=sys.stderr)
+    return entries
+
+
+def cli_report(args: argparse.Namespace) -> int:
+    from replay.recording import RecordingError
+    from service.config import ConfigError, load_settings
+    from service.wire.cdf import SetupError
+
+    try:
+        settings = load_settings(args.config)
+    except ConfigError as exc:
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
+    try:
+        entries = build_offline(args.folder, args.out, settings, progress=not args.quiet)
+    except (RecordingError, SetupError, OSError) as exc:
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
+    if not entries:
+        print("pacewire: the recording holds no period to report on", file=sys.stderr)
+        return 1
+    for e in entries:
+        print(Path(args.out) / e["kind"] / "report.html")
+    return 0
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("folder", help="a CDF folder (meta.json, match.json, tracking.jsonl[.gz])")
+    p.add_argument("--out", required=True, help="folder for half_time/ and full_time/")
+    p.add_argument("--config", help="a TOML file overriding config/default.toml")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")

@@ -1,0 +1,261 @@
+"""The report page: one self-contained HTML file (inline CSS and SVG, no external asset), printable on A4."""
+from __future__ import annotations
+
+import html
+import time
+from typing import Any
+
+from service.reports.table import player_order
+
+HEALTH_CAUTION = ("Figures are estimates from positional data; decisions on injury, return-to-play and "
+                  "substitution stay with the club's qualified medical and performance staff.")
+LIVE_CAVEAT = ("Live figures tend to run below post-match reprocessing of the same match; coverage says how "
+               "much of each player's time on the pitch the feed saw.")
+TITLES = {"half_time": "Half-time report", "full_time": "Full-time report"}
+
+CSS = """
+:root{--ink:#1f2a30;--paper:#fbf8f1;--sand:#efe7d4;--grid:#ddd6c6;--muted:#6b7479;--home:#12706b;--away:#c8553d;
+--hsr:#e0a526;--warn:#8e3b46}
+*{box-sizing:border-box}
+body{margin:0;background:var(--paper);color:var(--ink);font:13px/1.45 system-ui,-apple-system,"Segoe UI",Roboto,
+"Helvetica Neue",Arial,sans-serif}
+main{max-width:980px;margin:0 auto;padding:18px 22px 40px}
+.masthead{border-left:10px solid var(--home);padding:6px 0 8px 16px;margin-bottom:14px;
+background:linear-gradient(90deg,var(--sand),transparent 70%)}
+.kicker{font-size:11px;letter-spacing:.18em;text-transform:uppercase;color:var(--muted)}
+h1{margin:.15em 0;font-size:26px;font-weight:750;letter-spacing:-.01em}
+h1 .home{color:var(--home)} h1 .away{color:var(--away)} h1 .score{font-variant-numeric:tabular-nums;padding:0 .35em}
+.meta{margin:0;color:var(--muted);font-size:12px}
+h2{font-size:15px;margin:26px 0 8px;padding-bottom:3px;border-bottom:2px solid var(--ink);display:flex;gap:.6em;
+align-items:baseline} h2 .n{color:var(--muted);font-weight:500;font-size:12px}
+h3{font-size:13px;margin:16px 0 6px}
+.cautions{display:grid;grid-template-columns:1fr 1fr;gap:10px}
+.cautions p{margin:0;padding:8px 11px;border:1px solid var(--grid);border-top:3px solid var(--warn);background:#fff8}
+.cautions p.live{border-top-color:var(--hsr)}
+table{border-collapse:collapse;width:100%;font-variant-numeric:tabular-nums;font-size:12px;margin:4px 0 10px}
+th,td{padding:3px 6px;text-align:right;border-bottom:1px solid var(--grid);white-space:nowrap}
+th{font-weight:650;font-size:11px;color:var(--muted);border-bottom:1.5px solid var(--ink)}
+td.l,th.l{text-align:left} tbody tr:nth-child(even){background:#f3ede0}
+td.low{color:var(--warn);font-weight:700} td.low::after{content:" \\25BE"}
+.teamhead th.home{color:var(--home)} .teamhead th.away{color:var(--away)}
+svg.chart{display:block;width:100%;height:auto;margin:6px 0 12px}
+.note{color:var(--muted);font-size:11.5px;margin:2px 0 8px}
+.unused{color:var(--muted);font-size:12px}
+#intensity table{font-size:10.5px} #intensity td,#intensity th{padding:2px 3px}
+footer{margin-top:28px;border-top:1px solid var(--grid);padding-top:8px;color:var(--muted);font-size:11px}
+@page{size:A4;margin:12mm 11mm}
+@media print{
+ body{background:#fff;font-size:9pt} main{max-width:none;padding:0}
+ .masthead{background:none} h2{break-after:avoid;margin-top:14px}
+ section{break-inside:auto} tr,svg.chart,.cautions p{break-inside:avoid}
+ thead{display:table-header-group} svg.chart{max-width:188mm}
+ tbody tr:nth-child(even){background:#f4f4f4;-webkit-print-color-adjust:exact;print-color-adjust:exact}
+}
+"""
+
+
+def esc(v: Any) -> str:
+    return html.escape("" if v is None else str(v), quote=True)
+
+
+def num(v: Any, nd: int = 0) -> str:
+    if v is None:
+        return "–"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, int) and nd == 0:
+        return f"{v:,}".replace(",", "\u2009")
+    return f"{float(v):,.{nd}f}".replace(",", "\u2009")
+
+
+def clock(seconds: float | None) -> str:
+    if seconds is None or seconds < 0:
+        return "–"
+    s = int(round(seconds))
+    return f"{s // 60}:{s % 60:02d}"
+
+
+def _table(head: list[tuple[str, str]], rows: list[list[tuple[str, str]]], head_class: str = "") -> str:
+    """head: (label, css class); rows: cells of (html, css class)."""
+    th = "".join(f'<th class="{c}">{esc(h)}</th>' for h, c in head)
+    body = "".join("<tr>" + "".join(f'<td class="{c}">{v}</td>' for v, c in r) + "</tr>" for r in rows)
+    return f'<table><thead><tr class="{head_class}">{th}</tr></thead><tbody>{body}</tbody></table>'
+
+
+def team_table(snapshot: dict[str, Any], possession: dict[str, dict[str, float]]) -> str:
+    teams = list(snapshot["teams"].items())
+    head = [("outfield players", "l")] + [(t["name"] or tid, t["side"]) for tid, t in teams]
+    lines: list[tuple[str, Any]] = [
+        ("players used", lambda o: num(o["players"])),
+        ("distance, m", lambda o: num(o["distance_m"])),
+        ("distance per player, m", lambda o: num(o["per_player"]["distance_m"])),
+        ("m/min per player", lambda o: num(o["per_player"]["m_per_min"], 1)),
+        ("HSR, m", lambda o: num(o["hsr_m"])),
+        ("HSR per player, m", lambda o: num(o["per_player"]["hsr_m"])),
+        ("sprint, m", lambda o: num(o["sprint_m"])),
+        ("sprint per player, m", lambda o: num(o["per_player"]["sprint_m"])),
+        ("HSR efforts", lambda o: num(o["hsr_efforts"])),
+        ("sprints", lambda o: num(o["sprints"])),
+        ("accelerations", lambda o: num(o["accels"])),
+        ("decelerations", lambda o: num(o["decels"])),
+        ("high-power distance, m", lambda o: num(o["high_power_m"])),
+    ]
+    rows = [[(esc(label), "l")] + [(fn(t["outfield"]), "") for _, t in teams] for label, fn in lines]
+    if possession:
+        for key, label in (("in_possession", "distance in possession, m"),
+                           ("out_of_possession", "distance out of possession, m"),
+                           ("out_of_play", "distance, ball out of play, m")):
+            rows.append([(esc(label), "l")] + [(num(possession.get(tid, {}).get(key)), "") for tid, _ in teams])
+    return _table(head, rows, "teamhead")
+
+
+def player_table(players: list[tuple[str, dict[str, Any]]], low_coverage: float) -> str:
+    head = [("#", ""), ("player", "l"), ("min", ""), ("dist m", ""), ("m/min", ""), ("HSR m", ""), ("sprint m", ""),
+            ("HSR eff", ""), ("sprints", ""), ("acc", ""), ("dec", ""), ("vmax m/s", ""), ("HP m", ""),
+            ("W/kg", ""), ("coverage", "")]
+    rows = []
+    for pid, p in players:
+        cov = p.get("coverage")
+        rows.append([
+            (num(p["jersey_number"]), ""), (esc(p.get("name") or pid) + (" (GK)" if p["is_goalkeeper"] else ""), "l"),
+            (num(p["minutes"], 1), ""), (num(p["distance_m"]), ""), (num(p["m_per_min"], 1), ""),
+            (num(p["hsr_m"]), ""), (num(p["sprint_m"]), ""), (num(p["hsr_efforts"]), ""), (num(p["sprints"]), ""),
+            (num(p["accels"]), ""), (num(p["decels"]), ""), (num(p["max_speed_ms"], 2), ""),
+            (num(p["high_power_m"]), ""), (num(p["metabolic_power_wkg"], 2), ""),
+            (f"{cov:.0%}" if cov is not None else "–", "low" if cov is not None and cov < low_coverage else ""),
+        ])
+    return _table(head, rows)
+
+
+def peak_table(players: list[tuple[str, dict[str, Any]]], windows: list[int]) -> str:
+    head = [("#", ""), ("player", "l")]
+    for w in windows:
+        head += [(f"peak {w}' m/min", ""), (f"{w}' HSR m", ""), ("from", "")]
+    rows = []
+    for pid, p in players:
+        r = [(num(p["jersey_number"]), ""), (esc(p.get("name") or pid), "l")]
+        for w in windows:
+            win = (p.get("windows") or {}).get(f"peak_{w}min")
+            if win:
+                r += [(num(win["m_per_min"], 1), ""), (num(win["hsr_m"]), ""), (clock(win.get("start_s")), "")]
+            else:
+                r += [("–", ""), ("–", ""), ("–", "")]
+        rows.append(r)
+    return _table(head, rows)
+
+
+def possession_table(players: list[tuple[str, dict[str, Any]]]) -> str:
+    head = [("#", ""), ("player", "l"), ("in poss. m", ""), ("HSR", ""), ("out of poss. m", ""), ("HSR", ""),
+            ("out of play m", ""), ("HSR", "")]
+    rows = []
+    for pid, p in players:
+        pos = p.get("possession") or {}
+        r = [(num(p["jersey_number"]), ""), (esc(p.get("name") or pid), "l")]
+        for key in ("in_possession", "out_of_possession", "out_of_play"):
+            c = pos.get(key) or {}
+            r += [(num(c.get("distance_m")), ""), (num(c.get("hsr_m")), "")]
+        rows.append(r)
+    return _table(head, rows)
+
+
+def intensity_table(players: list[tuple[str, dict[str, Any]]], blocks: list[str],
+                    per_min: dict[str, list[float | None]]) -> str:
+    """Distance per minute on the pitch, per player and block (``per_min[player_id]``)."""
+    head = [("#", ""), ("player", "l")] + [(b, "") for b in blocks]
+    rows = []
+    for pid, p in players:
+        vals = per_min.get(pid, [])
+        rows.append([(num(p["jersey_number"]), ""), (esc(p.get("name") or pid), "l")]
+                    + [(num(v) if v is not None else "", "") for v in vals])
+    return _table(head, rows)
+
+
+def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession: dict[str, dict[str, float]],
+         source: str, created_at: float, low_coverage: float,
+         blocks: list[str] | None = None, per_min: dict[str, list[float | None]] | None = None) -> str:
+    """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``
+    and ``per_min``: block labels and each player's distance per minute in them."""
+    teams = list(snapshot["teams"].items())
+    title = TITLES.get(kind, kind)
+    names = [t["name"] or tid for tid, t in teams]
+    scores = [t.get("score") for _, t in teams]
+    score = f"{scores[0]} – {scores[1]}" if None not in scores else "v"
+    built = time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime(created_at))
+    order = player_order(snapshot)
+    players = snapshot["players"]
+    windows = sorted(int(k[5:-3]) for p in players.values() for k, v in (p.get("windows") or {}).items()
+                     if k.startswith("peak_") and v is not None)
+    windows = sorted(set(windows))
+    health = snapshot["health"]
+    parts = [
+        "<!doctype html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{esc(title)} · {esc(names[0])} {esc(score)} {esc(names[1])} · pacewire</title>",
+        f"<style>{CSS}</style>", "</head>", "<body>", "<main>",
+        '<header class="masthead">',
+        f'<div class="kicker">pacewire · {esc(title)}</div>',
+        f'<h1><span class="home">{esc(names[0])}</span><span class="score">{esc(score)}</span>'
+        f'<span class="away">{esc(names[1])}</span></h1>',
+        f'<p class="meta">match {esc(snapshot["match_id"])} · clock {clock(snapshot.get("match_time_s"))} · '
+        f'figures from {esc(source)} data · built {esc(built)}</p>',
+        "</header>",
+        '<section class="cautions" id="cautions">',
+        f'<p class="health"><strong>Health caution.</strong> {esc(HEALTH_CAUTION)}</p>',
+        f'<p class="live"><strong>Live data.</strong> {esc(LIVE_CAVEAT)}</p>',
+        "</section>",
+        '<section id="teams"><h2>Team comparison <span class="n">outfield players, goalkeepers excluded</span></h2>',
+        team_table(snapshot, possession), charts.get("possession", ""), "</section>",
+        '<section id="intensity"><h2>Intensity over time</h2>', charts.get("team-intensity", ""),
+        '<p class="note">Team lines: outfield distance and HSR per player-minute on the pitch in each block. '
+        'Player maps and tables: per minute on the pitch in each block; a blank cell: not on the pitch then. '
+        'The dashed line marks the break between periods; a block marked + is stoppage time.</p>',
+    ]
+    for tid, t in teams:
+        parts.append(charts.get(f"heatmap-{tid}", ""))
+        if blocks and per_min is not None:
+            played = [(pid, players[pid]) for pid in order if players[pid]["team_id"] == tid and players[pid]["minutes"]]
+            parts.append(f'<h3>{esc(t["name"] or tid)}: distance per minute on the pitch, by block</h3>')
+            parts.append(intensity_table(played, blocks, per_min))
+    parts.append("</section>")
+    parts.append('<section id="players"><h2>Players</h2>')
+    played_by_team: dict[str, list[tuple[str, dict[str, Any]]]] = {}
+    for tid, t in teams:
+        played = [(pid, players[pid]) for pid in order if players[pid]["team_id"] == tid and players[pid]["minutes"]]
+        unused = [pid for pid in order if players[pid]["team_id"] == tid and not players[pid]["minutes"]]
+        played_by_team[tid] = played
+        parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
+        parts.append(player_table(played, low_coverage))
+        if unused:
+            parts.append('<p class="unused">Did not play: ' + ", ".join(
+                f'{esc(players[pid]["jersey_number"])} {esc(players[pid].get("name") or pid)}' for pid in unused) + "</p>")
+        parts.append(charts.get(f"bars-{tid}", ""))
+    parts.append(f'<p class="note">Coverage is the share of time on the pitch the feed credited; below '
+                 f'{low_coverage:.0%} it is marked ▾. {esc(LIVE_CAVEAT)}</p></section>')
+    parts.append('<section id="peaks"><h2>Peak windows <span class="n">highest rolling distance, '
+                 'and when it began (match clock)</span></h2>')
+    for tid, t in teams:
+        parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
+        parts.append(peak_table(played_by_team[tid], windows))
+        parts.append(charts.get(f"peaks-{tid}", ""))
+    parts.append("</section>")
+    if possession:
+        parts.append('<section id="possession"><h2>Ball context <span class="n">distance and HSR in possession, '
+                     'out of possession, ball out of play</span></h2>')
+        for tid, t in teams:
+            parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
+            parts.append(possession_table(played_by_team[tid]))
+        parts.append("</section>")
+    parts.append('<section id="feed"><h2>Feed</h2>')
+    parts.append(_table([("feed", "l"), ("value", "")], [
+        [("state at build", "l"), (esc(health.get("state")), "")],
+        [("frames applied", "l"), (num(health.get("frames")), "")],
+        [("nominal frame rate, Hz", "l"), (num(health.get("fps_nominal")), "")],
+        [("rejected frames", "l"), (num(health.get("rejected")), "")],
+        [("duplicates", "l"), (num(health.get("duplicates")), "")],
+        [("late frames", "l"), (num(health.get("late")), "")],
+        [("position jumps removed", "l"), (num(health.get("jumps")), "")],
+    ]))
+    parts.append("</section>")
+    parts.append(f"<footer>{esc(HEALTH_CAUTION)} Report by pacewire; CSV and JSON copies sit beside this file.</footer>")
+    parts += ["</main>", "</body>", "</html>"]
+    return "\n".join(parts) + "\n"

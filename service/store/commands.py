@@ -1,0 +1,85 @@
+"""``pacewire history import FOLDER`` and ``pacewire history list``."""
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+from service.store import history
+from service.store.record import match_record
+
+
+def db_path(data: str | Path, settings) -> Path:  # noqa: ANN001
+    return Path(data) / settings.history.path
+
+
+def _import(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
+    from replay.recording import RecordingError
+    from service.engine.blocks import block_series
+    from service.reports.offline import run_recording, source_of
+    from service.wire.cdf import SetupError
+
+    try:
+        state, rec, _ = run_recording(args.folder, settings, progress=not args.quiet)
+    except (RecordingError, SetupError, OSError) as exc:
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
+    source = args.source or source_of(rec.meta)
+    snap = state.snapshot()
+    record = match_record(snap, block_series(state, settings.history.block_min, "merge"), source,
+                          key=args.key, kickoff_t=state.periods[0].t0 if state.periods else None,
+                          origin=str(Path(args.folder).resolve()))
+    path = db_path(args.data, settings)
+    history.save(path, record)
+    played = sum(1 for p in record.players if p[5] > 0)
+    print(f"stored {record.key} ({source}, {played} players, {len(record.figures)} figures) in {path}")
+    return 0
+
+
+def _list(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
+    path = db_path(args.data, settings)
+    if not path.exists():
+        print(f"no history yet ({path})")
+        return 0
+    rows = history.matches(path)
+    print(f"{'match':<24} {'source':<8} {'kick-off (UTC)':<17} {'clock':>6} {'played':>6}  teams")
+    for r in rows:
+        kick = time.strftime("%Y-%m-%d %H:%M", time.gmtime(r["kickoff_t"])) if r["kickoff_t"] else "-"
+        teams = " v ".join(f"{t['name'] or t['team_id']}" + (f" {t['score']}" if t["score"] is not None else "")
+                           for t in r["teams"])
+        mins = int(r["match_time_s"] // 60)
+        print(f"{r['match_key']:<24.24} {r['source']:<8} {kick:<17} {mins:>5}' {r['played']:>6}  {teams}")
+    print(f"{len(rows)} match{'es' if len(rows) != 1 else ''} in {path}; baselines use live and replay only")
+    return 0
+
+
+def cli_history(args: argparse.Namespace) -> int:
+    from service.config import ConfigError, load_settings
+
+    try:
+        settings = load_settings(args.config)
+    except ConfigError as exc:
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
+    try:
+        return _import(args, settings) if args.history_command == "import" else _list(args, settings)
+    except history.HistoryError as exc:
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    sub = p.add_subparsers(dest="history_command", required=True)
+    for name, text in (("import", "add a past recording to the history"), ("list", "show the stored matches")):
+        q = sub.add_parser(name, help=text)
+        q.add_argument("--data", default="data", help="data folder holding the history database (default ./data)")
+        q.add_argument("--config", help="a TOML file overriding config/default.toml")
+        if name == "import":
+            q.add_argument("folder", help="a CDF folder (meta.json, match.json, tracking.jsonl[.gz])")
+            q.add_argument("--as", dest="key", help="store under this name instead of the match id")
+            q.add_argument("--source", choices=("replay", "offline"),
+                           help="where the figures came from (default: replay when the meta says the data was "
+                                "collected live, offline otherwise)")
+            q.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=cli_history)

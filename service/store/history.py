@@ -1,0 +1,169 @@
+"""The history database (SQLite, stdlib sqlite3): versioned migrations, save, list, baselines.
+
+Every function opens its own connection and closes it: the live service
+calls them from a worker thread (``asyncio.to_thread``), never on the event
+loop. The schema version is SQLite's ``user_version``; each migration runs
+in one transaction together with the version bump, so a database is always
+at a whole version. A database written by a newer pacewire is refused.
+"""
+from __future__ import annotations
+
+import sqlite3
+import time
+from contextlib import closing
+from pathlib import Path
+from typing import Any, Iterable
+
+from service.reports.alerts import Band
+from service.store.record import MatchRecord, robust_band
+
+BASELINE_SOURCES = ("live", "replay")  # live against live: never post-match figures
+
+MIGRATIONS: tuple[str, ...] = (
+    # 1: matches, who played, and figures in long form (player, scope, figure)
+    """
+    CREATE TABLE matches (
+        match_key    TEXT PRIMARY KEY,
+        match_id     TEXT NOT NULL,
+        source       TEXT NOT NULL CHECK (source IN ('live', 'replay', 'offline')),
+        kickoff_t    REAL,
+        match_time_s REAL NOT NULL,
+        frames       INTEGER NOT NULL,
+        origin       TEXT NOT NULL,
+        stored_at    REAL NOT NULL
+    );
+    CREATE TABLE teams (
+        match_key TEXT NOT NULL REFERENCES matches(match_key) ON DELETE CASCADE,
+        team_id   TEXT NOT NULL,
+        name      TEXT NOT NULL,
+        side      TEXT NOT NULL,
+        score     INTEGER,
+        PRIMARY KEY (match_key, team_id)
+    );
+    CREATE TABLE players (
+        match_key     TEXT NOT NULL REFERENCES matches(match_key) ON DELETE CASCADE,
+        player_id     TEXT NOT NULL,
+        team_id       TEXT NOT NULL,
+        name          TEXT NOT NULL,
+        jersey_number INTEGER NOT NULL,
+        is_goalkeeper INTEGER NOT NULL,
+        minutes       REAL NOT NULL,
+        coverage      REAL NOT NULL,
+        PRIMARY KEY (match_key, player_id)
+    );
+    CREATE TABLE figures (
+        match_key TEXT NOT NULL REFERENCES matches(match_key) ON DELETE CASCADE,
+        player_id TEXT NOT NULL,
+        scope     TEXT NOT NULL,
+        figure    TEXT NOT NULL,
+        value     REAL NOT NULL,
+        PRIMARY KEY (match_key, player_id, scope, figure)
+    ) WITHOUT ROWID;
+    CREATE INDEX players_by_player ON players (player_id, minutes);
+    CREATE INDEX matches_by_time ON matches (source, kickoff_t);
+    """,
+)
+VERSION = len(MIGRATIONS)
+
+
+class HistoryError(RuntimeError):
+    """The history database cannot be opened or is from a newer pacewire."""
+
+
+def connect(path: str | Path) -> sqlite3.Connection:
+    """Open (creating and migrating as needed) the database at ``path``."""
+    path = Path(path)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        conn = sqlite3.connect(path, timeout=30.0, isolation_level=None)
+    except (OSError, sqlite3.Error) as exc:
+        raise HistoryError(f"cannot open the history database {path}: {exc}") from None
+    conn.execute("PRAGMA foreign_keys = ON")
+    try:
+        migrate(conn)
+    except BaseException:
+        conn.close()
+        raise
+    return conn
+
+
+def migrate(conn: sqlite3.Connection) -> int:
+    """Bring the schema to :data:`VERSION`; returns the version it started at."""
+    start = conn.execute("PRAGMA user_version").fetchone()[0]
+    if start > VERSION:
+        raise HistoryError(f"the history database is at schema version {start}, newer than this pacewire "
+                           f"(version {VERSION}): upgrade pacewire or use another database")
+    for v in range(start, VERSION):
+        # one transaction: the tables and the version bump land together or not at all
+        conn.executescript(f"BEGIN IMMEDIATE; {MIGRATIONS[v]}; PRAGMA user_version = {v + 1}; COMMIT;")
+    return start
+
+
+def save(path: str | Path, rec: MatchRecord) -> None:
+    """Store a match, replacing any stored under the same key."""
+    with closing(connect(path)) as conn:
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            conn.execute("DELETE FROM matches WHERE match_key = ?", (rec.key,))
+            conn.execute("INSERT INTO matches VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                         (rec.key, rec.match_id, rec.source, rec.kickoff_t, rec.match_time_s, rec.frames, rec.origin,
+                          time.time()))
+            conn.executemany("INSERT INTO teams VALUES (?, ?, ?, ?, ?)", [(rec.key, *t) for t in rec.teams])
+            conn.executemany("INSERT INTO players VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                             [(rec.key, pid, team, name, jersey, int(gk), minutes, cov)
+                              for pid, team, name, jersey, gk, minutes, cov in rec.players])
+            conn.executemany("INSERT INTO figures VALUES (?, ?, ?, ?, ?)", [(rec.key, *f) for f in rec.figures])
+            conn.execute("COMMIT")
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+
+
+def matches(path: str | Path) -> list[dict[str, Any]]:
+    """Stored matches, oldest kick-off first."""
+    with closing(connect(path)) as conn:
+        conn.row_factory = sqlite3.Row
+        rows = [dict(r) for r in conn.execute(
+            "SELECT m.*, (SELECT COUNT(*) FROM players p WHERE p.match_key = m.match_key AND p.minutes > 0) AS played "
+            "FROM matches m ORDER BY COALESCE(m.kickoff_t, m.stored_at), m.match_key")]
+        for r in rows:
+            r["teams"] = [dict(t) for t in conn.execute(
+                "SELECT team_id, name, side, score FROM teams WHERE match_key = ? ORDER BY side DESC", (r["match_key"],))]
+    return rows
+
+
+def figures(path: str | Path, match_key: str, player_id: str) -> dict[str, dict[str, float]]:
+    """One stored player's figures: scope → figure → value."""
+    out: dict[str, dict[str, float]] = {}
+    with closing(connect(path)) as conn:
+        for scope, fig, value in conn.execute(
+                "SELECT scope, figure, value FROM figures WHERE match_key = ? AND player_id = ?", (match_key, player_id)):
+            out.setdefault(scope, {})[fig] = value
+    return out
+
+
+def baselines(path: str | Path, player_ids: Iterable[str], last_n: int, min_minutes: float,
+              exclude_key: str | None = None) -> dict[str, dict[str, dict[str, Band]]]:
+    """Per player, scope and figure: median and spread over his last ``last_n`` live or
+    replayed matches (by kick-off) in which he played at least ``min_minutes``."""
+    out: dict[str, dict[str, dict[str, Band]]] = {}
+    marks = ",".join("?" * len(BASELINE_SOURCES))
+    with closing(connect(path)) as conn:
+        for pid in player_ids:
+            keys = [k for (k,) in conn.execute(
+                f"SELECT m.match_key FROM players p JOIN matches m ON m.match_key = p.match_key "
+                f"WHERE p.player_id = ? AND p.minutes >= ? AND m.source IN ({marks}) AND m.match_key IS NOT ? "
+                f"ORDER BY COALESCE(m.kickoff_t, m.stored_at) DESC, m.match_key DESC LIMIT ?",
+                (pid, min_minutes, *BASELINE_SOURCES, exclude_key, last_n))]
+            if not keys:
+                continue
+            values: dict[tuple[str, str], list[float]] = {}
+            for scope, fig, value in conn.execute(
+                    f"SELECT scope, figure, value FROM figures WHERE player_id = ? AND match_key IN "
+                    f"({','.join('?' * len(keys))})", (pid, *keys)):
+                values.setdefault((scope, fig), []).append(value)
+            per = out.setdefault(pid, {})
+            for (scope, fig), vals in values.items():
+                med, spread = robust_band(vals)
+                per.setdefault(scope, {})[fig] = Band(round(med, 3), round(spread, 3), len(vals))
+    return out
