@@ -12,7 +12,8 @@ from typing import Any
 
 import orjson
 from fastapi import FastAPI, Path as PathParam, Request, WebSocket, WebSocketDisconnect
-from fastapi.responses import HTMLResponse, JSONResponse, PlainTextResponse, Response
+from fastapi.responses import FileResponse, JSONResponse, PlainTextResponse, Response
+from fastapi.staticfiles import StaticFiles
 from prometheus_client import CONTENT_TYPE_LATEST, CollectorRegistry, Counter, Gauge, Histogram, generate_latest
 
 from service.config import Settings
@@ -67,10 +68,7 @@ def _error(status: int, code: str, message: str, **extra: Any) -> JSONResponse:
     return JSONResponse({"error": {"code": code, "message": message, **extra}}, status_code=status)
 
 
-PLACEHOLDER = """<!doctype html><html lang="en"><meta charset="utf-8"><title>pacewire</title>
-<body><h1>pacewire</h1><p>The bench page is not built yet. Live matches: <a href="/api/matches">/api/matches</a>.</p>
-<p>Figures are estimates from positional data; decisions on injury, return-to-play and substitution stay
-with the club's qualified medical and performance staff.</p></body></html>"""
+WEB = Path(__file__).resolve().parent.parent / "web"  # the bench page (static, no build step)
 
 
 def create_app(opts: ServerOptions) -> FastAPI:
@@ -318,8 +316,10 @@ def create_app(opts: ServerOptions) -> FastAPI:
                 metrics.lag.labels(mid).set(lag)
         return PlainTextResponse(generate_latest(metrics.registry), media_type=CONTENT_TYPE_LATEST)
 
+    app.mount("/static", StaticFiles(directory=WEB), name="static")
+
     @app.get("/")
     async def index() -> Response:
-        return HTMLResponse(PLACEHOLDER)
+        return FileResponse(WEB / "index.html", headers={"Cache-Control": "no-cache"})
 
     return app

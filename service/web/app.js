@@ -1,0 +1,755 @@
+/* pacewire bench page: one live subscription, a local copy of the state, a plain DOM render.
+   No framework, no build step, no external assets. Contract: DESIGN.md §3. */
+"use strict";
+
+(function () {
+  const COVERAGE_LOW = 0.8;      // below this share of frames seen, a player's figures are marked uncertain
+  const STALE_AFTER_S = 3;       // "data is N s old" once nothing arrived for this long
+  const OFFLINE_BANNER_S = 1;    // a dropped socket shows the banner after this long (hides blips)
+  const EVERY_S = 1;             // delta cadence asked of the server
+  const MATCHES_EVERY_MS = 5000; // match list refresh
+  const REPORTS_EVERY_MS = 15000;
+  const WATCHDOG_S = 25;         // silence this long on an open socket: check the server is still there
+
+  const params = new URLSearchParams(location.search);
+  const TOKEN = params.get("token");
+
+  const PERIODS = {
+    first_half: "1st half", second_half: "2nd half",
+    first_half_extratime: "Extra time 1", second_half_extratime: "Extra time 2", shootout: "Penalties",
+  };
+  const STATE_WORDS = { ok: "Feed OK", degraded: "Feed degraded", stalled: "Feed stalled" };
+
+  // Columns of the player table. `win`: how the column reads in a rolling/peak window.
+  const COLUMNS = [
+    { key: "jersey_number", label: "No.", unit: "", kind: "text", cls: "jersey" },
+    { key: "name", label: "Player", unit: "", kind: "text", cls: "pname" },
+    { key: "team", label: "Team", unit: "", kind: "text", cls: "team" },
+    { key: "distance_m", label: "Distance", unit: "m", fmt: fmtInt, bar: true, tip: "Distance covered" },
+    { key: "m_per_min", label: "Work rate", unit: "m/min", fmt: fmtInt, bar: true, tip: "Metres per minute on the pitch" },
+    { key: "hsr_m", label: "High-speed", unit: "m", fmt: fmtInt, bar: true, tip: "High-speed running distance" },
+    { key: "sprint_m", label: "Sprint", unit: "m", fmt: fmtInt, bar: true, tip: "Sprint distance" },
+    { key: "hsr_efforts", label: "HS runs", unit: "count", fmt: fmtInt, bar: true, tip: "High-speed running efforts (sprints included)" },
+    { key: "sprints", label: "Sprints", unit: "count", fmt: fmtInt, bar: true, tip: "Sprint efforts" },
+    { key: "accels", label: "Accels", unit: "count", fmt: fmtInt, bar: true, tip: "High accelerations" },
+    { key: "decels", label: "Decels", unit: "count", fmt: fmtInt, bar: true, tip: "High decelerations" },
+    { key: "high_power_m", label: "High power", unit: "m", fmt: fmtInt, bar: true, tip: "Distance at high metabolic power" },
+    { key: "metabolic_power_wkg", label: "Met. power", unit: "W/kg", fmt: fmt1, bar: true, tip: "Average metabolic power" },
+    { key: "energy_jkg", label: "Energy", unit: "kJ/kg", fmt: (v) => fmt1(v / 1000), bar: true, tip: "Energy spent per kilogram" },
+    { key: "max_speed_ms", label: "Top speed", unit: "km/h", fmt: (v) => fmt1(v * 3.6), bar: true, tip: "Highest speed (match or period only)" },
+    { key: "speed_ms", label: "Speed now", unit: "km/h", fmt: (v) => fmt1(v * 3.6), bar: true, tip: "Current speed" },
+    { key: "minutes", label: "Time", unit: "min", fmt: fmt1, tip: "Minutes on the pitch; in a window, the window's length" },
+    { key: "coverage", label: "Seen", unit: "% frames", fmt: fmtPct, cls: "cov", tip: "Share of frames on the pitch in which the player was seen" },
+    { key: "zones", label: "Speed bands", unit: "m per band", kind: "zones", cls: "zones", tip: "Distance in each speed band, slow to fast (not sortable)" },
+  ];
+  const BY_KEY = Object.fromEntries(COLUMNS.map((c) => [c.key, c]));
+
+  const S = {
+    matchId: null,
+    state: null,            // {players, teams, health}
+    env: { match_time_s: 0, period: null },
+    periodEnded: false,
+    stalledSince: null,     // performance.now() at which the frames stopped, when stalled
+    lastSeq: null,
+    lastMsgAt: null,        // performance.now() of the last message
+    conn: "connecting",
+    closedAt: null,
+    attempts: 0,
+    alerts: [],
+    reports: [],
+    matches: [],
+    sort: { col: null, dir: "desc" },
+    team: "both",
+    win: "cumulative",
+    windowKeys: [],
+    notice: "",
+  };
+  let ws = null;
+  let reconnectTimer = null;
+  let renderQueued = false;
+
+  const $ = (sel) => document.querySelector(sel);
+
+  // -- formatting ------------------------------------------------------------------------------------
+  function fmtInt(v) { return Math.round(v).toLocaleString("en-GB"); }
+  function fmt1(v) { return (Math.round(v * 10) / 10).toLocaleString("en-GB", { minimumFractionDigits: 1, maximumFractionDigits: 1 }); }
+  function fmtPct(v) { return Math.round(v * 100) + " %"; }
+  function fmtClock(t) {
+    if (t == null || !isFinite(t)) return "--:--";
+    const s = Math.max(0, Math.floor(t));
+    return String(Math.floor(s / 60)).padStart(2, "0") + ":" + String(s % 60).padStart(2, "0");
+  }
+  function fmtSeconds(v) { return v == null ? "–" : (Math.abs(v) < 10 ? v.toFixed(2) : v.toFixed(0)) + " s"; }
+  function fmtDuration(s) {
+    s = Math.abs(s);
+    if (s < 120) return Math.round(s) + " s";
+    if (s < 7200) return Math.round(s / 60) + " min";
+    if (s < 172800) return Math.round(s / 3600) + " h";
+    return Math.round(s / 86400) + " days";
+  }
+  function esc(s) {
+    return String(s).replace(/[&<>"']/g, (c) => ({ "&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;", "'": "&#39;" })[c]);
+  }
+  function shortName(name) {
+    const words = String(name).split(/\s+/).filter(Boolean);
+    if (words.length > 1) return words.slice(0, 3).map((w) => w[0]).join("").toUpperCase();
+    return String(name).slice(0, 3).toUpperCase();
+  }
+  function windowLabel(key) {
+    if (key === "cumulative") return "Match so far";
+    if (key === "period") return "This period";
+    let m = /^last_(\d+)min$/.exec(key);
+    if (m) return "Last " + m[1] + " min";
+    m = /^peak_(\d+)min$/.exec(key);
+    if (m) return "Peak " + m[1] + " min";
+    return key;
+  }
+  function bandLabel(name) {
+    let m = /^(\d+(?:\.\d+)?)-(\d+(?:\.\d+)?)$/.exec(name);
+    if (m) return fmt1(+m[1] * 3.6) + "–" + fmt1(+m[2] * 3.6) + " km/h";
+    m = /^(\d+(?:\.\d+)?)\+$/.exec(name);
+    if (m) return "over " + fmt1(+m[1] * 3.6) + " km/h";
+    return name; // relative bands are already "% of max speed"
+  }
+
+  // -- server access -----------------------------------------------------------------------------------------
+  function apiUrl(path) {
+    const u = new URL(path, location.href);
+    if (TOKEN) u.searchParams.set("token", TOKEN);
+    return u;
+  }
+  async function getJSON(path) {
+    const r = await fetch(apiUrl(path), { cache: "no-store" });
+    if (!r.ok) throw new Error(path + ": HTTP " + r.status);
+    return r.json();
+  }
+
+  async function refreshMatches() {
+    try {
+      const body = await getJSON("api/matches");
+      S.matches = body.matches || [];
+    } catch (e) {
+      return; // the socket status already tells the user; keep the last list
+    }
+    renderPicker();
+    if (!S.matchId && S.matches.length) {
+      const wanted = params.get("match") || safeStorage("pacewire.match");
+      const pick = S.matches.find((m) => m.match_id === wanted) || S.matches[0];
+      selectMatch(pick.match_id);
+    }
+  }
+
+  async function refreshReports() {
+    if (!S.matchId) return;
+    try {
+      const body = await getJSON("api/matches/" + encodeURIComponent(S.matchId) + "/reports");
+      S.reports = Array.isArray(body.reports) ? body.reports : [];
+      renderReports();
+    } catch (e) { /* keep the last list */ }
+  }
+
+  function safeStorage(key, value) {
+    try {
+      if (value === undefined) return localStorage.getItem(key);
+      localStorage.setItem(key, value);
+    } catch (e) { return null; }
+    return null;
+  }
+
+  function selectMatch(id) {
+    if (id === S.matchId) return;
+    S.matchId = id;
+    S.state = null;
+    S.lastSeq = null;
+    S.lastMsgAt = null;
+    S.alerts = [];
+    S.reports = [];
+    S.periodEnded = false;
+    S.stalledSince = null;
+    S.attempts = 0;
+    safeStorage("pacewire.match", id);
+    const u = new URL(location.href);
+    u.searchParams.set("match", id);
+    history.replaceState(null, "", u);
+    $("#match-picker").value = id;
+    renderAlerts();
+    renderReports();
+    connect();
+    refreshReports();
+    scheduleRender();
+  }
+
+  // -- live subscription ---------------------------------------------------------------------------------------
+  function connect() {
+    clearTimeout(reconnectTimer);
+    if (ws) {
+      const old = ws;
+      ws = null;
+      old.onclose = old.onmessage = old.onerror = null;
+      try { old.close(); } catch (e) { /* already closed */ }
+    }
+    if (!S.matchId) return;
+    const u = apiUrl("live/" + encodeURIComponent(S.matchId));
+    u.protocol = location.protocol === "https:" ? "wss:" : "ws:";
+    u.searchParams.set("every", String(EVERY_S));
+    if (S.lastSeq != null) u.searchParams.set("since", String(S.lastSeq));
+    setConn("connecting", S.attempts ? "Reconnecting (try " + (S.attempts + 1) + ")…" : "Connecting…");
+    const sock = new WebSocket(u);
+    ws = sock;
+    sock.onopen = () => {
+      if (sock !== ws) return;
+      setConn("open", "Connected");
+      S.openedAt = performance.now();
+    };
+    sock.onmessage = (ev) => {
+      if (sock !== ws) return;
+      let msg;
+      try { msg = JSON.parse(ev.data); } catch (e) { return; }
+      onMessage(msg);
+    };
+    sock.onclose = () => {
+      if (sock !== ws) return;
+      ws = null;
+      scheduleReconnect();
+    };
+  }
+
+  function scheduleReconnect() {
+    S.attempts += 1;
+    const delay = Math.min(500 * 2 ** (S.attempts - 1), 3000);
+    setConn("closed", "Connection lost · retrying in " + Math.max(1, Math.round(delay / 1000)) + " s");
+    reconnectTimer = setTimeout(connect, delay);
+  }
+
+  function setConn(kind, text) {
+    if (kind !== "open" && S.conn === "open") S.closedAt = performance.now();
+    if (kind === "open") S.closedAt = null;
+    S.conn = kind;
+    const el = $("#conn");
+    el.dataset.conn = kind;
+    $("#conn-text").textContent = text;
+    renderBanner();
+  }
+
+  function applyDelta(target, delta) {
+    for (const k of Object.keys(delta)) {
+      const v = delta[k];
+      if (v !== null && typeof v === "object" && !Array.isArray(v) &&
+          target[k] !== null && typeof target[k] === "object" && !Array.isArray(target[k])) {
+        applyDelta(target[k], v);
+      } else {
+        target[k] = v;
+      }
+    }
+  }
+
+  function onMessage(msg) {
+    if (msg.match_id && msg.match_id !== S.matchId) return;
+    if (msg.type === "error") {
+      S.notice = (msg.message || msg.code || "error");
+      setConn(S.conn, "Server said: " + S.notice);
+      return;
+    }
+    if (msg.type === "snapshot") {
+      S.state = { players: msg.players || {}, teams: msg.teams || {}, health: msg.health || {} };
+      S.lastSeq = msg.seq;
+    } else {
+      if (S.state === null) { S.lastSeq = null; connect(); return; } // no base to apply to: start afresh
+      if (msg.seq <= S.lastSeq) return; // already applied
+      if (msg.seq !== S.lastSeq + 1) { connect(); return; } // a gap: ask again from the last one we hold
+      S.lastSeq = msg.seq;
+      if (msg.type === "delta") {
+        const body = {};
+        for (const k of ["players", "teams", "health"]) if (k in msg) body[k] = msg[k];
+        applyDelta(S.state, body);
+      } else if (msg.type === "health") {
+        S.state.health = msg.health || S.state.health;
+      } else if (msg.type === "period") {
+        S.periodEnded = msg.event === "end";
+      } else if (msg.type === "alert") {
+        S.alerts.unshift({ ...msg, received: Date.now() });
+        S.alerts.length = Math.min(S.alerts.length, 50);
+        renderAlerts();
+      } else if (msg.type === "report") {
+        if (msg.url && !S.reports.some((r) => r.url === msg.url)) S.reports.push({ kind: msg.kind, url: msg.url });
+        renderReports();
+        refreshReports();
+      }
+    }
+    if (msg.type === "snapshot" || msg.type === "delta") {
+      if (msg.period !== S.env.period && msg.period) S.periodEnded = false;
+    }
+    S.env = { match_time_s: msg.match_time_s, period: msg.period };
+    const stalled = S.state && S.state.health && S.state.health.state === "stalled";
+    if (!stalled) S.stalledSince = null;
+    else if (S.stalledSince == null) S.stalledSince = performance.now() - stalledAfter(S.state.health) * 1000;
+    S.lastMsgAt = performance.now();
+    S.attempts = 0;
+    if (S.conn !== "open") setConn("open", "Connected");
+    scheduleRender();
+  }
+
+  // -- rendering ---------------------------------------------------------------------------------------------------
+  function scheduleRender() {
+    if (renderQueued) return;
+    renderQueued = true;
+    requestAnimationFrame(() => { renderQueued = false; render(); });
+  }
+
+  function render() {
+    renderMatchLine();
+    renderFeed();
+    renderBanner();
+    renderAge();
+    renderTeams();
+    renderChips();
+    renderTable();
+  }
+
+  function sidesOf(teams) {
+    const ids = Object.keys(teams || {});
+    ids.sort((a, b) => (teams[a].side === "home" ? 0 : 1) - (teams[b].side === "home" ? 0 : 1));
+    return ids;
+  }
+
+  function renderPicker() {
+    const sel = $("#match-picker");
+    const keep = S.matchId;
+    if (!S.matches.length) {
+      sel.innerHTML = '<option value="">No matches yet · waiting for a feed</option>';
+      return;
+    }
+    sel.innerHTML = S.matches.map((m) => {
+      const ids = sidesOf(m.teams);
+      const t = ids.map((id) => m.teams[id]);
+      const score = t.length === 2 ? `${t[0].name} ${t[0].score ?? 0}–${t[1].score ?? 0} ${t[1].name}` : m.match_id;
+      const when = m.period ? `${fmtClock(m.match_time_s)} ${PERIODS[m.period] || m.period}` : "not started";
+      return `<option value="${esc(m.match_id)}">${esc(score)} · ${esc(when)}</option>`;
+    }).join("");
+    if (keep) sel.value = keep;
+  }
+
+  function renderMatchLine() {
+    $("#clock").textContent = S.state ? fmtClock(S.env.match_time_s) : "--:--";
+    const per = $("#period");
+    const label = S.env.period ? (PERIODS[S.env.period] || S.env.period) : "Not started";
+    per.textContent = S.periodEnded ? label + " · ended" : label;
+    per.dataset.period = S.env.period || "";
+    const teams = S.state ? S.state.teams : {};
+    for (const tid of sidesOf(teams)) {
+      const t = teams[tid];
+      const side = t.side === "away" ? "away" : "home";
+      const name = document.querySelector(`#scoreline .side-name[data-side="${side}"] .name`);
+      if (name) name.textContent = t.name || tid;
+      const goal = document.querySelector(`#scoreline .goal[data-side="${side}"]`);
+      if (goal) goal.textContent = t.score ?? 0;
+    }
+  }
+
+  function playedCoverage() {
+    const st = S.state;
+    if (!st) return null;
+    const vals = Object.entries(st.health.coverage || {})
+      .filter(([pid]) => st.players[pid] && (st.players[pid].minutes > 0 || st.players[pid].on_pitch))
+      .map(([, v]) => v);
+    if (!vals.length) return null;
+    return { mean: vals.reduce((a, b) => a + b, 0) / vals.length, low: vals.filter((v) => v < COVERAGE_LOW).length };
+  }
+
+  function renderFeed() {
+    const h = S.state ? S.state.health : null;
+    const box = $("#feed-state");
+    box.dataset.state = h ? h.state : "";
+    box.querySelector(".state-text").textContent = h ? (STATE_WORDS[h.state] || h.state) : "Waiting for data";
+    const set = (key, text, title) => {
+      const el = document.querySelector(`[data-health="${key}"]`);
+      if (!el) return;
+      el.textContent = text;
+      if (title !== undefined) el.title = title;
+      const raw = h ? h[key] : null;
+      el.dataset.value = raw == null || typeof raw === "object" ? "" : raw;
+    };
+    if (!h) return;
+    set("fps_observed", h.fps_observed == null ? "–" : fmt1(h.fps_observed));
+    set("fps_nominal", h.fps_nominal ?? "–");
+    const lagText = (v) => (v == null ? "–" : Math.abs(v) < 120 ? fmtSeconds(v) : "other clock");
+    const lagTitle = h.lag_s != null && Math.abs(h.lag_s) >= 120
+      ? `Frames are stamped ${fmtDuration(h.lag_s)} ${h.lag_s > 0 ? "behind" : "ahead of"} this server's clock (a replay, or a provider clock that is not synchronised); late delivery is judged against that offset.`
+      : "Median time from a frame's timestamp to its arrival here";
+    set("lag_s", lagText(h.lag_s), lagTitle);
+    set("lag_p95_s", lagText(h.lag_p95_s), lagTitle);
+    document.querySelector('[data-health="lag_p95_s"]').parentElement.hidden = h.lag_p95_s == null || Math.abs(h.lag_p95_s) >= 120;
+    const cov = playedCoverage();
+    set("coverage", cov ? fmtPct(cov.mean) : "–", "Average share of frames in which each player on the pitch was seen");
+    set("coverage_low", cov && cov.low ? `${cov.low} under ${Math.round(COVERAGE_LOW * 100)} %` : "");
+    set("dropout", h.dropout == null ? "–" : fmtPct(h.dropout), "Share of expected player samples missing over the last few seconds");
+    for (const k of ["frames", "late", "duplicates", "rejected", "jumps"]) set(k, h[k] == null ? "0" : fmtInt(h[k]));
+    const reasons = $("#feed-reasons");
+    const items = (h.reasons || []).map((r) => `<li data-code="${esc(r.code)}">${esc(reasonText(r))}</li>`).join("");
+    if (reasons.innerHTML !== items) reasons.innerHTML = items;
+  }
+
+  function ageSeconds() {
+    return S.lastMsgAt == null ? null : (performance.now() - S.lastMsgAt) / 1000;
+  }
+
+  function renderAge() {
+    const el = $("#age");
+    const age = ageSeconds();
+    if (age == null) { el.textContent = ""; el.dataset.stale = "false"; return; }
+    const stale = age >= STALE_AFTER_S;
+    el.dataset.stale = String(stale);
+    el.dataset.age = String(Math.floor(age));
+    el.textContent = stale ? `Data is ${Math.floor(age)} s old` : "Up to date";
+  }
+
+  // seconds without frames the server had counted when it sent its last message ("no frame for 2.3 s")
+  function stalledAfter(h) {
+    const r = (h.reasons || []).find((x) => x.code === "no_frames");
+    const m = r && /for (\d+(?:\.\d+)?) s/.exec(r.message || "");
+    return m ? +m[1] : 0;
+  }
+
+  // the server's "no frame for N s" was true when it was sent; say how long it has been now
+  function reasonText(r) {
+    if (r.code !== "no_frames" || S.stalledSince == null) return r.message || r.code;
+    return `No new frames for ${Math.floor((performance.now() - S.stalledSince) / 1000)} s`;
+  }
+
+  function renderBanner() {
+    const b = $("#banner");
+    let kind = "none", title = "", text = "";
+    const h = S.state ? S.state.health : null;
+    const offlineFor = S.closedAt == null ? 0 : (performance.now() - S.closedAt) / 1000;
+    const age = ageSeconds();
+    if (S.matchId && S.conn !== "open" && (S.state === null ? S.attempts > 0 : offlineFor >= OFFLINE_BANNER_S)) {
+      kind = "offline";
+      title = "No connection";
+      text = S.state
+        ? `Lost contact with pacewire; reconnecting. The figures shown are ${Math.floor(age || 0)} s old.`
+        : "Cannot reach pacewire yet; retrying.";
+    } else if (h && h.state === "stalled") {
+      kind = "stalled";
+      title = "Feed stalled";
+      const why = (h.reasons || []).map(reasonText).join("; ") || "No new frames";
+      text = `${why}. The figures are frozen at ${fmtClock(S.env.match_time_s)}: do not read them as live.`;
+    } else if (h && h.state === "degraded") {
+      kind = "degraded";
+      title = "Feed degraded";
+      const why = (h.reasons || []).map((r) => r.message).join("; ") || "the feed is not complete";
+      text = `${why}. Figures may be incomplete or behind.`;
+    }
+    b.dataset.state = kind;
+    b.hidden = kind === "none";
+    $("#banner-title").textContent = title;
+    $("#banner-text").textContent = text;
+  }
+
+  function renderTeams() {
+    const box = $("#teams");
+    const teams = S.state ? S.state.teams : {};
+    const ids = sidesOf(teams);
+    if (!ids.length) { box.innerHTML = ""; return; }
+    const html = ids.map((tid) => teamCard(tid, teams[tid])).join("");
+    if (box.innerHTML !== html) box.innerHTML = html;
+  }
+
+  function teamCard(tid, t) {
+    const o = t.outfield || {};
+    const w = o.windows || {};
+    const keys = ["last_5min", "last_15min"].filter((k) => k in w);
+    const cols = [["cumulative", o, "Match so far"], ...keys.map((k) => [k, w[k], windowLabel(k)])];
+    const rows = [
+      ["distance_m", "Distance", "m", fmtInt],
+      ["hsr_m", "High-speed running", "m", fmtInt],
+      ["sprint_m", "Sprinting", "m", fmtInt],
+      ["hsr_efforts", "High-speed runs", "", fmtInt],
+      ["sprints", "Sprints", "", fmtInt],
+      ["m_per_min", "Work rate, team", "m/min", fmtInt],
+    ];
+    const side = t.side === "away" ? "away" : "home";
+    const cell = (win, src, key, fmt, unit, main) => {
+      const v = src ? src[key] : null;
+      return `<td class="${main ? "main" : ""}" data-window="${win}" data-field="${key}" data-value="${v ?? ""}">` +
+        `${v == null ? "–" : fmt(v)}${unit && main ? `<span class="unit">${unit}</span>` : ""}</td>`;
+    };
+    const pp = o.per_player || {};
+    return `<article class="team-card panel" data-team-id="${esc(tid)}" data-side="${side}">
+      <header><h3><span class="team-glyph" data-side="${side}" aria-hidden="true"></span>${esc(t.name || tid)}</h3>
+        <span class="side-tag">${side}</span><span class="team-score" aria-label="goals">${t.score ?? 0}</span></header>
+      <p class="sub">Outfield: <span data-field="players">${o.players ?? 0}</span> players · ${o.minutes == null ? "–" : fmt1(o.minutes)} min of play</p>
+      <table class="team-figs">
+        <thead><tr><th scope="col"><span class="sr-only">Figure</span></th>${cols.map((c) => `<th scope="col">${c[2]}</th>`).join("")}</tr></thead>
+        <tbody>
+        ${rows.map(([key, label, unit, fmt]) => `<tr><th scope="row">${label}</th>${cols.map((c, i) => cell(c[0], c[1], key, fmt, unit, i === 0)).join("")}</tr>`).join("")}
+        <tr><th scope="row">Per player</th>
+          <td class="per-player" colspan="${cols.length}"><span data-window="per_player" data-field="distance_m" data-value="${pp.distance_m ?? ""}">${pp.distance_m == null ? "–" : fmtInt(pp.distance_m)} m</span> ·
+          <span data-window="per_player" data-field="m_per_min" data-value="${pp.m_per_min ?? ""}">${pp.m_per_min == null ? "–" : fmtInt(pp.m_per_min)} m/min</span></td></tr>
+        </tbody>
+      </table>
+    </article>`;
+  }
+
+  // -- chips: team filter and window switch ------------------------------------------------------------------------
+  function renderChips() {
+    const st = S.state;
+    if (!st) return;
+    const teams = sidesOf(st.teams);
+    const teamOpts = [["both", "Both teams"], ...teams.map((tid) => [tid, st.teams[tid].name || tid])];
+    if (!teamOpts.some(([v]) => v === S.team)) S.team = "both";
+    fillChips($("#team-filter"), "team", teamOpts, S.team, "data-team-filter");
+
+    const keys = new Set();
+    for (const p of Object.values(st.players)) for (const k of Object.keys(p.windows || {})) keys.add(k);
+    const rank = (k) => { const m = /^(last|peak)_(\d+)min$/.exec(k); return m ? [m[1] === "last" ? 0 : 1, +m[2]] : null; };
+    const wins = [...keys].filter((k) => rank(k)).sort((a, b) => {
+      const ra = rank(a), rb = rank(b);
+      return ra[0] - rb[0] || ra[1] - rb[1];
+    });
+    const winOpts = [["cumulative", "Match so far"], ["period", "This period"], ...wins.map((k) => [k, windowLabel(k)])];
+    if (!winOpts.some(([v]) => v === S.win)) S.win = "cumulative";
+    fillChips($("#window-switch"), "window", winOpts, S.win, "data-window");
+  }
+
+  function fillChips(fs, name, opts, current, attr) {
+    const sig = opts.map((o) => o.join("=")).join("|");
+    if (fs.dataset.sig !== sig) {
+      const legend = fs.querySelector("legend").outerHTML;
+      fs.innerHTML = legend + opts.map(([v, label]) =>
+        `<label class="chip" ${attr}="${esc(v)}"><input type="radio" name="${name}" value="${esc(v)}"><span>${esc(label)}</span></label>`).join("");
+      fs.dataset.sig = sig;
+    }
+    for (const input of fs.querySelectorAll("input")) input.checked = input.value === current;
+  }
+
+  // -- the player table ------------------------------------------------------------------------------------------
+  function buildHead() {
+    const tr = $("#player-head");
+    tr.innerHTML = COLUMNS.map((c) => {
+      const text = c.kind === "text" ? " text" : "";
+      const inner = `<span class="h-label">${esc(c.label)}</span><span class="h-unit">${esc(c.unit || "\u00a0")}</span>`;
+      if (c.kind === "zones") {
+        return `<th scope="col" data-col="${c.key}" class="text" title="${esc(c.tip)}"><span class="plain-head">${inner}</span></th>`;
+      }
+      return `<th scope="col" data-col="${c.key}" class="${text.trim()}" aria-sort="none">` +
+        `<button type="button" class="sort" data-sort="${c.key}" title="${esc((c.tip || c.label) + ": sort")}">${inner}<span class="h-arrow" aria-hidden="true"></span></button></th>`;
+    }).join("");
+    tr.addEventListener("click", (ev) => {
+      const btn = ev.target.closest("button[data-sort]");
+      if (btn) sortBy(btn.dataset.sort);
+    });
+  }
+
+  function sortBy(key) {
+    const col = BY_KEY[key];
+    if (S.sort.col === key) S.sort.dir = S.sort.dir === "desc" ? "asc" : "desc";
+    else S.sort = { col: key, dir: col.kind === "text" ? "asc" : "desc" };
+    renderTable();
+  }
+
+  function source(p, win) {
+    if (win === "cumulative") return p;
+    if (win === "period") return (p.periods || {})[S.env.period] || null;
+    return (p.windows || {})[win] || null;
+  }
+  const isWindow = (win) => win !== "cumulative" && win !== "period";
+
+  function value(pid, p, key, win) {
+    const src = source(p, win);
+    switch (key) {
+      case "jersey_number": return p.jersey_number;
+      case "name": return p.name || pid;
+      case "team": { const t = S.state.teams[p.team_id]; return t ? t.name || p.team_id : p.team_id; }
+      case "speed_ms": return p.speed_ms;
+      case "coverage": return win === "period" ? (src ? src.coverage : null) : p.coverage;
+      case "minutes": return isWindow(win) ? (src && src.span_s != null ? src.span_s / 60 : null) : (src ? src.minutes : null);
+      case "max_speed_ms": return isWindow(win) ? null : (src ? src.max_speed_ms : null);
+      case "zones": return isWindow(win) ? null : (src ? src.zones : null);
+      default: return src ? src[key] ?? null : null;
+    }
+  }
+
+  function compare(a, b, key, dir) {
+    const va = a.v[key], vb = b.v[key];
+    const na = va == null || va === "", nb = vb == null || vb === "";
+    if (na || nb) return na && nb ? 0 : na ? 1 : -1; // empty last, either direction
+    let c = typeof va === "string" || typeof vb === "string"
+      ? String(va).localeCompare(String(vb), "en", { numeric: true }) : va - vb;
+    return dir === "asc" ? c : -c;
+  }
+
+  function renderTable() {
+    const st = S.state;
+    const body = $("#player-body");
+    const table = $("#player-table");
+    table.dataset.window = S.win;
+    table.dataset.team = S.team;
+    table.classList.toggle("one-team", S.team !== "both");
+    for (const th of document.querySelectorAll("#player-head th[data-col]")) {
+      const k = th.dataset.col;
+      if (th.hasAttribute("aria-sort")) th.setAttribute("aria-sort", S.sort.col === k ? (S.sort.dir === "asc" ? "ascending" : "descending") : "none");
+      th.hidden = k === "team" && S.team !== "both";
+    }
+    if (!st) { body.innerHTML = `<tr><td colspan="${COLUMNS.length}" class="text">Waiting for the first figures…</td></tr>`; return; }
+    const homeFirst = (tid) => (st.teams[tid] && st.teams[tid].side === "away" ? 1 : 0);
+    let rows = Object.entries(st.players)
+      .filter(([, p]) => S.team === "both" || p.team_id === S.team)
+      .map(([pid, p]) => {
+        const v = {};
+        for (const c of COLUMNS) v[c.key] = value(pid, p, c.key, S.win);
+        return { pid, p, v };
+      });
+    rows.sort((a, b) => homeFirst(a.p.team_id) - homeFirst(b.p.team_id) || (a.p.jersey_number ?? 0) - (b.p.jersey_number ?? 0));
+    if (S.sort.col) rows.sort((a, b) => compare(a, b, S.sort.col, S.sort.dir) || homeFirst(a.p.team_id) - homeFirst(b.p.team_id) || (a.p.jersey_number ?? 0) - (b.p.jersey_number ?? 0));
+
+    const max = {};
+    for (const c of COLUMNS) {
+      if (!c.bar) continue;
+      max[c.key] = Math.max(0, ...rows.map((r) => (typeof r.v[c.key] === "number" ? r.v[c.key] : 0)));
+    }
+    let zmax = 0;
+    for (const r of rows) if (r.v.zones) zmax = Math.max(zmax, Object.values(r.v.zones).reduce((a, b) => a + (b || 0), 0));
+
+    const note = $("#window-note");
+    const empty = S.win !== "cumulative" && rows.length && rows.every((r) => source(r.p, S.win) === null);
+    note.hidden = !empty;
+    note.textContent = empty ? `${windowLabel(S.win)}: not enough play yet, so its figures show as a dash.` : "";
+    const html = rows.map((r) => rowHtml(r, max, zmax)).join("");
+    if (body.innerHTML !== html) body.innerHTML = html;
+  }
+
+  function rowHtml(r, max, zmax) {
+    const { pid, p, v } = r;
+    const feedStalled = S.state.health && S.state.health.state === "stalled";
+    const played = (p.minutes || 0) > 0 || p.on_pitch;
+    const cov = v.coverage;
+    const uncertain = played && cov != null && cov < COVERAGE_LOW;
+    const side = S.state.teams[p.team_id] && S.state.teams[p.team_id].side === "away" ? "away" : "home";
+    const covTip = uncertain ? `Seen in only ${fmtPct(cov)} of frames on the pitch: this figure is likely too low.` : "";
+    const cells = COLUMNS.map((c) => {
+      const raw = v[c.key];
+      if (c.key === "jersey_number") return `<td class="jersey" data-col="jersey_number" data-value="${raw ?? ""}">${raw ?? ""}</td>`;
+      if (c.key === "name") {
+        const badges = (p.is_goalkeeper ? '<span class="badge-gk" title="Goalkeeper">GK</span>' : "") +
+          (p.on_pitch ? "" : '<span class="badge-off" title="Not on the pitch">off</span>');
+        return `<td class="pname text" data-col="name" data-value="${esc(raw)}"><span class="n">${esc(raw)}</span>${badges ? `<span class="badges">${badges}</span>` : ""}</td>`;
+      }
+      if (c.key === "team") {
+        return `<td class="team text" data-col="team" data-value="${esc(raw)}" title="${esc(raw)}"${S.team !== "both" ? " hidden" : ""}><span class="team-glyph" data-side="${side}" aria-hidden="true"></span>${esc(shortName(raw))}</td>`;
+      }
+      if (c.key === "zones") return zonesCell(raw, zmax);
+      if (c.key === "coverage") {
+        const low = played && raw != null && raw < COVERAGE_LOW;
+        const text = raw == null || !played ? "–" : fmtPct(raw);
+        return `<td class="cov${low ? " low" : ""}" data-col="coverage" data-value="${raw ?? ""}"${low ? ` title="${esc(covTip)}"` : ""}>` +
+          `<span class="fig"><span class="v">${text}</span></span></td>`;
+      }
+      const none = raw == null;
+      const mark = uncertain && c.key !== "speed_ms" && c.key !== "minutes" && !none;
+      const frozen = c.key === "speed_ms" && !none && feedStalled;
+      const cls = ["num", none ? "none" : "", mark ? "uncertain" : "", frozen ? "frozen" : ""].filter(Boolean).join(" ");
+      const text = none ? "–" : c.fmt(raw);
+      const bar = c.bar ? `<span class="bar" aria-hidden="true"><i style="--w:${none || !max[c.key] ? 0 : (Math.max(raw, 0) / max[c.key]).toFixed(4)}"></i></span>` : "";
+      const title = mark ? ` title="${esc(covTip)}"` : frozen ? ' title="Last speed before the feed stopped, not the speed now"' : "";
+      const sr = mark ? '<span class="sr-only"> (uncertain: low coverage)</span>' : "";
+      return `<td class="${cls}" data-col="${c.key}" data-value="${none ? "" : raw}"${title}><span class="fig"><span class="v">${text}</span>${sr}${bar}</span></td>`;
+    }).join("");
+    return `<tr data-player-id="${esc(pid)}" data-team-id="${esc(p.team_id)}" data-on-pitch="${!!p.on_pitch}" data-uncertain="${uncertain}">${cells}</tr>`;
+  }
+
+  function zonesCell(zones, zmax) {
+    if (!zones || !zmax) return `<td class="zones text none" data-col="zones" data-value=""><span class="v">–</span></td>`;
+    const names = Object.keys(zones);
+    const tip = names.map((n) => `${bandLabel(n)}: ${fmtInt(zones[n] || 0)} m`).join("\n");
+    const segs = names.map((n) => `<i style="width:${((zones[n] || 0) / zmax * 100).toFixed(2)}%"></i>`).join("");
+    return `<td class="zones text" data-col="zones" data-value="${esc(JSON.stringify(zones))}"><span class="zbar" title="${esc(tip)}" role="img" aria-label="${esc(tip.replace(/\n/g, "; "))}">${segs}</span></td>`;
+  }
+
+  function renderAlerts() {
+    const ol = $("#alerts");
+    if (!S.alerts.length) { ol.innerHTML = '<li class="empty">No alerts so far.</li>'; return; }
+    ol.innerHTML = S.alerts.map((a) => {
+      const pid = a.player_id || a.player;
+      const p = S.state && pid ? S.state.players[pid] : null;
+      const who = p ? `${p.jersey_number != null ? "#" + p.jersey_number + " " : ""}${p.name || pid}` : (pid || "");
+      const rule = a.rule || a.rule_id || a.code || "alert";
+      const val = a.value != null ? `${typeof a.value === "number" ? fmt1(a.value) : a.value}` : "";
+      const lim = a.limit != null ? ` (limit ${typeof a.limit === "number" ? fmt1(a.limit) : a.limit})` : "";
+      return `<li class="alert-item" data-rule="${esc(rule)}" data-player-id="${esc(pid || "")}">` +
+        `<span class="when">${fmtClock(a.match_time_s)}</span><span class="what">${esc(who)} · ${esc(rule)}</span>` +
+        `<span class="detail">${esc(a.message || "")}${a.message ? " " : ""}${esc(val)}${esc(lim)}</span></li>`;
+    }).join("");
+  }
+
+  function renderReports() {
+    const ul = $("#reports");
+    const safe = S.reports.filter((r) => r && typeof r.url === "string" && !/^\s*(javascript|data):/i.test(r.url));
+    if (!safe.length) { ul.innerHTML = '<li class="empty">Half-time and full-time reports show up here.</li>'; return; }
+    const words = { half_time: "Half-time report", full_time: "Full-time report" };
+    ul.innerHTML = safe.map((r) => `<li data-kind="${esc(r.kind || "")}"><a href="${esc(apiUrl(r.url).href)}" target="_blank" rel="noopener">${esc(words[r.kind] || r.kind || "Report")}</a></li>`).join("");
+  }
+
+  // -- theme ---------------------------------------------------------------------------------------------------------
+  function applyTheme(t) {
+    document.documentElement.setAttribute("data-theme", t);
+    const btn = $("#theme-toggle");
+    btn.setAttribute("aria-pressed", String(t === "dark"));
+    btn.querySelector(".theme-text").textContent = t === "dark" ? "Dark" : "Light";
+    btn.title = t === "dark" ? "Switch to the light theme" : "Switch to the dark theme";
+  }
+
+  function initTheme() {
+    applyTheme(document.documentElement.getAttribute("data-theme") === "dark" ? "dark" : "light");
+    $("#theme-toggle").addEventListener("click", () => {
+      const next = document.documentElement.getAttribute("data-theme") === "dark" ? "light" : "dark";
+      safeStorage("pacewire.theme", next);
+      applyTheme(next);
+    });
+    if (window.matchMedia) {
+      window.matchMedia("(prefers-color-scheme: dark)").addEventListener("change", (e) => {
+        const stored = safeStorage("pacewire.theme");
+        if (stored !== "light" && stored !== "dark") applyTheme(e.matches ? "dark" : "light");
+      });
+    }
+  }
+
+  // -- wiring -----------------------------------------------------------------------------------------------------------
+  function init() {
+    initTheme();
+    buildHead();
+    $("#cov-threshold").textContent = Math.round(COVERAGE_LOW * 100);
+    $("#match-picker").addEventListener("change", (e) => { if (e.target.value) selectMatch(e.target.value); });
+    $("#team-filter").addEventListener("change", (e) => { if (e.target.name === "team") { S.team = e.target.value; renderTable(); } });
+    $("#window-switch").addEventListener("change", (e) => { if (e.target.name === "window") { S.win = e.target.value; renderTable(); } });
+    renderTable();
+    refreshMatches();
+    setInterval(refreshMatches, MATCHES_EVERY_MS);
+    setInterval(refreshReports, REPORTS_EVERY_MS);
+    setInterval(() => { renderAge(); renderBanner(); renderFeed(); }, 500);
+    setInterval(watchdog, 5000);
+    window.addEventListener("online", () => { if (S.conn !== "open") connect(); });
+  }
+
+  // An open socket that stays silent may be a dead link the browser has not noticed: check the server.
+  async function watchdog() {
+    if (!ws || S.conn !== "open") return;
+    const since = S.lastMsgAt == null ? (performance.now() - (S.openedAt || 0)) / 1000 : ageSeconds();
+    if (since < WATCHDOG_S) return;
+    try {
+      const r = await fetch(apiUrl("healthz"), { cache: "no-store" });
+      if (!r.ok) throw new Error("healthz " + r.status);
+    } catch (e) {
+      if (ws) ws.close();
+    }
+  }
+
+  // for tests and for curious people at the console
+  window.pacewire = {
+    get state() { return S.state; },
+    get seq() { return S.lastSeq; },
+    get socket() { return ws; },
+    get matchId() { return S.matchId; },
+  };
+
+  init();
+})();
