@@ -140,6 +140,8 @@ def create_app(opts: ServerOptions) -> FastAPI:
         except SetupConflict as exc:
             return _error(409, "conflict", str(exc))
         except OSError as exc:
+        except ValueError as exc:  # a match id the folder rules refuse (".", "..")
+            return _error(422, "bad_match_id", str(exc))
             return _error(503, "storage", f"cannot write the match folder: {exc.strerror or exc}")
         return JSONResponse({"match_id": match_id, "created": created, "players": runner.roster.n,
                              "fps": runner.roster.fps}, status_code=201 if created else 200)
