@@ -20,9 +20,15 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--view-token", default=os.environ.get("PACEWIRE_VIEW_TOKEN"),
                    help="token for live and snapshot reads (or env PACEWIRE_VIEW_TOKEN)")
     p.add_argument("--log-level", default="info", choices=["debug", "info", "warning", "error"])
+    p.add_argument("--role", default="all", choices=["all", "ingest", "aggregator", "gateway", "recorder"],
+                   help="all (default): everything in this process; else one role over Redis (README: league scale)")
+    p.add_argument("--redis", default=os.environ.get("PACEWIRE_REDIS"), help="Redis URL for the scaled roles")
 
 
 def run(args: argparse.Namespace) -> int:
+    if getattr(args, "role", "all") != "all":
+        from service.scale.roles import run_role
+        return run_role(args)
     import uvicorn
 
     from service.config import ConfigError, load_settings

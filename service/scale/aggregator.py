@@ -1,0 +1,504 @@
+"""The ``aggregator`` role: claims matches, steps the engine, publishes the messages.
+
+A match is claimed with a lease (``SET lease owner NX PX``, renewed at a third
+of its length). The claimant rebuilds the match from its latest checkpoint and
+the stream after it, then reads new entries through the consumer group
+``aggregators``. Its broadcaster holds one stream per (view, cadence) that some
+gateway asked for; every message of a stream goes out in one Lua call that
+first checks the lease (a lapsed owner publishes nothing), appends the message
+to the stream's resume buffer, publishes it on the stream's channel and stores
+the stream's snapshot at that seq. That snapshot is also the stream's
+hand-over: a successor restores seq and last state from it, so clients see the
+seq continue and a delta that brings them to the rebuilt state.
+"""
+from __future__ import annotations
+
+import asyncio
+import logging
+import os
+import pickle
+import socket
+import time
+import uuid
+from pathlib import Path
+from typing import Any
+
+import orjson
+from redis.exceptions import RedisError, ResponseError
+
+from service.config import Settings
+from service.live.broadcaster import Group, Subscriber, View, ViewError
+from service.live.ingest import Hooks, MatchRunner
+from service.scale import keys
+from service.scale.settings import ScaleSettings
+from service.wire.cdf import parse_setup
+
+log = logging.getLogger("pacewire.scale.aggregator")
+
+GROUP = "aggregators"
+SNAP_TTL_S = 86_400  # a stream's hand-over snapshot outlives any match
+
+_RENEW = """
+local v = redis.call('GET', KEYS[1])
+if v == ARGV[1] then return redis.call('PEXPIRE', KEYS[1], ARGV[2]) end
+if not v then
+  if redis.call('SET', KEYS[1], ARGV[1], 'NX', 'PX', ARGV[2]) then return 1 end
+end
+return 0
+"""
+
+_RELEASE = """
+if redis.call('GET', KEYS[1]) == ARGV[1] then return redis.call('DEL', KEYS[1]) end
+return 0
+"""
+
+# KEYS: lease, then (buffer, snapshot) per stream. ARGV: owner, wall time, then per stream:
+# channel, snapshot text, buffer length, n, then n × (seq, text).
+_PUBLISH = """
+if redis.call('GET', KEYS[1]) ~= ARGV[1] then return 0 end
+local a = 3
+for g = 1, (#KEYS - 1) / 2 do
+  local buf, snap = KEYS[2 * g], KEYS[2 * g + 1]
+  local channel, snaptext, maxlen, n = ARGV[a], ARGV[a + 1], ARGV[a + 2], tonumber(ARGV[a + 3])
+  a = a + 4
+  for i = 1, n do
+    redis.pcall('XADD', buf, 'MAXLEN', '~', maxlen, ARGV[a] .. '-0', 't', ARGV[a + 1], 'w', ARGV[2])
+    redis.call('PUBLISH', channel, ARGV[a + 1])
+    a = a + 2
+  end
+  redis.call('SET', snap, snaptext, 'EX', %d)
+end
+return 1
+""" % SNAP_TTL_S
+
+
+def seq_of(text: str) -> int:
+    """The seq of a message text (the envelope puts it third, after two plain strings)."""
+    i = text.index('"seq":') + 6
+    return int(text[i:text.index(",", i)])
+
+
+class _SinkQueue:
+    """Looks like a subscriber's queue to the broadcaster; feeds the match's publish queue."""
+
+    def __init__(self, sink: "Sink", out: asyncio.Queue) -> None:
+        self.sink, self.out = sink, out
+
+    def qsize(self) -> int:
+        return 0
+
+    def put_nowait(self, text: str) -> None:
+        self.out.put_nowait((self.sink, text))
+
+
+class Sink(Subscriber):
+    """The one 'subscriber' of a stream on the aggregator: Redis, on behalf of every gateway."""
+
+    def __init__(self, match_id: str, stream: str, out: asyncio.Queue, maxlen: int) -> None:
+        super().__init__(self._never, 1)
+        self.stream = stream
+        self.channel = keys.out_channel(match_id, stream)
+        self.buffer_key = keys.out_buffer(match_id, stream)
+        self.snapshot_key = keys.out_snapshot(match_id, stream)
+        self.maxlen = maxlen
+        self.queue = _SinkQueue(self, out)  # type: ignore[assignment]
+        self.wanted_until = 0.0
+
+    async def _never(self, text: str) -> None:  # pragma: no cover - sinks are never pumped
+        raise RuntimeError("a sink is not pumped")
+
+
+class AggMatch:
+    """One claimed match: a MatchRunner fed from the stream instead of from sockets."""
+
+    def __init__(self, agg: "Aggregator", match_id: str, runner: MatchRunner) -> None:
+        self.agg = agg
+        self.redis = agg.redis
+        self.match_id = match_id
+        self.runner = runner
+        self.key = keys.frames(match_id)
+        self.last_id = b"0-0"
+        self.out: asyncio.Queue[tuple[Sink, str | None]] = asyncio.Queue()
+        self.sinks: dict[str, Sink] = {}
+        self.tasks: list[asyncio.Task] = []
+        self.lost = asyncio.Event()
+        self.last_checkpoint = time.monotonic()
+        self.last_arrival: float | None = None  # arrival (ingest wall time) of the latest applied frame
+
+    # -- rebuild ------------------------------------------------------------------------------
+    async def rebuild(self) -> int:
+        """Checkpoint (if any) plus the stream after it; returns the entries replayed."""
+        r = self.runner
+        cp = await self.redis.get(keys.checkpoint(self.match_id))
+        if cp is not None:
+            try:
+                self._restore(pickle.loads(cp))
+            except Exception:  # an unreadable checkpoint: the whole stream will do
+                log.warning("%s: checkpoint unreadable, replaying the whole stream", self.match_id)
+                self.runner = r = _fresh_runner(self.agg, self.match_id, r.roster)
+                self.last_id = b"0-0"
+        n = 0
+        start = self.last_id
+        count = self.agg.scale.read_count
+        while True:
+            lo = b"(" + start if start != b"0-0" else b"-"
+            batch = await self.redis.xrange(self.key, lo, "+", count=count)
+            if not batch:
+                break
+            self._apply(batch, now=None)
+            n += len(batch)
+            start = batch[-1][0]
+        await self._read_counts()
+        h = r.state.health
+        h.first_arrival = h.last_arrival = None  # as after a restart: health starts afresh
+        r._period_seen = r.state.period_name()
+        for per in r.state.periods:
+            r._period_told.add(("start", per.name))
+            if per.ended:
+                r._period_told.add(("end", per.name))
+        r.broadcaster.invalidate()
+        # the consumer group: made if missing, then moved to what was rebuilt; old consumers go
+        try:
+            await self.redis.xgroup_create(self.key, GROUP, id="0", mkstream=True)
+        except ResponseError as exc:
+            if "BUSYGROUP" not in str(exc):
+                raise
+        await self.redis.xgroup_setid(self.key, GROUP, self.last_id)
+        for c in await self.redis.xinfo_consumers(self.key, GROUP):
+            name = c["name"].decode() if isinstance(c["name"], bytes) else c["name"]
+            if name != self.agg.owner:
+                await self.redis.xgroup_delconsumer(self.key, GROUP, name)
+        return n
+
+    def _checkpoint_state(self) -> dict[str, Any]:
+        r = self.runner
+        return {"state": r.state, "gate": r.decoder.gate, "score": r.score, "events": r.events,
+                "told": r._period_told, "last_id": self.last_id}
+
+    def _restore(self, cp: dict[str, Any]) -> None:
+        r = self.runner
+        r.state, r.decoder.gate, r.score, r.events = cp["state"], cp["gate"], cp["score"], cp["events"]
+        r._period_told = set(cp["told"])
+        self.last_id = cp["last_id"]
+
+    async def checkpoint(self) -> None:
+        """Engine state + stream position, so a successor replays only what came after."""
+        blob = pickle.dumps(self._checkpoint_state(), protocol=pickle.HIGHEST_PROTOCOL)
+        await self.redis.set(keys.checkpoint(self.match_id), blob)
+        self.last_checkpoint = time.monotonic()
+
+    # -- the stream -------------------------------------------------------------------------------
+    def _apply(self, entries: list[tuple[bytes, dict[bytes, bytes]]], now: float | None) -> int:
+        """Apply stream entries in order: runs of frames as one block, events between them."""
+        r = self.runner
+        lines: list[bytes] = []
+        frames = 0
+
+        def flush() -> None:
+            nonlocal frames
+            if not lines:
+                return
+            res = r.decoder.decode_lines(lines)
+            res.rejected = res.duplicates = res.late = 0  # counted at ingest (keys.counts)
+            try:
+                r.state.ingest(res, now=now)
+            except Exception:  # the engine must never take the match down
+                log.exception("%s: engine failed on a block; block skipped", self.match_id)
+            frames += len(res.block)
+            lines.clear()
+
+        for eid, fields in entries:
+            line = fields.get(b"f")
+            if line is not None:
+                lines.append(line)
+                if b"a" in fields:
+                    self.last_arrival = float(fields[b"a"])
+            elif b"e" in fields:
+                flush()
+                try:
+                    ev = orjson.loads(fields[b"e"])
+                    r._apply_event(ev)
+                    if now is not None:
+                        r.event_message(ev)
+                except Exception:
+                    log.warning("%s: skipped an unreadable event entry %s", self.match_id, eid)
+            self.last_id = eid
+        flush()
+        return frames
+
+    async def _read_loop(self) -> None:
+        r = self.runner
+        while True:
+            try:
+                resp = await self.redis.xreadgroup(GROUP, self.agg.owner, {self.key: ">"},
+                                                   count=self.agg.scale.read_count, block=500)
+            except RedisError as exc:
+                log.warning("%s: stream read failed: %s", self.match_id, exc)
+                await asyncio.sleep(0.5)
+                continue
+            if not resp:
+                continue
+            entries = resp[0][1]
+            t0 = time.perf_counter()
+            n = self._apply(entries, now=time.time())
+            if n:
+                r.applied_frames += n
+                r._stall_view = None
+                r._after_apply()
+                r.hooks.processing(time.perf_counter() - t0)
+                r.hooks.frames_in(n)
+            try:
+                await self.redis.xack(self.key, GROUP, *[e[0] for e in entries])
+            except RedisError:
+                pass  # the entries are applied; a successor replays from the checkpoint anyway
+            if time.monotonic() - self.last_checkpoint > self.agg.scale.checkpoint_s:
+                try:
+                    await self.checkpoint()
+                except RedisError as exc:
+                    log.warning("%s: checkpoint failed: %s", self.match_id, exc)
+
+    async def _read_counts(self) -> None:
+        c = await self.redis.hgetall(keys.counts(self.match_id))
+        h = self.runner.state.health
+        h.rejected = int(c.get(b"rejected", 0))
+        h.duplicates = int(c.get(b"duplicates", 0))
+        h.late = int(c.get(b"late", 0))
+
+    async def _status_loop(self) -> None:
+        """Once a second: ingest counters in, summary and full snapshot out (REST reads)."""
+        r = self.runner
+        while True:
+            await asyncio.sleep(1.0)
+            try:
+                await self._read_counts()
+                snap = r.broadcaster.snapshot()
+                body = {k: snap[k] for k in ("players", "teams", "health")}
+                from service.wire.messages import envelope
+                msg = envelope("snapshot", self.match_id, 0, snap["match_time_s"], snap["period"], **body)
+                summary = r.summary()
+                summary["aggregator"] = self.agg.owner
+                async with self.redis.pipeline(transaction=False) as p:
+                    p.set(keys.snapshot(self.match_id), orjson.dumps(msg), ex=SNAP_TTL_S)
+                    p.set(keys.summary(self.match_id), orjson.dumps(summary), ex=SNAP_TTL_S)
+                    await p.execute()
+            except RedisError as exc:
+                log.warning("%s: status write failed: %s", self.match_id, exc)
+            except Exception:
+                log.exception("%s: status loop failed", self.match_id)
+
+    # -- output streams -----------------------------------------------------------------------------
+    async def want(self, stream: str, until: float) -> None:
+        """A gateway needs this (view, cadence) stream: make (or restore) it."""
+        sink = self.sinks.get(stream)
+        if sink is not None:
+            sink.wanted_until = max(sink.wanted_until, until)
+            if sink.group is not None and sink not in sink.group.subscribers:
+                sink.group.subscribers.add(sink)
+            return
+        roster = self.runner.roster
+        try:
+            view_key, every = keys.split_stream_key(stream)
+            view = View.parse(view_key, roster.team_ids, set(roster.index))
+        except (ValueError, ViewError):
+            log.warning("%s: ignoring an unknown stream %r", self.match_id, stream)
+            return
+        b = self.runner.broadcaster
+        srv = self.agg.settings.server
+        maxlen = min(b.buffer_max, int(srv.resume_buffer_s / every) + 500)
+        sink = Sink(self.match_id, stream, self.out, maxlen)
+        sink.wanted_until = until
+        self.sinks[stream] = sink
+        g = b.group(view, every)
+        sink.group = g
+        if g.state is None:
+            prev = await self.redis.get(sink.snapshot_key)
+            if prev is not None:
+                _restore_group(g, orjson.loads(prev))  # the seq carries on from the last owner
+            else:
+                await self.redis.delete(sink.buffer_key)  # a new stream starts its buffer afresh
+                b._refresh_state(g)
+        g.subscribers.add(sink)
+        g.idle_since = None
+        self.out.put_nowait((sink, None))  # store its snapshot now: gateways open with it
+
+    def expire_wants(self, now: float) -> None:
+        for stream, sink in list(self.sinks.items()):
+            if sink.wanted_until < now and sink.group is not None:
+                sink.group.subscribers.discard(sink)
+                if sink.group not in self.runner.broadcaster.groups.values():
+                    del self.sinks[stream]
+
+    async def _publish_loop(self) -> None:
+        b = self.runner.broadcaster
+        while True:
+            first = await self.out.get()
+            items = [first]
+            while not self.out.empty():
+                items.append(self.out.get_nowait())
+            streams: dict[str, tuple[Sink, list[str]]] = {}
+            for sink, text in items:
+                entry = streams.setdefault(sink.stream, (sink, []))
+                if text is not None:
+                    entry[1].append(text)
+            # no await since the texts were queued: each group's seq and state are those of its last message
+            k = [keys.lease(self.match_id)]
+            a: list[Any] = [self.agg.owner, "%.6f" % time.time()]
+            for sink, texts in streams.values():
+                assert sink.group is not None
+                k += [sink.buffer_key, sink.snapshot_key]
+                a += [sink.channel, b._snapshot_text(sink.group), sink.maxlen, len(texts)]
+                for t in texts:
+                    a += [seq_of(t), t]
+            for attempt in range(1_000_000):
+                try:
+                    ok = await self.agg.publish(keys=k, args=a)
+                    break
+                except RedisError as exc:
+                    if attempt == 0:
+                        log.warning("%s: publish failed, retrying: %s", self.match_id, exc)
+                    await asyncio.sleep(0.2)
+            if not ok:
+                log.warning("%s: lease lost; handing the match over", self.match_id)
+                self.lost.set()
+                return
+
+    # -- life cycle ------------------------------------------------------------------------------------
+    def start(self) -> None:
+        r = self.runner
+        self.tasks = [asyncio.create_task(self._read_loop(), name=f"agg-read:{self.match_id}"),
+                      asyncio.create_task(self._publish_loop(), name=f"agg-publish:{self.match_id}"),
+                      asyncio.create_task(r._health_loop(), name=f"agg-health:{self.match_id}"),
+                      asyncio.create_task(self._status_loop(), name=f"agg-status:{self.match_id}")]
+
+    async def stop(self) -> None:
+        for t in self.tasks:
+            t.cancel()
+        for t in self.tasks:
+            try:
+                await t
+            except (asyncio.CancelledError, Exception):
+                pass
+
+
+def _restore_group(g: Group, msg: dict[str, Any]) -> None:
+    g.seq = int(msg["seq"])
+    g.state = {k: msg[k] for k in ("players", "teams", "health") if k in msg}
+    g.meta = (msg["match_time_s"], msg["period"])
+
+
+def _fresh_runner(agg: "Aggregator", match_id: str, roster: Any) -> MatchRunner:
+    return MatchRunner(roster, agg.settings, agg.data_dir / "matches" / match_id, agg.hooks)
+
+
+class Aggregator:
+    """Claims matches from Redis and runs them; any number run side by side."""
+
+    def __init__(self, redis: Any, settings: Settings, scale: ScaleSettings, data_dir: Path,
+                 hooks: Hooks | None = None) -> None:
+        self.redis = redis
+        self.settings = settings
+        self.scale = scale
+        self.data_dir = data_dir
+        self.hooks = hooks or Hooks()
+        self.owner = f"{socket.gethostname()}:{os.getpid()}:{uuid.uuid4().hex[:8]}"
+        self.matches: dict[str, AggMatch] = {}
+        self.publish = redis.register_script(_PUBLISH)
+        self._renew = redis.register_script(_RENEW)
+        self._release = redis.register_script(_RELEASE)
+        self._tasks: list[asyncio.Task] = []
+
+    async def run(self) -> None:
+        self._tasks = [asyncio.create_task(self._want_listener(), name="agg-wants")]
+        every = self.scale.lease_ms / 3000.0
+        try:
+            while True:
+                try:
+                    await self._round()
+                except RedisError as exc:
+                    log.warning("aggregator round failed: %s", exc)
+                except Exception:
+                    log.exception("aggregator round failed")
+                await asyncio.sleep(every)
+        finally:
+            for t in self._tasks:
+                t.cancel()
+            await self.shutdown()
+
+    async def _round(self) -> None:
+        lease_ms = self.scale.lease_ms
+        for mid, m in list(self.matches.items()):
+            if m.lost.is_set() or not await self._renew(keys=[keys.lease(mid)], args=[self.owner, lease_ms]):
+                log.warning("%s: lease lost", mid)
+                await self._drop(mid)
+        limit = self.scale.max_matches
+        for raw in sorted(await self.redis.smembers(keys.MATCHES)):
+            mid = raw.decode()
+            if mid in self.matches or (limit and len(self.matches) >= limit):
+                continue
+            if await self.redis.set(keys.lease(mid), self.owner, nx=True, px=lease_ms):
+                try:
+                    await self._take(mid)
+                except Exception:
+                    log.exception("%s: could not take the match; releasing it", mid)
+                    await self._drop(mid)
+                    await self._release(keys=[keys.lease(mid)], args=[self.owner])
+        now = time.time()
+        for mid, m in list(self.matches.items()):
+            wants = await self.redis.hgetall(keys.want(mid))
+            for stream, until in wants.items():
+                if float(until) / 1000.0 >= now:
+                    await m.want(stream.decode(), float(until) / 1000.0)
+            m.expire_wants(now)
+
+    async def _take(self, mid: str) -> None:
+        raw = await self.redis.get(keys.setup(mid))
+        if raw is None:
+            raise RuntimeError("no set-up stored")
+        o = orjson.loads(raw)
+        roster = parse_setup(o["meta"], o["sheet"], mid)
+        m = AggMatch(self, mid, _fresh_runner(self, mid, roster))
+        self.matches[mid] = m
+        t0 = time.perf_counter()
+        n = await m.rebuild()
+        log.warning("%s: claimed by %s, rebuilt %d entries in %.2f s", mid, self.owner, n, time.perf_counter() - t0)
+        now = time.time()
+        for stream, until in (await self.redis.hgetall(keys.want(mid))).items():
+            if float(until) / 1000.0 >= now:
+                await m.want(stream.decode(), float(until) / 1000.0)
+        m.start()
+        m.runner.broadcaster.tick(force=True)  # streams restored from a hand-over move to the rebuilt state
+
+    async def _drop(self, mid: str) -> None:
+        m = self.matches.pop(mid, None)
+        if m is not None:
+            await m.stop()
+
+    async def _want_listener(self) -> None:
+        """Gateways announce a stream here, so a first subscriber needs no polling round."""
+        while True:
+            try:
+                ps = self.redis.pubsub()
+                await ps.subscribe(keys.WANT_CHANNEL)
+                async for msg in ps.listen():
+                    if msg.get("type") != "message":
+                        continue
+                    mid, _, stream = msg["data"].decode().partition(" ")
+                    m = self.matches.get(mid)
+                    if m is not None:
+                        await m.want(stream, time.time() + self.scale.want_ttl_s)
+            except asyncio.CancelledError:
+                raise
+            except Exception as exc:
+                log.warning("want listener: %s", exc)
+                await asyncio.sleep(0.5)
+
+    async def shutdown(self) -> None:
+        """Graceful stop: checkpoint and release every lease so successors start at once."""
+        for mid, m in list(self.matches.items()):
+            await m.stop()
+            try:
+                await m.checkpoint()
+                await self._release(keys=[keys.lease(mid)], args=[self.owner])
+            except RedisError:
+                pass
+        self.matches.clear()

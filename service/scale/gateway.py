@@ -1,0 +1,503 @@
+"""The ``gateway`` role: websockets and REST reads, fed by the aggregator over Redis.
+
+A gateway holds a :class:`Feed` per (match, view, cadence) stream its clients
+follow: it subscribes to the stream's channel, opens with the stream's
+snapshot stored by the aggregator, and keeps a local resume buffer. Message
+texts are forwarded byte for byte, so every gateway gives a stream's
+subscribers the same seq and the same bytes, and one serialisation (done once,
+by the aggregator) serves every subscriber of a stream. A seq gap (a dropped
+Redis connection) is filled from the stream's buffer in Redis, or answered
+with a resync snapshot when the buffer has moved on.
+"""
+from __future__ import annotations
+
+import asyncio
+import logging
+import time
+from collections import deque
+from typing import Any
+
+import orjson
+from fastapi import FastAPI, Request, WebSocket, WebSocketDisconnect
+from fastapi.responses import FileResponse, JSONResponse, Response
+from fastapi.staticfiles import StaticFiles
+from redis.exceptions import RedisError
+
+from service.config import Settings
+from service.engine.types import Roster
+from service.live.app import ID, WEB, _error, _same, _token
+from service.live.broadcaster import Subscriber, View, ViewError
+from service.scale import keys
+from service.scale.aggregator import seq_of
+from service.scale.settings import ScaleSettings
+from service.wire.cdf import parse_setup
+from service.wire.messages import envelope
+
+log = logging.getLogger("pacewire.scale.gateway")
+
+_RESYNC = -1  # queue marker: send a fresh snapshot with "resync": true
+
+
+def resync_text(snapshot_text: str) -> str:
+    """The snapshot with ``"resync": true`` last, as the broadcaster writes it."""
+    return snapshot_text[:-1] + ',"resync":true}'
+
+
+class Client(Subscriber):
+    """A websocket subscriber; its queue holds (seq, text), its pump skips what it has sent."""
+
+    def __init__(self, send: Any, queue_size: int) -> None:
+        super().__init__(send, queue_size)
+        self.sent_seq = -1
+        self.feed: Feed | None = None
+
+
+class Feed:
+    """One (match, view, cadence) stream mirrored from Redis."""
+
+    def __init__(self, gw: "Gateway", match_id: str, stream: str) -> None:
+        self.gw = gw
+        self.match_id = match_id
+        self.stream = stream
+        self.channel = keys.out_channel(match_id, stream)
+        self.buffer_key = keys.out_buffer(match_id, stream)
+        self.snapshot_key = keys.out_snapshot(match_id, stream)
+        self.seq = -1
+        self.buffer: deque[tuple[int, float, str]] = deque()
+        self.snap: tuple[int, str] | None = None
+        self.subscribers: set[Client] = set()
+        self.ready = asyncio.Event()
+        self.pending: list[str] = []
+        self.idle_since: float | None = None
+        self.repairing = False
+        self.last_message = time.monotonic()
+
+    # -- start -----------------------------------------------------------------------------
+    async def bootstrap(self) -> None:
+        r = self.gw.redis
+        await self.gw.listen(self.channel, self)  # first, so nothing falls between buffer and live
+        while True:
+            try:
+                await self.gw.announce(self.match_id, self.stream)
+                text = await r.get(self.snapshot_key)
+                if text is not None:
+                    break
+            except RedisError as exc:
+                log.warning("%s: waiting for Redis: %s", self.match_id, exc)
+            await asyncio.sleep(0.1)  # no aggregator has made the stream yet
+        text = text.decode()
+        entries = await r.xrange(self.buffer_key, "-", "+", count=self.gw.buffer_max)
+        now_wall, now_mono = time.time(), time.monotonic()
+        horizon = now_wall - self.gw.buffer_s
+        for eid, f in entries:
+            w = float(f.get(b"w", now_wall))
+            if w >= horizon:
+                self.buffer.append((keys_seq(eid), now_mono - (now_wall - w), f[b"t"].decode()))
+        self.seq = seq_of(text)
+        if self.buffer and self.buffer[-1][0] > self.seq:
+            self.seq = self.buffer[-1][0]
+        self.snap = (seq_of(text), text)
+        self.ready.set()
+        pending, self.pending = self.pending, []
+        for t in pending:
+            self.on_text(t)
+
+    # -- live --------------------------------------------------------------------------------
+    def on_text(self, text: str) -> None:
+        if not self.ready.is_set() or self.repairing:
+            self.pending.append(text)
+            return
+        s = seq_of(text)
+        if s <= self.seq:
+            return
+        if s > self.seq + 1:
+            self.pending.append(text)
+            self.repairing = True
+            asyncio.create_task(self.repair())
+            return
+        self._accept(s, text)
+
+    def _accept(self, s: int, text: str) -> None:
+        self.seq = s
+        now = time.monotonic()
+        self.last_message = now
+        self.buffer.append((s, now, text))
+        horizon = now - self.gw.buffer_s
+        while self.buffer and (self.buffer[0][1] < horizon or len(self.buffer) > self.gw.buffer_max):
+            self.buffer.popleft()
+        for c in list(self.subscribers):
+            self.gw.offer(c, s, text)
+        self.gw.messages_out += len(self.subscribers)
+
+    async def repair(self) -> None:
+        """Fill a seq gap from Redis, or resync everyone when the buffer there has moved on."""
+        r = self.gw.redis
+        try:
+            for _ in range(50):
+                try:
+                    entries = await r.xrange(self.buffer_key, f"{self.seq + 1}-0", "+", count=self.gw.buffer_max)
+                    snap = await r.get(self.snapshot_key)
+                    break
+                except RedisError:
+                    await asyncio.sleep(0.2)
+            else:
+                return
+            if entries and keys_seq(entries[0][0]) == self.seq + 1:
+                for eid, f in entries:
+                    s = keys_seq(eid)
+                    if s == self.seq + 1:
+                        self._accept(s, f[b"t"].decode())
+            elif snap is not None and seq_of(snap.decode()) > self.seq:
+                text = snap.decode()
+                self.seq = seq_of(text)
+                self.snap = (self.seq, text)
+                self.buffer.clear()
+                for c in list(self.subscribers):
+                    self.gw.offer(c, _RESYNC, "")
+        finally:
+            self.repairing = False
+            pending, self.pending = self.pending, []
+            for t in pending:
+                self.on_text(t)
+
+    async def check(self) -> None:
+        """After a Redis reconnect or a quiet spell: is the stored stream ahead of us?"""
+        if not self.ready.is_set() or self.repairing:
+            return
+        snap = await self.gw.redis.get(self.snapshot_key)
+        if snap is not None and seq_of(snap.decode()) > self.seq:
+            self.repairing = True
+            await self.repair()
+
+    async def snapshot_text(self) -> tuple[int, str]:
+        if self.snap is not None and self.snap[0] >= self.seq:
+            return self.snap
+        raw = await self.gw.redis.get(self.snapshot_key)
+        if raw is not None:
+            text = raw.decode()
+            s = seq_of(text)
+            if self.snap is None or s >= self.snap[0]:
+                self.snap = (s, text)
+        assert self.snap is not None
+        return self.snap
+
+    # -- subscribers ----------------------------------------------------------------------------
+    async def attach(self, c: Client, since: int | None) -> None:
+        await self.ready.wait()
+        c.feed = self
+        self.idle_since = None
+        b = self.buffer
+        if since is not None and 0 <= since <= self.seq and (since == self.seq or (b and b[0][0] <= since + 1)):
+            first = [(s, t) for s, _, t in b if s > since]
+            c.sent_seq = since
+        else:
+            try:
+                s0, text = await self.snapshot_text()
+            except RedisError:
+                s0, text = self.snap  # type: ignore[misc]
+            first = [(s0, resync_text(text) if since is not None else text)]
+            first += [(s, t) for s, _, t in self.buffer if s > s0]
+        for item in first:
+            c.queue.put_nowait(item)  # type: ignore[arg-type]
+        self.subscribers.add(c)
+
+    def detach(self, c: Client) -> None:
+        self.subscribers.discard(c)
+        c.closed = True
+        if not self.subscribers:
+            self.idle_since = time.monotonic()
+
+
+def keys_seq(entry_id: bytes) -> int:
+    return int(entry_id.split(b"-", 1)[0])
+
+
+class Gateway:
+    """The feeds of one gateway process and its one pub/sub connection."""
+
+    def __init__(self, redis: Any, settings: Settings, scale: ScaleSettings) -> None:
+        self.redis = redis
+        self.settings = settings
+        self.scale = scale
+        srv = settings.server
+        self.buffer_s = srv.resume_buffer_s
+        self.buffer_max = 100_000
+        self.feeds: dict[tuple[str, str], Feed] = {}
+        self._starting: dict[tuple[str, str], asyncio.Task] = {}
+        self.handlers: dict[str, Feed] = {}
+        self.pubsub = redis.pubsub(ignore_subscribe_messages=True)
+        self.rosters: dict[str, tuple[bytes, Roster]] = {}
+        self.messages_out = 0
+        self.dropped = 0
+        self._tasks: list[asyncio.Task] = []
+
+    async def start(self) -> None:
+        await self.pubsub.subscribe(f"{keys.PREFIX}:gateway")  # the connection exists from now on
+        self._tasks = [asyncio.create_task(self._reader(), name="gw-reader"),
+                       asyncio.create_task(self._upkeep(), name="gw-upkeep")]
+
+    async def stop(self) -> None:
+        for t in self._tasks:
+            t.cancel()
+        for t in self._tasks:
+            try:
+                await t
+            except (asyncio.CancelledError, Exception):
+                pass
+        try:
+            await self.pubsub.aclose()
+        except Exception:
+            pass
+
+    async def roster(self, match_id: str) -> Roster | None:
+        raw = await self.redis.get(keys.setup(match_id))
+        if raw is None:
+            return None
+        have = self.rosters.get(match_id)
+        if have is not None and have[0] == raw:
+            return have[1]
+        o = orjson.loads(raw)
+        roster = parse_setup(o["meta"], o["sheet"], match_id)
+        self.rosters[match_id] = (raw, roster)
+        return roster
+
+    async def feed(self, match_id: str, stream: str) -> Feed:
+        key = (match_id, stream)
+        f = self.feeds.get(key)
+        if f is None:
+            f = self.feeds[key] = Feed(self, match_id, stream)
+            self._starting[key] = asyncio.create_task(f.bootstrap())
+        task = self._starting.get(key)
+        if task is not None:
+            try:
+                await asyncio.shield(task)
+            finally:
+                if task.done():
+                    self._starting.pop(key, None)
+        return f
+
+    async def listen(self, channel: str, feed: Feed) -> None:
+        self.handlers[channel] = feed
+        await self.pubsub.subscribe(channel)
+
+    async def announce(self, match_id: str, stream: str) -> None:
+        until_ms = int((time.time() + self.scale.want_ttl_s) * 1000)
+        async with self.redis.pipeline(transaction=False) as p:
+            p.hset(keys.want(match_id), stream, until_ms)
+            p.publish(keys.WANT_CHANNEL, f"{match_id} {stream}")
+            await p.execute()
+
+    def offer(self, c: Client, seq: int, text: str) -> None:
+        if c.queue.qsize() < c.limit:
+            c.queue.put_nowait((seq, text))  # type: ignore[arg-type]
+            return
+        while not c.queue.empty():  # slow reader: its backlog becomes one fresh snapshot
+            c.queue.get_nowait()
+        c.dropped += 1
+        self.dropped += 1
+        c.queue.put_nowait((_RESYNC, ""))  # type: ignore[arg-type]
+
+    async def pump(self, c: Client) -> None:
+        while not c.closed:
+            seq, text = await c.queue.get()  # type: ignore[misc]
+            if seq == _RESYNC:
+                assert c.feed is not None
+                seq, text = await c.feed.snapshot_text()
+                text = resync_text(text)
+            elif seq <= c.sent_seq:
+                continue  # already covered by the opening snapshot
+            await c.send(text)
+            c.sent_seq = seq
+
+    async def _reader(self) -> None:
+        broken = False
+        while True:
+            try:
+                msg = await self.pubsub.get_message(timeout=1.0)
+                if broken:
+                    broken = False
+                    for f in list(self.feeds.values()):
+                        asyncio.create_task(f.check())
+                if msg is None or msg.get("type") != "message":
+                    continue
+                ch = msg["channel"].decode()
+                f = self.handlers.get(ch)
+                if f is not None:
+                    f.on_text(msg["data"].decode())
+            except asyncio.CancelledError:
+                raise
+            except Exception as exc:
+                if not broken:
+                    log.warning("pub/sub connection lost: %s", exc)
+                broken = True
+                await asyncio.sleep(0.3)
+
+    async def _upkeep(self) -> None:
+        """Renew interest in followed streams, forget idle ones, catch up after quiet spells."""
+        last_want = 0.0
+        while True:
+            await asyncio.sleep(1.0)
+            now = time.monotonic()
+            try:
+                for key, f in list(self.feeds.items()):
+                    if f.idle_since is not None and now - f.idle_since > self.buffer_s:
+                        del self.feeds[key]
+                        self.handlers.pop(f.channel, None)
+                        await self.pubsub.unsubscribe(f.channel)
+                        continue
+                    if f.ready.is_set() and now - f.last_message > 2.0:
+                        await f.check()
+                if now - last_want > self.scale.want_ttl_s / 3:
+                    last_want = now
+                    for (mid, stream) in list(self.feeds):
+                        await self.announce(mid, stream)
+            except RedisError as exc:
+                log.warning("gateway upkeep: %s", exc)
+            except Exception:
+                log.exception("gateway upkeep failed")
+
+    def subscriber_count(self, match_id: str) -> int:
+        return sum(len(f.subscribers) for (mid, _), f in self.feeds.items() if mid == match_id)
+
+
+def create_gateway_app(redis: Any, settings: Settings, scale: ScaleSettings,
+                       ingest_token: str | None, view_token: str | None) -> FastAPI:
+    from contextlib import asynccontextmanager
+
+    srv = settings.server
+    gw = Gateway(redis, settings, scale)
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI):  # noqa: ANN202
+        await gw.start()
+        yield
+        await gw.stop()
+
+    app = FastAPI(title="pacewire gateway", lifespan=lifespan, docs_url=None, redoc_url=None)
+    app.state.gateway = gw
+
+    def can_read(token: str | None) -> bool:
+        if view_token is None:
+            return True
+        return _same(token, view_token) or (ingest_token is not None and _same(token, ingest_token))
+
+    def unauthorised() -> JSONResponse:
+        return _error(401, "unauthorised", "a valid token is needed (Authorization: Bearer ... or ?token=)")
+
+    def unknown(match_id: str) -> JSONResponse:
+        return _error(404, "unknown_match", f"no match {match_id!r}: set it up with PUT /api/matches/{match_id}")
+
+    def unavailable(exc: Exception) -> JSONResponse:
+        return _error(503, "unavailable", f"Redis unavailable: {exc}")
+
+    @app.get("/api/matches")
+    async def list_matches(request: Request) -> Response:
+        if not can_read(_token(request.headers, request.query_params)):
+            return unauthorised()
+        try:
+            ids = sorted(m.decode() for m in await redis.smembers(keys.MATCHES))
+            raws = await redis.mget([keys.summary(m) for m in ids]) if ids else []
+        except RedisError as exc:
+            return unavailable(exc)
+        out = []
+        for mid, raw in zip(ids, raws):
+            s = orjson.loads(raw) if raw is not None else {"match_id": mid, "health": "stalled", "frames": 0}
+            s["subscribers"] = gw.subscriber_count(mid)  # on this gateway
+            out.append(s)
+        return JSONResponse({"matches": out})
+
+    @app.get("/api/matches/{match_id}/snapshot")
+    async def get_snapshot(request: Request, match_id: str = ID) -> Response:
+        if not can_read(_token(request.headers, request.query_params)):
+            return unauthorised()
+        try:
+            raw = await redis.get(keys.snapshot(match_id))
+            if raw is None:
+                if await redis.get(keys.setup(match_id)) is None:
+                    return unknown(match_id)
+                return _error(503, "not_ready", "no aggregator has published this match yet")
+        except RedisError as exc:
+            return unavailable(exc)
+        return Response(raw, media_type="application/json")
+
+    @app.get("/api/matches/{match_id}/reports")
+    async def get_reports(request: Request, match_id: str = ID) -> Response:
+        if not can_read(_token(request.headers, request.query_params)):
+            return unauthorised()
+        try:
+            if await redis.get(keys.setup(match_id)) is None:
+                return unknown(match_id)
+        except RedisError as exc:
+            return unavailable(exc)
+        return JSONResponse({"match_id": match_id, "reports": []})
+
+    @app.websocket("/live/{match_id}")
+    async def ws_live(ws: WebSocket, match_id: str = ID) -> None:
+        await ws.accept()
+        if not can_read(_token(ws.headers, ws.query_params)):
+            await ws.close(code=1008, reason="unauthorised")
+            return
+
+        async def refuse(code: str, message: str) -> None:
+            await ws.send_text(orjson.dumps(envelope("error", match_id, 0, 0.0, None, code=code, message=message)).decode())
+            await ws.close(code=1008)
+
+        try:
+            roster = await gw.roster(match_id)
+        except RedisError as exc:
+            return await refuse("unavailable", f"Redis unavailable: {exc}")
+        if roster is None:
+            return await refuse("unknown_match", f"no match {match_id!r}")
+        q = ws.query_params
+        try:
+            every = float(q.get("every", srv.default_every_s))
+            if not (every == every) or every < 1.0 / roster.fps - 1e-9 or every > srv.max_every_s:
+                raise ValueError
+        except ValueError:
+            return await refuse("bad_request", f"every must be a number of seconds from {1 / roster.fps:g} to {srv.max_every_s:g}")
+        since: int | None = None
+        if "since" in q:
+            try:
+                since = int(q["since"])
+                if since < 0:
+                    raise ValueError
+            except ValueError:
+                return await refuse("bad_request", "since must be a whole number >= 0")
+        try:
+            view = View.parse(q.get("view", "all"), roster.team_ids, set(roster.index))
+        except ViewError as exc:
+            return await refuse("bad_request", str(exc))
+        if gw.subscriber_count(match_id) >= srv.max_subscribers:
+            return await refuse("too_many_subscribers", f"this match already has {srv.max_subscribers} subscribers here")
+        feed = await gw.feed(match_id, keys.stream_key(view.key, every))
+        c = Client(ws.send_text, srv.subscriber_queue)
+        await feed.attach(c, since)
+        pump = asyncio.create_task(gw.pump(c))
+        try:
+            while True:
+                msg = await ws.receive()
+                if msg["type"] == "websocket.disconnect":
+                    break
+        except (WebSocketDisconnect, RuntimeError):
+            pass
+        finally:
+            feed.detach(c)
+            pump.cancel()
+            try:
+                await pump
+            except (asyncio.CancelledError, Exception):
+                pass
+
+    @app.get("/healthz")
+    async def healthz() -> Response:
+        return JSONResponse({"status": "ok", "role": "gateway", "feeds": len(gw.feeds),
+                             "subscribers": sum(len(f.subscribers) for f in gw.feeds.values()),
+                             "messages_out": gw.messages_out, "dropped": gw.dropped, "time": time.time()})
+
+    app.mount("/static", StaticFiles(directory=WEB), name="static")
+
+    @app.get("/")
+    async def index() -> Response:
+        return FileResponse(WEB / "index.html", headers={"Cache-Control": "no-cache"})
+
+    return app

@@ -1,0 +1,86 @@
+"""Redis key and channel names, stream entry ids, and the client factory.
+
+One prefix for everything pacewire keeps in Redis; ``{m}`` is a match id
+(MATCH_ID characters only), ``{g}`` a subscription stream key
+(``view.key|every``).
+"""
+from __future__ import annotations
+
+from typing import Any
+
+PREFIX = "pw"
+MATCHES = f"{PREFIX}:matches"  # set of match ids set up
+WANT_CHANNEL = f"{PREFIX}:want"  # gateways announce a new (match, stream) here
+
+
+def setup(m: str) -> str:
+    return f"{PREFIX}:setup:{m}"  # {"meta": ..., "sheet": ...}
+
+
+def frames(m: str) -> str:
+    return f"{PREFIX}:frames:{m}"  # the durable log: one entry per frame (and per event)
+
+
+def counts(m: str) -> str:
+    return f"{PREFIX}:counts:{m}"  # hash: rejected / duplicates / late counted at ingest
+
+
+def lease(m: str) -> str:
+    return f"{PREFIX}:lease:{m}"
+
+
+def checkpoint(m: str) -> str:
+    return f"{PREFIX}:checkpoint:{m}"
+
+
+def snapshot(m: str) -> str:
+    return f"{PREFIX}:snapshot:{m}"  # full snapshot message (REST reads)
+
+
+def summary(m: str) -> str:
+    return f"{PREFIX}:summary:{m}"
+
+
+def want(m: str) -> str:
+    return f"{PREFIX}:want:{m}"  # hash: stream key -> expiry (epoch ms)
+
+
+def out_channel(m: str, g: str) -> str:
+    return f"{PREFIX}:out:{m}:{g}"
+
+
+def out_buffer(m: str, g: str) -> str:
+    return f"{PREFIX}:buf:{m}:{g}"  # resume buffer: stream, entry id = seq-0
+
+
+def out_snapshot(m: str, g: str) -> str:
+    return f"{PREFIX}:gsnap:{m}:{g}"  # the stream's snapshot text at its latest seq
+
+
+def stream_key(view_key: str, every: float) -> str:
+    """The subscription stream a (view, cadence) pair maps to, as the broadcaster groups them."""
+    return f"{view_key}|{round(every, 4)!r}"
+
+
+def split_stream_key(g: str) -> tuple[str, float]:
+    view_key, _, every = g.rpartition("|")
+    return view_key, float(every)
+
+
+def frame_entry_id(frame_id: int) -> str:
+    """Explicit entry id ``(F+1)-0`` for frame F (events after it are ``(F+1)-1``, ``-2``...):
+    Redis refuses an id not above the stream's top, so a duplicate or late frame is
+    refused by Redis itself, whichever ingest node sends it."""
+    return f"{frame_id + 1}-0"
+
+
+def connect(url: str, timeout_s: float = 2.0) -> Any:
+    """An asyncio Redis client; errors say how to install redis-py if missing."""
+    try:
+        import redis.asyncio as aioredis
+        from redis.backoff import NoBackoff
+        from redis.retry import Retry
+    except ImportError as exc:  # pragma: no cover - depends on the install
+        raise SystemExit("pacewire: the scale roles need redis-py: pip install 'pacewire[scale]'") from exc
+    return aioredis.from_url(url, socket_timeout=timeout_s, socket_connect_timeout=timeout_s,
+                             retry=Retry(NoBackoff(), 1), health_check_interval=10)

@@ -1,0 +1,110 @@
+"""The ``recorder`` role: the CDF folder of every match, written from its stream.
+
+In scaled mode the stream is the durable log; this role turns it into the
+same folder the single process records (``meta.json``, ``match.json``,
+``tracking.jsonl``, ``events.jsonl``) for replay, analysis and reports. The
+position read so far is stored beside the files with their lengths, written
+after an fsync, so a restart cuts any unconfirmed tail and carries on with no
+line lost or doubled. Run one recorder per data folder.
+"""
+from __future__ import annotations
+
+import asyncio
+import logging
+import os
+from pathlib import Path
+from typing import Any
+
+import orjson
+from redis.exceptions import RedisError
+
+from service.live.matches import MATCH_ID
+from service.live.recorder import write_json_atomic
+from service.scale import keys
+from service.scale.settings import ScaleSettings
+
+log = logging.getLogger("pacewire.scale.recorder")
+
+POSITION = "stream_position.json"
+
+
+class MatchFolder:
+    def __init__(self, folder: Path) -> None:
+        self.folder = folder
+        folder.mkdir(parents=True, exist_ok=True)
+        self.pos_path = folder / POSITION
+        pos = {"id": "0-0", "tracking": 0, "events": 0}
+        if self.pos_path.exists():
+            pos = orjson.loads(self.pos_path.read_bytes())
+        self.last_id: str = pos["id"]
+        self.files = {name: folder / f"{name}.jsonl" for name in ("tracking", "events")}
+        for name, path in self.files.items():
+            with open(path, "ab") as fh:
+                fh.truncate(int(pos[name]))  # an unconfirmed tail goes; it is read again
+
+    def write(self, entries: list[tuple[bytes, dict[bytes, bytes]]]) -> None:
+        out: dict[str, list[bytes]] = {"tracking": [], "events": []}
+        for _eid, f in entries:
+            if b"f" in f:
+                out["tracking"].append(f[b"f"] + b"\n")
+            elif b"e" in f:
+                out["events"].append(f[b"e"] + b"\n")
+        sizes = {}
+        for name, lines in out.items():
+            with open(self.files[name], "ab") as fh:
+                if lines:
+                    fh.write(b"".join(lines))
+                    fh.flush()
+                    os.fsync(fh.fileno())
+                sizes[name] = fh.tell()
+        self.last_id = entries[-1][0].decode()
+        write_json_atomic(self.pos_path, {"id": self.last_id, **sizes})
+
+
+class StreamRecorder:
+    def __init__(self, redis: Any, scale: ScaleSettings, data_dir: Path) -> None:
+        self.redis = redis
+        self.scale = scale
+        self.root = data_dir / "matches"
+        self.matches: dict[str, MatchFolder] = {}
+
+    async def _open(self, mid: str) -> MatchFolder | None:
+        if not MATCH_ID.match(mid) or mid in (".", ".."):
+            return None
+        raw = await self.redis.get(keys.setup(mid))
+        if raw is None:
+            return None
+        o = orjson.loads(raw)
+        m = await asyncio.to_thread(MatchFolder, self.root / mid)
+        await asyncio.to_thread(write_json_atomic, m.folder / "meta.json", o["meta"])
+        await asyncio.to_thread(write_json_atomic, m.folder / "match.json", o["sheet"])
+        self.matches[mid] = m
+        return m
+
+    async def run(self) -> None:
+        last_scan = 0.0
+        loop = asyncio.get_running_loop()
+        while True:
+            try:
+                if loop.time() - last_scan > 1.0:
+                    last_scan = loop.time()
+                    for raw in await self.redis.smembers(keys.MATCHES):
+                        mid = raw.decode()
+                        if mid not in self.matches:
+                            await self._open(mid)
+                if not self.matches:
+                    await asyncio.sleep(0.5)
+                    continue
+                streams = {keys.frames(mid): m.last_id for mid, m in self.matches.items()}
+                resp = await self.redis.xread(streams, count=self.scale.read_count, block=500)
+                for key, entries in resp or []:
+                    mid = key.decode().split(":", 2)[2]
+                    await asyncio.to_thread(self.matches[mid].write, entries)
+            except asyncio.CancelledError:
+                raise
+            except RedisError as exc:
+                log.warning("recorder: %s", exc)
+                await asyncio.sleep(0.5)
+            except OSError as exc:
+                log.error("recorder: cannot write: %s", exc)
+                await asyncio.sleep(1.0)
