@@ -179,10 +179,11 @@ def test_schemas_are_2020_12_and_reject_wrong_shapes():
         assert schema["$schema"] == "https://json-schema.org/draft/2020-12/schema"
         jsonschema.Draft202012Validator.check_schema(schema)
     env = {"match_id": "m_x", "seq": 3, "match_time_s": 12.0, "period": "first_half", "v": 1}
-    alert = {**env, "type": "alert", "rule": "hsr_5min", "player_id": "h2", "value": 210.5, "limit": 200.0,
-             "message": "HSR in the last 5 min above 200 m"}
+    alert = {**env, "type": "alert", "rule": "budget_fict", "kind": "load_budget", "player_id": "h2",
+             "team_id": cb.HOME, "figure": "hsr_m", "value": 410.5, "limit": 400.0, "level": 0.8,
+             "message": "h2: HSR 410 m, 80% of the 500 m budget"}
     report = {**env, "type": "report", "kind": "half_time", "url": "/api/matches/m_x/reports/half_time"}
-    for msg in (alert, report):  # the shapes issue 6 will send (no real one yet)
+    for msg in (alert, report):  # the shapes of service/reports/alerts.py and the report builder
         assert problems(s[msg["type"]], msg) == [] and problems(s["message"], msg) == []
     assert problems(s["report"], {**report, "kind": "quarter_time"})
     assert problems(s["alert"], {k: v for k, v in alert.items() if k != "limit"})

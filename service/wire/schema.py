@@ -218,10 +218,14 @@ class AlertMessage(Envelope):
     """A player crossed a configured rule."""
 
     type: Literal["alert"]
-    rule: str = Field(description="Rule id from the configuration.")
-    player_id: str
-    value: float = Field(description="The player's value of the rule's figure (the figure's unit).")
-    limit: float = Field(description="The rule's limit (same unit).")
+    rule: str = Field(description="Rule id from the configuration ([alerts] rules).")
+    kind: str = Field(description="Kind of rule: drop_off_peak, drop_off_baseline, load_budget, ...")
+    player_id: ID
+    team_id: ID
+    figure: str = Field(description="The figure the rule watches.")
+    value: float = Field(description="The player's value of that figure (its unit).")
+    limit: float = Field(description="The limit it crossed (same unit).")
+    level: float = Field(None, description="Load budgets only: the share of the budget this alert marks.")
     message: str = Field(description="Human-readable text.")
 
 
