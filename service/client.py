@@ -92,13 +92,31 @@ class Subscription:
         self.resumes = 0  # reconnects that went on from since without a snapshot
         self.gaps = 0  # seq gaps seen (each led to a reconnect)
         self._resuming = False
+        self._iter: Any = None
 
     def __aiter__(self) -> AsyncIterator[dict[str, Any]]:
-        return self._messages()
+        self._iter = self._messages()
+        return self._iter
+
+    async def aclose(self) -> None:
+        """Close the socket now (leaving an ``async for`` early leaves it open until then)."""
+        if self._iter is not None:
+            await self._iter.aclose()
+            self._iter = None
+
+    async def __aenter__(self) -> "Subscription":
+        return self
+
+    async def __aexit__(self, *exc: Any) -> None:
+        await self.aclose()
 
     async def _messages(self) -> AsyncIterator[dict[str, Any]]:
-        async for _text, msg in self.stream():
-            yield msg
+        stream = self.stream()
+        try:
+            async for _text, msg in stream:
+                yield msg
+        finally:
+            await stream.aclose()  # closes the socket
 
     async def stream(self) -> AsyncIterator[tuple[str, dict[str, Any]]]:
         """(raw text, message) of every message applied, in seq order, across reconnects."""
@@ -269,14 +287,14 @@ def run_until(url: str, match_id: str, until: Callable[[dict[str, Any], dict[str
     Raises TimeoutError after ``timeout`` seconds. Runs its own event loop (not from async code).
     """
     async def main() -> dict[str, Any]:
-        sub = Subscription(url, match_id, **kw)
+        async with Subscription(url, match_id, **kw) as sub:
 
-        async def follow() -> dict[str, Any]:
-            async for msg in sub:
-                if sub.state is not None and until(msg, sub.state):
-                    return sub.state
-            raise AssertionError("unreachable: the stream reconnects until stopped")
+            async def follow() -> dict[str, Any]:
+                async for msg in sub:
+                    if sub.state is not None and until(msg, sub.state):
+                        return sub.state
+                raise AssertionError("unreachable: the stream reconnects until stopped")
 
-        return await asyncio.wait_for(follow(), timeout)
+            return await asyncio.wait_for(follow(), timeout)
 
     return asyncio.run(main())

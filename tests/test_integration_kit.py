@@ -336,12 +336,14 @@ def test_client_resumes_from_the_last_seq_on_a_gap(tmp_path):
     async def main() -> None:
         async with websockets.serve(handler, "127.0.0.1", 0) as server:
             port = server.sockets[0].getsockname()[1]
-            sub = subscribe(f"http://127.0.0.1:{port}", "m_gap", view="players:p1", every=0.5)
             got = []
-            async for msg in sub:
-                got.append(msg["seq"])
-                if msg["seq"] == 9:
-                    break
+            async with subscribe(f"http://127.0.0.1:{port}", "m_gap", view="players:p1", every=0.5) as sub:
+                async for msg in sub:
+                    got.append(msg["seq"])
+                    if msg["seq"] == 9:
+                        break
+                ws = sub.ws
+            assert ws is not None and ws.state.name == "CLOSED", "leaving the block closes the socket"
             assert got == [5, 6, 7, 8, 9]
             assert sub.gaps == 1 and sub.resumes == 1 and sub.connects == 2
             assert sub.state["players"]["p1"] == {"distance_m": 5.0, "windows": {"last_1min": {"distance_m": 5.0}}}
