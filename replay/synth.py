@@ -43,9 +43,10 @@ from __future__ import annotations
 
 import argparse
 import gzip
-import io
 import pathlib
+import queue
 import sys
+import threading
 import time
 from dataclasses import dataclass, field
 
@@ -225,8 +226,8 @@ VENUE = {"id": "v_lanternmoor", "name": "Lanternmoor Park", "turf": "grass"}
 
 
 def player_id(club: Club, jersey: int) -> str:
-    """Stable player id such as ``p_quillhaven_07``."""
-    return f"p_{club.team_id[2:]}_{jersey:02d}"
+    """Stable player id: club short code and jersey, such as ``qht_07``."""
+    return f"{club.short.lower()}_{jersey:02d}"
 
 
 # --------------------------------------------------------------------------
@@ -581,8 +582,9 @@ def plan_substitutions(tl: Timeline) -> list[Substitution]:
 
 
 def plan_goals(rng: np.random.Generator, tl: Timeline, subs: list[Substitution]) -> list[tuple[int, int]]:
-    """Goal (team, frame) pairs; counts independent of the clip length."""
-    counts = [min(3, int(rng.poisson(1.5))), min(3, int(rng.poisson(1.1)))]
+    """Goal (team, frame) pairs; the expected count scales with the playing time."""
+    share = min(1.0, tl.n_slots / tl.fps / 60.0 / FULL_MATCH_MIN)
+    counts = [min(3, int(rng.poisson(1.5 * share))), min(3, int(rng.poisson(1.1 * share)))]
     busy = [(s.frame - s.walk_frames - 10 * tl.fps, s.frame + 10 * tl.fps) for s in subs]
     goals = []
     for team, k in enumerate(counts):
@@ -1006,9 +1008,10 @@ def _goal_events(rng: np.random.Generator, plan: list[tuple[int, int]], squad_in
 
 
 def _cards(rng: np.random.Generator, tl: Timeline) -> list[tuple[int, int, int]]:
-    """Two yellow cards at random times (team, frame, outfield slot)."""
+    """Yellow cards (two in a full match, scaled with the playing time): (team, frame, outfield slot)."""
+    share = min(1.0, tl.n_slots / tl.fps / 60.0 / FULL_MATCH_MIN)
     out = []
-    for _ in range(2):
+    for _ in range(int(round(2 * share))):
         team = int(rng.integers(0, 2))
         frame = int(rng.integers(int(0.1 * tl.n_slots), int(0.95 * tl.n_slots)))
         out.append((team, frame, int(rng.integers(1, 11))))
@@ -1369,23 +1372,61 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
     opts = orjson.OPT_INDENT_2
     (out / "meta.json").write_bytes(orjson.dumps(build_meta(m), option=opts) + b"\n")
     (out / "match.json").write_bytes(orjson.dumps(build_sheet(m), option=opts) + b"\n")
-    faults_doc = {"match_id": MATCH_ID, "seed": seed, "fps": fps, "minutes": minutes, "faults": fp.records}
+    faults_doc = {"match_id": MATCH_ID, "seed": int(seed), "fps": int(fps), "minutes": float(minutes),
+                  "faults": fp.records}
     (out / "faults.json").write_bytes(orjson.dumps(faults_doc, option=opts) + b"\n")
     for stale in ("tracking.jsonl", "tracking.jsonl.gz"):
         (out / stale).unlink(missing_ok=True)
     path = out / ("tracking.jsonl.gz" if compress else "tracking.jsonl")
-    with open(path, "wb") as raw:
-        sink = gzip.GzipFile(filename="", mode="wb", fileobj=raw, compresslevel=6, mtime=0) if compress else raw
-        buf: list[bytes] = []
-        for line in _frame_lines(m, fp):
-            buf.append(line)
-            if len(buf) >= 4096:
-                sink.write(b"".join(buf))
-                buf.clear()
-        sink.write(b"".join(buf))
-        if compress:
-            sink.close()
+    _write_lines(path, _frame_lines(m, fp), compress)
     return out
+
+
+def _write_lines(path: pathlib.Path, lines, compress: bool) -> None:
+    """Write lines in chunks; gzip (level 6, no name, mtime 0) runs in a thread.
+
+    zlib releases the GIL, so compressing one chunk overlaps with building the
+    next one. Chunking is fixed (4096 lines), so the bytes are reproducible.
+    """
+    with open(path, "wb") as raw:
+        if not compress:
+            buf: list[bytes] = []
+            for line in lines:
+                buf.append(line)
+                if len(buf) >= 4096:
+                    raw.write(b"".join(buf))
+                    buf.clear()
+            raw.write(b"".join(buf))
+            return
+        sink = gzip.GzipFile(filename="", mode="wb", fileobj=raw, compresslevel=6, mtime=0)
+        chunks: queue.Queue[bytes | None] = queue.Queue(maxsize=4)
+        errors: list[BaseException] = []
+
+        def drain() -> None:
+            try:
+                while (chunk := chunks.get()) is not None:
+                    sink.write(chunk)
+            except BaseException as exc:  # surfaced in the caller below
+                errors.append(exc)
+                while chunks.get() is not None:
+                    pass
+
+        worker = threading.Thread(target=drain, name="synth-gzip", daemon=True)
+        worker.start()
+        try:
+            buf = []
+            for line in lines:
+                buf.append(line)
+                if len(buf) >= 4096:
+                    chunks.put(b"".join(buf))
+                    buf.clear()
+            chunks.put(b"".join(buf))
+        finally:
+            chunks.put(None)
+            worker.join()
+        if errors:
+            raise errors[0]
+        sink.close()
 
 
 # --------------------------------------------------------------------------

@@ -186,6 +186,14 @@ def test_cli_flags_switch_faults_and_compression(tmp_path):
     assert (tmp_path / "y" / "tracking.jsonl.gz").exists()
 
 
+def test_committed_demo_clip_is_what_the_documented_command_writes(tmp_path):
+    # demo_feeds/README.md: `python -m replay.synth --out demo_feeds/clip --minutes 4 --seed 7`
+    clip = pathlib.Path(__file__).resolve().parents[1] / "demo_feeds" / "clip"
+    fresh = synth.write_match(tmp_path / "clip", minutes=4, seed=7)
+    assert _bytes(fresh) == _bytes(clip)
+    assert len((clip / "tracking.jsonl.gz").read_bytes()) < 3_000_000  # the brief: clip under 3 MB
+
+
 # --------------------------------------------------------------------------
 # timeline, rosters, substitutions
 # --------------------------------------------------------------------------
@@ -435,3 +443,18 @@ def test_full_match_intensity_drops_late_in_each_half(full_match):
         fast = np.where(speed >= 5.5, speed, 0.0)  # Bradley et al. 2009 high-speed band
         assert speed[-window:].sum() < 0.97 * speed[:window].sum()
         assert fast[-window:].sum() < 0.95 * fast[:window].sum()
+
+
+@pytest.mark.slow
+def test_full_match_sheet_is_valid_and_consistent_with_its_goals(full_match):
+    sheet = synth.build_sheet(full_match)
+    _validate(cdf.MatchSchemaValidator(), sample=sheet)
+    goals = sheet["events"]["goals"]
+    final = sheet["match"]["result"]["final"]
+    ids = [sheet["teams"][s]["id"] for s in ("home", "away")]
+    assert [sum(g["team_id"] == t for g in goals) for t in ids] == [final["home"], final["away"]]
+    ts = full_match.timeline.timestamps()
+    for g in goals:  # the ball is at the goal line when a goal is recorded
+        frame = ts.index(g["time"])
+        assert abs(full_match.ball_xy[frame].real) > 50.0
+    assert len(sheet["events"]["cards"]) == 2
