@@ -33,7 +33,10 @@ def _analyze(args: argparse.Namespace) -> int:
         return 2
     snap = result.snapshot()
     if args.json:
-        msg = {"type": "snapshot", "match_id": snap["match_id"], "seq": 0, **snap}
+        from service.wire.messages import envelope
+
+        body = {k: snap[k] for k in ("players", "teams", "health")}
+        msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"], **body)
         sys.stdout.buffer.write(orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
     else:
         print_table(snap)

@@ -438,8 +438,6 @@ def test_export_at_a_match_time_equals_an_offline_run_to_that_time(run):
     assert httpx.get(f"{srv.http}/healthz", timeout=10).status_code == 200 and time.monotonic() - t0 < 2
 
 
-@pytest.mark.xfail(strict=True, reason="service/cli.py builds the --json message by hand without `v`; "
-                                       "service.wire.messages.envelope() adds it")
 def test_analyze_json_prints_a_snapshot_message_of_the_schema(tmp_path, capsysbinary):
     from service.cli import main
 
