@@ -21,6 +21,7 @@ from service.live.broadcaster import Subscriber, View, ViewError
 from service.live.ingest import EventError, Hooks
 from service.live.integrations import make_router
 from service.live.matches import MATCH_ID, Matches, SetupConflict
+from service.live.reporting import add_routes as add_report_routes
 from service.wire.cdf import SetupError
 from service.wire.messages import envelope
 
@@ -246,9 +247,13 @@ def create_app(opts: ServerOptions) -> FastAPI:
     async def get_reports(request: Request, match_id: str = ID) -> Response:
         if not can_read(_token(request.headers, request.query_params)):
             return unauthorised()
-        if matches.get(match_id) is None:
+        runner = matches.get(match_id)
+        if runner is None:
             return unknown(match_id)
-        return JSONResponse({"match_id": match_id, "reports": []})
+        return JSONResponse({"match_id": match_id, "reports": runner.followup.listing()})
+
+    # report files, per-player load budgets (service/live/reporting.py)
+    add_report_routes(app, matches, can_read, can_write, _token, _error)
 
     @app.websocket("/live/{match_id}")
     async def ws_live(ws: WebSocket, match_id: str = ID) -> None:

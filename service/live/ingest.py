@@ -24,6 +24,7 @@ from service.engine.match import MatchState
 from service.engine.types import PERIODS, Roster
 from service.live.broadcaster import Broadcaster
 from service.live.recorder import Recorder, RecorderError, write_json_atomic
+from service.live.reporting import Followup
 from service.wire.cdf import DecodeResult, FrameDecoder, FrameError
 
 log = logging.getLogger("pacewire.ingest")
@@ -89,12 +90,14 @@ class MatchRunner:
         self.last_applied_wall = 0.0
         self.applied_frames = 0
         self.last_frame_arrival: dict[int, float] = {}  # frame id -> arrival, for the latency benchmark
+        self.followup = Followup(self)  # reports at period ends, alerts, history (service/live/reporting.py)
 
     # -- life cycle ------------------------------------------------------------------
     def start(self) -> None:
         self.recorder.start()
         self._tasks = [asyncio.create_task(self._apply_loop(), name=f"apply:{self.match_id}"),
-                       asyncio.create_task(self._health_loop(), name=f"health:{self.match_id}")]
+                       asyncio.create_task(self._health_loop(), name=f"health:{self.match_id}"),
+                       asyncio.create_task(self.followup.watch(), name=f"followup:{self.match_id}")]
 
     async def stop(self) -> None:
         for t in self._tasks:
@@ -242,6 +245,8 @@ class MatchRunner:
         if (event, period) not in self._period_told:
             self._period_told.add((event, period))
             self.broadcaster.publish("period", event=event, period=period, frame_id=frame_id)
+            if event == "end":
+                self.followup.period_ended(period)
 
     def _after_apply(self) -> None:
         period = self.state.period_name()
@@ -252,6 +257,7 @@ class MatchRunner:
             self._period_seen = period
         self.broadcaster.invalidate()
         self.broadcaster.tick()
+        self.followup.after_apply()
         self.last_applied_wall = time.time()
 
     # -- health ----------------------------------------------------------------------------------

@@ -104,6 +104,20 @@ class AlertsSection(_Model):
     rearm_margin: float = Field(ge=0, le=1)
     rules: list[Rule] = Field(max_length=50)
 
+    @model_validator(mode="before")
+    @classmethod
+    def _files(cls, data: Any) -> Any:
+        """A rules file replaces the inline rules; both files are checked when the config loads."""
+        if isinstance(data, dict):
+            try:
+                if data.get("rules_file"):
+                    data = {**data, "rules": [r.model_dump() for r in load_rules(data["rules_file"])]}
+                if data.get("budgets_file"):
+                    load_budgets(data["budgets_file"])
+            except RulesError as exc:
+                raise ValueError(str(exc)) from None
+        return data
+
     @model_validator(mode="after")
     def _ids(self) -> "AlertsSection":
         _unique(self.rules)

@@ -100,8 +100,10 @@ def draw_charts(snapshot: dict[str, Any], series: BlockSeries) -> dict[str, str]
     return out
 
 
-def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9) -> dict[str, Any]:
-    """Write ``root/{kind}/`` and return its index entry (also written as index.json, last)."""
+def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
+                 extra: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Write ``root/{kind}/`` and return its index entry (also written as index.json, last;
+    ``extra`` fields are added to it)."""
     if inp.kind not in KINDS:
         raise ValueError(f"report kind must be one of {KINDS}")
     snap = inp.snapshot
@@ -121,7 +123,8 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9) -> dic
     _write_atomic(folder / "report.csv", to_csv(snap).encode("utf-8"))
     _write_atomic(folder / "snapshot.json", orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
     entry = {"kind": inp.kind, "created_at": round(inp.created_at, 3), "match_time_s": snap["match_time_s"],
-             "period": snap["period"], "source": inp.source, "build_s": round(time.perf_counter() - t0, 3)}
+             "period": snap["period"], "source": inp.source, "build_s": round(time.perf_counter() - t0, 3),
+             **(extra or {})}
     _write_atomic(folder / "index.json", orjson.dumps(entry))
     return entry
 

@@ -64,9 +64,7 @@ def render(name: str, draw: Callable[[Any], None], size: tuple[float, float],
 def _cmap(colours: tuple[str, ...]):  # noqa: ANN202
     from matplotlib.colors import LinearSegmentedColormap
 
-    cmap = LinearSegmentedColormap.from_list("pacewire", colours)
-    cmap.set_bad(PAPER)
-    return cmap
+    return LinearSegmentedColormap.from_list("pacewire", colours).with_extremes(bad=PAPER)
 
 
 def _legend(ax: Any, ncols: int) -> None:
@@ -174,17 +172,14 @@ def peak_timeline(players: list[tuple[str, dict[str, Any]]], windows: list[int],
     def draw(fig: Any) -> None:
         ax = fig.subplots()
         for k, w in enumerate(windows):
-            colour = colours[k % len(colours)]
-            first = True
-            for i, (_, p) in enumerate(players):
-                win = (p.get("windows") or {}).get(f"peak_{w}min")
-                if not win or win.get("start_s") is None or win["start_s"] < 0:
-                    continue
-                t0 = win["start_s"] / 60.0
-                off = (k - (len(windows) - 1) / 2) * 0.18
-                ax.plot([t0, t0 + w], [i + off, i + off], color=colour, lw=2.6, solid_capstyle="butt",
-                        label=f"peak {w} min" if first else None)
-                first = False
+            wins = [(p.get("windows") or {}).get(f"peak_{w}min") for _, p in players]
+            rows = [(i, win["start_s"] / 60.0) for i, win in enumerate(wins)
+                    if win and win.get("start_s") is not None and win["start_s"] >= 0]
+            if not rows:
+                continue
+            y = np.array([r[0] for r in rows], float) + (k - (len(windows) - 1) / 2) * 0.18
+            t0 = np.array([r[1] for r in rows], float)
+            ax.hlines(y, t0, t0 + w, colors=colours[k % len(colours)], lw=2.6, label=f"peak {w} min")
         ax.set_yticks(np.arange(len(players)), names, fontsize=7)
         ax.set_ylim(len(players) - 0.5, -0.5)
         ax.set_xlabel("match clock, min")

@@ -1,0 +1,320 @@
+"""What follows the frames of a live match: reports at period ends, alerts, history at full time.
+
+A :class:`Followup` belongs to one MatchRunner, which calls it at three
+points: ``after_apply()`` after each applied block (alerts, once per
+completed second), ``period_ended(name)`` when it announces a period end (a
+``period_end`` event or the frames moving to the next period), and the
+``watch()`` task (a period whose frames stopped ``reports.period_timeout_s``
+ago, once its nominal length is played, counts as ended for its report).
+
+Whatever reads the engine state runs on the event loop and is cheap: one
+snapshot and the per-block sums (a stalled period is first copied with its
+tail finalised, as the stall view does). Drawing and writing the report and
+every SQLite call run in worker threads (``asyncio.to_thread``).
+"""
+from __future__ import annotations
+
+import asyncio
+import logging
+import time
+from dataclasses import replace
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, Callable
+
+import orjson
+from fastapi import FastAPI, Request
+from fastapi.responses import FileResponse, JSONResponse, Response
+
+from service.engine.blocks import block_series, clock_block, window_coverage
+from service.live.recorder import write_json_atomic
+from service.reports.alerts import Alerter, Budgets, DropOffBaseline, RulesError, load_budgets, parse_budgets, \
+    rules_from_settings
+from service.reports.builder import FILES, KINDS, ReportInput, build_report, list_reports, report_kind
+from service.reports.offline import report_input, state_until
+from service.store import history
+from service.store.record import match_record
+from service.wire.messages import CONTRACT_VERSION, dumps
+
+if TYPE_CHECKING:
+    from service.live.ingest import MatchRunner
+    from service.live.matches import Matches
+
+log = logging.getLogger("pacewire.reporting")
+MEDIA = {"report.html": "text/html; charset=utf-8", "report.csv": "text/csv; charset=utf-8",
+         "snapshot.json": "application/json"}
+
+
+class Followup:
+    def __init__(self, runner: "MatchRunner") -> None:
+        self.runner = runner
+        s = self.settings = runner.settings
+        self.root = runner.folder / "reports"
+        self.db = runner.folder.parent.parent / s.history.path
+        self._lock = asyncio.Lock()
+        # kind -> (period index, its last slot) the report was built on; reports on disk count (restarts)
+        self._built: dict[str, tuple[int, int]] = {e["kind"]: tuple(e["basis"]) for e in list_reports(self.root)
+                                                   if isinstance(e.get("basis"), list)}
+        self._pending: dict[str, tuple[int, int]] = {}
+        self._tasks: set[asyncio.Task] = set()
+        self._second: tuple[int, int] | None = None
+        ids = tuple(p.id for p in runner.roster.players)
+        rules: list[Any] = []
+        if s.alerts.enabled:
+            try:
+                rules = rules_from_settings(s)
+            except RulesError as exc:  # the config loaded, but a rule asks for a window that is not computed
+                log.error("%s: alerts off: %s", runner.match_id, exc)
+        self.alerter = Alerter(rules, ids, s.alerts.rearm_margin)
+        self.alerter.set_budgets(self._initial_budgets())
+
+    # -- budgets -----------------------------------------------------------------------------------
+    @property
+    def budgets_path(self) -> Path:
+        return self.runner.folder / "budgets.json"
+
+    def _initial_budgets(self) -> dict[str, Any]:
+        """The config's budgets file (players of this match), then this match's own budgets.json."""
+        out: dict[str, Any] = {}
+        ids = set(self.runner.roster.index)
+        if self.settings.alerts.budgets_file:
+            try:
+                b = load_budgets(self.settings.alerts.budgets_file)
+                out.update({pid: c for pid, c in b.players.items() if pid in ids})
+            except RulesError as exc:
+                log.error("%s: %s", self.runner.match_id, exc)
+        if self.budgets_path.exists():
+            try:
+                out = dict(parse_budgets(orjson.loads(self.budgets_path.read_bytes()), str(self.budgets_path),
+                                         ids).players)
+            except (RulesError, orjson.JSONDecodeError, OSError) as exc:
+                log.error("%s: ignoring %s: %s", self.runner.match_id, self.budgets_path, exc)
+        return out
+
+    def set_budgets(self, data: Any) -> dict[str, Any]:
+        """Replace this match's budgets (validated; raises RulesError) and keep them with the match."""
+        b = parse_budgets(data, "budgets", set(self.runner.roster.index))
+        body = self.budgets_body(b)
+        write_json_atomic(self.budgets_path, body)
+        self.alerter.set_budgets(dict(b.players))
+        self._second = None  # evaluate with the next frames even within the same second
+        return body
+
+    def budgets_body(self, b: Budgets | None = None) -> dict[str, Any]:
+        players = b.players if b is not None else self.alerter.budgets
+        return {"players": {pid: c.model_dump(exclude_none=True) for pid, c in players.items()}}
+
+    # -- hooks -------------------------------------------------------------------------------------
+    def after_apply(self) -> None:
+        """Reports for periods that ended; alerts, once per completed second of the current period."""
+        state = self.runner.state
+        cur = state.current
+        self._check_ended()
+        if cur is None or not self.alerter.rules:
+            return
+        key = (cur.index, cur.bins.complete)
+        if key == self._second:
+            return
+        self._second = key
+        try:
+            self._alerts()
+        except Exception:  # an alert rule must never take the match down
+            log.exception("%s: alert evaluation failed", self.runner.match_id)
+
+    def _alerts(self) -> None:
+        state = self.runner.state
+        snap = self.runner.broadcaster.snapshot()
+        windows = {r.window_min for r in self.alerter.rules if hasattr(r, "window_min")}
+        cov = {w: window_coverage(state, w) for w in windows}
+        period = state.period_name()
+        length = int(getattr(self.settings.periods, period)) if period else 0
+        block = clock_block(period, state.match_time_s(), self.settings.history.block_min, length)
+        for alert in self.alerter.evaluate(snap, cov, block):
+            body = alert.body()
+            publish_event(self.runner, "alert", body.pop("player_id"), body.pop("team_id"), **body)
+
+    def period_ended(self, period: str) -> None:
+        """The runner announced the end of ``period`` (an event, or the frames moved on)."""
+        self._check_ended()
+
+    def _check_ended(self) -> None:
+        """Start building each report whose period has ended since it was last built: the latest
+        ended period decides (a block may span the half-time break, so look at every period)."""
+        if not self.settings.reports.enabled:
+            return
+        latest = {report_kind(p.name): p for p in self.runner.state.periods if p.ended}
+        for kind, per in latest.items():
+            key = (per.index, per.last_slot)
+            if self._built.get(kind) != key and self._pending.get(kind) != key:
+                self._pending[kind] = key
+                self._spawn(self.build_for(per.name))
+
+    def _spawn(self, coro: Any) -> None:
+        task = asyncio.get_running_loop().create_task(coro)
+        self._tasks.add(task)
+        task.add_done_callback(self._tasks.discard)
+
+    async def watch(self) -> None:
+        """Baselines at start; then a period whose frames stopped long enough gets its report."""
+        await self._load_baselines()
+        timeout = self.settings.reports.period_timeout_s
+        while True:
+            await asyncio.sleep(min(1.0, timeout / 4))
+            try:
+                state = self.runner.state
+                cur, h = state.current, state.health
+                if (cur is None or cur.ended or h.last_arrival is None or not self.settings.reports.enabled
+                        or time.time() - h.last_arrival < timeout):
+                    continue
+                nominal_s = int(getattr(self.settings.periods, cur.name)) * 60
+                if cur.last_slot / state.fps < nominal_s:
+                    continue  # a stall inside the period, not its end
+                if self._built.get(report_kind(cur.name)) != (cur.index, cur.last_slot):
+                    await self.build_for(cur.name)
+            except Exception:
+                log.exception("%s: report watch failed", self.runner.match_id)
+
+    async def _load_baselines(self) -> None:
+        if not any(isinstance(r, DropOffBaseline) for r in self.alerter.rules) or not self.db.exists():
+            return
+        h = self.settings.history
+        try:
+            self.alerter.baselines = await asyncio.to_thread(
+                history.baselines, self.db, [p.id for p in self.runner.roster.players], h.baseline_matches,
+                h.min_minutes, self.runner.match_id)
+        except (history.HistoryError, OSError) as exc:
+            log.error("%s: no baselines: %s", self.runner.match_id, exc)
+
+    # -- reports ---------------------------------------------------------------------------------------
+    async def build_for(self, period: str) -> dict[str, Any] | None:
+        """Build (or rebuild, if frames came since) the report that the end of ``period`` calls for."""
+        try:
+            async with self._lock:
+                return await self._build(period)
+        except Exception:
+            log.exception("%s: report for %s failed", self.runner.match_id, period)
+            return None
+        finally:
+            self._pending.pop(report_kind(period), None)
+
+    async def _build(self, period: str) -> dict[str, Any] | None:
+        r = self.runner
+        state = r.state
+        per = next((p for p in state.periods if p.name == period), None)
+        if per is None:
+            return None
+        kind = report_kind(period)
+        key = (per.index, per.last_slot)
+        if self._built.get(kind) == key:
+            return None
+        base = state
+        if per is state.current and not per.ended:  # the timeout: report on a copy whose period is over
+            base = state.provisional()
+            base.end_period()  # as a whistle would: tail finalised, last partial second counted
+        now = time.time()
+        inp = report_input(base, per.index, "live", now, now=now, extra_reasons=r.extra_reasons(), score=list(r.score))
+        inp = replace(inp, snapshot=orjson.loads(orjson.dumps(inp.snapshot)))  # nothing shared with the live state
+        blocks = None
+        if kind == "full_time" and self.settings.history.enabled:
+            blocks = block_series(state_until(base, per.index), self.settings.history.block_min, "merge")
+        kickoff = state.periods[0].t0
+        entry = await asyncio.to_thread(build_report, inp, self.root, self.settings.reports.low_coverage,
+                                        {"basis": list(key)})
+        self._built[kind] = key
+        publish_event(r, "report", kind=kind, url=self.url(kind, "report.html"))
+        log.info("%s: %s report ready in %.2f s", r.match_id, kind, time.time() - now)
+        if blocks is not None:
+            await asyncio.to_thread(self._store, inp, blocks, kickoff)
+        return entry
+
+    def _store(self, inp: ReportInput, blocks: Any, kickoff: float) -> None:
+        try:
+            history.save(self.db, match_record(inp.snapshot, blocks, "live", kickoff_t=kickoff, origin="live service"))
+        except Exception as exc:  # the report stands without the history
+            log.error("%s: not stored in the history: %s", self.runner.match_id, exc)
+
+    def url(self, kind: str, name: str) -> str:
+        return f"/api/matches/{self.runner.match_id}/reports/{kind}/{name}"
+
+    def listing(self) -> list[dict[str, Any]]:
+        return [{**e, "url": self.url(e["kind"], "report.html"), "csv": self.url(e["kind"], "report.csv"),
+                 "json": self.url(e["kind"], "snapshot.json")} for e in list_reports(self.root)]
+
+
+def publish_event(runner: "MatchRunner", type_: str, player_id: str | None = None, team_id: str | None = None,
+                  **body: Any) -> None:
+    """An event message to every stream that shows it, with ``player_id``/``team_id`` in the body
+    when given. Made here the way ``Broadcaster._message`` makes it, because
+    ``Broadcaster.publish(kind, ...)`` can carry neither a body field named ``kind`` (report and
+    alert messages have one) nor the player id; to go once publish/envelope take ``kind``
+    positional-only and put the player id in the body."""
+    b = runner.broadcaster
+    about = {k: v for k, v in (("player_id", player_id), ("team_id", team_id)) if v is not None}
+    for g in list(b.groups.values()):
+        if not g.view.shows_player(player_id, team_id):
+            continue
+        if g.state is None:
+            b._refresh_state(g)
+        g.seq += 1
+        snap_time, period = g.meta
+        text = dumps({"type": type_, "match_id": b.match_id, "seq": g.seq, "match_time_s": snap_time,
+                      "period": period, "v": CONTRACT_VERSION, **about, **body}).decode()
+        now = time.monotonic()
+        g.buffer.append((g.seq, now, text))
+        while g.buffer and (g.buffer[0][1] < now - b.buffer_s or len(g.buffer) > b.buffer_max):
+            g.buffer.popleft()
+        b._fan_out(g, text)
+
+
+def add_routes(app: FastAPI, matches: "Matches", can_read: Callable[[Any], bool], can_write: Callable[[Any], bool],
+               token: Callable[[Any, Any], str | None], error: Callable[..., JSONResponse]) -> None:
+    """Report files and budgets: ``GET /api/matches/{id}/reports/{kind}/{file}``,
+    ``GET``/``PUT /api/matches/{id}/budgets``."""
+    from service.live.matches import MATCH_ID
+
+    def find(request: Request, match_id: str, write: bool) -> Any:
+        allowed = can_write if write else can_read
+        if not allowed(token(request.headers, request.query_params)):
+            return error(401, "unauthorised", "a valid token is needed (Authorization: Bearer ... or ?token=)")
+        runner = matches.get(match_id) if MATCH_ID.match(match_id) else None
+        if runner is None:
+            return error(404, "unknown_match", f"no match {match_id!r}: set it up with PUT /api/matches/{match_id}")
+        return runner
+
+    @app.get("/api/matches/{match_id}/reports/{kind}/{name}")
+    async def get_report_file(request: Request, match_id: str, kind: str, name: str) -> Response:
+        runner = find(request, match_id, write=False)
+        if isinstance(runner, Response):
+            return runner
+        if kind not in KINDS or name not in FILES:
+            return error(404, "unknown_report", f"reports are {', '.join(KINDS)}; files are {', '.join(FILES)}")
+        path = runner.followup.root / kind / name
+        if not path.is_file():
+            return error(404, "no_report", f"no {kind} report yet")
+        return FileResponse(path, media_type=MEDIA[name], headers={"Cache-Control": "no-cache"})
+
+    @app.get("/api/matches/{match_id}/budgets")
+    async def get_budgets(request: Request, match_id: str) -> Response:
+        runner = find(request, match_id, write=False)
+        if isinstance(runner, Response):
+            return runner
+        return JSONResponse({"match_id": match_id, **runner.followup.budgets_body()})
+
+    @app.put("/api/matches/{match_id}/budgets")
+    async def put_budgets(request: Request, match_id: str) -> Response:
+        runner = find(request, match_id, write=True)
+        if isinstance(runner, Response):
+            return runner
+        body = await request.body()
+        if len(body) > runner.settings.server.max_message_bytes:
+            return error(413, "too_large", f"body over {runner.settings.server.max_message_bytes} bytes")
+        try:
+            data = orjson.loads(body)
+        except orjson.JSONDecodeError as exc:
+            return error(400, "bad_json", f"body is not valid JSON: {exc}")
+        try:
+            out = runner.followup.set_budgets(data)
+        except RulesError as exc:
+            return error(422, "bad_budgets", str(exc))
+        except OSError as exc:
+            return error(503, "storage", f"cannot store the budgets: {exc.strerror or exc}")
+        return JSONResponse({"match_id": match_id, **out})
