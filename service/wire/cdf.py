@@ -297,6 +297,7 @@ class _Reject(Exception):
 
 
 _NUM = (float, int)
+_NUM_SET = frozenset(_NUM)
 
 
 def _timestamp(value: Any) -> float:
@@ -321,6 +322,8 @@ class FrameDecoder:
         self.x_lim = max(roster.pitch_length_m / 2 + outside_margin_m, 65.0)
         self.y_lim = max(roster.pitch_width_m / 2 + outside_margin_m, 42.5)
         self._team_index = {tid: i for i, tid in enumerate(roster.team_ids)}
+        # player id -> roster index, per side: a player under the wrong team is not found
+        self._side_index = tuple({p.id: i for i, p in enumerate(roster.players) if p.team == side} for side in (0, 1))
 
     def decode_lines(self, lines: Iterable[bytes | str], first_line: int = 1) -> DecodeResult:
         """JSON Lines (one frame per line); blank lines are skipped."""
@@ -455,10 +458,13 @@ class FrameDecoder:
 
     def _players(self, team: dict[str, Any], side: int, row: int,
                  s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> None:
+        plist = team["players"]
+        if self._players_fast(plist, side, row, s_f, s_p, s_x, s_y):
+            return
         index = self.roster.index
         players = self.roster.players
         x_lim, y_lim = self.x_lim, self.y_lim
-        for pl in team["players"]:
+        for pl in plist:
             if type(pl) is not dict:
                 raise _Reject("bad_type", "a player entry must be an object")
             pid = pl.get("id")
@@ -483,6 +489,30 @@ class FrameDecoder:
             s_p.append(i)
             s_x.append(x)
             s_y.append(y)
+
+    def _players_fast(self, plist: list[Any], side: int, row: int,
+                      s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> bool:
+        """The common case in bulk (no per-player branches); False sends the
+        team through the exact per-player checks, which name what is wrong."""
+        if not plist:
+            return True
+        try:
+            idx = [self._side_index[side][p["id"]] for p in plist]
+            xs = [p["x"] for p in plist]
+            ys = [p["y"] for p in plist]
+        except (KeyError, TypeError, IndexError):
+            return False
+        if not _NUM_SET.issuperset(map(type, xs)) or not _NUM_SET.issuperset(map(type, ys)):
+            return False  # nulls (unseen) or bad types: the exact path sorts them out
+        if not math.isfinite(sum(xs) + sum(ys)):
+            return False  # NaN or infinity (possible from Python callers, not from JSON)
+        if min(xs) < -self.x_lim or max(xs) > self.x_lim or min(ys) < -self.y_lim or max(ys) > self.y_lim:
+            return False
+        s_f.extend([row] * len(idx))
+        s_p.extend(idx)
+        s_x.extend(xs)
+        s_y.extend(ys)
+        return True
 
     def _ball(self, ball: Any) -> tuple[int, int]:
         if ball is None:
