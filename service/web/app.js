@@ -192,7 +192,9 @@
     const u = apiUrl("live/" + encodeURIComponent(S.matchId));
     u.protocol = location.protocol === "https:" ? "wss:" : "ws:";
     u.searchParams.set("every", String(EVERY_S));
-    if (S.lastSeq != null) u.searchParams.set("since", String(S.lastSeq));
+    // resume after the last message we hold; with nothing past a snapshot at 0, a fresh snapshot is as
+    // good, and "since=0" cannot tell this server's stream from a restarted server's new one
+    if (S.lastSeq) u.searchParams.set("since", String(S.lastSeq));
     setConn("connecting", S.attempts ? "Reconnecting (try " + (S.attempts + 1) + ")…" : "Connecting…");
     const sock = new WebSocket(u);
     ws = sock;
@@ -412,7 +414,7 @@
 
   // the server's "no frame for N s" was true when it was sent; say how long it has been now
   function reasonText(r) {
-    if (r.code !== "no_frames" || S.stalledSince == null) return r.message || r.code;
+    if (r.code !== "no_frames" || S.stalledSince == null) return r.message || r.code || "";
     return `No new frames for ${Math.floor((performance.now() - S.stalledSince) / 1000)} s`;
   }
 
@@ -428,6 +430,11 @@
       text = S.state
         ? `Lost contact with pacewire; reconnecting. The figures shown are ${Math.floor(age || 0)} s old.`
         : "Cannot reach pacewire yet; retrying.";
+    } else if (h && h.state === "stalled" && S.periodEnded && (h.reasons || []).every((r) => r.code === "no_frames")) {
+      // a break between periods: no frames are expected, the figures are final for the period
+      kind = "break";
+      title = (PERIODS[S.env.period] || "Period") + " ended";
+      text = `No frames until play resumes; the figures are final for the period. ${reasonText((h.reasons || [])[0] || { code: "no_frames" })}.`;
     } else if (h && h.state === "stalled") {
       kind = "stalled";
       title = "Feed stalled";
@@ -439,6 +446,7 @@
       const why = (h.reasons || []).map((r) => r.message).join("; ") || "the feed is not complete";
       text = `${why}. Figures may be incomplete or behind.`;
     }
+    if (b.dataset.state !== kind) b.dataset.changedAt = String(Date.now());
     b.dataset.state = kind;
     b.hidden = kind === "none";
     $("#banner-title").textContent = title;
@@ -540,10 +548,13 @@
     });
   }
 
+  // first press: high first (A to Z for text), second: the other way, third: back to team and shirt order
   function sortBy(key) {
     const col = BY_KEY[key];
-    if (S.sort.col === key) S.sort.dir = S.sort.dir === "desc" ? "asc" : "desc";
-    else S.sort = { col: key, dir: col.kind === "text" ? "asc" : "desc" };
+    const first = col.kind === "text" ? "asc" : "desc";
+    if (S.sort.col !== key) S.sort = { col: key, dir: first };
+    else if (S.sort.dir === first) S.sort.dir = first === "asc" ? "desc" : "asc";
+    else S.sort = { col: null, dir: "desc" };
     renderTable();
   }
 
@@ -668,25 +679,29 @@
   function renderAlerts() {
     const ol = $("#alerts");
     if (!S.alerts.length) { ol.innerHTML = '<li class="empty">No alerts so far.</li>'; return; }
+    const num = (v) => (typeof v === "number" ? (Number.isInteger(v) ? fmtInt(v) : fmt1(v)) : String(v));
     ol.innerHTML = S.alerts.map((a) => {
-      const pid = a.player_id || a.player;
+      const pid = a.player_id || "";
       const p = S.state && pid ? S.state.players[pid] : null;
-      const who = p ? `${p.jersey_number != null ? "#" + p.jersey_number + " " : ""}${p.name || pid}` : (pid || "");
-      const rule = a.rule || a.rule_id || a.code || "alert";
-      const val = a.value != null ? `${typeof a.value === "number" ? fmt1(a.value) : a.value}` : "";
-      const lim = a.limit != null ? ` (limit ${typeof a.limit === "number" ? fmt1(a.limit) : a.limit})` : "";
-      return `<li class="alert-item" data-rule="${esc(rule)}" data-player-id="${esc(pid || "")}">` +
-        `<span class="when">${fmtClock(a.match_time_s)}</span><span class="what">${esc(who)} · ${esc(rule)}</span>` +
-        `<span class="detail">${esc(a.message || "")}${a.message ? " " : ""}${esc(val)}${esc(lim)}</span></li>`;
+      const who = p ? `#${p.jersey_number} ${p.name || pid}` : pid;
+      const rule = String(a.rule || "alert");
+      const what = a.message || `${who}: ${rule.replace(/_/g, " ")}`;
+      const figs = [a.value != null ? `value ${num(a.value)}` : "", a.limit != null ? `limit ${num(a.limit)}` : ""].filter(Boolean).join(" · ");
+      return `<li class="alert-item" data-rule="${esc(rule)}" data-player-id="${esc(pid)}" data-value="${esc(a.value ?? "")}" data-limit="${esc(a.limit ?? "")}">` +
+        `<span class="when">${fmtClock(a.match_time_s)}</span><span class="what">${esc(what)}</span>` +
+        `<span class="detail">${esc(rule.replace(/_/g, " "))}${figs ? " · " + esc(figs) : ""}</span></li>`;
     }).join("");
   }
 
   function renderReports() {
     const ul = $("#reports");
-    const safe = S.reports.filter((r) => r && typeof r.url === "string" && !/^\s*(javascript|data):/i.test(r.url));
+    const ok = (u) => typeof u === "string" && !/^\s*(javascript|data|vbscript):/i.test(u);
+    const safe = S.reports.filter((r) => r && ok(r.url));
     if (!safe.length) { ul.innerHTML = '<li class="empty">Half-time and full-time reports show up here.</li>'; return; }
     const words = { half_time: "Half-time report", full_time: "Full-time report" };
-    ul.innerHTML = safe.map((r) => `<li data-kind="${esc(r.kind || "")}"><a href="${esc(apiUrl(r.url).href)}" target="_blank" rel="noopener">${esc(words[r.kind] || r.kind || "Report")}</a></li>`).join("");
+    const link = (u, text, cls) => `<a class="${cls}" href="${esc(apiUrl(u).href)}" target="_blank" rel="noopener">${text}</a>`;
+    ul.innerHTML = safe.map((r) => `<li data-kind="${esc(r.kind || "")}">${link(r.url, esc(words[r.kind] || r.kind || "Report"), "report-main")}` +
+      `${ok(r.csv) ? " " + link(r.csv, "CSV", "report-extra") : ""}${ok(r.json) ? " " + link(r.json, "JSON", "report-extra") : ""}</li>`).join("");
   }
 
   // -- theme ---------------------------------------------------------------------------------------------------------
