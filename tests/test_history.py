@@ -1,0 +1,166 @@
+"""Match history: import, list, baselines over synthetic matches, versioned migrations."""
+from __future__ import annotations
+
+import sqlite3
+import statistics
+
+import numpy as np
+import pytest
+
+from replay.synth import write_match
+from service.analyze import analyze_folder
+from service.cli import main as cli
+from service.config import load_settings
+from service.store import history
+from service.store.record import MatchRecord, match_record, robust_band
+
+MIN_MINUTES = 2.5  # of a 3-minute match: the starters who played it through
+CONFIG = f"[history]\nmin_minutes = {MIN_MINUTES}\n"
+
+
+@pytest.fixture(scope="module")
+def imported(tmp_path_factory):
+    """Three fictional matches (seeds 1-3) imported as replayed live data, and a fourth (seed 4)
+    imported as post-match data, which baselines must leave out."""
+    base = tmp_path_factory.mktemp("history")
+    cfg = base / "club.toml"
+    cfg.write_text(CONFIG)
+    data = base / "data"
+    snaps = {}
+    for seed in (1, 2, 3, 4):
+        folder = write_match(base / f"synth{seed}", minutes=3, fps=25, seed=seed, faults=False)
+        snaps[seed] = analyze_folder(folder).snapshot()
+        args = ["history", "import", str(folder), "--data", str(data), "--config", str(cfg), "--as", f"s{seed}",
+                "--quiet"]
+        if seed == 4:
+            args += ["--source", "offline"]
+        assert cli(args) == 0
+    return data, cfg, snaps
+
+
+def expected(snaps, pid, get):
+    vals = [get(snaps[s]["players"][pid]) for s in (1, 2, 3)]
+    return vals
+
+
+def test_import_and_list(imported, capsys):
+    data, cfg, _ = imported
+    assert cli(["history", "list", "--data", str(data), "--config", str(cfg)]) == 0
+    out = capsys.readouterr().out
+    rows = {line.split()[0]: line.split()[1] for line in out.splitlines()[1:] if line.startswith("s")}
+    # the synthetic meta says the data was collected live: replayed through the same engine
+    assert rows == {"s1": "replay", "s2": "replay", "s3": "replay", "s4": "offline"}
+    assert "4 matches" in out
+    stored = history.matches(data / "history.sqlite")
+    assert [m["match_key"] for m in stored] == ["s1", "s2", "s3", "s4"]
+    assert all(m["match_id"] == "pw_synth_match" for m in stored)
+
+
+def test_baselines_are_medians_over_the_live_and_replayed_matches(imported):
+    data, _, snaps = imported
+    settings = load_settings()
+    players = [pid for pid, p in snaps[1]["players"].items()
+               if all(snaps[s]["players"][pid]["minutes"] >= MIN_MINUTES for s in (1, 2, 3))]
+    assert len(players) >= 14  # starters who played the three matches through
+    bands = history.baselines(data / "history.sqlite", players, settings.history.baseline_matches, MIN_MINUTES)
+    for pid in players:
+        b = bands[pid]
+        # match totals: the median of the three matches' snapshot figures (offline s4 left out)
+        dist = expected(snaps, pid, lambda p: p["distance_m"])
+        assert b["match"]["distance_m"].n == 3
+        assert b["match"]["distance_m"].median == pytest.approx(statistics.median(dist), abs=1e-6)
+        # spread: 1.4826 x median absolute deviation (Rousseeuw & Croux 1993), computed here with numpy
+        mad = float(np.median(np.abs(np.array(dist) - np.median(dist))))
+        assert b["match"]["distance_m"].spread == pytest.approx(1.4826 * mad, abs=1e-3)
+        # 15-minute block 0-15: the whole (short) first half; per minute on the pitch
+        rate = expected(snaps, pid, lambda p: p["windows"]["block_0_15"]["distance_m"] / p["periods"]["first_half"]["minutes"])
+        assert b["block_0_15"]["m_per_min"].median == pytest.approx(statistics.median(rate), rel=5e-3)
+        hsr = expected(snaps, pid, lambda p: p["windows"]["block_45_60"]["hsr_m"])
+        assert b["block_45_60"]["hsr_m"].median == pytest.approx(statistics.median(hsr), abs=0.06)
+        peak = expected(snaps, pid, lambda p: p["windows"]["peak_1min"]["m_per_min"])
+        assert b["peak_1min"]["m_per_min"].median == pytest.approx(statistics.median(peak), abs=1e-6)
+    # a substitute who never played the minimum has no baseline
+    short = [pid for pid, p in snaps[1]["players"].items() if 0 < p["minutes"] < MIN_MINUTES
+             and all(snaps[s]["players"][pid]["minutes"] < MIN_MINUTES for s in (1, 2, 3))]
+    assert short and not any(pid in bands for pid in history.baselines(data / "history.sqlite", short, 5, MIN_MINUTES))
+
+
+def _record(key: str, value: float, kickoff: float, source: str = "live", minutes: float = 90.0) -> MatchRecord:
+    return MatchRecord(key=key, match_id=key, source=source, kickoff_t=kickoff, match_time_s=5400.0, frames=1,
+                       origin="test", teams=(("t1", "Harbour Town", "home", 1),),
+                       players=(("p7", "t1", "Test P7", 7, False, minutes, 1.0),),
+                       figures=(("p7", "match", "m_per_min", value), ("p7", "block_0_15", "hsr_m", value / 10)))
+
+
+def test_last_n_matches_minimum_minutes_and_sources(tmp_path):
+    db = tmp_path / "h.sqlite"
+    for k in range(7):  # values 1..7 in kick-off order, saved out of order
+        j = (3 * k) % 7
+        history.save(db, _record(f"m{j}", float(j + 1), 1.7e9 + j * 86400))
+    history.save(db, _record("short", 100.0, 1.8e9, minutes=30.0))  # latest, but too few minutes
+    history.save(db, _record("post", 100.0, 1.8e9, source="offline"))  # latest, but post-match figures
+    history.save(db, _record("replayed", 8.0, 1.75e9, source="replay"))  # latest of all that count
+    b = history.baselines(db, ["p7"], 5, 60.0)["p7"]
+    band = b["match"]["m_per_min"]  # over 4, 5, 6, 7, 8: median 6, MAD 1 (arithmetic)
+    assert (band.median, band.n) == (6.0, 5) and band.spread == pytest.approx(1.4826, abs=1e-3)
+    assert history.baselines(db, ["p7"], 3, 60.0)["p7"]["match"]["m_per_min"].median == 7.0  # 6, 7, 8
+    assert history.baselines(db, ["p7"], 3, 60.0, exclude_key="replayed")["p7"]["match"]["m_per_min"].median == 6.0
+    assert history.baselines(db, ["p7"], 5, 20.0)["p7"]["match"]["m_per_min"].median == 7.0  # 'short' counts now
+    assert history.baselines(db, ["nobody"], 5, 0.0) == {}
+    # saving a key again replaces it
+    history.save(db, _record("m0", 50.0, 1.7e9))
+    assert len([m for m in history.matches(db) if m["match_key"] == "m0"]) == 1
+    assert history.figures(db, "m0", "p7")["match"]["m_per_min"] == 50.0
+
+
+def test_robust_band():
+    # 180, 192, 204: median 192, MAD 12 (arithmetic), spread 1.4826 x 12 (Rousseeuw & Croux 1993)
+    med, spread = robust_band([204.0, 180.0, 192.0])
+    assert med == 192.0 and spread == pytest.approx(17.7912)
+    assert robust_band([5.0]) == (5.0, 0.0)
+
+
+def test_records_name_their_source():
+    snap = {"match_id": "m", "match_time_s": 0.0, "players": {}, "teams": {}, "health": {}}
+    from service.engine.blocks import BlockSeries
+
+    empty = BlockSeries(15, (), (), np.zeros(0), np.zeros(0), np.zeros((0, 0, 11), np.int64), np.zeros((0, 0)), ())
+    assert match_record(snap, empty, "live").source == "live"
+    with pytest.raises(ValueError, match="live, replay, offline"):
+        match_record(snap, empty, "post_match")
+
+
+def test_migrations_are_versioned_and_atomic(tmp_path):
+    db = tmp_path / "h.sqlite"
+    history.connect(db).close()
+    con = sqlite3.connect(db)
+    assert con.execute("PRAGMA user_version").fetchone()[0] == history.VERSION
+    tables = {r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    assert {"matches", "teams", "players", "figures"} <= tables
+    con.close()
+    assert history.migrate(history.connect(db)) == history.VERSION  # opening again changes nothing
+    # a database from a newer pacewire is refused, not written
+    newer = tmp_path / "newer.sqlite"
+    con = sqlite3.connect(newer)
+    con.execute(f"PRAGMA user_version = {history.VERSION + 1}")
+    con.close()
+    with pytest.raises(history.HistoryError, match="newer than this pacewire"):
+        history.connect(newer)
+    # a migration that fails leaves the database at its old version with none of its tables
+    clash = tmp_path / "clash.sqlite"
+    con = sqlite3.connect(clash)
+    con.execute("CREATE TABLE figures (x INTEGER)")
+    con.close()
+    with pytest.raises(sqlite3.OperationalError):
+        history.connect(clash)
+    con = sqlite3.connect(clash)
+    assert con.execute("PRAGMA user_version").fetchone()[0] == 0
+    assert con.execute("SELECT COUNT(*) FROM sqlite_master WHERE name = 'matches'").fetchone()[0] == 0
+    con.close()
+
+
+def test_import_refuses_what_is_not_a_recording(tmp_path, capsys):
+    assert cli(["history", "import", str(tmp_path / "nothing"), "--data", str(tmp_path), "--quiet"]) == 2
+    assert "not a folder" in capsys.readouterr().err
+    assert cli(["history", "list", "--data", str(tmp_path)]) == 0
+    assert "no history yet" in capsys.readouterr().out
