@@ -410,6 +410,8 @@ def test_recovers_after_the_socket_is_cut_from_the_page(bench):
     page = bench.page
     bench.settle()
     frames0 = int(bench.rest()["health"]["frames"])
+    seq = page.evaluate("window.pacewire.seq")
+    assert seq > 0
     page.evaluate("window.pacewire.socket.close()")
     page.wait_for_selector("#conn[data-conn='closed'], #conn[data-conn='connecting']", timeout=3000)
     page.wait_for_selector("#conn[data-conn='open']", timeout=8000)
@@ -418,6 +420,10 @@ def test_recovers_after_the_socket_is_cut_from_the_page(bench):
              "fresh frames counted on the page after the reconnect")
     rest = bench.settle()
     assert num(page.get_attribute("[data-health='frames']", "data-value")) == rest["health"]["frames"]
+    # it resumed where it was (since=SEQ): the missed messages, no fresh snapshot
+    after = bench.frames_log[max(i for i, e in enumerate(bench.frames_log) if e.startswith("open ")):]
+    assert after[0].endswith(f"since={seq}"), after[0]
+    assert not any(e.startswith("snapshot") for e in after), bench.recent()
 
 
 def test_recovers_after_a_server_restart(bench):
@@ -441,6 +447,9 @@ def test_recovers_after_a_server_restart(bench):
     rest = bench.settle()
     assert num(page.get_attribute("[data-health='frames']", "data-value")) == rest["health"]["frames"]
     assert bench.banner() == "stalled"
+    # the new process has a new stream: the page asked to resume and was given a fresh snapshot
+    after = bench.frames_log[max(i for i, e in enumerate(bench.frames_log) if e.startswith("open ")):]
+    assert after[1] == "snapshot 0 resync", bench.recent()
 
 
 def shoot(page: Any, name: str) -> None:

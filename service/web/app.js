@@ -87,6 +87,7 @@
     if (s < 172800) return Math.round(s / 3600) + " h";
     return Math.round(s / 86400) + " days";
   }
+  function cap(s) { return s ? s[0].toUpperCase() + s.slice(1) : s; }
   function esc(s) {
     return String(s).replace(/[&<>"']/g, (c) => ({ "&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;", "'": "&#39;" })[c]);
   }
@@ -120,7 +121,11 @@
   }
   async function getJSON(path) {
     const r = await fetch(apiUrl(path), { cache: "no-store" });
-    if (!r.ok) throw new Error(path + ": HTTP " + r.status);
+    if (!r.ok) {
+      const err = new Error(path + ": HTTP " + r.status);
+      err.status = r.status;
+      throw err;
+    }
     return r.json();
   }
 
@@ -129,7 +134,11 @@
       const body = await getJSON("api/matches");
       S.matches = body.matches || [];
     } catch (e) {
-      return; // the socket status already tells the user; keep the last list
+      if (e.status === 401) {
+        $("#match-picker").innerHTML = '<option value="">Needs a view token: open this page with ?token=…</option>';
+        setConn("closed", TOKEN ? "Token refused" : "No token");
+      }
+      return; // otherwise keep the last list: the connection status already tells the user
     }
     renderPicker();
     if (!S.matchId && S.matches.length) {
@@ -325,7 +334,7 @@
       const ids = sidesOf(m.teams);
       const t = ids.map((id) => m.teams[id]);
       const score = t.length === 2 ? `${t[0].name} ${t[0].score ?? 0}–${t[1].score ?? 0} ${t[1].name}` : m.match_id;
-      const when = m.period ? `${fmtClock(m.match_time_s)} ${PERIODS[m.period] || m.period}` : "not started";
+      const when = m.period ? PERIODS[m.period] || m.period : "not started";
       return `<option value="${esc(m.match_id)}">${esc(score)} · ${esc(when)}</option>`;
     }).join("");
     if (keep) sel.value = keep;
@@ -414,7 +423,8 @@
 
   // the server's "no frame for N s" was true when it was sent; say how long it has been now
   function reasonText(r) {
-    if (r.code !== "no_frames" || S.stalledSince == null) return r.message || r.code || "";
+    const never = S.state && S.state.health && !S.state.health.frames;
+    if (r.code !== "no_frames" || S.stalledSince == null || never) return r.message || r.code || "";
     return `No new frames for ${Math.floor((performance.now() - S.stalledSince) / 1000)} s`;
   }
 
@@ -438,12 +448,13 @@
     } else if (h && h.state === "stalled") {
       kind = "stalled";
       title = "Feed stalled";
-      const why = (h.reasons || []).map(reasonText).join("; ") || "No new frames";
-      text = `${why}. The figures are frozen at ${fmtClock(S.env.match_time_s)}: do not read them as live.`;
+      const why = cap((h.reasons || []).map(reasonText).join("; ") || "No new frames");
+      text = h.frames ? `${why}. The figures are frozen at ${fmtClock(S.env.match_time_s)}: do not read them as live.`
+        : `${why}. Nothing to show until the feed starts.`;
     } else if (h && h.state === "degraded") {
       kind = "degraded";
       title = "Feed degraded";
-      const why = (h.reasons || []).map((r) => r.message).join("; ") || "the feed is not complete";
+      const why = cap((h.reasons || []).map((r) => r.message).join("; ") || "the feed is not complete");
       text = `${why}. Figures may be incomplete or behind.`;
     }
     if (b.dataset.state !== kind) b.dataset.changedAt = String(Date.now());
