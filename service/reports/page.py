@@ -172,9 +172,9 @@ def intensity_table(players: list[tuple[str, dict[str, Any]]], blocks: list[str]
 
 def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession: dict[str, dict[str, float]],
          source: str, created_at: float, low_coverage: float,
-         blocks: list[str] | None = None, per_min: dict[str, list[float | None]] | None = None) -> str:
-    """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``
-    and ``per_min``: block labels and each player's distance per minute in them."""
+         blocks: list[tuple[str, str]] | None = None, per_min: dict[str, list[float | None]] | None = None) -> str:
+    """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``:
+    (label, period) of each block; ``per_min``: each player's distance per minute in them."""
     teams = list(snapshot["teams"].items())
     title = TITLES.get(kind, kind)
     names = [t["name"] or tid for tid, t in teams]
@@ -215,7 +215,10 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
         if blocks and per_min is not None:
             played = [(pid, players[pid]) for pid in order if players[pid]["team_id"] == tid and players[pid]["minutes"]]
             parts.append(f'<h3>{esc(t["name"] or tid)}: distance per minute on the pitch, by block</h3>')
-            parts.append(intensity_table(played, blocks, per_min))
+            for period in dict.fromkeys(p for _, p in blocks):  # one table per period: fits an A4 page
+                cols = [i for i, (_, p) in enumerate(blocks) if p == period]
+                parts.append(intensity_table(played, [blocks[i][0] for i in cols],
+                                             {pid: [v[i] for i in cols] for pid, v in per_min.items()}))
     parts.append("</section>")
     parts.append('<section id="players"><h2>Players</h2>')
     played_by_team: dict[str, list[tuple[str, dict[str, Any]]]] = {}
