@@ -52,17 +52,21 @@ if redis.call('GET', KEYS[1]) == ARGV[1] then return redis.call('DEL', KEYS[1]) 
 return 0
 """
 
-# KEYS: lease, then (buffer, snapshot) per stream. ARGV: owner, wall time, then per stream:
+# KEYS: lease, then (buffer, snapshot) per stream. ARGV: owner, lease ms, wall time, then per stream:
 # channel, snapshot text, buffer length, n, then n × (seq, text).
 _PUBLISH = """
-if redis.call('GET', KEYS[1]) ~= ARGV[1] then return 0 end
-local a = 3
+local owner = redis.call('GET', KEYS[1])
+if not owner then
+  -- expired while this process was busy, and nobody took it: still the only writer
+  if not redis.call('SET', KEYS[1], ARGV[1], 'NX', 'PX', ARGV[2]) then return 0 end
+elseif owner ~= ARGV[1] then return 0 end
+local a = 4
 for g = 1, (#KEYS - 1) / 2 do
   local buf, snap = KEYS[2 * g], KEYS[2 * g + 1]
   local channel, snaptext, maxlen, n = ARGV[a], ARGV[a + 1], ARGV[a + 2], tonumber(ARGV[a + 3])
   a = a + 4
   for i = 1, n do
-    redis.pcall('XADD', buf, 'MAXLEN', '~', maxlen, ARGV[a] .. '-0', 't', ARGV[a + 1], 'w', ARGV[2])
+    redis.pcall('XADD', buf, 'MAXLEN', '~', maxlen, ARGV[a] .. '-0', 't', ARGV[a + 1], 'w', ARGV[3])
     redis.call('PUBLISH', channel, ARGV[a + 1])
     a = a + 2
   end
@@ -122,6 +126,7 @@ class AggMatch:
         self.sinks: dict[str, Sink] = {}
         self.tasks: list[asyncio.Task] = []
         self.lost = asyncio.Event()
+        self.stopped = False
         self.last_checkpoint = time.monotonic()
         self.last_arrival: float | None = None  # arrival (ingest wall time) of the latest applied frame
 
@@ -228,7 +233,7 @@ class AggMatch:
 
     async def _read_loop(self) -> None:
         r = self.runner
-        while True:
+        while not self.stopped:
             try:
                 resp = await self.redis.xreadgroup(GROUP, self.agg.owner, {self.key: ">"},
                                                    count=self.agg.scale.read_count, block=500)
@@ -239,6 +244,8 @@ class AggMatch:
             if not resp:
                 continue
             entries = resp[0][1]
+            if self.stopped:
+                return
             t0 = time.perf_counter()
             n = self._apply(entries, now=time.time())
             if n:
@@ -267,7 +274,7 @@ class AggMatch:
     async def _status_loop(self) -> None:
         """Once a second: ingest counters in, summary and full snapshot out (REST reads)."""
         r = self.runner
-        while True:
+        while not self.stopped:
             await asyncio.sleep(1.0)
             try:
                 await self._read_counts()
@@ -330,7 +337,7 @@ class AggMatch:
 
     async def _publish_loop(self) -> None:
         b = self.runner.broadcaster
-        while True:
+        while not self.stopped:
             first = await self.out.get()
             items = [first]
             while not self.out.empty():
@@ -342,14 +349,17 @@ class AggMatch:
                     entry[1].append(text)
             # no await since the texts were queued: each group's seq and state are those of its last message
             k = [keys.lease(self.match_id)]
-            a: list[Any] = [self.agg.owner, "%.6f" % time.time()]
+            a: list[Any] = [self.agg.owner, self.agg.scale.lease_ms, "%.6f" % time.time()]
             for sink, texts in streams.values():
                 assert sink.group is not None
                 k += [sink.buffer_key, sink.snapshot_key]
                 a += [sink.channel, b._snapshot_text(sink.group), sink.maxlen, len(texts)]
                 for t in texts:
                     a += [seq_of(t), t]
+            ok = False
             for attempt in range(1_000_000):
+                if self.stopped:
+                    return
                 try:
                     ok = await self.agg.publish(keys=k, args=a)
                     break
@@ -371,13 +381,15 @@ class AggMatch:
                       asyncio.create_task(self._status_loop(), name=f"agg-status:{self.match_id}")]
 
     async def stop(self) -> None:
+        self.stopped = True  # redis-py may swallow a cancel during a blocking read: the loop checks this
         for t in self.tasks:
             t.cancel()
-        for t in self.tasks:
-            try:
-                await t
-            except (asyncio.CancelledError, Exception):
-                pass
+        _, pending = await asyncio.wait(self.tasks, timeout=5.0)
+        for t in pending:
+            import io
+            buf = io.StringIO()
+            t.print_stack(file=buf)
+            log.warning("%s: task %s still running: %s", self.match_id, t.get_name(), buf.getvalue())
 
 
 def _restore_group(g: Group, msg: dict[str, Any]) -> None:
@@ -471,7 +483,9 @@ class Aggregator:
     async def _drop(self, mid: str) -> None:
         m = self.matches.pop(mid, None)
         if m is not None:
+            t0 = time.perf_counter()
             await m.stop()
+            log.warning("%s: stopped in %.2f s", mid, time.perf_counter() - t0)
 
     async def _want_listener(self) -> None:
         """Gateways announce a stream here, so a first subscriber needs no polling round."""

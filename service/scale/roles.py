@@ -79,5 +79,8 @@ def run_role(args: argparse.Namespace) -> int:
     config = uvicorn.Config(app, host=args.host, port=args.port, ws_max_size=settings.server.max_message_bytes,
                             log_level=args.log_level, lifespan="on", ws_ping_interval=20, ws_ping_timeout=20)
     print(f"pacewire {args.role} on http://{args.host}:{args.port}/ (Redis {args.redis})", flush=True)
-    uvicorn.Server(config).run()
+    try:
+        uvicorn.Server(config).run()
+    except KeyboardInterrupt:  # the signal uvicorn re-raises after its graceful shutdown
+        pass
     return 0
