@@ -24,7 +24,9 @@ high-speed and sprint bursts. Velocity follows the command through a
 second-order model: a first-order velocity response (time constant
 ``TAU_S``), a speed-dependent forward acceleration limit (linear
 force-velocity profile; Samozino et al. 2016), a deceleration limit, a total
-acceleration limit and a hard speed cap. The nearest outfield player of each
+acceleration limit and a hard speed cap; planned braking and a stopping rule
+keep everyone inside the lines, and velocity commands ramp up and down at
+kick-off, the whistle and substitutions. The nearest outfield player of each
 team goes to the ball (receiver/carrier and presser). Intensity falls late in
 each half (Mohr et al. 2003). Role targets: total distance (Bradley et al.
 2009; Osgnach et al. 2010), sprint counts (Di Salvo et al. 2009).
@@ -81,6 +83,7 @@ TAU_S = 0.35  # velocity response time constant
 A0_MS2 = 5.5  # forward acceleration from standstill (force-velocity intercept)
 V0_MS = 10.0  # force-velocity speed intercept
 DECEL_MAX_MS2 = 5.0
+TURN_RESERVE_MS2 = 3.0  # share of the acceleration budget kept for turning
 ACCEL_MAX_MS2 = 5.5  # total |a| of the model (checks allow 6)
 SPEED_CAP_MS = 9.7  # hard cap (checks allow 10.5)
 CATCH_UP_MAX_MS = 5.5  # below the 7.0 m/s sprint threshold on purpose
@@ -92,6 +95,8 @@ HEADING_NOISE = 0.4  # rad per sqrt(s): random-walk wander of the heading
 BRAKE_MS2 = 2.5  # planned braking towards the touchlines / goal lines
 X_SOFT_M = 51.4  # where braking aims to stop (inside the pitch)
 Y_SOFT_M = 33.0
+X_STOP_M = 52.1  # players always stop before these (hard braking)
+Y_STOP_M = 33.6
 X_HARD_M = 52.45  # final safety clip
 Y_HARD_M = 33.95
 
@@ -128,7 +133,7 @@ ROLES: dict[str, RoleProfile] = {
     "GK": RoleProfile((0.42, 0.48, 0.09, 0.01), 0.90, 1.5, 4.0),
     "CB": RoleProfile((0.14, 0.50, 0.28, 0.08), 0.93, 31.0, 15.0),
     "FB": RoleProfile((0.10, 0.48, 0.31, 0.11), 0.92, 34.0, 25.0),
-    "CM": RoleProfile((0.07, 0.45, 0.35, 0.13), 0.845, 32.0, 28.0),
+    "CM": RoleProfile((0.07, 0.45, 0.35, 0.13), 0.835, 32.0, 28.0),
     "WM": RoleProfile((0.09, 0.46, 0.33, 0.12), 0.84, 38.0, 28.0),
     "W": RoleProfile((0.10, 0.47, 0.31, 0.12), 0.81, 40.0, 25.0),
     "CF": RoleProfile((0.13, 0.50, 0.28, 0.09), 0.78, 34.0, 22.0),
@@ -705,6 +710,7 @@ class HalfPlan:
     catch: np.ndarray  # (n, 22) bool, catch-up allowed
     chase: np.ndarray  # (n, 22) bool, may go to the ball
     heading_noise: np.ndarray  # (n, 22) rad per frame
+    vscale: np.ndarray  # (n, 22) 0..1 multiplier of the commanded velocity (smooth starts and stops)
     ball: BallTrack
     dirs: tuple[float, float]
     init_pos: np.ndarray  # (22,) complex
@@ -805,7 +811,30 @@ def plan_half(rng: np.random.Generator, n: int, fps: int, ball: BallTrack, dirs:
         sl = slice(11 * team, 11 * team + 11)
         xn = init[sl].real * dirs[team]
         init[sl] = np.minimum(xn, -1.0) * dirs[team] + 1j * init[sl].imag
-    return HalfPlan(target, speed, kappa, catch, chase, heading_noise, ball, dirs, init)
+    vscale = _velocity_ramps(n, fps, walkoffs)
+    return HalfPlan(target, speed, kappa, catch, chase, heading_noise, vscale, ball, dirs, init)
+
+
+def _smoothstep(x: np.ndarray) -> np.ndarray:
+    """0 below 0, 1 above 1, 3x^2 - 2x^3 in between."""
+    x = np.clip(x, 0.0, 1.0)
+    return x * x * (3.0 - 2.0 * x)
+
+
+def _velocity_ramps(n: int, fps: int, walkoffs: list[tuple[int, int, int]], ramp_s: float = 1.5) -> np.ndarray:
+    """Velocity command multiplier (n, 22): players start and stop smoothly.
+
+    Ramps up over ``ramp_s`` after kick-off, down over the last ``ramp_s`` of
+    the half (the whistle), down before a player leaves at a substitution and
+    up again for the substitute, so no stint begins or ends with a jolt.
+    """
+    t = np.arange(n) / fps
+    half = _smoothstep(t / ramp_s) * _smoothstep((n / fps - t) / ramp_s)
+    out = np.repeat(half[:, None], 22, axis=1)
+    for slot, _a, b in walkoffs:
+        sub_t = b / fps
+        out[:, slot] *= np.where(t < sub_t, _smoothstep((sub_t - t) / ramp_s), _smoothstep((t - sub_t) / ramp_s))
+    return out
 
 
 # --------------------------------------------------------------------------
@@ -843,6 +872,33 @@ def _pad(a: np.ndarray, n: int) -> np.ndarray:
     return np.concatenate([a, np.repeat(a[-1:], n - len(a), axis=0)])
 
 
+def _stop_before_lines(p: np.ndarray, v: np.ndarray, a: np.ndarray) -> np.ndarray:
+    """Acceleration (complex, m/s^2) that stops each player before the lines.
+
+    Per axis, a player moving towards a line at speed u with room r left must
+    decelerate by at least u^2 / 2r; where the planned acceleration does not,
+    that axis is overridden and the other axis is cut back to keep |a| within
+    ACCEL_MAX_MS2 (the along-the-line motion gives way).
+    """
+    ax, ay = a.real.copy(), a.imag.copy()
+    for comp, p_ax, v_ax, lim in ((ax, p.real, v.real, X_STOP_M), (ay, p.imag, v.imag, Y_STOP_M)):
+        sgn = np.sign(v_ax)
+        room = np.maximum(lim - p_ax * sgn, 0.05)
+        need = v_ax * v_ax / (2.0 * room)
+        brake = (need > 0.5) & (comp * sgn > -need)
+        comp[brake] = -need[brake] * sgn[brake]
+        comp[:] = np.clip(comp, -ACCEL_MAX_MS2, ACCEL_MAX_MS2)
+    # keep |a| in budget: the axis that was not forced gives way
+    over = np.hypot(ax, ay) > ACCEL_MAX_MS2
+    if over.any():
+        fx = np.abs(ax) >= np.abs(ay)
+        big, small = np.where(fx, ax, ay), np.where(fx, ay, ax)
+        small = np.sign(small) * np.sqrt(np.maximum(ACCEL_MAX_MS2**2 - big * big, 0.0))
+        ax = np.where(over, np.where(fx, big, small), ax)
+        ay = np.where(over, np.where(fx, small, big), ay)
+    return ax + 1j * ay
+
+
 def integrate(plans: list[HalfPlan], fps: int) -> list[np.ndarray]:
     """Second-order steering of all players of all halves at once.
 
@@ -861,6 +917,7 @@ def integrate(plans: list[HalfPlan], fps: int) -> list[np.ndarray]:
     gcatch = cat(lambda p: p.catch * CATCH_UP_GAIN)
     chase_ok = cat(lambda p: p.chase)
     noise = cat(lambda p: p.heading_noise)
+    vscale = cat(lambda p: p.vscale)
     ball_t = cat(lambda p: np.repeat(p.ball.target[:, None], 22, axis=1))
     cmds = [chase_commands(p.ball, p.dirs) for p in plans]
     c_goal = np.concatenate([_pad(c[0], n) for c in cmds], axis=1)
@@ -921,18 +978,26 @@ def integrate(plans: list[HalfPlan], fps: int) -> list[np.ndarray]:
         np.subtract(Y_SOFT_M, yp, out=room[2])
         np.add(Y_SOFT_M, yp, out=room[3])
         np.sqrt(mx(room, 0.0, out=room) * two_b, out=room)
-        vd = mn(mx(vd.real, -room[1]), room[0]) + 1j * mn(mx(vd.imag, -room[3]), room[2])
+        vd = (mn(mx(vd.real, -room[1]), room[0]) + 1j * mn(mx(vd.imag, -room[3]), room[2])) * vscale[t]
         # bounded acceleration: force-velocity limit forward, a deceleration limit,
-        # and the total limit, giving speed changes (braking above all) priority
+        # and the total limit; speed changes get the budget first, except a reserve
+        # for turning
         a = (vd - vel) * inv_tau
         sp = np.abs(vel)
         uv = vel / (sp + 1e-9)
         at = (a * np.conj(uv)).real
         an = a - at * uv
-        at = mn(mx(at, -DECEL_MAX_MS2), A0_MS2 * mx(1.0 - sp * (1.0 / V0_MS), 0.0))
+        # turning (and braking along a touchline) always keeps up to TURN_RESERVE_MS2
+        at_room = np.sqrt(amax2 - mn(np.abs(an), TURN_RESERVE_MS2) ** 2)
+        at = mn(mx(at, -mn(DECEL_MAX_MS2, at_room)), mn(A0_MS2 * mx(1.0 - sp * (1.0 / V0_MS), 0.0), at_room))
         an_max = np.sqrt(mx(amax2 - at * at, 0.0))
         an = an * mn(1.0, an_max / (np.abs(an) + 1e-12))
-        vel = vel + (at * uv + an) * dt
+        a = at * uv + an
+        near = (np.abs(xp) > X_SOFT_M - 3.0) | (np.abs(yp) > Y_SOFT_M - 3.0)
+        if near.any():
+            idx = np.flatnonzero(near)
+            a[idx] = _stop_before_lines(pos[idx], vel[idx], a[idx])
+        vel = vel + a * dt
         vel = vel * mn(1.0, SPEED_CAP_MS / (np.abs(vel) + 1e-12))
         pos = pos + vel * dt
         out[t] = pos
