@@ -62,6 +62,27 @@ def cluster(tmp_path, redis):
     c.stop()
 
 
+@pytest.fixture(scope="module")
+def league(tmp_path_factory):
+    """One deployment shared by the tests below (each uses its own match): Redis, an ingest node,
+    two aggregators (one stands by), a recorder and two gateways."""
+    tmp = tmp_path_factory.mktemp("league")
+    redis = RedisServer(tmp / "redis").start()
+    c = Cluster(tmp, redis)
+    try:
+        from concurrent.futures import ThreadPoolExecutor
+
+        roles = [("ingest", None), ("aggregator", None), ("aggregator", None), ("recorder", "recorder"),
+                 ("gateway", None), ("gateway", None)]
+        with ThreadPoolExecutor(len(roles)) as pool:  # start together: each is a Python start-up
+            procs = list(pool.map(lambda rd: c.start(rd[0], data=rd[1] or f"{rd[0]}-{id(rd)}"), roles))
+        c.ingest, c.aggs, c.recorder, c.gateways = procs[0], procs[1:3], procs[3], procs[4:]
+        yield c
+    finally:
+        c.stop()
+        redis.stop()
+
+
 def put(srv: LiveServer, match_id: str = "m_live") -> httpx.Response:
     return httpx.put(f"{srv.http}/api/matches/{match_id}", json=setup_body(match_id), timeout=10)
 
@@ -110,23 +131,21 @@ def assert_equal_offline(state: dict, folder) -> None:
         offline["teams"][cb.HOME]["outfield"]["distance_m"], abs=0.2)
 
 
-def test_two_gateways_same_bytes_and_figures_equal_single_process(cluster, tmp_path):
-    ing = cluster.start("ingest")
-    cluster.start("aggregator")
-    rec = cluster.start("recorder", data="recorder")
-    gw1, gw2 = cluster.start("gateway"), cluster.start("gateway")
-    assert put(ing).status_code == 201
-    objs = frames(12)
+def test_two_gateways_same_bytes_and_figures_equal_single_process(league, tmp_path):
+    ing, rec, (gw1, gw2) = league.ingest, league.recorder, league.gateways
+    mid = "m_two"
+    assert put(ing, mid).status_code == 201
+    objs = frames(12, match_id=mid)
 
     async def run():
         a: list[str] = []
         b: list[str] = []
         feeder = asyncio.Event()
         done = lambda m: m["type"] == "health" and m["health"]["state"] == "stalled" and feeder.is_set()  # noqa: E731
-        ta = asyncio.create_task(collect(f"{gw1.ws}/live/m_live?every=0.2", a, done))
-        tb = asyncio.create_task(collect(f"{gw2.ws}/live/m_live?every=0.2", b, done))
+        ta = asyncio.create_task(collect(f"{gw1.ws}/live/{mid}?every=0.2", a, done))
+        tb = asyncio.create_task(collect(f"{gw2.ws}/live/{mid}?every=0.2", b, done))
         await asyncio.sleep(1.5)  # both subscribed before the first frame
-        await stream(f"{ing.ws}/ingest/m_live", objs, rate=100, batch=5)
+        await stream(f"{ing.ws}/ingest/{mid}", objs, rate=100, batch=5)
         feeder.set()
         await asyncio.gather(ta, tb)
         return a, b
@@ -143,7 +162,7 @@ def test_two_gateways_same_bytes_and_figures_equal_single_process(cluster, tmp_p
     assert state_a == state_b
     assert state_a["health"]["frames"] == len(objs)
     # the recorder's CDF folder holds every frame once; figures equal the offline pass over it
-    folder = rec.data / "matches" / "m_live"
+    folder = rec.data / "matches" / mid
     deadline = time.monotonic() + 10
     while time.monotonic() < deadline and len((folder / "tracking.jsonl").read_bytes().splitlines()) < len(objs):
         time.sleep(0.1)
@@ -152,35 +171,34 @@ def test_two_gateways_same_bytes_and_figures_equal_single_process(cluster, tmp_p
     # and equal the single process fed the same frames (its own recording)
     single = LiveServer(tmp_path / "single").start()
     try:
-        assert put(single).status_code == 201
-        r = httpx.post(f"{single.http}/api/matches/m_live/frames", content=b"\n".join(cb.lines(objs)), timeout=30)
+        assert put(single, mid).status_code == 201
+        r = httpx.post(f"{single.http}/api/matches/{mid}/frames", content=b"\n".join(cb.lines(objs)), timeout=30)
         assert r.json()["accepted"] == len(objs)
         time.sleep(3.0)  # stall: the tail is finalised as live
-        one = httpx.get(f"{single.http}/api/matches/m_live/snapshot", timeout=10).json()
+        one = httpx.get(f"{single.http}/api/matches/{mid}/snapshot", timeout=10).json()
     finally:
         single.stop()
-    rest = httpx.get(f"{gw1.http}/api/matches/m_live/snapshot", timeout=10).json()
+    rest = httpx.get(f"{gw1.http}/api/matches/{mid}/snapshot", timeout=10).json()
     for pid in IDS:
         for k in ("distance_m", "hsr_m", "sprint_m", "accels", "decels", "energy_jkg", "max_speed_ms"):
             assert rest["players"][pid][k] == one["players"][pid][k], (pid, k)
             assert state_a["players"][pid][k] == one["players"][pid][k], (pid, k)
-    listing = httpx.get(f"{gw2.http}/api/matches", timeout=10).json()["matches"]
-    assert [m["match_id"] for m in listing] == ["m_live"] and listing[0]["frames"] == len(objs)
+    listing = {m["match_id"]: m for m in httpx.get(f"{gw2.http}/api/matches", timeout=10).json()["matches"]}
+    assert listing[mid]["frames"] == len(objs)
 
 
-def test_aggregator_sigkill_loses_no_frame_and_no_seq(cluster):
-    ing = cluster.start("ingest")
-    aggs = [cluster.start("aggregator"), cluster.start("aggregator")]  # one works, one stands by
-    gw = cluster.start("gateway")
-    assert put(ing).status_code == 201
-    objs = frames(16)
+def test_aggregator_sigkill_loses_no_frame_and_no_seq(league):
+    ing, aggs, gw = league.ingest, league.aggs, league.gateways[1]  # one aggregator works, one stands by
+    mid = "m_kill"
+    assert put(ing, mid).status_code == 201
+    objs = frames(16, match_id=mid)
 
     def holder() -> LiveServer:
         deadline = time.monotonic() + 30
         while time.monotonic() < deadline:
             for a in aggs:
                 try:
-                    if "m_live" in httpx.get(f"{a.http}/healthz", timeout=5).json()["matches"]:
+                    if mid in httpx.get(f"{a.http}/healthz", timeout=5).json()["matches"]:
                         return a
                 except httpx.HTTPError:
                     pass  # the one just killed
@@ -190,8 +208,8 @@ def test_aggregator_sigkill_loses_no_frame_and_no_seq(cluster):
     async def run():
         texts: list[str] = []
         first = await asyncio.to_thread(holder)
-        feeder = asyncio.create_task(stream(f"{ing.ws}/ingest/m_live", objs, rate=50, batch=2))
-        sub = asyncio.create_task(collect(f"{gw.ws}/live/m_live?every=0.2", texts, stalled_after(feeder), 90))
+        feeder = asyncio.create_task(stream(f"{ing.ws}/ingest/{mid}", objs, rate=50, batch=2))
+        sub = asyncio.create_task(collect(f"{gw.ws}/live/{mid}?every=0.2", texts, stalled_after(feeder), 90))
         await asyncio.sleep(3.0)
         first.kill9()  # mid-match: frames keep arriving at ingest
         assert not feeder.done()
@@ -204,22 +222,21 @@ def test_aggregator_sigkill_loses_no_frame_and_no_seq(cluster):
     state, seqs = replay_state(texts)  # asserts no seq gap
     assert seqs == list(range(seqs[0], seqs[0] + len(seqs)))
     assert state["health"]["frames"] == len(objs), "no frame lost, none applied twice"
-    assert cli(cluster.redis.port, "XLEN", "pw:frames:m_live") == str(len(objs))
+    assert cli(league.redis.port, "XLEN", f"pw:frames:{mid}") == str(len(objs))
     # the successor's figures equal an offline pass over exactly the frames sent
-    folder = cb.write_folder(cluster.tmp / "sent", cb.meta("m_live"), cb.sheet(3, 2), objs)
+    folder = cb.write_folder(league.tmp / "sent", cb.meta(mid), cb.sheet(3, 2), objs)
     assert_equal_offline(state, folder)
 
 
-def test_gateway_restart_clients_resume_with_since(cluster):
-    ing = cluster.start("ingest")
-    cluster.start("aggregator")
-    gw = cluster.start("gateway")
-    assert put(ing).status_code == 201
-    objs = frames(14)
+def test_gateway_restart_clients_resume_with_since(league):
+    ing, gw = league.ingest, league.gateways[0]
+    mid = "m_gw"
+    assert put(ing, mid).status_code == 201
+    objs = frames(14, match_id=mid)
 
     async def run():
-        feeder = asyncio.create_task(stream(f"{ing.ws}/ingest/m_live", objs, rate=FPS))
-        async with websockets.connect(f"{gw.ws}/live/m_live?every=0.2") as live:
+        feeder = asyncio.create_task(stream(f"{ing.ws}/ingest/{mid}", objs, rate=FPS))
+        async with websockets.connect(f"{gw.ws}/live/{mid}?every=0.2") as live:
             first = orjson.loads(await asyncio.wait_for(live.recv(), 20))
             assert first["type"] == "snapshot"
             got = [orjson.loads(await asyncio.wait_for(live.recv(), 10)) for _ in range(5)]
@@ -227,12 +244,12 @@ def test_gateway_restart_clients_resume_with_since(cluster):
         await asyncio.to_thread(gw.stop)
         await asyncio.sleep(0.5)  # messages go on while this gateway is away
         await asyncio.to_thread(gw.start)  # same port
-        async with websockets.connect(f"{gw.ws}/live/m_live?every=0.2&since={last}") as live:
+        async with websockets.connect(f"{gw.ws}/live/{mid}?every=0.2&since={last}") as live:
             resumed = [orjson.loads(await asyncio.wait_for(live.recv(), 10)) for _ in range(4)]
         assert resumed[0]["type"] != "snapshot" and resumed[0]["seq"] == last + 1
         assert [m["seq"] for m in resumed] == [last + 1, last + 2, last + 3, last + 4]
         # a since the stream never reached is a resync snapshot, as in the single process
-        async with websockets.connect(f"{gw.ws}/live/m_live?every=0.2&since=99999") as live:
+        async with websockets.connect(f"{gw.ws}/live/{mid}?every=0.2&since=99999") as live:
             m = orjson.loads(await asyncio.wait_for(live.recv(), 10))
             assert m["type"] == "snapshot" and m["resync"] is True and set(m["players"]) == set(IDS)
         await feeder
