@@ -50,6 +50,7 @@
     env: { match_time_s: 0, period: null },
     periodEnded: false,
     stalledSince: null,     // performance.now() at which the frames stopped, when stalled
+    stallSeen: false,       // the page saw the feed go from live to stalled (else the start is a lower bound)
     lastSeq: null,
     lastMsgAt: null,        // performance.now() of the last message
     conn: "connecting",
@@ -175,6 +176,7 @@
     S.reports = [];
     S.periodEnded = false;
     S.stalledSince = null;
+    S.stallSeen = false;
     S.attempts = 0;
     safeStorage("pacewire.match", id);
     const u = new URL(location.href);
@@ -228,7 +230,8 @@
   function scheduleReconnect() {
     S.attempts += 1;
     const delay = Math.min(500 * 2 ** (S.attempts - 1), 3000);
-    setConn("closed", "Connection lost · retrying in " + Math.max(1, Math.round(delay / 1000)) + " s");
+    const why = S.notice ? "Refused: " + S.notice : "Connection lost";
+    setConn("closed", why + " · retrying in " + Math.max(1, Math.round(delay / 1000)) + " s");
     reconnectTimer = setTimeout(connect, delay);
   }
 
@@ -292,10 +295,16 @@
     }
     S.env = { match_time_s: msg.match_time_s, period: msg.period };
     const stalled = S.state && S.state.health && S.state.health.state === "stalled";
-    if (!stalled) S.stalledSince = null;
-    else if (S.stalledSince == null) S.stalledSince = performance.now() - stalledAfter(S.state.health) * 1000;
+    if (!stalled) {
+      S.stalledSince = null;
+      S.stallSeen = S.state !== null; // the next stall starts while we watch
+    } else if (S.stalledSince == null) {
+      S.stalledSince = performance.now() - stalledAfter(S.state.health) * 1000;
+      if (msg.type === "snapshot") S.stallSeen = false; // stalled before we came: its start is a guess
+    }
     S.lastMsgAt = performance.now();
     S.attempts = 0;
+    S.notice = "";
     if (S.conn !== "open") setConn("open", "Connected");
     scheduleRender();
   }
@@ -344,7 +353,7 @@
     $("#clock").textContent = S.state ? fmtClock(S.env.match_time_s) : "--:--";
     const per = $("#period");
     const label = S.env.period ? (PERIODS[S.env.period] || S.env.period) : "Not started";
-    per.textContent = S.periodEnded ? label + " · ended" : label;
+    per.textContent = S.env.period && periodOver() ? label + " · ended" : label;
     per.dataset.period = S.env.period || "";
     const teams = S.state ? S.state.teams : {};
     for (const tid of sidesOf(teams)) {
@@ -425,7 +434,16 @@
   function reasonText(r) {
     const never = S.state && S.state.health && !S.state.health.frames;
     if (r.code !== "no_frames" || S.stalledSince == null || never) return r.message || r.code || "";
-    return `No new frames for ${Math.floor((performance.now() - S.stalledSince) / 1000)} s`;
+    const n = Math.floor((performance.now() - S.stalledSince) / 1000);
+    return S.stallSeen ? `No new frames for ${n} s` : `No new frames for at least ${n} s`;
+  }
+
+  // a period end seen live, or (page opened in a break) frames but nobody on the pitch
+  function periodOver() {
+    if (S.periodEnded) return true;
+    const st = S.state;
+    if (!st || !st.health || !st.health.frames) return false;
+    return !Object.values(st.players).some((p) => p.on_pitch);
   }
 
   function renderBanner() {
@@ -440,7 +458,7 @@
       text = S.state
         ? `Lost contact with pacewire; reconnecting. The figures shown are ${Math.floor(age || 0)} s old.`
         : "Cannot reach pacewire yet; retrying.";
-    } else if (h && h.state === "stalled" && S.periodEnded && (h.reasons || []).every((r) => r.code === "no_frames")) {
+    } else if (h && h.state === "stalled" && periodOver() && (h.reasons || []).every((r) => r.code === "no_frames")) {
       // a break between periods: no frames are expected, the figures are final for the period
       kind = "break";
       title = (PERIODS[S.env.period] || "Period") + " ended";
