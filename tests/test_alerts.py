@@ -295,14 +295,32 @@ def test_default_rules_are_valid_and_computable():
 
 
 # -- live: budgets over HTTP, alerts on the wire ------------------------------------------------------
+def test_budget_files_load_and_bad_ones_are_refused(tmp_path):
+    f = tmp_path / "budgets.toml"
+    f.write_text('[players.h2]\nminutes = 60\nsprints = 12\n')
+    from service.reports.alerts import load_budgets
+
+    assert load_budgets(f).players["h2"].items() == [("minutes", 60.0), ("sprints", 12.0)]
+    bad = tmp_path / "bad.toml"
+    bad.write_text('[players.h2]\nminutes = "sixty"\n')
+    cfg = tmp_path / "club.toml"
+    cfg.write_text(f'[alerts]\nbudgets_file = "{bad}"\n')
+    with pytest.raises(ConfigError, match=r"budgets file .*bad.toml: players.h2.minutes"):
+        load_settings(cfg)
+
+
 def test_budgets_over_http_and_alerts_on_the_live_stream(tmp_path):
-    srv = LiveServer(tmp_path / "data").start()
+    # the club's budgets file gives a2 one minute; h2's budget comes over HTTP
+    (tmp_path / "budgets.toml").write_text("[players.a2]\nminutes = 1.0\n[players.nobody_here]\nminutes = 5.0\n")
+    srv = LiveServer(tmp_path / "data", config_text=f'[alerts]\nbudgets_file = "{tmp_path / "budgets.toml"}"\n').start()
     try:
         mid = "m_bud"
         r = httpx.put(f"{srv.http}/api/matches/{mid}", json={"meta": cb.meta(mid), "sheet": cb.sheet(N_HOME, N_AWAY)},
                       timeout=10)
         assert r.status_code == 201
         url = f"{srv.http}/api/matches/{mid}/budgets"
+        # from the file: the players of this match only
+        assert httpx.get(url, timeout=10).json()["players"] == {"a2": {"minutes": 1.0}}
         bad = httpx.put(url, json={"players": {"h9": {"minutes": 1}}}, timeout=10)
         assert bad.status_code == 422 and bad.json()["error"]["code"] == "bad_budgets"
         assert "h9" in bad.json()["error"]["message"]
@@ -310,7 +328,7 @@ def test_budgets_over_http_and_alerts_on_the_live_stream(tmp_path):
         # a player returning from injury: one minute of play (80% at 48 s, 100% at 60 s)
         ok = httpx.put(url, json={"players": {"h2": {"minutes": 1.0}}}, timeout=10)
         assert ok.status_code == 200 and ok.json()["players"] == {"h2": {"minutes": 1.0}}
-        assert httpx.get(url, timeout=10).json()["players"] == {"h2": {"minutes": 1.0}}
+        assert httpx.get(url, timeout=10).json()["players"] == {"h2": {"minutes": 1.0}}  # PUT replaces them all
         assert orjson.loads((srv.data / "matches" / mid / "budgets.json").read_bytes())["players"]["h2"] == {"minutes": 1.0}
 
         xy = np.full((70 * FPS, len(IDS), 2), np.nan)

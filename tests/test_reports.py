@@ -267,7 +267,7 @@ def test_synthetic_match_report(tmp_path):
     from service.engine.blocks import block_series
     from service.reports.builder import ReportInput, build_report
 
-    folder = write_match(tmp_path / "synth", minutes=3, fps=25, seed=11, faults=False)
+    folder = write_match(tmp_path / "synth", minutes=2, fps=25, seed=11, faults=False)
     state = analyze_folder(folder).state
     snap = state.snapshot()
     build_report(ReportInput("full_time", snap, block_series(state, 1, "split"), "replay", time.time()), tmp_path / "r")
