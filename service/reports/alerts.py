@@ -43,32 +43,29 @@ class _Model(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
 
-class DropOffPeak(_Model):
-    """Last-N-minute rate below ``share`` of the player's own peak N-minute window this match."""
-
+class _DropOff(_Model):
     id: str = Field(pattern=_ID)
-    kind: Literal["drop_off_peak"]
     figure: Literal["distance", "hsr"]
     window_min: int = Field(ge=1, le=30)
-    share: float = Field(gt=0, lt=1)
     min_on_pitch_min: float = Field(ge=0, le=150)
-    min_coverage: float = Field(ge=0, le=1)
+    min_coverage: float = Field(ge=0, le=1)  # the feed-quality guard: coverage in the window
     goalkeepers: bool = False
 
 
-class DropOffBaseline(_Model):
+class DropOffPeak(_DropOff):
+    """Last-N-minute rate below ``share`` of the player's own peak N-minute window this match."""
+
+    kind: Literal["drop_off_peak"]
+    share: float = Field(gt=0, lt=1)
+
+
+class DropOffBaseline(_DropOff):
     """Last-N-minute rate below the player's baseline band (median − spreads × spread)
     for the current 15-minute block, from his last matches in the history."""
 
-    id: str = Field(pattern=_ID)
     kind: Literal["drop_off_baseline"]
-    figure: Literal["distance", "hsr"]
-    window_min: int = Field(ge=1, le=30)
     spreads: float = Field(gt=0, le=5)
     min_matches: int = Field(ge=1, le=50)
-    min_on_pitch_min: float = Field(ge=0, le=150)
-    min_coverage: float = Field(ge=0, le=1)
-    goalkeepers: bool = False
 
 
 class LoadBudget(_Model):
