@@ -46,8 +46,8 @@ class Metrics:
         self.dropped = Counter("pacewire_dropped_backlogs_total", "Slow-subscriber backlogs replaced by a snapshot", registry=r)
         self.subscribers = Gauge("pacewire_subscribers", "Subscribers", ["match"], registry=r)
         self.lag = Gauge("pacewire_lag_seconds", "Median arrival lag", ["match"], registry=r)
-        self.processing = Histogram("pacewire_processing_seconds", "Engine time per applied block", registry=r,
         self.tasks = Gauge("pacewire_asyncio_tasks", "Tasks alive on the event loop (a leak shows as growth)", registry=r)
+        self.processing = Histogram("pacewire_processing_seconds", "Engine time per applied block", registry=r,
                                     buckets=(0.0005, 0.001, 0.002, 0.005, 0.01, 0.02, 0.05, 0.1, 0.5, 1, 5))
 
     def hooks(self) -> Hooks:
@@ -140,9 +140,9 @@ def create_app(opts: ServerOptions) -> FastAPI:
             return _error(422, "bad_setup", str(exc))
         except SetupConflict as exc:
             return _error(409, "conflict", str(exc))
-        except OSError as exc:
         except ValueError as exc:  # a match id the folder rules refuse (".", "..")
             return _error(422, "bad_match_id", str(exc))
+        except OSError as exc:
             return _error(503, "storage", f"cannot write the match folder: {exc.strerror or exc}")
         return JSONResponse({"match_id": match_id, "created": created, "players": runner.roster.n,
                              "fps": runner.roster.fps}, status_code=201 if created else 200)
@@ -322,12 +322,12 @@ def create_app(opts: ServerOptions) -> FastAPI:
             lag, _ = r.state.health.lag(time.time())
             if lag is not None:
                 metrics.lag.labels(mid).set(lag)
+        metrics.tasks.set(len(asyncio.all_tasks()))
         return PlainTextResponse(generate_latest(metrics.registry), media_type=CONTENT_TYPE_LATEST)
 
     app.mount("/static", StaticFiles(directory=WEB), name="static")
 
     @app.get("/")
-        metrics.tasks.set(len(asyncio.all_tasks()))
     async def index() -> Response:
         return FileResponse(WEB / "index.html", headers={"Cache-Control": "no-cache"})
 
