@@ -3,12 +3,17 @@
 One server and one browser page for the module (starting them is the slow
 part); each test brings the feed to the state it needs (streaming, stopped and
 settled, resumed), so the tests read as one short match day: the page
-connects, its figures equal the REST snapshot, sorting and the window switch
-work, the banner follows the feed, and the page recovers from a cut socket and
-from a server restart. Screenshots (light and dark) go to test-artifacts/.
+connects, the banner follows the feed, its figures equal the REST snapshot,
+sorting and the window switch work, the page recovers from a cut socket and
+from a server restart, alerts and report links show up as they arrive (the
+last fictional match ends there), and the committed demo clip can be picked
+as a second match. Screenshots (light and dark) go to test-artifacts/.
+The main feed is built in page_conftest.py (fictional, 10 Hz, one badly
+tracked player); the demo clip is demo_feeds/clip/.
 """
 from __future__ import annotations
 
+import gzip
 import math
 import threading
 import time
@@ -23,7 +28,9 @@ from websockets.sync.client import connect as ws_connect
 import page_conftest as pc
 from live_server import LiveServer
 
-ARTIFACTS = Path(__file__).resolve().parent.parent / "test-artifacts"
+ROOT = Path(__file__).resolve().parent.parent
+ARTIFACTS = ROOT / "test-artifacts"
+CLIP = ROOT / "demo_feeds" / "clip"
 HOME, AWAY = "t_harbour", "t_quarry"
 WINDOW_FIELDS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",
                  "high_power_m", "m_per_min", "metabolic_power_wkg")
@@ -121,8 +128,8 @@ class Bench:
             assert not self.streamer.is_alive()
 
     # -- reads ---------------------------------------------------------------------------------
-    def rest(self) -> dict[str, Any]:
-        r = httpx.get(f"{self.srv.http}/api/matches/{self.feed.match_id}/snapshot", timeout=10)
+    def rest(self, match_id: str | None = None) -> dict[str, Any]:
+        r = httpx.get(f"{self.srv.http}/api/matches/{match_id or self.feed.match_id}/snapshot", timeout=10)
         r.raise_for_status()
         return r.json()
 
@@ -135,15 +142,15 @@ class Bench:
     def banner(self) -> str:
         return self.page.get_attribute("#banner", "data-state") or ""
 
-    def settle(self, timeout: float = 12.0) -> dict[str, Any]:
+    def settle(self, timeout: float = 12.0, match_id: str | None = None) -> dict[str, Any]:
         """Stop feeding, let the stall finalise the tail, wait until the page equals REST; returns REST."""
         self.join()
-        wait_for(lambda: self.rest()["health"]["state"] == "stalled", 8, "the server to call the feed stalled")
+        wait_for(lambda: self.rest(match_id)["health"]["state"] == "stalled", 8, "the server to call the feed stalled")
         self.page.click("label[data-window='cumulative']")
         last: list[str] = []
 
         def same() -> dict[str, Any] | None:
-            rest = self.rest()
+            rest = self.rest(match_id)
             last[:] = mismatches(self.table(), rest["players"], lambda p: p, PLAYER_FIELDS)
             return rest if not last else None
 
@@ -500,3 +507,32 @@ def test_alerts_and_report_links_as_they_arrive(bench):
     assert any(x["kind"] == "full_time" and href.endswith(x["url"]) for x in listed)
     assert httpx.get(href, timeout=10).status_code == 200
     shoot(page, "bench-full-time")
+
+
+def test_the_demo_clip_through_the_match_picker(bench):
+    """The committed demo clip (fictional, with injected faults) as a second match: pick it, see
+    every player of its sheet, and the same figures as REST."""
+    assert CLIP.is_dir(), f"{CLIP} is missing (replay/synth.py writes it)"
+    meta = orjson.loads((CLIP / "meta.json").read_bytes())
+    sheet = orjson.loads((CLIP / "match.json").read_bytes())
+    lines = gzip.decompress((CLIP / "tracking.jsonl.gz").read_bytes()).splitlines()
+    mid = meta["match"]["id"]
+    r = httpx.put(f"{bench.srv.http}/api/matches/{mid}", json={"meta": meta, "sheet": sheet}, timeout=10)
+    assert r.status_code in (200, 201), r.text
+    with ws_connect(f"{bench.srv.ws}/ingest/{mid}", max_size=None) as ws:
+        for i in range(0, len(lines), 250):
+            ws.send(b"[" + b",".join(lines[i:i + 250]) + b"]")
+    page = bench.page
+    page.wait_for_selector(f"#match-picker option[value='{mid}']", state="attached", timeout=10_000)
+    page.select_option("#match-picker", mid)
+    rest = bench.settle(match_id=mid)  # the page equals REST, every figure of every player
+    roster = {p["id"]: p for side in ("home", "away") for p in sheet["teams"][side]["players"]}
+    assert set(bench.order()) == set(roster) == set(rest["players"])
+    assert rest["health"]["duplicates"] > 0 and rest["health"]["jumps"] > 0  # the faults went in
+    for pid in roster:
+        shown = page.locator(f"tr[data-player-id='{pid}'] td[data-col='name'] .n").inner_text()
+        assert shown == rest["players"][pid]["name"]
+    names = [t["name"] for t in meta["teams"].values()]
+    assert all(n in page.inner_text("#scoreline") for n in names)
+    page.set_viewport_size({"width": 1440, "height": page.evaluate("document.documentElement.scrollHeight")})
+    page.screenshot(path=str(ARTIFACTS / "bench-demo-clip-light.png"))

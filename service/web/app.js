@@ -137,6 +137,7 @@
     } catch (e) {
       if (e.status === 401) {
         $("#match-picker").innerHTML = '<option value="">Needs a view token: open this page with ?token=…</option>';
+        $("#match-picker").dataset.sig = "";
         setConn("closed", TOKEN ? "Token refused" : "No token");
       }
       return; // otherwise keep the last list: the connection status already tells the user
@@ -337,15 +338,19 @@
     const keep = S.matchId;
     if (!S.matches.length) {
       sel.innerHTML = '<option value="">No matches yet · waiting for a feed</option>';
+      sel.dataset.sig = "";
       return;
     }
-    sel.innerHTML = S.matches.map((m) => {
+    const html = S.matches.map((m) => {
       const ids = sidesOf(m.teams);
       const t = ids.map((id) => m.teams[id]);
       const score = t.length === 2 ? `${t[0].name} ${t[0].score ?? 0}–${t[1].score ?? 0} ${t[1].name}` : m.match_id;
       const when = m.period ? PERIODS[m.period] || m.period : "not started";
       return `<option value="${esc(m.match_id)}">${esc(score)} · ${esc(when)}</option>`;
     }).join("");
+    if (sel.dataset.sig === html) return; // unchanged: leave an open list alone
+    sel.dataset.sig = html;
+    sel.innerHTML = html;
     if (keep) sel.value = keep;
   }
 
@@ -763,6 +768,7 @@
     buildHead();
     $("#cov-threshold").textContent = Math.round(COVERAGE_LOW * 100);
     $("#match-picker").addEventListener("change", (e) => { if (e.target.value) selectMatch(e.target.value); });
+    $("#match-picker").addEventListener("focus", refreshMatches); // about to choose: show what is live now
     $("#team-filter").addEventListener("change", (e) => { if (e.target.name === "team") { S.team = e.target.value; renderTable(); } });
     $("#window-switch").addEventListener("change", (e) => { if (e.target.name === "window") { S.win = e.target.value; renderTable(); } });
     renderTable();
