@@ -749,7 +749,8 @@ def plan_half(rng: np.random.Generator, n: int, fps: int, ball: BallTrack, dirs:
     jog_fatigue = 1.0 - 0.25 * frac**2
 
     base = np.array([p.probs for p in prof])  # (k, 4)
-    probs = np.broadcast_to(base[None, :, :], (n, k, 4)).copy()
+    probs = np.empty((n, k, 4))
+    probs[:] = base[None, :, :]
     probs[:, :, :2] *= np.maximum(1.4 - 0.4 * prox_n, 0.4)[:, :, None]  # far from the ball: walk
     probs[:, :, 2] *= (0.6 + 0.4 * prox_n) * jog_fatigue[:, None]
     probs[:, :, 3] *= (0.3 + 0.7 * prox_n) * fatigue[:, None]
@@ -918,7 +919,8 @@ def integrate(plans: list[HalfPlan], fps: int) -> list[np.ndarray]:
     chase_ok = cat(lambda p: p.chase)
     noise = cat(lambda p: p.heading_noise)
     vscale = cat(lambda p: p.vscale)
-    ball_t = cat(lambda p: np.repeat(p.ball.target[:, None], 22, axis=1))
+    ball_pairs = np.stack([_pad(p.ball.target, n) for p in plans], axis=1)  # (n, halves)
+    col_half = np.repeat(np.arange(len(plans)), 22)
     cmds = [chase_commands(p.ball, p.dirs) for p in plans]
     c_goal = np.concatenate([_pad(c[0], n) for c in cmds], axis=1)
     c_vmax = np.concatenate([_pad(c[1], n) for c in cmds], axis=1)
@@ -953,7 +955,7 @@ def integrate(plans: list[HalfPlan], fps: int) -> list[np.ndarray]:
         vd = s * h + c * u
         vd = vd * mn(1.0, mx(s, c) / (np.abs(vd) + 1e-9))
         # the nearest eligible player of each team goes to the ball (with hysteresis)
-        db = np.where(chase_ok[t], np.abs(ball_t[t] - pos), np.inf).reshape(groups, 11)
+        db = np.where(chase_ok[t], np.abs(ball_pairs[t][col_half] - pos), np.inf).reshape(groups, 11)
         jmin = db.argmin(axis=1)
         dmin = db[ar, jmin]
         dcur = np.where(have, db[ar, cur], np.inf)
@@ -1363,8 +1365,12 @@ def build_sheet(m: SynthMatch) -> dict:
     }
 
 
-def _frame_lines(m: SynthMatch, fp: FaultPlan):
-    """Yield the JSON lines (bytes, with ``\\n``) in file order, faults applied."""
+def _frame_lines(m: SynthMatch, fp: FaultPlan, block: int = 4096):
+    """Yield the JSON lines (bytes, with ``\\n``) in file order, faults applied.
+
+    Positions are rounded to the centimetre; arrays become Python lists one
+    block of frames at a time, which keeps memory flat for a full match.
+    """
     tl = m.timeline
     ts = tl.timestamps()
     xs = np.round(m.positions.real, 2)
@@ -1372,43 +1378,44 @@ def _frame_lines(m: SynthMatch, fp: FaultPlan):
     for f, (col, p) in fp.jumps.items():
         xs[f, col] = round(p.real, 2)
         ys[f, col] = round(p.imag, 2)
-    xs, ys = xs.tolist(), ys.tolist()
     ids = [[player_id(club, club.squad[i][0]) for i in range(len(club.squad))] for club in CLUBS]
-    squad = m.squad_index.tolist()
-    bx = np.round(m.ball_xy.real, 2).tolist()
-    by = np.round(m.ball_xy.imag, 2).tolist()
-    bz = np.round(m.ball_z, 2).tolist()
-    live = m.ball_in_play.tolist()
-    poss = m.ball_poss.tolist()
+    bx_all = np.round(m.ball_xy.real, 2)
+    by_all = np.round(m.ball_xy.imag, 2)
+    bz_all = np.round(m.ball_z, 2)
     team_ids = [c.team_id for c in CLUBS]
     match = {"id": MATCH_ID}
     no_hidden: set[int] = set()
     held = None
-    for f in range(tl.n_slots):
-        if f in fp.outage:
-            continue
-        hidden = fp.hidden.get(f, no_hidden)
-        row_x, row_y, row_s = xs[f], ys[f], squad[f]
-        teams = {}
-        for team, side in ((0, "home"), (1, "away")):
-            cols = range(11 * team, 11 * team + 11)
-            teams[side] = {"id": team_ids[team], "players": [
-                {"id": ids[team][row_s[c]], "x": row_x[c], "y": row_y[c]} for c in cols if c not in hidden]}
-        frame = {
-            "frame_id": f, "timestamp": ts[f], "period": "first_half" if f < tl.n1 else "second_half",
-            "match": match, "teams": teams,
-            "ball": {"x": bx[f], "y": by[f], "z": bz[f], "status": live[f], "poss_team_id": team_ids[poss[f]]},
-        }
-        line = orjson.dumps(frame) + b"\n"
-        if f in fp.swaps:
-            held = line
-            continue
-        yield line
-        if held is not None:
-            yield held
-            held = None
-        if f in fp.duplicates:
+    for b0 in range(0, tl.n_slots, block):
+        b1 = min(b0 + block, tl.n_slots)
+        bxs, bys, squad = xs[b0:b1].tolist(), ys[b0:b1].tolist(), m.squad_index[b0:b1].tolist()
+        bx, by, bz = bx_all[b0:b1].tolist(), by_all[b0:b1].tolist(), bz_all[b0:b1].tolist()
+        live, poss = m.ball_in_play[b0:b1].tolist(), m.ball_poss[b0:b1].tolist()
+        for i, f in enumerate(range(b0, b1)):
+            if f in fp.outage:
+                continue
+            hidden = fp.hidden.get(f, no_hidden)
+            row_x, row_y, row_s = bxs[i], bys[i], squad[i]
+            teams = {}
+            for team, side in ((0, "home"), (1, "away")):
+                cols = range(11 * team, 11 * team + 11)
+                teams[side] = {"id": team_ids[team], "players": [
+                    {"id": ids[team][row_s[c]], "x": row_x[c], "y": row_y[c]} for c in cols if c not in hidden]}
+            frame = {
+                "frame_id": f, "timestamp": ts[f], "period": "first_half" if f < tl.n1 else "second_half",
+                "match": match, "teams": teams,
+                "ball": {"x": bx[i], "y": by[i], "z": bz[i], "status": live[i], "poss_team_id": team_ids[poss[i]]},
+            }
+            line = orjson.dumps(frame) + b"\n"
+            if f in fp.swaps:
+                held = line
+                continue
             yield line
+            if held is not None:
+                yield held
+                held = None
+            if f in fp.duplicates:
+                yield line
 
 
 def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int = 0, faults: bool = True,
