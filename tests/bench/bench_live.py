@@ -654,8 +654,10 @@ def run_case(case: Case, url: str, field_name: str, scale: float, wait_first: bo
         lat, missing = per_frame_ms(send, rec, window["t0"], window["t1"], scale)
     else:
         lat = per_message_ms(send, rec, window["t0"], window["t1"], scale)
-        # deltas due in the window that never came (the server fell behind): not in the percentiles
-        missing = max(int(round(len(rec.socks) * (window["t1"] - window["t0"]) / case.every_s)) - len(lat), 0)
+        # deltas due in the window that never came (the server fell behind): not in the percentiles.
+        # A delta goes with the first frame after its cadence is up, so they come every + ~1/2 frame apart.
+        due = int((window["t1"] - window["t0"]) / (case.every_s + 1.0 / FPS)) - 1
+        missing = max(len(rec.socks) * due - len(lat), 0)
     if len(lat) == 0:
         raise RuntimeError(f"{case.name}: no delivery was timed")
     p50, p99 = np.percentile(lat, [50, 99])
