@@ -48,7 +48,7 @@ class Cluster:
         srv = LiveServer(self.tmp / (data or f"{role}-{len(self.procs)}"), "--role", role, "--redis", self.redis.url,
                          config_text=self.config)
         self.procs.append(srv)
-        return srv.start()
+        return srv.start(timeout=180)  # a shared CI machine can be slow to start Python processes
 
     def stop(self) -> None:
         for p in reversed(self.procs):
