@@ -286,3 +286,17 @@ def test_health_lag_rules():
     # a feed falling behind by 0.5 s every second is late within seconds
     state, reasons = feed(lambda t: 0.5 * t)
     assert state == "degraded" and [r["code"] for r in reasons] == ["late_delivery"]
+
+
+def test_savgol_weights_equal_scipys():
+    # Savitzky & Golay 1964 as implemented by scipy.signal.savgol_coeffs (the reference)
+    from scipy.signal import savgol_coeffs
+
+    from service.engine.kinematics import savgol_weights
+
+    for w, order in ((25, 3), (11, 2), (51, 3)):
+        for d in range(3):
+            for j in (0, w // 3, w // 2, w - 1):
+                np.testing.assert_allclose(savgol_weights(w, order, d, 0.04, j),
+                                           savgol_coeffs(w, order, deriv=d, delta=0.04, pos=j, use="dot"),
+                                           rtol=1e-9, atol=1e-9)

@@ -21,13 +21,25 @@ Steps, each vectorised over slots and players:
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy.signal import savgol_coeffs
 
 _BIG = np.iinfo(np.int64).max // 4
+
+
+def savgol_weights(window: int, order: int, deriv: int, delta: float, pos: int) -> np.ndarray:
+    """Savitzky-Golay weights (Savitzky & Golay 1964): the least-squares polynomial of
+    ``order`` over ``window`` samples, its ``deriv``-th derivative evaluated at sample
+    ``pos``, as weights to dot with the window's samples in order. Same values as
+    scipy's ``savgol_coeffs(..., use="dot")`` (a test checks), without loading scipy
+    into the service (about 80 MB of memory)."""
+    t = np.arange(window, dtype=float) - pos
+    vander = t[:, None] ** np.arange(order + 1)[None, :]
+    pinv = np.linalg.pinv(vander)  # (order + 1, window): polynomial coefficients from samples
+    return pinv[deriv] * math.factorial(deriv) / delta ** deriv
 
 
 @dataclass(frozen=True)
@@ -115,7 +127,7 @@ class Track:
         w, h = params.window, params.half
         # coefficients[d, j]: derivative d evaluated at position j of the window.
         self._coef = np.stack([
-            np.stack([savgol_coeffs(w, params.order, deriv=d, delta=self.dt, pos=j, use="dot") for j in range(w)])
+            np.stack([savgol_weights(w, params.order, d, self.dt, j) for j in range(w)])
             for d in range(3)
         ])
         self._band: dict[int, np.ndarray] = {}  # banded matrices of the centred fit, by row count

@@ -43,7 +43,10 @@ def run(args: argparse.Namespace) -> int:
     opts = ServerOptions(Path(args.data), settings, args.ingest_token or None, args.view_token or None)
     app = create_app(opts)
     config = uvicorn.Config(app, host=args.host, port=args.port, ws_max_size=settings.server.max_message_bytes,
-                            log_level=args.log_level, lifespan="on", ws_ping_interval=20, ws_ping_timeout=20)
+                            log_level=args.log_level, lifespan="on", ws_ping_interval=20, ws_ping_timeout=20,
+                            # compressing every message once per socket cost most of the fan-out
+                            # time (measured, tests/bench/bench_live.py); deltas are small anyway
+                            ws_per_message_deflate=False)
     server = uvicorn.Server(config)
     print(f"pacewire serving on http://{args.host}:{args.port}/ (data in {opts.data_dir.resolve()})", flush=True)
     server.run()
