@@ -77,7 +77,8 @@ def run_role(args: argparse.Namespace) -> int:
         from service.scale.recorder import StreamRecorder
         app = _worker_app("recorder", lambda: StreamRecorder(redis, scale, data))
     config = uvicorn.Config(app, host=args.host, port=args.port, ws_max_size=settings.server.max_message_bytes,
-                            log_level=args.log_level, lifespan="on", ws_ping_interval=20, ws_ping_timeout=20)
+                            log_level=args.log_level, lifespan="on", ws_ping_interval=20, ws_ping_timeout=20,
+                            ws_per_message_deflate=False)  # as the single process: deflate per socket dominated fan-out
     print(f"pacewire {args.role} on http://{args.host}:{args.port}/ (Redis {args.redis})", flush=True)
     try:
         uvicorn.Server(config).run()
