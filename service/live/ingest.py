@@ -21,7 +21,7 @@ import orjson
 from service.config import Settings
 from service.engine.health import STALLED
 from service.engine.match import MatchState
-from service.engine.types import PERIODS, Roster
+from service.engine.types import PERIODS, Block, Roster
 from service.live.broadcaster import Broadcaster
 from service.live.recorder import Recorder, RecorderError, write_json_atomic
 from service.live.reporting import Followup
@@ -182,7 +182,7 @@ class MatchRunner:
         try:
             obj = orjson.loads(data)
         except orjson.JSONDecodeError as exc:
-            self._count(DecodeResult(self.decoder_empty(), [], rejected=1))
+            self._count(DecodeResult(Block.empty(self.roster.n), [], rejected=1))
             return IngestOutcome(0, 1, 0, 0, [FrameError("bad_json", f"not valid JSON: {exc}")])
         objs = obj if isinstance(obj, list) else [obj]
         res = self.decoder.decode_objects(objs)
@@ -191,10 +191,6 @@ class MatchRunner:
         else:
             raw = [orjson.dumps(objs[i]) for i in res.accepted]
         return await self._record(res, raw, cp, arrival, durable=False)
-
-    def decoder_empty(self):  # noqa: ANN201
-        from service.engine.types import Block
-        return Block.empty(self.roster.n)
 
     async def _record(self, res: DecodeResult, raw: list[bytes], cp: tuple, arrival: float,
                       durable: bool) -> IngestOutcome:
