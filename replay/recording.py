@@ -1,4 +1,5 @@
-"""Reading a recording: a CDF folder with meta.json, match.json and tracking.jsonl[.gz]."""
+"""Reading a recording: a CDF folder with meta.json, match.json and tracking.jsonl[.gz],
+and hr.jsonl[.gz] when the match had a heart-rate channel (docs/wearables.md)."""
 from __future__ import annotations
 
 import gzip
@@ -19,12 +20,16 @@ class Recording:
     meta: dict[str, Any]
     sheet: dict[str, Any]
     tracking: Path
+    hr: Path | None = None  # heart-rate samples, one JSON object per line
 
     def lines(self) -> Iterator[bytes]:
         """The tracking file's lines, raw bytes, in file order."""
-        opener = gzip.open if self.tracking.suffix == ".gz" else open
-        with opener(self.tracking, "rb") as fh:
-            yield from fh
+        yield from _read_lines(self.tracking)
+
+    def hr_lines(self) -> Iterator[bytes]:
+        """The heart-rate file's lines (none when the recording has no hr.jsonl)."""
+        if self.hr is not None:
+            yield from _read_lines(self.hr)
 
     def batches(self, size: int = 1500) -> Iterator[tuple[int, list[bytes]]]:
         """(first line number, lines) in batches of ``size`` lines."""
@@ -39,6 +44,16 @@ class Recording:
                 batch = []
         if batch:
             yield first, batch
+
+
+def _read_lines(path: Path) -> Iterator[bytes]:
+    opener = gzip.open if path.suffix == ".gz" else open
+    with opener(path, "rb") as fh:
+        yield from fh
+
+
+def _first_file(folder: Path, names: tuple[str, ...]) -> Path | None:
+    return next((folder / n for n in names if (folder / n).is_file()), None)
 
 
 def _load_json(path: Path) -> dict[str, Any]:
@@ -60,7 +75,7 @@ def open_recording(folder: str | Path) -> Recording:
         raise RecordingError(f"{folder} is not a folder")
     meta = _load_json(folder / "meta.json")
     sheet = _load_json(folder / "match.json")
-    for name in ("tracking.jsonl", "tracking.jsonl.gz"):
-        if (folder / name).is_file():
-            return Recording(folder, meta, sheet, folder / name)
-    raise RecordingError(f"no tracking.jsonl or tracking.jsonl.gz in {folder}")
+    tracking = _first_file(folder, ("tracking.jsonl", "tracking.jsonl.gz"))
+    if tracking is None:
+        raise RecordingError(f"no tracking.jsonl or tracking.jsonl.gz in {folder}")
+    return Recording(folder, meta, sheet, tracking, _first_file(folder, ("hr.jsonl", "hr.jsonl.gz")))
