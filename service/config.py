@@ -25,6 +25,11 @@ class Decode(_Section):
     recent_ids: int = Field(ge=1, le=1_000_000)
 
 
+class Gnss(_Section):
+    side_tolerance: float = Field(gt=0, le=0.1)
+    angle_tolerance_deg: float = Field(gt=0, le=10)
+
+
 class Kinematics(_Section):
     smooth_window_s: float = Field(gt=0, le=5)
     smooth_order: int = Field(ge=1, le=5)
@@ -136,6 +141,7 @@ class History(_Section):
 
 class Settings(_Section):
     decode: Decode
+    gnss: Gnss
     kinematics: Kinematics
     speed: Speed
     efforts: Efforts
