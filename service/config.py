@@ -5,6 +5,7 @@ start-up with a message naming the key (``kinematics.smooth_order: ...``).
 """
 from __future__ import annotations
 
+import json
 import tomllib
 from pathlib import Path
 from typing import Any, Literal
@@ -28,6 +29,74 @@ class Decode(_Section):
 class Gnss(_Section):
     side_tolerance: float = Field(gt=0, le=0.1)
     angle_tolerance_deg: float = Field(gt=0, le=10)
+
+
+class HeartProfileModel(_Section):
+    """A player's heart-rate profile (docs/wearables.md)."""
+
+    hr_max_bpm: float | None = Field(None, ge=100, le=250)
+    hr_rest_bpm: float | None = Field(None, ge=20, le=120)
+    sex: Literal["male", "female"] | None = None
+
+    @model_validator(mode="after")
+    def _rest_below_max(self) -> "HeartProfileModel":
+        if self.hr_max_bpm is not None and self.hr_rest_bpm is not None and self.hr_rest_bpm >= self.hr_max_bpm:
+            raise ValueError("hr_rest_bpm must be below hr_max_bpm")
+        return self
+
+
+class HeartProfiles(_Section):
+    players: dict[str, HeartProfileModel] = Field(max_length=500)
+
+
+class HeartRate(_Section):
+    min_bpm: float = Field(gt=0, le=100)
+    max_bpm: float = Field(gt=100, le=300)
+    max_jump_bpm_s: float = Field(gt=0, le=300)
+    jump_reset: int = Field(ge=1, le=100)
+    max_gap_s: float = Field(gt=0, le=60)
+    expected_hz: float = Field(gt=0, le=100)
+    stale_s: float = Field(gt=0, le=600)
+    zone_edges_pct: list[float] = Field(min_length=5, max_length=5)
+    edwards_weights: list[float] = Field(min_length=5, max_length=5)
+    banister_male: tuple[float, float]
+    banister_female: tuple[float, float]
+    profiles_file: str
+    profiles: dict[str, HeartProfileModel] = Field(default_factory=dict)  # read from profiles_file
+
+    @model_validator(mode="before")
+    @classmethod
+    def _load_profiles(cls, data: Any) -> Any:
+        if isinstance(data, dict) and data.get("profiles_file") and "profiles" not in data:
+            data = {**data, "profiles": load_heart_profiles(data["profiles_file"]).players}
+        return data
+
+    @model_validator(mode="after")
+    def _increasing(self) -> "HeartRate":
+        e = self.zone_edges_pct
+        if any(b <= a for a, b in zip(e, e[1:])) or e[0] <= 0 or e[-1] >= 100:
+            raise ValueError("zone_edges_pct must be strictly increasing within (0, 100)")
+        if self.min_bpm >= self.max_bpm:
+            raise ValueError("min_bpm must be below max_bpm")
+        return self
+
+
+def load_heart_profiles(path: str | Path) -> HeartProfiles:
+    """Per-player heart-rate profiles from a TOML or JSON file; ValueError names the bad key."""
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise ValueError(f"cannot read heart-rate profiles file {path}: {exc.strerror}") from None
+    try:
+        data = json.loads(text) if path.suffix.lower() == ".json" else tomllib.loads(text)
+    except (json.JSONDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise ValueError(f"heart-rate profiles file {path} is not valid {path.suffix.lstrip('.').upper() or 'TOML'}: {exc}") from None
+    try:
+        return HeartProfiles.model_validate(data)
+    except ValidationError as exc:
+        where = "; ".join(f"{'.'.join(str(p) for p in e['loc'])}: {e['msg']}" for e in exc.errors()[:5])
+        raise ValueError(f"invalid heart-rate profiles file {path}: {where}") from None
 
 
 class Kinematics(_Section):
@@ -149,6 +218,7 @@ class Settings(_Section):
     zones: Zones
     windows: Windows
     periods: Periods
+    heart_rate: HeartRate
     health: Health
     server: Server
     reports: Reports
