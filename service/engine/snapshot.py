@@ -217,7 +217,12 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
 
     elapsed_s = sum((max(p.last_slot, 0) + 1) / fps for p in periods) if periods else 0.0
     teams: dict[str, Any] = {}
+    tracked = roster.tracked()
     for k, tid in enumerate(roster.team_ids):
+        if not tracked[k]:
+            # one-team feed: the other team's figures are absent, not zeros
+            teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": False}
+            continue
         mask = (state.team == k) & ~state.gk & (onp > 0)
         tsum = total[mask].sum(axis=0).tolist()
         minutes = float(onp_s[mask].sum()) / 60.0
@@ -239,7 +244,7 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
                 span = cur.bins.covered_s(stop - m * 60, stop)
                 tw[f"last_{m}min"] = _windows(sums[mask].sum(axis=0)[None], np.array([span]))[0]
         outfield["windows"] = tw
-        teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "outfield": outfield}
+        teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": True, "outfield": outfield}
 
     h = state.health
     clock = now if now is not None else (h.last_arrival if h.last_arrival is not None else 0.0)

@@ -33,6 +33,9 @@ class Player:
     is_starter: bool
     name: str = ""
     max_speed_ms: float | None = None
+    hr_max_bpm: float | None = None  # heart-rate profile (docs/wearables.md)
+    hr_rest_bpm: float | None = None
+    sex: str | None = None  # "male" | "female"
 
 
 @dataclass(frozen=True)
@@ -60,6 +63,10 @@ class Roster:
 
     def goalkeepers(self) -> np.ndarray:
         return np.array([p.is_goalkeeper for p in self.players], dtype=bool)
+
+    def tracked(self) -> tuple[bool, bool]:
+        """Which teams the feed tracks: a team with no players in the sheet is not tracked (one-team feeds)."""
+        return tuple(any(p.team == k for p in self.players) for k in (0, 1))  # type: ignore[return-value]
 
 
 @dataclass(frozen=True)

@@ -15,7 +15,7 @@ from typing import Any, Iterable, Literal, Sequence
 
 import numpy as np
 import orjson
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
 from service.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
 
@@ -82,6 +82,16 @@ class SheetPlayer(_Open):
     short_name: str | None = None
     # pacewire extension: the player's own max speed (m/s) for relative zones.
     max_speed_ms: float | None = Field(default=None, gt=0, le=15)
+    # pacewire extension: heart-rate profile (docs/wearables.md).
+    hr_max_bpm: float | None = Field(default=None, ge=100, le=250)
+    hr_rest_bpm: float | None = Field(default=None, ge=20, le=120)
+    sex: Literal["male", "female"] | None = None
+
+    @model_validator(mode="after")
+    def _rest_below_max(self) -> "SheetPlayer":
+        if self.hr_max_bpm is not None and self.hr_rest_bpm is not None and self.hr_rest_bpm >= self.hr_max_bpm:
+            raise ValueError(f"player {self.id!r}: hr_rest_bpm must be below hr_max_bpm")
+        return self
 
 
 class SheetTeam(_Open):
@@ -147,6 +157,7 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None) -> Roster:
                 id=p.id, team=side, jersey_number=p.jersey_number,
                 is_goalkeeper=(p.position_group or "").upper() == "GK",
                 is_starter=p.is_starter, name=name, max_speed_ms=p.max_speed_ms,
+                hr_max_bpm=p.hr_max_bpm, hr_rest_bpm=p.hr_rest_bpm, sex=p.sex,
             ))
     names = tuple(getattr(sheet.teams, s).name or getattr(meta.teams, s).name or getattr(sheet.teams, s).short_name or ""
                   for s in ("home", "away"))

@@ -146,7 +146,9 @@ class Team(_Shape):
     name: str = Field(description="Team name from the set-up.")
     side: Literal["home", "away"]
     score: int = Field(None, ge=0, description="Goals from match events (live service only).")
-    outfield: Outfield
+    tracked: bool = Field(description="The feed tracks this team's players; false for the other team of a "
+                                      "one-team (wearables) feed, which then has no outfield figures.")
+    outfield: Outfield = Field(None, description="Outfield totals; absent for a team the feed does not track.")
 
 
 class Reason(_Shape):
