@@ -6,10 +6,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
-from replay.recording import open_recording
+from replay.recording import Recording, open_recording
 from service.config import Settings, load_settings
 from service.engine.match import MatchState
 from service.wire.cdf import FrameDecoder, FrameError, parse_setup
+from service.wire.heart import HrDecoder
 
 
 @dataclass
@@ -36,6 +37,17 @@ def new_match(meta: dict[str, Any], sheet: dict[str, Any], settings: Settings,
     return MatchState(roster, settings), decoder
 
 
+def add_heart_rate(state: MatchState, rec: Recording) -> list[FrameError]:
+    """The recording's heart-rate samples (hr.jsonl), if any, into the state; they count as
+    tracking reaches their time, so adding them all first gives the live figures. Returns
+    the lines refused."""
+    if rec.hr is None:
+        return []
+    res = HrDecoder(state.roster, state.heart_params).decode_lines(rec.hr_lines())
+    state.ingest_heart(res)
+    return res.errors
+
+
 def analyze_folder(folder: str | Path, settings: Settings | None = None, strict: bool = False,
                    on_error: Callable[[FrameError], None] | None = None,
                    keep_errors: int = 100, batch: int = 1500) -> AnalyzeResult:
@@ -44,6 +56,14 @@ def analyze_folder(folder: str | Path, settings: Settings | None = None, strict:
     rec = open_recording(folder)
     state, decoder = new_match(rec.meta, rec.sheet, settings)
     result = AnalyzeResult(state)
+    for err in add_heart_rate(state, rec):
+        if strict:
+            raise StrictError(err)
+        result.error_count += 1
+        if len(result.errors) < keep_errors:
+            result.errors.append(err)
+        if on_error is not None:
+            on_error(err)
     for first, lines in rec.batches(batch):
         res = decoder.decode_lines(lines, first_line=first)
         if res.errors:

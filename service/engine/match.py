@@ -15,6 +15,7 @@ from service.config import Settings
 from service.engine import exertion as ex
 from service.engine.exertion import Exertion, ExertionParams
 from service.engine.health import FeedHealth, HealthParams
+from service.engine.heart import HeartParams, HeartProfile, HeartRate
 from service.engine.kinematics import Final, KinematicParams, Track
 from service.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIODS, Block, Roster
 from service.engine.windows import SecondBins
@@ -95,6 +96,10 @@ class MatchState:
         # on-pitch state set by match events (substitutions, red cards) over what frames suggest
         self.forced_off = np.zeros(self.n, bool)
         self.forced_on = np.zeros(self.n, bool)
+        # heart rate (docs/wearables.md): made with the first accepted sample
+        self.heart_params = heart_params(settings)
+        self.heart: HeartRate | None = None
+        self.hr_rejected = self.hr_duplicates = self.hr_late = 0
 
     # -- input ---------------------------------------------------------------------
     @property
@@ -129,6 +134,32 @@ class MatchState:
         bounds = np.flatnonzero(np.diff(block.period)) + 1
         for part in np.split(np.arange(n), bounds):
             self._step_period(block.take(slice(int(part[0]), int(part[-1]) + 1)))
+        if self.heart is not None:
+            self._settle_heart()
+
+    def ingest_heart(self, result: Any) -> None:
+        """Count a heart-rate decoder result's drops and add its accepted samples
+        (:class:`service.wire.heart.HrResult`)."""
+        self.hr_rejected += result.rejected
+        self.hr_duplicates += result.duplicates
+        self.hr_late += result.late
+        if len(result):
+            self.add_heart(result.player, result.t, result.bpm)
+
+    def add_heart(self, player: np.ndarray, t: np.ndarray, bpm: np.ndarray) -> None:
+        """Accepted heart-rate samples (roster index, UTC s, bpm); they count in a
+        period once tracking has reached their time."""
+        if self.heart is None:
+            self.heart = HeartRate(self.heart_params, heart_profiles(self.roster, self.settings))
+        self.heart.add(player, t, bpm)
+        self._settle_heart()
+
+    def _settle_heart(self) -> None:
+        if self.last_t is None:
+            return
+        fps = self.fps
+        spans = [(p.index, p.t0, p.t0 + (p.last_slot + 1) / fps) for p in self.periods]
+        self.heart.settle(spans, self.last_t)  # type: ignore[union-attr]
 
     def _step_period(self, b: Block) -> None:
         idx = int(b.period[0])
@@ -326,6 +357,29 @@ class MatchState:
         from service.engine.snapshot import build_snapshot  # keeps this module small
 
         return build_snapshot(self, now, extra_reasons)
+
+
+def heart_params(s: Settings) -> HeartParams:
+    h = s.heart_rate
+    return HeartParams(min_bpm=h.min_bpm, max_bpm=h.max_bpm, max_jump_bpm_s=h.max_jump_bpm_s, jump_reset=h.jump_reset,
+                       max_gap_s=h.max_gap_s, expected_hz=h.expected_hz, zone_edges_pct=tuple(h.zone_edges_pct),
+                       edwards_weights=tuple(h.edwards_weights), banister_male=tuple(h.banister_male),
+                       banister_female=tuple(h.banister_female), stale_s=h.stale_s)
+
+
+def heart_profiles(roster: Roster, s: Settings) -> list[HeartProfile]:
+    """Each player's profile: the match sheet's fields, else the profiles file's."""
+    files = s.heart_rate.profiles
+    out = []
+    for p in roster.players:
+        f = files.get(p.id)
+        hr_max = p.hr_max_bpm if p.hr_max_bpm is not None else (f.hr_max_bpm if f else None)
+        hr_rest = p.hr_rest_bpm if p.hr_rest_bpm is not None else (f.hr_rest_bpm if f else None)
+        sex = p.sex if p.sex is not None else (f.sex if f else None)
+        if hr_max is not None and hr_rest is not None and hr_rest >= hr_max:
+            hr_rest = None  # sheet and file disagree: a resting rate above the maximum is not used
+        out.append(HeartProfile(hr_max_bpm=hr_max, hr_rest_bpm=hr_rest, sex=sex))  # type: ignore[arg-type]
+    return out
 
 
 def _zone_edges(roster: Roster, s: Settings) -> tuple[np.ndarray, np.ndarray, list[str]]:

@@ -163,6 +163,64 @@ def _period_figures(state: "MatchState", per: "_Period") -> list[dict[str, Any]]
     return figs
 
 
+_HR_WINDOW_KEYS = ("hr_mean_bpm", "trimp_edwards", "trimp_banister")
+
+
+def _hr_cols(state: "MatchState", sums: np.ndarray, onpitch_s: np.ndarray, keys: tuple[str, ...] | None = None) -> list[dict[str, Any]]:
+    cols = state.heart.figures(sums, onpitch_s)  # type: ignore[union-attr]
+    if keys is not None:
+        cols = {k: cols[k] for k in keys}
+    return _rows(cols, state.n)
+
+
+def _with_heart_windows(state: "MatchState", windows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Per-player windows with the heart-rate figures of the last-N windows and fixed blocks added
+    (not cached with the windows: samples settle on their own clock)."""
+    hr = state.heart
+    out = [dict(w) for w in windows]
+    zero = np.zeros(state.n)
+    cur = state.current
+    if cur is not None:
+        stop = cur.bins.complete
+        for m in state.settings.windows.last_min:
+            key = f"last_{m}min"
+            rows = _hr_cols(state, hr.period_sums(cur.index, max(stop - m * 60, 0), stop), zero, _HR_WINDOW_KEYS)  # type: ignore[union-attr]
+            for i, r in enumerate(rows):
+                if out[i].get(key) is not None:
+                    out[i][key] = {**out[i][key], **r}
+    for per in state.periods:
+        for key, s0, s1 in _blocks(state, per):
+            if s0 >= per.bins.complete:
+                continue
+            rows = _hr_cols(state, hr.period_sums(per.index, s0, s1), zero, _HR_WINDOW_KEYS)  # type: ignore[union-attr]
+            for i, r in enumerate(rows):
+                if out[i].get(key) is not None:
+                    out[i][key] = {**out[i][key], **r}
+    return out
+
+
+def _hr_health(state: "MatchState", on_pitch: list[bool]) -> dict[str, float | None]:
+    """Heart-rate samples received over the last minute ÷ expected, per player on the pitch: a strap
+    that drops out shows here as low coverage, not as a low heart rate."""
+    from service.engine.heart import HR_N
+
+    cur = state.current
+    hr = state.heart
+    out: dict[str, float | None] = {}
+    if cur is None or hr is None:
+        return out
+    stop = cur.bins.complete
+    start = max(stop - 60, 0)
+    got = hr.period_sums(cur.index, start, stop)[:, HR_N]
+    first_sec = np.where(cur.first_seen >= 0, cur.first_seen // state.fps, stop)
+    span = np.clip(stop - np.maximum(start, first_sec), 0, None) * hr.p.expected_hz
+    share = np.round(np.minimum(got / np.where(span > 0, span, 1), 1.0), 3).tolist()
+    for i, pl in enumerate(state.roster.players):
+        if on_pitch[i]:
+            out[pl.id] = share[i] if span[i] > 0 else None
+    return out
+
+
 def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
     roster = state.roster
     n = state.n
@@ -187,6 +245,18 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
     figs = _figures(total, zones, state.zone_names, onp_s, vmax, cov)
     windows, team_last = _player_windows(state)
     per_figs = [(per.name, _period_figures(state, per)) for per in periods]
+    heart = state.heart
+    hr_rows = None
+    if heart is not None:
+        windows = _with_heart_windows(state, windows)
+        per_figs = [(name, [{**f, **h} for f, h in zip(pf, _hr_cols(state, heart.period_sums(per.index),
+                                                                     per.onpitch_slots() / fps))])
+                    for (name, pf), per in zip(per_figs, periods)]
+        latest = max(state.last_t or 0.0, float(np.nanmax(heart.last_t)))
+        hr_now, hr_pct = heart.now(latest)
+        hr_rows = _hr_cols(state, heart.match_sums(), onp_s)
+        for i, (bpm, pct, peak, omitted) in enumerate(zip(hr_now, hr_pct, heart.peak(), heart.omitted())):
+            hr_rows[i] = {"hr_bpm": bpm, "hr_pct_max": pct, **hr_rows[i], "hr_peak_bpm": peak, "hr_omitted": omitted}
     speed = [None] * n
     if cur is not None:
         recent = (cur.last_valid >= 0) & (cur.track.fin - cur.last_valid <= fps)
@@ -213,6 +283,8 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
         }
         if poss_rows is not None:
             obj["possession"] = poss_rows[i]
+        if hr_rows is not None:
+            obj.update(hr_rows[i])
         players[pl.id] = obj
 
     elapsed_s = sum((max(p.last_slot, 0) + 1) / fps for p in periods) if periods else 0.0
@@ -267,6 +339,12 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
         "frames": state.frames,
         "coverage": {pl.id: cov_r[i] for i, pl in enumerate(roster.players)},
     }
+    if heart is not None:
+        health["hr_coverage"] = _hr_health(state, on_pitch)
+    if heart is not None or state.hr_rejected or state.hr_duplicates or state.hr_late:
+        health["hr_rejected"] = state.hr_rejected
+        health["hr_duplicates"] = state.hr_duplicates
+        health["hr_late"] = state.hr_late
     return {
         "match_id": roster.match_id,
         "match_time_s": round(state.match_time_s(), 2),

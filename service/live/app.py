@@ -191,8 +191,27 @@ def create_app(opts: ServerOptions) -> FastAPI:
             runner.event_message(done[-1])
         return JSONResponse({"applied": len(done)})
 
-    @app.websocket("/ingest/{match_id}")
-    async def ws_ingest(ws: WebSocket, match_id: str = ID) -> None:
+    @app.post("/api/matches/{match_id}/hr")
+    async def post_hr(request: Request, match_id: str = ID) -> Response:
+        """Heart-rate samples (docs/wearables.md): JSON Lines, or one JSON array."""
+        if not can_write(_token(request.headers, request.query_params)):
+            return unauthorised()
+        runner = matches.get(match_id)
+        if runner is None:
+            return unknown(match_id)
+        body = await read_body(request)
+        if isinstance(body, Response):
+            return body
+        data: bytes | list[bytes] = body if body.lstrip()[:1] == b"[" else body.split(b"\n")
+        if isinstance(data, list) and len(data) > srv.max_batch_frames + 1:
+            return _error(413, "too_many_samples", f"more than {srv.max_batch_frames} samples in one batch")
+        out = await runner.ingest_hr(data, durable=True)
+        if not out.stored:
+            return _error(503, "not_stored", runner.hr_recorder.error or "the recording cannot be written", **out.as_dict())
+        return JSONResponse(out.as_dict())
+
+    async def ingest_socket(ws: WebSocket, match_id: str, hr: bool) -> None:
+        """A provider's socket: frames (or heart-rate samples) in, an ``error`` message per refusal out."""
         await ws.accept()  # accept first, so the refusal is a close code the client can read
         if not can_write(_token(ws.headers, ws.query_params)):
             await ws.close(code=1008, reason="unauthorised")
@@ -203,6 +222,7 @@ def create_app(opts: ServerOptions) -> FastAPI:
                                                      message=f"no match {match_id!r}")).decode())
             await ws.close(code=1008)
             return
+        recorder = runner.hr_recorder if hr else runner.recorder
         try:
             while True:
                 msg = await ws.receive()
@@ -213,15 +233,23 @@ def create_app(opts: ServerOptions) -> FastAPI:
                     data = msg.get("bytes")
                 if data is None:
                     continue
-                out = await runner.ingest_message(data)
+                out = await (runner.ingest_hr(data, durable=False) if hr else runner.ingest_message(data))
                 errs = [e.as_dict() for e in out.errors]
                 if not out.stored:
-                    errs.append({"code": "not_stored", "message": runner.recorder.error or "the recording cannot be written"})
+                    errs.append({"code": "not_stored", "message": recorder.error or "the recording cannot be written"})
                 for e in errs:
                     await ws.send_text(orjson.dumps(envelope("error", match_id, 0, runner.state.match_time_s(),
                                                              runner.state.period_name(), **e)).decode())
         except WebSocketDisconnect:
             return
+
+    @app.websocket("/ingest/{match_id}")
+    async def ws_ingest(ws: WebSocket, match_id: str = ID) -> None:
+        await ingest_socket(ws, match_id, hr=False)
+
+    @app.websocket("/ingest/{match_id}/hr")
+    async def ws_ingest_hr(ws: WebSocket, match_id: str = ID) -> None:
+        await ingest_socket(ws, match_id, hr=True)
 
     # -- reads -----------------------------------------------------------------------------------
     @app.get("/api/matches")

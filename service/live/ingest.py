@@ -26,6 +26,7 @@ from service.live.broadcaster import Broadcaster
 from service.live.recorder import Recorder, RecorderError, write_json_atomic
 from service.live.reporting import Followup
 from service.wire.cdf import DecodeResult, FrameDecoder, FrameError
+from service.wire.heart import HrDecoder, HrResult
 
 log = logging.getLogger("pacewire.ingest")
 
@@ -74,11 +75,14 @@ class MatchRunner:
         self.state = MatchState(roster, settings)
         self.decoder = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
         self.recorder = Recorder(folder, settings.server.fsync_interval_s)
+        # heart-rate channel (docs/wearables.md): its own decoder and file, the same engine queue
+        self.hr_decoder = HrDecoder(roster, self.state.heart_params)
+        self.hr_recorder = Recorder(folder, settings.server.fsync_interval_s, "hr.jsonl")
         srv = settings.server
         self.broadcaster = Broadcaster(self.match_id, self.snapshot_body, srv.resume_buffer_s, srv.subscriber_queue,
                                        srv.max_subscribers, on_message=self.hooks.messages_out,
                                        on_drop=self.hooks.dropped)
-        self._queue: asyncio.Queue[tuple[DecodeResult, float]] = asyncio.Queue()
+        self._queue: asyncio.Queue[tuple[DecodeResult | HrResult, float]] = asyncio.Queue()
         self._tasks: list[asyncio.Task] = []
         self.score = [0, 0]
         self.events: list[dict[str, Any]] = []
@@ -95,6 +99,7 @@ class MatchRunner:
     # -- life cycle ------------------------------------------------------------------
     def start(self) -> None:
         self.recorder.start()
+        self.hr_recorder.start()
         self._tasks = [asyncio.create_task(self._apply_loop(), name=f"apply:{self.match_id}"),
                        asyncio.create_task(self._health_loop(), name=f"health:{self.match_id}"),
                        asyncio.create_task(self.followup.watch(), name=f"followup:{self.match_id}")]
@@ -108,6 +113,7 @@ class MatchRunner:
             except (asyncio.CancelledError, Exception):
                 pass
         await self.recorder.stop()
+        await self.hr_recorder.stop()
 
     # -- recovery ------------------------------------------------------------------------
     def recover(self) -> int:
@@ -124,6 +130,12 @@ class MatchRunner:
                         batch = []
                 if batch:
                     n += self._recover_batch(batch)
+        hr = self.folder / "hr.jsonl"
+        if hr.exists():
+            with open(hr, "rb") as fh:
+                res = self.hr_decoder.decode_lines(fh)
+            res.rejected = res.duplicates = res.late = 0  # live drops come from counters.json
+            self.state.ingest_heart(res)
         ev = self.folder / "events.jsonl"
         if ev.exists():
             for line in ev.read_bytes().splitlines():
@@ -138,6 +150,9 @@ class MatchRunner:
                 self.state.health.rejected += int(c.get("rejected", 0))
                 self.state.health.duplicates += int(c.get("duplicates", 0))
                 self.state.health.late += int(c.get("late", 0))
+                self.state.hr_rejected += int(c.get("hr_rejected", 0))
+                self.state.hr_duplicates += int(c.get("hr_duplicates", 0))
+                self.state.hr_late += int(c.get("hr_late", 0))
             except (orjson.JSONDecodeError, ValueError, TypeError):
                 pass
         # recovered frames carry no arrival time: health starts afresh with the next frame
@@ -161,8 +176,10 @@ class MatchRunner:
     def save_counters(self) -> None:
         h = self.state.health
         try:
+            st = self.state
             write_json_atomic(self.folder / "counters.json",
-                              {"rejected": h.rejected, "duplicates": h.duplicates, "late": h.late})
+                              {"rejected": h.rejected, "duplicates": h.duplicates, "late": h.late,
+                               "hr_rejected": st.hr_rejected, "hr_duplicates": st.hr_duplicates, "hr_late": st.hr_late})
         except OSError:
             pass
 
@@ -209,6 +226,44 @@ class MatchRunner:
         self.hooks.frames_in(len(res.block))
         return out
 
+    async def ingest_hr(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
+        """Heart-rate samples: JSON Lines (a list of lines, HTTP) or one WebSocket message
+        (an object or an array); answered once the accepted samples are recorded."""
+        arrival = time.time()
+        dec = self.hr_decoder
+        cp = dec.gate.checkpoint()
+        if isinstance(data, list):
+            res = dec.decode_lines(data)
+            raw = [data[i].strip() for i in res.accepted]
+        else:
+            try:
+                obj = orjson.loads(data)
+            except orjson.JSONDecodeError as exc:
+                res = HrResult.empty([FrameError("bad_json", f"not valid JSON: {exc}")], rejected=1)
+                obj = []
+            else:
+                objs = obj if isinstance(obj, list) else [obj]
+                res = dec.decode_objects(objs)
+                raw = [orjson.dumps(objs[i]) for i in res.accepted]
+        out = IngestOutcome(len(res), res.rejected, res.duplicates, res.late, res.errors)
+        st = self.state
+        st.hr_rejected += res.rejected
+        st.hr_duplicates += res.duplicates
+        st.hr_late += res.late
+        res.rejected = res.duplicates = res.late = 0  # counted here, once
+        if out.rejected or out.duplicates or out.late:
+            self.broadcaster.invalidate()
+        if not len(res):
+            return out
+        try:
+            await self.hr_recorder.append(raw, durable=durable, after=lambda: self._queue.put_nowait((res, arrival)))
+        except RecorderError:
+            dec.gate.restore(cp)
+            out.accepted = 0
+            out.stored = False
+            self._set_health_now()
+        return out
+
     def _count(self, res: DecodeResult) -> None:
         h = self.state.health
         h.rejected += res.rejected
@@ -223,7 +278,18 @@ class MatchRunner:
             items = [first]
             while not self._queue.empty():
                 items.append(self._queue.get_nowait())
-            merged = DecodeResult.merge([r for r, _ in items])
+            hr = [r for r, _ in items if isinstance(r, HrResult)]
+            if hr:
+                items = [it for it in items if not isinstance(it[0], HrResult)]
+                try:
+                    self.state.ingest_heart(HrResult.merge(hr))  # figures depend on timestamps only, not on order
+                except Exception:
+                    log.exception("%s: engine failed on heart-rate samples; skipped", self.match_id)
+                if not items:
+                    self.broadcaster.invalidate()
+                    self.broadcaster.tick()
+                    continue
+            merged = DecodeResult.merge([r for r, _ in items])  # type: ignore[misc]
             merged.rejected = merged.duplicates = merged.late = 0  # counted at decode time
             t0 = time.perf_counter()
             try:
@@ -258,7 +324,7 @@ class MatchRunner:
 
     # -- health ----------------------------------------------------------------------------------
     def extra_reasons(self) -> list[dict[str, str]]:
-        return [{"code": "recorder", "message": self.recorder.error}] if self.recorder.error else []
+        return [{"code": "recorder", "message": rec.error} for rec in (self.recorder, self.hr_recorder) if rec.error]
 
     def _set_health_now(self) -> None:
         self.broadcaster.invalidate()

@@ -106,6 +106,7 @@ def figures_at(folder: Path, settings: Settings, match_id: str, at_s: float,
     Blocking: run it in a thread."""
     rec = open_recording(folder)
     state, decoder = new_match(rec.meta, rec.sheet, settings, match_id)
+    add_heart_rate(state, rec)  # samples after the cut stay pending: tracking never reaches them
     fps = state.fps
     for first, lines in rec.batches():
         res = decoder.decode_lines(lines, first_line=first)

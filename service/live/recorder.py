@@ -39,11 +39,11 @@ def write_json_atomic(path: Path, obj: Any) -> None:
 
 
 class Recorder:
-    """Append-only writer for one match's ``tracking.jsonl`` (and ``events.jsonl``)."""
+    """Append-only writer for one match's ``tracking.jsonl`` (or ``hr.jsonl``), and ``events.jsonl``."""
 
-    def __init__(self, folder: Path, fsync_interval_s: float) -> None:
+    def __init__(self, folder: Path, fsync_interval_s: float, name: str = "tracking.jsonl") -> None:
         self.folder = folder
-        self.path = folder / "tracking.jsonl"
+        self.path = folder / name
         self.events_path = folder / "events.jsonl"
         self.fsync_interval_s = fsync_interval_s
         self._queue: asyncio.Queue[_Job] = asyncio.Queue()

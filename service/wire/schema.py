@@ -66,7 +66,33 @@ class WindowFigures(_Shape):
     metabolic_power_wkg: float | None = Field(description="Mean metabolic power, W/kg; null before any time on the pitch.")
 
 
-class Window(WindowFigures):
+HR_ZONE_KEY = r"^[0-9]+(\.[0-9]+)?-[0-9]+(\.[0-9]+)?%$"
+
+
+class HeartWindow(_Shape):
+    """Heart-rate figures over a stretch of play; present once the match has heart-rate samples
+    (docs/wearables.md). Estimates from a strap: decisions stay with qualified staff."""
+
+    hr_mean_bpm: float | None = Field(None, description="Time-weighted mean heart rate, bpm; null without credited samples.")
+    trimp_edwards: float | None = Field(None, ge=0, description="Edwards' TRIMP: minutes in the 50-60 ... 90-100 % HRmax "
+                                                                "zones weighted 1-5, AU (Edwards 1993); null without hr_max_bpm.")
+    trimp_banister: float | None = Field(None, ge=0, description="Banister's TRIMP: minutes x HRr x a*exp(b*HRr), AU "
+                                                                 "(Banister 1991); null without hr_max_bpm, hr_rest_bpm and sex.")
+
+
+class HeartZones(_Shape):
+    """Seconds in each heart-rate zone, % of HRmax (``50-60%`` ... ``90-100%``; Edwards 1993)."""
+
+    model_config = ConfigDict(json_schema_extra={"patternProperties": {HR_ZONE_KEY: {"type": "number", "minimum": 0}}})
+
+
+class HeartFigures(HeartWindow):
+    hr_zones: HeartZones | None = Field(None, description="Seconds per heart-rate zone; null without hr_max_bpm.")
+    hr_coverage: float | None = Field(None, ge=0, le=1, description="Heart-rate samples credited / (seconds on the pitch "
+                                                                    "x expected rate); null before time on the pitch.")
+
+
+class Window(WindowFigures, HeartWindow):
     """A rolling window (``last_Nmin``), a fixed block (``block_A_B``) or a peak (``peak_Nmin``)."""
 
     span_s: float = Field(ge=0, description="Seconds of play the window covers (shorter than N minutes early on).")
@@ -80,7 +106,7 @@ class Zones(_Shape):
     model_config = ConfigDict(json_schema_extra={"patternProperties": {ZONE_KEY: {"type": "number", "minimum": 0}}})
 
 
-class PeriodFigures(WindowFigures):
+class PeriodFigures(WindowFigures, HeartFigures):
     """A player's figures over one stretch of the match (the whole match, or one period)."""
 
     minutes: float = Field(ge=0, description="Minutes on the pitch.")
@@ -117,6 +143,11 @@ class Player(PeriodFigures):
                     "match clock, minutes A to B.")
     periods: dict[Period, PeriodFigures] = Field(description="The same figures per period played.")
     possession: Possession = Field(None, description="Distance by ball context; present when the feed has possession.")
+    hr_bpm: float | None = Field(None, description="Latest heart rate, bpm; null when older than heart_rate.stale_s.")
+    hr_pct_max: float | None = Field(None, description="hr_bpm as % of the player's HRmax; null without hr_max_bpm.")
+    hr_peak_bpm: float | None = Field(None, description="Highest accepted heart rate, bpm.")
+    hr_omitted: dict[str, str] = Field(None, description="Heart-rate figures left out for this player, each with why "
+                                                         "(a profile value is missing).")
 
 
 class PerPlayer(_Shape):
@@ -172,6 +203,11 @@ class Health(_Shape):
     jumps: int = Field(ge=0, description="Implausible position steps (> 12.5 m/s) rejected, count.")
     frames: int = Field(ge=0, description="Frames applied, count.")
     coverage: dict[str, float] = Field(description="Per player id: credited samples / samples on the pitch, 0-1.")
+    hr_coverage: dict[str, float | None] = Field(None, description="Per player on the pitch: heart-rate samples over the "
+                                                                   "last minute / expected (a strap dropping out shows here).")
+    hr_rejected: int = Field(None, ge=0, description="Heart-rate samples refused (implausible, jumps, bad shape), count.")
+    hr_duplicates: int = Field(None, ge=0, description="Heart-rate samples dropped as repeats, count.")
+    hr_late: int = Field(None, ge=0, description="Heart-rate samples dropped as older than the player's last, count.")
 
 
 class SnapshotBody(_Shape):
