@@ -9,7 +9,7 @@ from typing import Any, Callable
 from replay.recording import Recording, open_recording
 from service.config import Settings, load_settings
 from service.engine.match import MatchState
-from service.wire.cdf import FrameDecoder, FrameError, parse_setup
+from service.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
 from service.wire.heart import HrDecoder
 
 
@@ -32,7 +32,7 @@ class StrictError(ValueError):
 def new_match(meta: dict[str, Any], sheet: dict[str, Any], settings: Settings,
               match_id: str | None = None) -> tuple[MatchState, FrameDecoder]:
     """Engine state and decoder for a match set up from CDF meta + sheet."""
-    roster = parse_setup(meta, sheet, match_id)
+    roster = parse_setup(meta, sheet, match_id, gnss_tolerances(settings))
     decoder = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
     return MatchState(roster, settings), decoder
 

@@ -6,6 +6,7 @@ centre spot, x along the touchlines, y along the goal lines; NaN is "not seen".
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -49,6 +50,9 @@ class Roster:
     pitch_length_m: float = 105.0
     pitch_width_m: float = 68.0
     team_names: tuple[str, str] = ("", "")
+    # GNSS pitch calibration as set up (compared), and the projection built from it (docs/wearables.md)
+    gnss_pitch: Any = None
+    projection: Any = field(default=None, repr=False, compare=False)
     index: dict[str, int] = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:

@@ -11,7 +11,7 @@ import orjson
 from service.config import Settings
 from service.live.ingest import Hooks, MatchRunner
 from service.live.recorder import write_json_atomic
-from service.wire.cdf import parse_setup
+from service.wire.cdf import gnss_tolerances, parse_setup
 
 log = logging.getLogger("pacewire.matches")
 
@@ -41,7 +41,7 @@ class Matches:
     def setup(self, match_id: str, meta: Any, sheet: Any) -> tuple[MatchRunner, bool]:
         """Create (or confirm) a match; returns (runner, created). Raises SetupError, SetupConflict."""
         folder = self.folder(match_id)
-        roster = parse_setup(meta, sheet, match_id)
+        roster = parse_setup(meta, sheet, match_id, gnss_tolerances(self.settings))
         existing = self.runners.get(match_id)
         if existing is not None:
             if existing.roster == roster:
@@ -70,7 +70,7 @@ class Matches:
             try:
                 meta = orjson.loads((folder / "meta.json").read_bytes())
                 sheet = orjson.loads((folder / "match.json").read_bytes())
-                roster = parse_setup(meta, sheet, folder.name)
+                roster = parse_setup(meta, sheet, folder.name, gnss_tolerances(self.settings))
             except (OSError, ValueError) as exc:
                 log.warning("skipping %s: %s", folder, exc)
                 continue

@@ -18,6 +18,7 @@ import orjson
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
 from service.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
+from service.wire.gnss import CalibrationError, PitchProjection, check_venue, parse_calibration
 
 PeriodName = Literal["first_half", "second_half", "first_half_extratime", "second_half_extratime", "shootout"]
 
@@ -58,8 +59,9 @@ class MetaMatch(_Open):
 
 
 class MetaVenue(_Open):
-    pitch_length: float = Field(default=105.0, gt=50, lt=130)
-    pitch_width: float = Field(default=68.0, gt=30, lt=100)
+    pitch_length: float | None = Field(default=None, gt=50, lt=130)  # 105 m when not given
+    pitch_width: float | None = Field(default=None, gt=30, lt=100)  # 68 m when not given
+    gnss_pitch: Any = None  # pacewire extension: GNSS pitch calibration (service/wire/gnss.py)
 
 
 class CdfMeta(_Open):
@@ -138,8 +140,10 @@ class SetupError(ValueError):
     """Meta and sheet do not describe one match."""
 
 
-def roster_from_setup(setup: MatchSetup, match_id: str | None = None) -> Roster:
-    """Build the engine roster; the sheet's team ids must equal the meta's."""
+def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
+                      gnss_tolerances: tuple[float, float] = (0.01, 1.0)) -> Roster:
+    """Build the engine roster; the sheet's team ids must equal the meta's.
+    ``gnss_tolerances``: (side, angle in degrees) for a GNSS calibration (config ``[gnss]``)."""
     meta, sheet = setup.meta, setup.sheet
     mid = match_id or meta.match.id
     if match_id is not None and meta.match.id != match_id:
@@ -161,20 +165,36 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None) -> Roster:
             ))
     names = tuple(getattr(sheet.teams, s).name or getattr(meta.teams, s).name or getattr(sheet.teams, s).short_name or ""
                   for s in ("home", "away"))
+    venue = meta.venue
+    length, width = venue.pitch_length or 105.0, venue.pitch_width or 68.0
+    cal = projection = None
+    if venue.gnss_pitch is not None:
+        try:
+            cal = parse_calibration(venue.gnss_pitch)
+            projection = PitchProjection.from_calibration(cal, *gnss_tolerances)
+            length, width = check_venue(projection, venue.pitch_length, venue.pitch_width)
+        except CalibrationError as exc:
+            raise SetupError(f"meta.{exc}") from None
     return Roster(
         match_id=mid, team_ids=team_ids, players=tuple(players), fps=meta.meta.tracking.fps,
-        pitch_length_m=meta.venue.pitch_length, pitch_width_m=meta.venue.pitch_width,
-        team_names=names,  # type: ignore[arg-type]
+        pitch_length_m=length, pitch_width_m=width,
+        team_names=names, gnss_pitch=cal, projection=projection,  # type: ignore[arg-type]
     )
 
 
-def parse_setup(meta: Any, sheet: Any, match_id: str | None = None) -> Roster:
+def parse_setup(meta: Any, sheet: Any, match_id: str | None = None,
+                gnss_tolerances: tuple[float, float] = (0.01, 1.0)) -> Roster:
     """Validate raw meta + sheet dicts; raises SetupError with a readable reason."""
     try:
         setup = MatchSetup.model_validate({"meta": meta, "sheet": sheet})
     except ValidationError as exc:
         raise SetupError(describe_validation(exc)) from None
-    return roster_from_setup(setup, match_id)
+    return roster_from_setup(setup, match_id, gnss_tolerances)
+
+
+def gnss_tolerances(settings: Any) -> tuple[float, float]:
+    """(side, angle in degrees) of the config's ``[gnss]`` section, for :func:`parse_setup`."""
+    return settings.gnss.side_tolerance, settings.gnss.angle_tolerance_deg
 
 
 def describe_validation(exc: ValidationError) -> str:
@@ -333,6 +353,7 @@ class FrameDecoder:
         self.x_lim = max(roster.pitch_length_m / 2 + outside_margin_m, 65.0)
         self.y_lim = max(roster.pitch_width_m / 2 + outside_margin_m, 42.5)
         self._team_index = {tid: i for i, tid in enumerate(roster.team_ids)}
+        self.projection = roster.projection  # GNSS fixes -> pitch metres, when the set-up has a calibration
         # player id -> roster index, per side: a player under the wrong team is not found
         self._side_index = tuple({p.id: i for i, p in enumerate(roster.players) if p.team == side} for side in (0, 1))
 
@@ -470,8 +491,15 @@ class FrameDecoder:
     def _players(self, team: dict[str, Any], side: int, row: int,
                  s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> None:
         plist = team["players"]
+        if self.projection is not None:
+            return self._players_gnss(plist, side, row, s_f, s_p, s_x, s_y)
         if self._players_fast(plist, side, row, s_f, s_p, s_x, s_y):
             return
+        self._players_exact(plist, side, row, s_f, s_p, s_x, s_y)
+
+    def _players_exact(self, plist: list[Any], side: int, row: int,
+                       s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> None:
+        """Per-player checks that name what is wrong."""
         index = self.roster.index
         players = self.roster.players
         x_lim, y_lim = self.x_lim, self.y_lim
@@ -489,6 +517,9 @@ class FrameDecoder:
             x = pl.get("x")
             y = pl.get("y")
             if x is None or y is None:
+                if pl.get("lat") is not None or pl.get("long") is not None:
+                    raise _Reject("no_calibration", f"player {pid!r} has lat/long but no x/y, and the match set-up "
+                                                    "has no GNSS pitch calibration (meta venue.gnss_pitch)")
                 if "x" not in pl or "y" not in pl:
                     raise _Reject("missing_field", f"player {pid!r} lacks x or y")
                 continue  # null: not seen this frame (the schema allows it)
@@ -500,6 +531,48 @@ class FrameDecoder:
             s_p.append(i)
             s_x.append(x)
             s_y.append(y)
+
+    def _players_gnss(self, plist: list[Any], side: int, row: int,
+                      s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> None:
+        """A match with a GNSS calibration: entries with lat/long are projected to pitch metres
+        (one vectorised call per team and frame); entries without them use x/y."""
+        gnss: list[tuple[int, str, float, float]] = []
+        plain: list[Any] = []
+        index, players = self.roster.index, self.roster.players
+        for pl in plist:
+            if type(pl) is not dict:
+                raise _Reject("bad_type", "a player entry must be an object")
+            lat, lon = pl.get("lat"), pl.get("long")
+            if lat is None and lon is None:
+                plain.append(pl)
+                continue
+            pid = pl.get("id")
+            if type(pid) is not str:
+                raise _Reject("bad_type" if "id" in pl else "missing_field", "a player entry needs a string id")
+            i = index.get(pid)
+            if i is None:
+                raise _Reject("unknown_player", f"player {pid!r} is not in the match sheet")
+            if players[i].team != side:
+                raise _Reject("unknown_player", f"player {pid!r} is listed under the other team")
+            if type(lat) not in _NUM or type(lon) not in _NUM or not (math.isfinite(lat) and math.isfinite(lon)):
+                raise _Reject("bad_type", f"player {pid!r} lat/long must both be numbers")
+            if not (-90.0 <= lat <= 90.0 and -180.0 <= lon <= 180.0):
+                raise _Reject("bad_value", f"player {pid!r} at lat {lat}, long {lon} is not a WGS 84 position")
+            gnss.append((i, pid, lat, lon))
+        if plain:
+            self._players_exact(plain, side, row, s_f, s_p, s_x, s_y)
+        if not gnss:
+            return
+        xs, ys = self.projection.to_pitch(np.array([g[2] for g in gnss]), np.array([g[3] for g in gnss]))
+        bad = np.flatnonzero((np.abs(xs) > self.x_lim) | (np.abs(ys) > self.y_lim))
+        if bad.size:
+            k = int(bad[0])
+            raise _Reject("out_of_pitch", f"player {gnss[k][1]!r} at lat {gnss[k][2]}, long {gnss[k][3]} is "
+                                          f"{float(xs[k]):.1f}, {float(ys[k]):.1f} m from the centre spot: far outside the pitch")
+        s_f.extend([row] * len(gnss))
+        s_p.extend(g[0] for g in gnss)
+        s_x.extend(xs.tolist())
+        s_y.extend(ys.tolist())
 
     def _players_fast(self, plist: list[Any], side: int, row: int,
                       s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> bool:
