@@ -21,8 +21,8 @@ import orjson
 from service.engine import exertion as ex
 from service.engine.blocks import BlockSeries
 from service.reports import charts
-from service.reports.page import page
-from service.reports.table import player_order, to_csv
+from service.reports.page import page, zone_names
+from service.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
 from service.wire.messages import envelope
 
 KINDS = ("half_time", "full_time")
@@ -75,14 +75,16 @@ def draw_charts(snapshot: dict[str, Any], series: BlockSeries) -> dict[str, str]
     order = player_order(snapshot)
     out: dict[str, str] = {}
     teams = []
-    for tid, t in snapshot["teams"].items():
+    tracked = tracked_teams(snapshot)  # an untracked team (one-team feed) gets no line, bar or map
+    heart = has_heart_rate(snapshot)
+    for tid, t in tracked:
         mask = np.array([players[i]["team_id"] == tid and not players[i]["is_goalkeeper"] for i in ids], bool)
         teams.append((t["name"] or tid, t["side"], mask))
     if len(series):
         out["team-intensity"] = charts.team_intensity(series, teams)
     windows = sorted({int(k[5:-3]) for p in players.values() for k, v in (p.get("windows") or {}).items()
                       if k.startswith("peak_") and v is not None and int(k[5:-3]) <= 5})
-    for tid, t in snapshot["teams"].items():
+    for tid, t in tracked:
         played = [(pid, players[pid]) for pid in order if players[pid]["team_id"] == tid and players[pid]["minutes"]]
         if not played:
             continue
@@ -93,10 +95,12 @@ def draw_charts(snapshot: dict[str, Any], series: BlockSeries) -> dict[str, str]
         out[f"bars-{tid}"] = charts.player_bars(played, name)
         if windows:
             out[f"peaks-{tid}"] = charts.peak_timeline(played, windows, name)
+        if heart and any(p.get("hr_zones") for _, p in played):
+            out[f"hr-zones-{tid}"] = charts.hr_zones(played, zone_names(played), name)
     poss = outfield_possession(snapshot)
     if poss:
         out["possession"] = charts.possession_split(
-            [(t["name"] or tid, t["side"], poss.get(tid, {})) for tid, t in snapshot["teams"].items()])
+            [(t["name"] or tid, t["side"], poss.get(tid, {})) for tid, t in tracked])
     return out
 
 

@@ -24,6 +24,7 @@ SIDE = {"home": "#12706b", "away": "#c8553d"}
 BANDS = {"below": "#b9c7bd", "hsr": "#e0a526", "sprint": "#8e3b46"}
 MAP_DIST = ("#f6f1e4", "#a9cfb2", "#2f7d6d", "#123535")
 MAP_HSR = ("#f6f1e4", "#f0c05a", "#c8553d", "#4f1a26")
+HR_ZONE_COLOURS = ("#cfdcd2", "#8fbf9f", "#e0a526", "#c8553d", "#6e2433")  # % HRmax zones, easy to hard
 
 _LOCK = threading.Lock()  # rcParams are process-wide
 _PROLOG = re.compile(r"^.*?(?=<svg\b)", re.S)
@@ -211,3 +212,26 @@ def possession_split(teams: list[tuple[str, str, dict[str, float]]]) -> str:
         _legend(ax, 3)
 
     return render("possession", draw, (7.2, 1.6), (1.5, 0.15, 0.3, 0.45))
+
+
+def hr_zones(players: list[tuple[str, dict[str, Any]]], zones: list[str], team: str) -> str:
+    """Time in each zone of % HRmax per player (minutes, stacked, easy to hard). Players
+    without zones (no HRmax, or no heart rate credited) keep their row, empty."""
+    names = [player_label(pid, p) for pid, p in players]
+    mins = np.array([[((p.get("hr_zones") or {}).get(z) or 0.0) / 60.0 for z in zones] for _, p in players], float)
+    y = np.arange(len(players))
+
+    def draw(fig: Any) -> None:
+        ax = fig.subplots()
+        left = np.zeros(len(players))
+        for k, z in enumerate(zones):
+            ax.barh(y, mins[:, k], left=left, color=HR_ZONE_COLOURS[k % len(HR_ZONE_COLOURS)], label=z)
+            left += mins[:, k]
+        ax.set_yticks(y, names, fontsize=7)
+        ax.set_ylim(len(players) - 0.5, -0.5)
+        ax.set_xlabel("minutes in each zone of % HRmax")
+        ax.grid(axis="x", color=GRID, lw=0.6)
+        ax.set_title(f"{team}: heart-rate zones")
+        _legend(ax, len(zones))
+
+    return render(f"hr-zones-{team}", draw, (7.2, 0.8 + 0.17 * max(len(players), 1)), (1.35, 0.15, 0.45, 0.4))

@@ -67,13 +67,14 @@ def _size(rec: Recording) -> int:
 def run_recording(folder: str | Path, settings: Settings, progress: bool = True,
                   batch: int = 1500) -> tuple[MatchState, Recording, int]:
     """Run a recording through the engine (as ``pacewire analyze`` does) with a progress
-    bar on stderr. Returns (finished state, recording, bad lines skipped)."""
-    from service.analyze import new_match
+    bar on stderr. Returns (finished state, recording, bad lines skipped). Heart-rate samples
+    (hr.jsonl) go in first: they count as tracking reaches their time, as live."""
+    from service.analyze import add_heart_rate, new_match
 
     rec = open_recording(folder)
     state, decoder = new_match(rec.meta, rec.sheet, settings)
+    bad = len(add_heart_rate(state, rec))
     bar = ProgressBar(_size(rec), f"{state.roster.match_id}: frames") if progress else None
-    bad = 0
     for first, lines in rec.batches(batch):
         res = decoder.decode_lines(lines, first_line=first)
         bad += len(res.errors)
@@ -82,7 +83,7 @@ def run_recording(folder: str | Path, settings: Settings, progress: bool = True,
             bar.update(sum(len(line) for line in lines))
     state.finish()
     if bar is not None:
-        bar.close(f"{state.frames} frames, {bad} bad lines skipped")
+        bar.close(f"{state.frames} frames, {bad} bad lines skipped")  # tracking and heart-rate lines
     return state, rec, bad
 
 
@@ -90,12 +91,18 @@ def state_until(state: MatchState, period_index: int) -> MatchState:
     """The state as it stood when period ``period_index`` ended: later periods left out.
 
     Ended periods never change again, so a shallow copy sharing them is safe;
-    the copy gets its own snapshot cache."""
+    the copy gets its own snapshot cache. Heart-rate sums are kept per period
+    too: the view keeps those of its periods only. (The latest and the peak
+    bpm are the match's as received: the engine keeps no per-period copy.)"""
     if state.current is None or state.current.index <= period_index:
         return state
     view = copy.copy(state)
     view.periods = [p for p in state.periods if p.index <= period_index]
     view.__dict__.pop("_snapshot_cache", None)
+    heart = getattr(state, "heart", None)
+    if heart is not None:
+        view.heart = copy.copy(heart)
+        view.heart.bins = {k: b for k, b in heart.bins.items() if k <= period_index}
     return view
 
 
@@ -166,7 +173,7 @@ def cli_report(args: argparse.Namespace) -> int:
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
-    p.add_argument("folder", help="a CDF folder (meta.json, match.json, tracking.jsonl[.gz])")
+    p.add_argument("folder", help="a CDF folder (meta.json, match.json, tracking.jsonl[.gz], hr.jsonl if any)")
     p.add_argument("--out", required=True, help="folder for half_time/ and full_time/")
     p.add_argument("--config", help="a TOML file overriding config/default.toml")
     p.add_argument("--quiet", action="store_true", help="no progress bar")

@@ -5,13 +5,18 @@ import html
 import time
 from typing import Any
 
-from service.reports.table import player_order
+from service.reports.table import has_heart_rate, one_team, player_order, tracked_teams
 
 HEALTH_CAUTION = ("Figures are estimates from positional data; decisions on injury, return-to-play and "
                   "substitution stay with the club's qualified medical and performance staff.")
 LIVE_CAVEAT = ("Live figures tend to run below post-match reprocessing of the same match; coverage says how "
                "much of each player's time on the pitch the feed saw.")
+HR_CAVEAT = ("Heart-rate figures come from the players' straps; a strap that drops out lowers its coverage "
+             "and leaves time uncounted: read low coverage as missing data, never as a low heart rate.")
 TITLES = {"half_time": "Half-time report", "full_time": "Full-time report"}
+# docs/wearables.md: the five zones of % HRmax (Edwards 1993), named as the snapshot names them
+HR_ZONES = ("50-60%", "60-70%", "70-80%", "80-90%", "90-100%")
+OMITTED_MARK = "\u2014"  # em dash: left out for lack of a profile (an en dash is "no value")
 
 CSS = """
 :root{--ink:#1f2a30;--paper:#fbf8f1;--sand:#efe7d4;--grid:#ddd6c6;--muted:#6b7479;--home:#12706b;--away:#c8553d;
@@ -31,12 +36,18 @@ align-items:baseline} h2 .n{color:var(--muted);font-weight:500;font-size:12px}
 h3{font-size:13px;margin:16px 0 6px}
 .cautions{display:grid;grid-template-columns:1fr 1fr;gap:10px}
 .cautions p{margin:0;padding:8px 11px;border:1px solid var(--grid);border-top:3px solid var(--warn);background:#fff8}
-.cautions p.live{border-top-color:var(--hsr)}
+.cautions p.live{border-top-color:var(--hsr)} .cautions p.hr{grid-column:1/-1;border-top-color:var(--home)}
 table{border-collapse:collapse;width:100%;font-variant-numeric:tabular-nums;font-size:12px;margin:4px 0 10px}
 th,td{padding:3px 6px;text-align:right;border-bottom:1px solid var(--grid);white-space:nowrap}
 th{font-weight:650;font-size:11px;color:var(--muted);border-bottom:1.5px solid var(--ink)}
 td.l,th.l{text-align:left} tbody tr:nth-child(even){background:#f3ede0}
 td.low{color:var(--warn);font-weight:700} td.low::after{content:" \\25BE"}
+td.gaps{font-weight:700} td.gaps .tag{font-size:9.5px;font-weight:700;letter-spacing:.04em;text-transform:uppercase;
+border:1px dashed var(--warn);color:var(--warn);padding:0 3px;margin-left:4px;border-radius:2px}
+td.omitted{color:var(--muted);cursor:help}
+ul.why{margin:0 0 10px;padding-left:18px;color:var(--muted);font-size:11.5px}
+.tracking{display:inline-block;margin-left:.5em;padding:1px 7px;border:1.5px solid var(--ink);border-radius:2px;
+font-size:10.5px;font-weight:700;letter-spacing:.08em;text-transform:uppercase;vertical-align:middle}
 .teamhead th.home{color:var(--home)} .teamhead th.away{color:var(--away)}
 svg.chart{display:block;width:100%;height:auto;margin:6px 0 12px}
 .note{color:var(--muted);font-size:11.5px;margin:2px 0 8px}
@@ -83,7 +94,8 @@ def _table(head: list[tuple[str, str]], rows: list[list[tuple[str, str]]], head_
 
 
 def team_table(snapshot: dict[str, Any], possession: dict[str, dict[str, float]]) -> str:
-    teams = list(snapshot["teams"].items())
+    """Outfield totals, one column per tracked team (an untracked team has no figures, not zeros)."""
+    teams = tracked_teams(snapshot)
     head = [("outfield players", "l")] + [(t["name"] or tid, t["side"]) for tid, t in teams]
     lines: list[tuple[str, Any]] = [
         ("players used", lambda o: num(o["players"])),
@@ -158,6 +170,72 @@ def possession_table(players: list[tuple[str, dict[str, Any]]]) -> str:
     return _table(head, rows)
 
 
+def _clock_or_dash(v: Any) -> str:
+    return "–" if v is None else clock(v)
+
+
+def _omitted_cell(reason: str) -> tuple[str, str]:
+    """A figure left out for lack of a profile: an em dash, the reason on hover (and in the last column)."""
+    return f'<span title="{esc(reason)}">{OMITTED_MARK}</span>', "omitted"
+
+
+def zone_names(players: list[tuple[str, dict[str, Any]]]) -> list[str]:
+    """The zone names the snapshot uses (the contract's five when no player has zones yet)."""
+    for _, p in players:
+        if p.get("hr_zones"):
+            return list(p["hr_zones"])
+    return list(HR_ZONES)
+
+
+HR_LABELS = {"hr_pct_max": "% HRmax", "hr_zones": "zones", "trimp_edwards": "TRIMP Edwards",
+             "trimp_banister": "TRIMP Banister"}
+
+
+def omitted_groups(omitted: dict[str, str]) -> list[tuple[list[str], str]]:
+    """(figure labels, reason) with the figures that share a reason together, in first-seen order."""
+    groups: dict[str, list[str]] = {}
+    for fig, why in omitted.items():
+        groups.setdefault(why, []).append(HR_LABELS.get(fig, fig))
+    return [(figs, why) for why, figs in groups.items()]
+
+
+def heart_table(players: list[tuple[str, dict[str, Any]]], low_coverage: float) -> str:
+    """Per player: mean and peak bpm, time in each %HRmax zone (m:ss), Edwards and Banister TRIMP,
+    strap coverage (low coverage tagged as gaps, not as a low heart rate); a figure left out shows
+    an em dash, and a list under the table says, per player, which figures and why."""
+    zones = zone_names(players)
+    head = ([("#", ""), ("player", "l"), ("mean bpm", ""), ("peak bpm", "")] + [(z, "") for z in zones]
+            + [("TRIMP Edwards", ""), ("TRIMP Banister", ""), ("HR coverage", "")])
+    rows = []
+    notes = []
+    for pid, p in players:
+        omitted = p.get("hr_omitted") or {}
+        name = esc(p.get("name") or pid)
+        r = [(num(p["jersey_number"]), ""), (name, "l"), (num(p.get("hr_mean_bpm")), ""), (num(p.get("hr_peak_bpm")), "")]
+        hz = p.get("hr_zones") or {}
+        for z in zones:
+            r.append(_omitted_cell(omitted["hr_zones"]) if "hr_zones" in omitted else (_clock_or_dash(hz.get(z)), ""))
+        for fig in ("trimp_edwards", "trimp_banister"):
+            r.append(_omitted_cell(omitted[fig]) if fig in omitted else (num(p.get(fig), 1), ""))
+        cov = p.get("hr_coverage")
+        if cov is None:
+            r.append(("–", ""))
+        elif cov < low_coverage:
+            r.append((f'{cov:.0%}<span class="tag" title="strap dropped out: time missing, not a low heart rate">'
+                      f'gaps</span>', "gaps"))
+        else:
+            r.append((f"{cov:.0%}", ""))
+        groups = omitted_groups(omitted)
+        if groups:
+            notes.append(f'<li><strong>{num(p["jersey_number"])} {name}</strong>: ' + "; ".join(
+                f"{esc(', '.join(figs))}: {esc(why)}" for figs, why in groups) + "</li>")
+        rows.append(r)
+    out = _table(head, rows)
+    if notes:
+        out += f'<ul class="why">{"".join(notes)}</ul>'
+    return out
+
+
 def intensity_table(players: list[tuple[str, dict[str, Any]]], blocks: list[str],
                     per_min: dict[str, list[float | None]]) -> str:
     """Distance per minute on the pitch, per player and block (``per_min[player_id]``)."""
@@ -175,10 +253,13 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
          blocks: list[tuple[str, str]] | None = None, per_min: dict[str, list[float | None]] | None = None) -> str:
     """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``:
     (label, period) of each block; ``per_min``: each player's distance per minute in them."""
-    teams = list(snapshot["teams"].items())
+    teams = tracked_teams(snapshot)
+    every_team = list(snapshot["teams"].items())
+    single = one_team(snapshot)
+    heart = has_heart_rate(snapshot)
     title = TITLES.get(kind, kind)
-    names = [t["name"] or tid for tid, t in teams]
-    scores = [t.get("score") for _, t in teams]
+    names = [t["name"] or tid for tid, t in every_team]
+    scores = [t.get("score") for _, t in every_team]
     score = f"{scores[0]} – {scores[1]}" if None not in scores else "v"
     built = time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime(created_at))
     order = player_order(snapshot)
@@ -195,15 +276,21 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
         '<header class="masthead">',
         f'<div class="kicker">pacewire · {esc(title)}</div>',
         f'<h1><span class="home">{esc(names[0])}</span><span class="score">{esc(score)}</span>'
-        f'<span class="away">{esc(names[1])}</span></h1>',
+        f'<span class="away">{esc(names[1])}</span>'
+        + ('<span class="tracking" id="one-team">one team tracked</span>' if single else "") + "</h1>",
         f'<p class="meta">match {esc(snapshot["match_id"])} · clock {clock(snapshot.get("match_time_s"))} · '
-        f'figures from {esc(source)} data · built {esc(built)}</p>',
+        f'figures from {esc(source)} data · built {esc(built)}'
+        + (f' · one team tracked: {esc(teams[0][1]["name"] or teams[0][0])} only, so no opponent comparison'
+           if single else "") + "</p>",
         "</header>",
         '<section class="cautions" id="cautions">',
         f'<p class="health"><strong>Health caution.</strong> {esc(HEALTH_CAUTION)}</p>',
         f'<p class="live"><strong>Live data.</strong> {esc(LIVE_CAVEAT)}</p>',
+        f'<p class="hr"><strong>Heart rate.</strong> {esc(HR_CAVEAT)}</p>' if heart else "",
         "</section>",
-        '<section id="teams"><h2>Team comparison <span class="n">outfield players, goalkeepers excluded</span></h2>',
+        ('<section id="teams"><h2>Team figures <span class="n">one team tracked · outfield players, goalkeepers '
+         'excluded</span></h2>' if single else
+         '<section id="teams"><h2>Team comparison <span class="n">outfield players, goalkeepers excluded</span></h2>'),
         team_table(snapshot, possession), charts.get("possession", ""), "</section>",
         '<section id="intensity"><h2>Intensity over time</h2>', charts.get("team-intensity", ""),
         '<p class="note">Team lines: outfield distance and HSR per player-minute on the pitch in each block. '
@@ -248,6 +335,18 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
             parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
             parts.append(possession_table(played_by_team[tid]))
         parts.append("</section>")
+    if heart:
+        parts.append('<section id="heart"><h2>Heart rate <span class="n">time in zones of % HRmax (m:ss), '
+                     'TRIMP (Edwards 1993; Banister 1991)</span></h2>')
+        for tid, t in teams:
+            parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
+            parts.append(heart_table(played_by_team[tid], low_coverage))
+            parts.append(charts.get(f"hr-zones-{tid}", ""))
+        parts.append(f'<p class="note">Mean heart rate is time-weighted over the time the strap was credited. '
+                     f'HR coverage is the share of expected strap samples received while on the pitch; below '
+                     f'{low_coverage:.0%} it is tagged GAPS: the strap dropped out and that time is missing, which '
+                     f'is not a low heart rate. {OMITTED_MARK}: left out because the player\'s profile lacks '
+                     f'HRmax, resting HR or sex (the reasons are listed under the table).</p></section>')
     parts.append('<section id="feed"><h2>Feed</h2>')
     parts.append(_table([("feed", "l"), ("value", "")], [
         [("state at build", "l"), (esc(health.get("state")), "")],
@@ -257,7 +356,11 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
         [("duplicates", "l"), (num(health.get("duplicates")), "")],
         [("late frames", "l"), (num(health.get("late")), "")],
         [("position jumps removed", "l"), (num(health.get("jumps")), "")],
-    ]))
+    ] + ([
+        [("heart-rate samples refused", "l"), (num(health.get("hr_rejected")), "")],
+        [("heart-rate duplicates", "l"), (num(health.get("hr_duplicates")), "")],
+        [("heart-rate late samples", "l"), (num(health.get("hr_late")), "")],
+    ] if any(k in health for k in ("hr_rejected", "hr_duplicates", "hr_late")) else [])))
     parts.append("</section>")
     parts.append(f"<footer>{esc(HEALTH_CAUTION)} Report by pacewire; CSV and JSON copies sit beside this file.</footer>")
     parts += ["</main>", "</body>", "</html>"]

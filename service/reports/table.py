@@ -2,7 +2,8 @@
 
 Columns are the player object's leaves with dotted names (``distance_m``,
 ``windows.peak_5min.start_s``, ``periods.first_half.hsr_m``,
-``possession.in_possession.distance_m``, ``zones.5.5-7.0``), so the CSV holds
+``possession.in_possession.distance_m``, ``zones.5.5-7.0``, and with heart
+rate ``hr_mean_bpm``, ``hr_zones.80-90%``, ``hr_omitted.trimp_banister``), so the CSV holds
 every contract figure and reads back to exactly the snapshot's values:
 numbers as JSON writes them, ``true``/``false``, and an empty cell for null
 or absent.
@@ -36,6 +37,22 @@ def player_order(snapshot: dict[str, Any]) -> list[str]:
     players = snapshot["players"]
     return sorted(players, key=lambda pid: (teams.index(players[pid]["team_id"]) if players[pid]["team_id"] in teams
                                             else len(teams), players[pid]["jersey_number"], pid))
+
+
+def tracked_teams(snapshot: dict[str, Any]) -> list[tuple[str, dict[str, Any]]]:
+    """The teams the feed tracks, in snapshot order: a one-team (wearables) feed leaves the
+    other team with ``tracked: false`` and no ``outfield`` figures (docs/wearables.md)."""
+    return [(tid, t) for tid, t in snapshot["teams"].items() if t.get("tracked", True) and "outfield" in t]
+
+
+def one_team(snapshot: dict[str, Any]) -> bool:
+    """Only one team tracked: say so, and show no opponent comparison."""
+    return len(snapshot["teams"]) > 1 and len(tracked_teams(snapshot)) == 1
+
+
+def has_heart_rate(snapshot: dict[str, Any]) -> bool:
+    """Heart-rate fields appear only once the match has accepted a heart-rate sample (docs/wearables.md)."""
+    return any(key.startswith("hr_") for p in snapshot["players"].values() for key in p)
 
 
 def player_rows(snapshot: dict[str, Any]) -> tuple[list[str], list[dict[str, Any]]]:

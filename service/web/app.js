@@ -40,9 +40,16 @@
     { key: "speed_ms", label: "Speed now", unit: "km/h", fmt: (v) => fmt1(v * 3.6), bar: true, tip: "Current speed" },
     { key: "minutes", label: "Time", unit: "min", fmt: fmt1, tip: "Minutes on the pitch; in a window, the window's length" },
     { key: "coverage", label: "Seen", unit: "% frames", fmt: fmtPct, cls: "cov", tip: "Share of frames on the pitch in which the player was seen" },
+    // heart rate (docs/wearables.md): shown only once the match has heart-rate samples
+    { key: "hr_bpm", label: "HR now", unit: "bpm", fmt: fmtInt, hr: true, tip: "Latest heart rate (live, whatever the window)" },
+    { key: "hr_pct_max", label: "% HRmax", unit: "%", fmt: fmtInt, hr: true, tip: "Latest heart rate as a share of the player's maximum (live)" },
+    { key: "hr_mean_bpm", label: "HR mean", unit: "bpm", fmt: fmtInt, hr: true, tip: "Time-weighted mean heart rate over the chosen span" },
+    { key: "trimp_edwards", label: "TRIMP", unit: "Edwards", fmt: fmt1, bar: true, hr: true, tip: "Training impulse: minutes in each heart-rate zone × 1 to 5 (Edwards 1993)" },
+    { key: "hr_coverage", label: "HR seen", unit: "% samples", fmt: fmtPct, cls: "hrcov", hr: true, tip: "Share of expected heart-rate samples received while on the pitch" },
     { key: "zones", label: "Speed bands", unit: "m per band", kind: "zones", cls: "zones", tip: "Distance in each speed band, slow to fast (not sortable)" },
   ];
   const BY_KEY = Object.fromEntries(COLUMNS.map((c) => [c.key, c]));
+  const LIVE_HR = new Set(["hr_bpm", "hr_pct_max"]); // the latest sample, whatever the window
 
   const S = {
     matchId: null,
@@ -317,6 +324,19 @@
     requestAnimationFrame(() => { renderQueued = false; render(); });
   }
 
+  // heart-rate fields appear once the match has a heart-rate sample (like possession with a ball)
+  function hasHeartRate(st) {
+    return !!st && Object.values(st.players).some((p) => Object.keys(p).some((k) => k.startsWith("hr_")));
+  }
+  // a one-team (wearables) feed: the other team is `tracked: false` and has no figures
+  function trackedTeams(teams) {
+    return sidesOf(teams).filter((tid) => teams[tid].tracked !== false);
+  }
+  function oneTeam(st) {
+    return !!st && Object.keys(st.teams).length > 1 && trackedTeams(st.teams).length === 1;
+  }
+  const activeColumns = () => COLUMNS.filter((c) => !c.hr || hasHeartRate(S.state));
+
   function render() {
     renderMatchLine();
     renderFeed();
@@ -361,6 +381,13 @@
     per.textContent = S.env.period && periodOver() ? label + " · ended" : label;
     per.dataset.period = S.env.period || "";
     const teams = S.state ? S.state.teams : {};
+    const single = oneTeam(S.state);
+    const tag = $("#tracking");
+    tag.hidden = !single;
+    if (single) {
+      const tid = trackedTeams(teams)[0];
+      tag.title = `Only ${teams[tid].name || tid} is tracked (a wearables feed): no figures for the other team, no comparison.`;
+    }
     for (const tid of sidesOf(teams)) {
       const t = teams[tid];
       const side = t.side === "away" ? "away" : "home";
@@ -409,6 +436,17 @@
     set("coverage_low", cov && cov.low ? `${cov.low} under ${Math.round(COVERAGE_LOW * 100)} %` : "");
     set("dropout", h.dropout == null ? "–" : fmtPct(h.dropout), "Share of expected player samples missing over the last few seconds");
     for (const k of ["frames", "late", "duplicates", "rejected", "jumps"]) set(k, h[k] == null ? "0" : fmtInt(h[k]));
+    const hrBox = $("#feed-hr");
+    const hrOn = "hr_coverage" in h || "hr_rejected" in h;
+    hrBox.hidden = !hrOn;
+    if (hrOn) {
+      const shares = Object.values(h.hr_coverage || {}).filter((x) => typeof x === "number");
+      const mean = shares.length ? shares.reduce((a, b) => a + b, 0) / shares.length : null;
+      const low = shares.filter((x) => x < COVERAGE_LOW).length;
+      set("hr_coverage", mean == null ? "–" : fmtPct(mean), "Average share of expected heart-rate samples received, players on the pitch");
+      set("hr_coverage_low", low ? `${low} with strap gaps` : "");
+      for (const k of ["hr_rejected", "hr_duplicates", "hr_late"]) set(k, h[k] == null ? "0" : fmtInt(h[k]));
+    }
     const reasons = $("#feed-reasons");
     const items = (h.reasons || []).map((r) => `<li data-code="${esc(r.code)}">${esc(reasonText(r))}</li>`).join("");
     if (reasons.innerHTML !== items) reasons.innerHTML = items;
@@ -490,9 +528,16 @@
   function renderTeams() {
     const box = $("#teams");
     const teams = S.state ? S.state.teams : {};
-    const ids = sidesOf(teams);
+    const ids = trackedTeams(teams);
     if (!ids.length) { box.innerHTML = ""; return; }
-    const html = ids.map((tid) => teamCard(tid, teams[tid])).join("");
+    let html = ids.map((tid) => teamCard(tid, teams[tid])).join("");
+    if (oneTeam(S.state)) {
+      const others = sidesOf(teams).filter((tid) => !ids.includes(tid)).map((tid) => teams[tid].name || tid);
+      html += `<aside id="one-team" class="untracked-note panel" data-tracked-teams="1"><h3>One team tracked</h3>` +
+        `<p>This feed tracks ${esc(teams[ids[0]].name || ids[0])} only. ${esc(others.join(", "))}: not tracked, ` +
+        `so no figures and no opponent comparison.</p></aside>`;
+    }
+    box.dataset.tracked = String(ids.length);
     if (box.innerHTML !== html) box.innerHTML = html;
   }
 
@@ -536,10 +581,11 @@
   function renderChips() {
     const st = S.state;
     if (!st) return;
-    const teams = sidesOf(st.teams);
+    const teams = trackedTeams(st.teams);
     const teamOpts = [["both", "Both teams"], ...teams.map((tid) => [tid, st.teams[tid].name || tid])];
     if (!teamOpts.some(([v]) => v === S.team)) S.team = "both";
     fillChips($("#team-filter"), "team", teamOpts, S.team, "data-team-filter");
+    $("#team-filter").hidden = teams.length < 2; // one team tracked: nothing to filter
 
     const keys = new Set();
     for (const p of Object.values(st.players)) for (const k of Object.keys(p.windows || {})) keys.add(k);
@@ -565,9 +611,13 @@
   }
 
   // -- the player table ------------------------------------------------------------------------------------------
-  function buildHead() {
+  function buildHead(cols) {
     const tr = $("#player-head");
-    tr.innerHTML = COLUMNS.map((c) => {
+    const sig = cols.map((c) => c.key).join(",");
+    if (tr.dataset.sig === sig) return;
+    tr.dataset.sig = sig;
+    if (S.sort.col && !cols.some((c) => c.key === S.sort.col)) S.sort = { col: null, dir: "desc" };
+    tr.innerHTML = cols.map((c) => {
       const text = c.kind === "text" ? " text" : "";
       const inner = `<span class="h-label">${esc(c.label)}</span><span class="h-unit">${esc(c.unit || "\u00a0")}</span>`;
       if (c.kind === "zones") {
@@ -576,10 +626,6 @@
       return `<th scope="col" data-col="${c.key}" class="${text.trim()}" aria-sort="none">` +
         `<button type="button" class="sort" data-sort="${c.key}" title="${esc((c.tip || c.label) + ": sort")}">${inner}<span class="h-arrow" aria-hidden="true"></span></button></th>`;
     }).join("");
-    tr.addEventListener("click", (ev) => {
-      const btn = ev.target.closest("button[data-sort]");
-      if (btn) sortBy(btn.dataset.sort);
-    });
   }
 
   // first press: high first (A to Z for text), second: the other way, third: back to team and shirt order
@@ -610,6 +656,8 @@
       case "minutes": return isWindow(win) ? (src && src.span_s != null ? src.span_s / 60 : null) : (src ? src.minutes : null);
       case "max_speed_ms": return isWindow(win) ? null : (src ? src.max_speed_ms : null);
       case "zones": return isWindow(win) ? null : (src ? src.zones : null);
+      case "hr_bpm": case "hr_pct_max": return p[key] ?? null;
+      case "hr_coverage": return win === "period" ? (src ? src.hr_coverage ?? null : null) : p.hr_coverage ?? null;
       default: return src ? src[key] ?? null : null;
     }
   }
@@ -627,28 +675,34 @@
     const st = S.state;
     const body = $("#player-body");
     const table = $("#player-table");
+    const cols = activeColumns();
+    const heart = hasHeartRate(st);
+    buildHead(cols);
+    S.hideTeam = S.team !== "both" || oneTeam(st);
     table.dataset.window = S.win;
     table.dataset.team = S.team;
-    table.classList.toggle("one-team", S.team !== "both");
+    table.dataset.heartRate = String(heart);
+    table.classList.toggle("one-team", S.hideTeam);
+    $("#hr-legend").hidden = !heart;
     for (const th of document.querySelectorAll("#player-head th[data-col]")) {
       const k = th.dataset.col;
       if (th.hasAttribute("aria-sort")) th.setAttribute("aria-sort", S.sort.col === k ? (S.sort.dir === "asc" ? "ascending" : "descending") : "none");
-      th.hidden = k === "team" && S.team !== "both";
+      th.hidden = k === "team" && S.hideTeam;
     }
-    if (!st) { body.innerHTML = `<tr><td colspan="${COLUMNS.length}" class="text">Waiting for the first figures…</td></tr>`; return; }
+    if (!st) { body.innerHTML = `<tr><td colspan="${cols.length}" class="text">Waiting for the first figures…</td></tr>`; return; }
     const homeFirst = (tid) => (st.teams[tid] && st.teams[tid].side === "away" ? 1 : 0);
     let rows = Object.entries(st.players)
       .filter(([, p]) => S.team === "both" || p.team_id === S.team)
       .map(([pid, p]) => {
         const v = {};
-        for (const c of COLUMNS) v[c.key] = value(pid, p, c.key, S.win);
+        for (const c of cols) v[c.key] = value(pid, p, c.key, S.win);
         return { pid, p, v };
       });
     rows.sort((a, b) => homeFirst(a.p.team_id) - homeFirst(b.p.team_id) || (a.p.jersey_number ?? 0) - (b.p.jersey_number ?? 0));
     if (S.sort.col) rows.sort((a, b) => compare(a, b, S.sort.col, S.sort.dir) || homeFirst(a.p.team_id) - homeFirst(b.p.team_id) || (a.p.jersey_number ?? 0) - (b.p.jersey_number ?? 0));
 
     const max = {};
-    for (const c of COLUMNS) {
+    for (const c of cols) {
       if (!c.bar) continue;
       max[c.key] = Math.max(0, ...rows.map((r) => (typeof r.v[c.key] === "number" ? r.v[c.key] : 0)));
     }
@@ -659,11 +713,11 @@
     const empty = S.win !== "cumulative" && rows.length && rows.every((r) => source(r.p, S.win) === null);
     note.hidden = !empty;
     note.textContent = empty ? `${windowLabel(S.win)}: not enough play yet, so its figures show as a dash.` : "";
-    const html = rows.map((r) => rowHtml(r, max, zmax)).join("");
+    const html = rows.map((r) => rowHtml(r, cols, max, zmax)).join("");
     if (body.innerHTML !== html) body.innerHTML = html;
   }
 
-  function rowHtml(r, max, zmax) {
+  function rowHtml(r, cols, max, zmax) {
     const { pid, p, v } = r;
     const feedStalled = S.state.health && S.state.health.state === "stalled";
     const played = (p.minutes || 0) > 0 || p.on_pitch;
@@ -671,8 +725,14 @@
     const uncertain = played && cov != null && cov < COVERAGE_LOW;
     const side = S.state.teams[p.team_id] && S.state.teams[p.team_id].side === "away" ? "away" : "home";
     const covTip = uncertain ? `Seen in only ${fmtPct(cov)} of frames on the pitch: this figure is likely too low.` : "";
-    const cells = COLUMNS.map((c) => {
+    // a strap that drops out is low heart-rate coverage, never a low heart rate
+    const hrCov = v.hr_coverage;
+    const gaps = played && hrCov != null && hrCov < COVERAGE_LOW;
+    const gapTip = gaps ? `The strap sent only ${fmtPct(hrCov)} of the expected samples: heart-rate figures miss that time (missing data, not a low heart rate).` : "";
+    const omitted = p.hr_omitted || {};
+    const cells = cols.map((c) => {
       const raw = v[c.key];
+      if (c.hr) return hrCell(c, raw, p, played, gaps, gapTip, omitted, max);
       if (c.key === "jersey_number") return `<td class="jersey" data-col="jersey_number" data-value="${raw ?? ""}">${raw ?? ""}</td>`;
       if (c.key === "name") {
         const badges = (p.is_goalkeeper ? '<span class="badge-gk" title="Goalkeeper">GK</span>' : "") +
@@ -680,7 +740,7 @@
         return `<td class="pname text" data-col="name" data-value="${esc(raw)}"><span class="n">${esc(raw)}</span>${badges ? `<span class="badges">${badges}</span>` : ""}</td>`;
       }
       if (c.key === "team") {
-        return `<td class="team text" data-col="team" data-value="${esc(raw)}" title="${esc(raw)}"${S.team !== "both" ? " hidden" : ""}><span class="team-glyph" data-side="${side}" aria-hidden="true"></span>${esc(shortName(raw))}</td>`;
+        return `<td class="team text" data-col="team" data-value="${esc(raw)}" title="${esc(raw)}"${S.hideTeam ? " hidden" : ""}><span class="team-glyph" data-side="${side}" aria-hidden="true"></span>${esc(shortName(raw))}</td>`;
       }
       if (c.key === "zones") return zonesCell(raw, zmax);
       if (c.key === "coverage") {
@@ -699,7 +759,36 @@
       const sr = mark ? '<span class="sr-only"> (uncertain: low coverage)</span>' : "";
       return `<td class="${cls}" data-col="${c.key}" data-value="${none ? "" : raw}"${title}><span class="fig"><span class="v">${text}</span>${sr}${bar}</span></td>`;
     }).join("");
-    return `<tr data-player-id="${esc(pid)}" data-team-id="${esc(p.team_id)}" data-on-pitch="${!!p.on_pitch}" data-uncertain="${uncertain}">${cells}</tr>`;
+    return `<tr data-player-id="${esc(pid)}" data-team-id="${esc(p.team_id)}" data-on-pitch="${!!p.on_pitch}" data-uncertain="${uncertain}" data-hr-gaps="${gaps}">${cells}</tr>`;
+  }
+
+  // A heart-rate cell: "—" with the reason when the profile cannot support the figure; the coverage cell
+  // tagged "gaps" when the strap dropped out; "no signal" when the latest sample is stale.
+  function hrCell(c, raw, p, played, gaps, gapTip, omitted, max) {
+    const why = omitted[c.key];
+    if (why) {
+      return `<td class="num omitted" data-col="${c.key}" data-value="" data-omitted="${esc(why)}" title="${esc("Left out: " + why)}">` +
+        `<span class="fig"><span class="v">\u2014</span><span class="sr-only"> (left out: ${esc(why)})</span></span></td>`;
+    }
+    const none = raw == null;
+    if (c.key === "hr_coverage") {
+      const text = none || !played ? "–" : fmtPct(raw);
+      const tag = gaps ? '<span class="strap-tag" aria-hidden="true">gaps</span><span class="sr-only"> (strap gaps)</span>' : "";
+      return `<td class="hrcov${gaps ? " gaps" : ""}" data-col="hr_coverage" data-value="${none ? "" : raw}"${gaps ? ` title="${esc(gapTip)}"` : ""}>` +
+        `<span class="fig"><span class="v">${text}</span>${tag}</span></td>`;
+    }
+    // no fresh sample from a player on the pitch who has sent some: the strap is silent, not the heart
+    const silent = LIVE_HR.has(c.key) && none && p.on_pitch && p.hr_peak_bpm != null;
+    if (silent) {
+      return `<td class="num nosignal" data-col="${c.key}" data-value="" title="No heart-rate sample for several seconds: the strap dropped out or is off (not a low heart rate)">` +
+        `<span class="fig"><span class="v">no signal</span></span></td>`;
+    }
+    const strap = gaps && !none && !LIVE_HR.has(c.key);
+    const cls = ["num", "hr", none ? "none" : "", strap ? "strap" : ""].filter(Boolean).join(" ");
+    const bar = c.bar ? `<span class="bar" aria-hidden="true"><i style="--w:${none || !max[c.key] ? 0 : (Math.max(raw, 0) / max[c.key]).toFixed(4)}"></i></span>` : "";
+    const sr = strap ? '<span class="sr-only"> (incomplete: strap gaps)</span>' : "";
+    return `<td class="${cls}" data-col="${c.key}" data-value="${none ? "" : raw}"${strap ? ` title="${esc(gapTip)}"` : ""}>` +
+      `<span class="fig"><span class="v">${none ? "–" : c.fmt(raw)}</span>${sr}${bar}</span></td>`;
   }
 
   function zonesCell(zones, zmax) {
@@ -765,8 +854,13 @@
   // -- wiring -----------------------------------------------------------------------------------------------------------
   function init() {
     initTheme();
-    buildHead();
+    buildHead(activeColumns());
+    $("#player-head").addEventListener("click", (ev) => {
+      const btn = ev.target.closest("button[data-sort]");
+      if (btn) sortBy(btn.dataset.sort);
+    });
     $("#cov-threshold").textContent = Math.round(COVERAGE_LOW * 100);
+    for (const el of document.querySelectorAll(".cov-threshold-hr")) el.textContent = Math.round(COVERAGE_LOW * 100);
     $("#match-picker").addEventListener("change", (e) => { if (e.target.value) selectMatch(e.target.value); });
     $("#match-picker").addEventListener("focus", refreshMatches); // about to choose: show what is live now
     $("#team-filter").addEventListener("change", (e) => { if (e.target.name === "team") { S.team = e.target.value; renderTable(); } });
