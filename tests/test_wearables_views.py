@@ -395,11 +395,11 @@ def browser_page(live):
         pw.stop()
 
 
-def wait_equal(page, srv, window: str, pick) -> tuple[dict, dict]:
+def wait_equal(page, srv, window: str, pick, match_id: str = "m_p") -> tuple[dict, dict]:
     """Until the page's HR cells equal the REST snapshot (``pick``: player -> source of the window)."""
     deadline = time.monotonic() + 15
     while True:
-        rest = httpx.get(f"{srv.http}/api/matches/m_p/snapshot", timeout=10).json()
+        rest = httpx.get(f"{srv.http}/api/matches/{match_id}/snapshot", timeout=10).json()
         got = page.evaluate(READ_TABLE)
         bad = []
         if set(got) != set(rest["players"]):
@@ -492,6 +492,37 @@ def test_page_heart_rate_in_windows_and_period(live, browser_page):
     assert order[-1] == NO_PROFILE
     page.click("th[data-col='trimp_edwards'] button")
     page.click("th[data-col='trimp_edwards'] button")  # third press: back to shirt order
+
+
+def test_page_heart_rate_columns_arrive_with_the_first_samples(live, browser_page):
+    """A one-team match without heart rate: no HR columns. The first samples arrive while the page
+    watches: the columns, the legend and the feed's heart-rate line appear through the live deltas."""
+    srv, _ = live
+    page = browser_page
+    r = httpx.put(f"{srv.http}/api/matches/m_q", json={"meta": cb.meta("m_q", fps=FPS), "sheet": sheet()}, timeout=10)
+    assert r.status_code == 201, r.text
+    fr = frames("m_q", seed=5)
+
+    def post(path: str, objs: list[dict]) -> None:
+        r = httpx.post(f"{srv.http}/api/matches/m_q/{path}", content=b"\n".join(cb.lines(objs)), timeout=60)
+        assert r.status_code == 200, r.text
+
+    post("frames", fr[:60 * FPS])
+    page.wait_for_selector("#match-picker option[value='m_q']", state="attached", timeout=15_000)
+    page.select_option("#match-picker", "m_q")
+    page.wait_for_selector("#player-body tr[data-player-id='h2']")
+    page.wait_for_selector("#tracking:not([hidden])")
+    assert page.locator("th[data-col='hr_bpm']").count() == 0
+    assert page.locator("#hr-legend").is_hidden() and page.locator("#feed-hr").is_hidden()
+    post("hr", hr_samples(70))
+    post("frames", fr[60 * FPS:70 * FPS])
+    page.wait_for_selector("th[data-col='hr_bpm']", timeout=10_000)
+    rest, got = wait_equal(page, srv, "cumulative", lambda p: p, match_id="m_q")
+    assert rest["players"]["h2"]["hr_mean_bpm"] is not None and got["h2"]["hr_mean_bpm"]["value"]
+    assert page.locator("#hr-legend").is_visible() and page.locator("#feed-hr").is_visible()
+    # the heading and the cells stay in step after the head was rebuilt
+    assert page.evaluate("""() => [...document.querySelectorAll('#player-head th')].map(th => th.dataset.col).join()""") == \
+        page.evaluate("""() => [...document.querySelector('#player-body tr').children].map(td => td.dataset.col).join()""")
 
 
 def test_flatten_keeps_hr_zone_names():
