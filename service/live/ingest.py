@@ -89,6 +89,7 @@ class MatchRunner:
         self.health_state = STALLED
         self.health_reasons: list[str] = ["no_frames"]
         self._stall_view: MatchState | None = None  # figures shown while the feed is stalled
+        self._stall_told = False  # subscribers were sent the stalled view's figures
         self._period_seen: str | None = None
         self._period_told: set[tuple[str, str]] = set()  # (event, period) already announced
         self.last_applied_wall = 0.0
@@ -282,7 +283,10 @@ class MatchRunner:
             if hr:
                 items = [it for it in items if not isinstance(it[0], HrResult)]
                 try:
-                    self.state.ingest_heart(HrResult.merge(hr))  # figures depend on timestamps only, not on order
+                    got = HrResult.merge(hr)
+                    self.state.ingest_heart(got)  # figures depend on timestamps only, not on order
+                    if self._stall_view is not None:  # the stalled feed's finalised copy shows them too
+                        self._stall_view.add_heart(got.player, got.t, got.bpm)
                 except Exception:
                     log.exception("%s: engine failed on heart-rate samples; skipped", self.match_id)
                 if not items:
@@ -344,11 +348,9 @@ class MatchRunner:
         while True:
             await asyncio.sleep(every)
             try:
-                now = time.time()
-                h = self.state.health
-                if h.last_arrival is not None and now - h.last_arrival > self.settings.health.stall_s and self._stall_view is None:
-                    # stalled: show the tail finalised so nothing waits uncounted
-                    self._stall_view = self.state.provisional()
+                self._stalled_view(time.time())
+                if self._stall_view is not None and not self._stall_told:
+                    self._stall_told = True  # subscribers get the finalised figures at once
                     self.broadcaster.invalidate()
                     self.broadcaster.tick(force=True)
                 self.broadcaster.invalidate()
@@ -360,9 +362,18 @@ class MatchRunner:
                 log.exception("%s: health check failed", self.match_id)
 
     # -- snapshot ------------------------------------------------------------------------------------
+    def _stalled_view(self, now: float) -> None:
+        """Once the feed counts as stalled, show the tail finalised so nothing waits uncounted."""
+        h = self.state.health
+        if self._stall_view is None and h.last_arrival is not None and now - h.last_arrival > self.settings.health.stall_s:
+            self._stall_view = self.state.provisional()
+            self._stall_told = False
+
     def snapshot_body(self) -> dict[str, Any]:
+        now = time.time()
+        self._stalled_view(now)  # a read between the stall and the next health check sees final figures too
         shown = self._stall_view or self.state
-        snap = shown.snapshot(now=time.time(), extra_reasons=self.extra_reasons())
+        snap = shown.snapshot(now=now, extra_reasons=self.extra_reasons())
         for k, tid in enumerate(self.roster.team_ids):
             snap["teams"][tid]["score"] = self.score[k]
         return snap

@@ -25,7 +25,7 @@ from fastapi import APIRouter, Path as PathParam, Request
 from fastapi.responses import Response
 
 from replay.recording import open_recording
-from service.analyze import new_match
+from service.analyze import add_heart_rate, new_match
 from service.config import Settings
 from service.engine.match import CLOCK_START_MIN, MatchState
 from service.engine.types import PERIODS

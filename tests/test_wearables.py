@@ -1,0 +1,354 @@
+"""Wearable feeds end to end (issue 10, docs/wearables.md): one team, GNSS fixes, heart rate.
+
+Engine-level checks use constructed paths; the live checks run a real server
+and compare its figures with ``analyze`` over the folder it recorded.
+Each expected value names its source.
+"""
+from __future__ import annotations
+
+import asyncio
+import math
+
+import httpx
+import jsonschema
+import numpy as np
+import orjson
+import pytest
+import websockets
+
+import cdf_build as cb
+from live_server import LiveServer
+from service.analyze import analyze_folder, new_match
+from service.config import load_settings
+from service.wire.cdf import SetupError, parse_setup
+from service.wire.gnss import PitchProjection, rectangle
+from service.wire.heart import HrDecoder
+from service.wire.schema import json_schemas, strict
+
+FPS = 25
+# A fictional ground: open sea west of nowhere, chosen so that it is no real venue.
+GROUND = (47.5, -30.0, 105.0, 68.0, 23.0)  # centre lat, long, length m, width m, bearing of +x, degrees
+PROFILES = {"h1": (190.0, 50.0, "male"), "h2": (200.0, 45.0, "female"), "h3": (185.0, None, None)}
+
+
+def calibration() -> dict:
+    return rectangle(*GROUND).model_dump(exclude_none=True)
+
+
+def wearable_meta(match_id: str = "m_test", gnss: bool = True) -> dict:
+    m = cb.meta(match_id)
+    if gnss:
+        m["venue"] = {"id": "v_fict", "gnss_pitch": calibration()}
+    return m
+
+
+def wearable_sheet(n_home: int) -> dict:
+    """One tracked team (home); the away team has no players. h3 lacks hr_rest_bpm and sex."""
+    sheet = cb.sheet(n_home, 0, gk=())
+    for p in sheet["teams"]["home"]["players"]:
+        hr_max, hr_rest, sex = PROFILES.get(p["id"], (None, None, None))
+        p.update({k: v for k, v in (("hr_max_bpm", hr_max), ("hr_rest_bpm", hr_rest), ("sex", sex)) if v is not None})
+    return sheet
+
+
+def one_team_frames(xy: np.ndarray, gnss: bool, match_id: str = "m_test", period: str = "first_half",
+                    t0: float = 0.0, frame0: int = 0) -> list[dict]:
+    """CDF frames of the home team only, without a ball; with ``gnss`` every player carries
+    lat/long only (no x/y)."""
+    ids = cb.player_ids(xy.shape[1], 0)
+    frames = cb.frames(xy, ids, xy.shape[1], match_id=match_id, period=period, t0=t0, frame0=frame0)
+    proj = PitchProjection.from_calibration(rectangle(*GROUND)) if gnss else None
+    for f, pos in zip(frames, xy):
+        del f["ball"]
+        if proj is None:
+            continue
+        seen = [j for j in range(pos.shape[0]) if not np.isnan(pos[j, 0])]
+        lat, lon = proj.to_gnss(pos[seen, 0], pos[seen, 1])
+        f["teams"]["home"]["players"] = [{"id": ids[j], "lat": float(a), "long": float(b)}
+                                         for j, a, b in zip(seen, np.atleast_1d(lat), np.atleast_1d(lon))]
+    return frames
+
+
+def hr_samples(pid: str, bpm: np.ndarray, t0: float = 0.0, hz: float = 1.0) -> list[dict]:
+    return [{"player_id": pid, "timestamp": cb.stamp(t0 + k / hz), "bpm": float(b)} for k, b in enumerate(bpm)]
+
+
+def touchline_run(seconds: float) -> np.ndarray:
+    """One player running along a touchline (y = -33 m) with a sprint, a stop and a jog (common practice shapes)."""
+    v = np.concatenate([np.full(10 * FPS, 4.0), np.full(4 * FPS, 8.0), np.full(6 * FPS, 0.5),
+                        np.full(int((seconds - 20) * FPS), 3.0)])
+    x = -50.0 + np.concatenate([[0.0], np.cumsum(v)[:-1] / FPS])
+    x = 50.0 - np.abs((x + 50.0) % 200.0 - 100.0)  # turn at the far line
+    xy = np.zeros((len(x), 1, 2))
+    xy[:, 0, 0], xy[:, 0, 1] = x, -33.0
+    return xy
+
+
+def analyse(frames: list[dict], hr: list[dict] | None = None, n_home: int = 1, gnss: bool = True,
+            chunks: list[int] | None = None, hr_first: bool = True) -> dict:
+    state, dec = new_match(wearable_meta(gnss=gnss), wearable_sheet(n_home), load_settings())
+    hdec = HrDecoder(state.roster, state.heart_params)
+    lines = cb.lines(frames)
+    if hr and hr_first:
+        state.ingest_heart(hdec.decode_lines(cb.lines(hr)))
+    i = 0
+    for c in chunks or [len(lines)]:
+        res = dec.decode_lines(lines[i:i + c])
+        assert not res.errors, res.errors[:3]
+        state.ingest(res)
+        i += c
+    assert i == len(lines)
+    if hr and not hr_first:
+        state.ingest_heart(hdec.decode_lines(cb.lines(hr)))
+    state.finish()
+    return state.snapshot()
+
+
+# -- GNSS ------------------------------------------------------------------------------------
+def test_run_along_a_touchline_in_gnss_gives_the_figures_of_the_run_in_metres():
+    xy = touchline_run(60)
+    by_gnss = analyse(one_team_frames(xy, gnss=True))["players"]["h1"]
+    by_xy = analyse(one_team_frames(xy, gnss=False), gnss=False)["players"]["h1"]
+    # the projection round-trips within 1 mm (tests/test_gnss.py, Karney 2013 geodesics): figures agree
+    for key in ("distance_m", "hsr_m", "sprint_m", "energy_jkg"):
+        assert by_gnss[key] == pytest.approx(by_xy[key], abs=0.2), key
+    for key in ("sprints", "hsr_efforts", "accels", "decels", "minutes"):
+        assert by_gnss[key] == by_xy[key], key
+    # the constructed run: 40 + 32 + 3 + 40 x 3 m = 195 m (by construction)
+    assert by_gnss["distance_m"] == pytest.approx(195.0, rel=0.01)
+    assert by_gnss["sprints"] == 1
+
+
+def test_calibration_faults_are_refused_naming_the_corner_or_key():
+    cal = calibration()
+    moved = orjson.loads(orjson.dumps(cal))
+    moved["corners"]["x_max_y_max"]["lat"] += 3.0 / 111_000  # the flag 3 m off (1 degree of latitude is ~111 km)
+    meta = wearable_meta()
+    meta["venue"]["gnss_pitch"] = moved
+    with pytest.raises(SetupError, match="x_max_y_max"):
+        parse_setup(meta, wearable_sheet(2))
+    meta = wearable_meta()
+    meta["venue"]["pitch_length"] = 100.0  # the calibration says 105 m: 4.8% off
+    with pytest.raises(SetupError, match="pitch_length"):
+        parse_setup(meta, wearable_sheet(2))
+    meta = wearable_meta()
+    meta["venue"]["gnss_pitch"] = {"corners": {"x_min_y_min": {"lat": 47.5, "long": -30.0}}}
+    with pytest.raises(SetupError, match="gnss_pitch.corners"):
+        parse_setup(meta, wearable_sheet(2))
+    # the calibration gives the pitch size when the meta has none
+    roster = parse_setup(wearable_meta(), wearable_sheet(2))
+    assert (roster.pitch_length_m, roster.pitch_width_m) == pytest.approx((105.0, 68.0), abs=0.01)
+
+
+def test_lat_long_without_a_calibration_is_refused_and_bad_fixes_are_named():
+    xy = touchline_run(30)[:10]
+    frames = one_team_frames(xy, gnss=True)
+    state, dec = new_match(wearable_meta(gnss=False), wearable_sheet(1), load_settings())
+    res = dec.decode_lines(cb.lines(frames[:3]))
+    assert [e.code for e in res.errors] == ["no_calibration"] * 3 and len(res.block) == 0
+    state, dec = new_match(wearable_meta(), wearable_sheet(1), load_settings())
+    far = orjson.loads(orjson.dumps(frames[0]))
+    far["teams"]["home"]["players"][0]["lat"] += 0.01  # ~1.1 km north
+    nan = orjson.loads(orjson.dumps(frames[1]))
+    nan["teams"]["home"]["players"][0]["long"] = "west"
+    res = dec.decode_lines(cb.lines([far, nan, frames[2]]))
+    assert [e.code for e in res.errors] == ["out_of_pitch", "bad_type"]
+    assert "h1" in res.errors[0].message and len(res.block) == 1
+
+
+# -- one team ---------------------------------------------------------------------------------
+def test_one_team_feed_has_no_opponent_figures_and_players_join_and_leave():
+    secs = 120
+    t = np.arange(secs * FPS) / FPS
+    xy = np.zeros((len(t), 3, 2))
+    for j in range(3):
+        xy[:, j, 0] = -30 + 3.0 * t % 60  # jogging at 3 m/s, back to the start every 20 s
+        xy[:, j, 1] = -20 + 15 * j
+    xy[: 40 * FPS, 1] = np.nan  # h2's unit switched on 40 s late
+    xy[70 * FPS:, 2] = np.nan  # h3's unit off after 70 s (beyond the 30 s on-pitch timeout by the end)
+    snap = analyse(one_team_frames(xy, gnss=False), n_home=3, gnss=False)
+    away = snap["teams"][cb.AWAY]
+    assert away["tracked"] is False and set(away) == {"name", "side", "tracked"}  # absent, not zeros
+    home = snap["teams"][cb.HOME]
+    assert home["tracked"] is True and home["outfield"]["players"] == 3
+    players = snap["players"]
+    assert all("possession" not in p for p in players.values())  # no ball: no possession split
+    # minutes on the pitch count the time seen (by construction)
+    assert players["h1"]["minutes"] == pytest.approx(2.0, abs=0.02)
+    assert players["h2"]["minutes"] == pytest.approx(80 / 60, abs=0.02)
+    assert players["h3"]["minutes"] == pytest.approx(70 / 60, abs=0.02)
+    # m/min per minute seen: the same jog for all three (by construction, 3 m/s with turns)
+    assert players["h2"]["m_per_min"] == pytest.approx(players["h1"]["m_per_min"], rel=0.03)
+    assert players["h3"]["m_per_min"] == pytest.approx(players["h1"]["m_per_min"], rel=0.03)
+    assert players["h2"]["coverage"] == pytest.approx(1.0, abs=0.01)
+
+
+# -- heart rate in the engine ------------------------------------------------------------------
+def _jog(seconds: int, n: int = 3) -> np.ndarray:
+    t = np.arange(seconds * FPS) / FPS
+    xy = np.zeros((len(t), n, 2))
+    for j in range(n):
+        xy[:, j, 0] = 30 * np.cos(t / 10 + j)  # 3 m/s on a 30 m circle
+        xy[:, j, 1] = 30 * np.sin(t / 10 + j)
+    return xy
+
+
+def test_heart_rate_worked_values_through_the_match():
+    secs = 600
+    frames = one_team_frames(_jog(secs), gnss=True)
+    hr = hr_samples("h1", np.full(secs, 150.0)) + hr_samples("h3", np.full(secs, 150.0))
+    hr.sort(key=lambda s: s["timestamp"])
+    p = analyse(frames, hr, n_home=3)["players"]
+    h1 = p["h1"]
+    credited_min = (secs - 1) / 60  # 1 Hz: every sample but the first credits 1 s (docs/wearables.md)
+    # Edwards 1993: 150 of 190 bpm = 78.9% HRmax, zone 70-80 weight 3
+    assert h1["trimp_edwards"] == pytest.approx(3 * credited_min, abs=0.06)
+    assert h1["hr_zones"]["70-80%"] == pytest.approx(secs - 1, abs=0.1)
+    assert sum(h1["hr_zones"].values()) == pytest.approx(secs - 1, abs=0.1)
+    # Banister 1991 (male a = 0.64, b = 1.92, as commonly quoted): HRr = (150 - 50) / (190 - 50), worked by hand here
+    hrr = 100 / 140
+    assert h1["trimp_banister"] == pytest.approx(credited_min * hrr * 0.64 * math.exp(1.92 * hrr), abs=0.06)
+    assert h1["hr_mean_bpm"] == 150.0 and h1["hr_peak_bpm"] == 150.0
+    assert h1["hr_bpm"] == 150.0 and h1["hr_pct_max"] == pytest.approx(78.9, abs=0.05)
+    assert h1["hr_coverage"] == pytest.approx((secs - 1) / secs, abs=0.002)  # 1 Hz expected (issue 10)
+    assert h1["hr_omitted"] == {}
+    # h3 has hr_max but no hr_rest_bpm nor sex: Banister is left out, and the snapshot says why
+    h3 = p["h3"]
+    assert h3["trimp_banister"] is None and "hr_rest_bpm" in h3["hr_omitted"]["trimp_banister"]
+    assert h3["trimp_edwards"] is not None
+    # h2 sent no samples: no heart rate, coverage zero while on the pitch
+    assert p["h2"]["hr_mean_bpm"] is None and p["h2"]["hr_coverage"] == 0.0
+    # windows carry the heart-rate figures of their stretch: the last minute is 60 samples at 150 bpm
+    w = h1["windows"]["last_1min"]
+    assert w["hr_mean_bpm"] == 150.0 and w["trimp_edwards"] == pytest.approx(3.0, abs=0.02)
+    assert p["h1"]["periods"]["first_half"]["trimp_edwards"] == h1["trimp_edwards"]
+
+
+def test_heart_rate_in_the_half_time_break_and_ahead_of_tracking_credits_nothing():
+    first = one_team_frames(_jog(60, 1), gnss=False)
+    second = one_team_frames(_jog(60, 1), gnss=False, period="second_half", t0=900.0, frame0=len(first))
+    # 1 Hz from kick-off to 30 s after the second half's tracking ended
+    hr = hr_samples("h1", np.full(990, 120.0))
+    snap = analyse(first + second, hr, gnss=False)
+    p = snap["players"]["h1"]
+    # credited (docs/wearables.md): the samples at 1..60 s fall in the first half's span [0, 60 s] (last
+    # frame + one frame), 1 s each; 900..959 s in the second half's, up to its last frame; the break's and
+    # the one after the last frame (tracking never reaches it) credit nothing
+    assert p["periods"]["first_half"]["hr_zones"]["60-70%"] == pytest.approx(60.0, abs=0.01)
+    assert p["periods"]["second_half"]["hr_zones"]["60-70%"] == pytest.approx(60.0, abs=0.01)
+    assert p["hr_zones"]["60-70%"] == pytest.approx(120.0, abs=0.01)
+    assert p["hr_bpm"] == 120.0  # the latest sample still shows
+
+
+@pytest.mark.parametrize("chunks,hr_first", [([1] * 250 + [1250], True), ([250] * 6, False), ([7, 600, 893], True)])
+def test_heart_rate_figures_do_not_depend_on_arrival_order_or_blocks(chunks, hr_first):
+    secs = 60
+    frames = one_team_frames(_jog(secs), gnss=False)
+    rng = np.random.default_rng(3)
+    hr = []
+    for pid in ("h1", "h2", "h3"):
+        hr += hr_samples(pid, np.clip(140 + np.cumsum(rng.normal(0, 2, secs)), 60, 200).round(), t0=rng.uniform(0, 1))
+    hr.sort(key=lambda s: s["timestamp"])
+    whole = analyse(frames[:1500], hr, n_home=3, gnss=False)
+    split = analyse(frames[:1500], hr, n_home=3, gnss=False, chunks=chunks, hr_first=hr_first)
+    assert orjson.dumps(split["players"]) == orjson.dumps(whole["players"])
+
+
+# -- live --------------------------------------------------------------------------------------
+@pytest.fixture
+def server(tmp_path):
+    srv = LiveServer(tmp_path / "data").start()
+    yield srv
+    srv.stop()
+
+
+async def _send_ws(url: str, messages: list[bytes]) -> list[dict]:
+    """Send messages on one provider socket; return the error messages that came back."""
+    errors = []
+    async with websockets.connect(url) as ws:
+        for m in messages:
+            await ws.send(m.decode())
+        await ws.send(orjson.dumps({"player_id": "nobody", "timestamp": cb.stamp(0), "bpm": 60}).decode())
+        for _ in range(100):  # bounded: every refusal is answered before the marker's
+            msg = orjson.loads(await asyncio.wait_for(ws.recv(), 10))
+            errors.append(msg)
+            if msg.get("code") == "unknown_player" and "nobody" in msg.get("message", ""):
+                break
+    return errors
+
+
+def _figures(snap: dict) -> dict:
+    keep = ("distance_m", "hsr_m", "sprints", "minutes", "hr_mean_bpm", "hr_zones", "trimp_edwards",
+            "trimp_banister", "hr_peak_bpm", "hr_omitted", "periods")
+    return {pid: {k: p.get(k) for k in keep} for pid, p in snap["players"].items()}
+
+
+def test_live_wearable_match_equals_analyze_and_survives_a_restart(server, tmp_path):
+    secs = 90
+    mid = "m_wear"
+    frames = one_team_frames(_jog(secs), gnss=True, match_id=mid)
+    rng = np.random.default_rng(5)
+    hr = []
+    for pid in ("h1", "h2", "h3"):
+        hr += hr_samples(pid, (130 + 10 * np.sin(np.arange(secs) / 9) + rng.normal(0, 1, secs)).round())
+    hr.sort(key=lambda s: s["timestamp"])
+    bad = [{"player_id": "h1", "timestamp": cb.stamp(0.5), "bpm": 250},  # implausible_bpm (> 230, issue 10)
+           {"player_id": "h2", "timestamp": cb.stamp(0.5), "bpm": 190},  # hr_jump: +60 bpm in 0.5 s (issue 10)
+           {"player_id": "h1", "timestamp": cb.stamp(0.0), "bpm": 130},  # duplicate of the first sample
+           {"player_id": "h3", "timestamp": "yesterday", "bpm": 100}]
+    http = server.http
+    r = httpx.put(f"{http}/api/matches/{mid}", json={"meta": wearable_meta(mid), "sheet": wearable_sheet(3)})
+    assert r.status_code == 201, r.text
+    # heart rate: the first 30 s over HTTP (JSON Lines), the rest over the socket, garbage on both
+    early = [s for s in hr if s["timestamp"] < cb.stamp(30)]
+    late = [s for s in hr if s["timestamp"] >= cb.stamp(30)]
+    r = httpx.post(f"{http}/api/matches/{mid}/hr", content=b"\n".join(cb.lines(early[:3] + bad + early[3:])))
+    body = r.json()
+    assert r.status_code == 200 and body["accepted"] == len(early) and body["rejected"] == 3 and body["duplicates"] == 1
+    assert [e["code"] for e in body["errors"]] == ["implausible_bpm", "hr_jump", "duplicate", "bad_timestamp"]
+    r = httpx.post(f"{http}/api/matches/{mid}/frames", content=b"\n".join(cb.lines(frames)))
+    assert r.json()["accepted"] == len(frames)
+    errs = asyncio.run(_send_ws(f"{server.ws}/ingest/{mid}/hr",
+                                [orjson.dumps(late[i:i + 7]) for i in range(0, len(late), 7)] + [b"{not json"]))
+    assert [e["code"] for e in errs] == ["bad_json", "unknown_player"]
+    snap = None
+    for _ in range(100):  # bounded wait: every frame applied, then stalled (the tail shown finalised, as offline)
+        snap = httpx.get(f"{http}/api/matches/{mid}/snapshot").json()
+        if snap["health"]["frames"] == len(frames) and snap["health"]["state"] == "stalled":
+            break
+        asyncio.run(asyncio.sleep(0.1))
+    h = snap["health"]
+    assert (h["hr_rejected"], h["hr_duplicates"]) == (5, 1)  # 3 + bad_json + unknown_player; 1 duplicate
+    assert set(h["hr_coverage"]) == {"h1", "h2", "h3"}
+    schemas = json_schemas()
+    assert list(jsonschema.Draft202012Validator(strict(schemas["snapshot"])).iter_errors(snap)) == []
+    folder = server.data / "matches" / mid
+    assert sum(1 for _ in open(folder / "hr.jsonl", "rb")) == len(hr)  # every accepted sample recorded
+    offline = analyze_folder(folder).snapshot()
+    live = _figures(snap)
+    assert snap["health"]["state"] == "stalled", snap["health"]
+    assert live == _figures(offline)
+    assert snap["teams"][cb.AWAY]["tracked"] is False and "outfield" not in snap["teams"][cb.AWAY]
+    # kill -9 and restart: recovery rebuilds the same figures and counters
+    server.kill9()
+    server.start()
+    again = httpx.get(f"{http}/api/matches/{mid}/snapshot").json()
+    # the restart finalises nothing new: compare what was final before (analyze's figures)
+    assert _figures(again)["h1"]["hr_zones"] == live["h1"]["hr_zones"]
+    assert again["players"]["h2"]["trimp_edwards"] == live["h2"]["trimp_edwards"]
+
+
+def test_live_heart_rate_endpoints_refuse_clearly(server):
+    http = server.http
+    r = httpx.post(f"{http}/api/matches/nope/hr", content=b"{}")
+    assert r.status_code == 404 and r.json()["error"]["code"] == "unknown_match"
+    mid = "m_hr"
+    assert httpx.put(f"{http}/api/matches/{mid}", json={"meta": cb.meta(mid), "sheet": cb.sheet(2, 2)}).status_code == 201
+    r = httpx.post(f"{http}/api/matches/{mid}/hr", content=orjson.dumps([{"player_id": "a1", "timestamp": cb.stamp(0),
+                                                                           "bpm": True}, {"player_id": "h1"}]))
+    body = r.json()
+    assert r.status_code == 200 and body["accepted"] == 0
+    assert [e["code"] for e in body["errors"]] == ["bad_type", "missing_field"]
+    # a match without heart rate shows none of its fields; counters appear once samples were refused
+    snap = httpx.get(f"{http}/api/matches/{mid}/snapshot").json()
+    assert "hr_bpm" not in snap["players"]["h1"] and snap["health"]["hr_rejected"] == 2
