@@ -74,13 +74,22 @@ def frame_entry_id(frame_id: int) -> str:
     return f"{frame_id + 1}-0"
 
 
-def connect(url: str, timeout_s: float = 2.0) -> Any:
-    """An asyncio Redis client; errors say how to install redis-py if missing."""
+def connect(url: str, timeout_s: float = 2.0, max_connections: int = 1000) -> Any:
+    """An asyncio Redis client; errors say how to install redis-py if missing.
+
+    The pool blocks: a burst of concurrent commands (hundreds of subscribers
+    connecting at once) waits up to ``timeout_s`` for one of ``max_connections``
+    connections, where redis-py's default pool (100 since redis-py 6) fails at once.
+    """
     try:
         import redis.asyncio as aioredis
         from redis.backoff import NoBackoff
         from redis.retry import Retry
     except ImportError as exc:  # pragma: no cover - depends on the install
         raise SystemExit("pacewire: the scale roles need redis-py: pip install 'pacewire[scale]'") from exc
-    return aioredis.from_url(url, socket_timeout=timeout_s, socket_connect_timeout=timeout_s,
-                             retry=Retry(NoBackoff(), 1), health_check_interval=10)
+    pool = aioredis.BlockingConnectionPool.from_url(
+        url, max_connections=max_connections, timeout=timeout_s, socket_timeout=timeout_s,
+        socket_connect_timeout=timeout_s, retry=Retry(NoBackoff(), 1), health_check_interval=10)
+    client = aioredis.Redis(connection_pool=pool)
+    client.auto_close_connection_pool = True  # the client owns its pool, as from_url makes it
+    return client

@@ -62,7 +62,7 @@ def run_role(args: argparse.Namespace) -> int:
         print(f"pacewire: {exc}", file=sys.stderr)
         return 2
     logging.basicConfig(level=args.log_level.upper(), format="%(asctime)s %(name)s %(levelname)s %(message)s")
-    redis = keys.connect(args.redis, scale.redis_timeout_s)
+    redis = keys.connect(args.redis, scale.redis_timeout_s, scale.redis_connections)
     data = Path(args.data)
     if args.role == "ingest":
         from service.scale.ingest import create_ingest_app

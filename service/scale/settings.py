@@ -22,6 +22,9 @@ class ScaleSettings(BaseModel):
     checkpoint_s: float = Field(default=30.0, gt=0, le=3600)
     # Redis socket timeout, s: a dead Redis is an error this fast rather than a hang.
     redis_timeout_s: float = Field(default=2.0, gt=0, le=60)
+    # Redis connections per process at most; a burst beyond waits for one (up to redis_timeout_s).
+    # Above one blocking stream read per claimed match, below Redis's default maxclients (10,000).
+    redis_connections: int = Field(default=1000, ge=4, le=100_000)
     # A gateway's interest in a subscription stream lasts this long without renewal, s.
     want_ttl_s: float = Field(default=30.0, gt=1, le=3600)
     # Entries read from the match stream at once.
