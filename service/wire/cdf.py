@@ -354,6 +354,7 @@ class FrameDecoder:
         self.y_lim = max(roster.pitch_width_m / 2 + outside_margin_m, 42.5)
         self._team_index = {tid: i for i, tid in enumerate(roster.team_ids)}
         self.projection = roster.projection  # GNSS fixes -> pitch metres, when the set-up has a calibration
+        self._projected: dict[int, tuple[float, float]] = {}  # id(player entry) -> (x, y), for one batch
         # player id -> roster index, per side: a player under the wrong team is not found
         self._side_index = tuple({p.id: i for i, p in enumerate(roster.players) if p.team == side} for side in (0, 1))
 
@@ -387,6 +388,14 @@ class FrameDecoder:
         return self.decode_objects([obj])
 
     def decode_objects(self, objs: Sequence[Any], lines: Sequence[int] | None = None) -> DecodeResult:
+        if self.projection is not None and len(objs) > 1:
+            self._projected = self._project_batch(objs)
+        try:
+            return self._decode_objects(objs, lines)
+        finally:
+            self._projected = {}  # keyed by object ids: valid for this batch only
+
+    def _decode_objects(self, objs: Sequence[Any], lines: Sequence[int] | None) -> DecodeResult:
         n_players = self.roster.n
         fids: list[int] = []
         ts: list[float] = []
@@ -412,6 +421,8 @@ class FrameDecoder:
                     raise _Reject("bad_type", f"a frame must be a JSON object, got {type(obj).__name__}")
                 if fid_known is None:
                     raise _Reject("missing_field" if fid is None else "bad_type", "frame_id must be an integer")
+                if fid < 0:
+                    raise _Reject("bad_value", f"frame_id {fid} is negative (CDF frame ids count from 0)")
                 t = self._check_frame(obj)
                 if fid <= gate.last_id:
                     if fid in gate.recent_set:
@@ -536,7 +547,7 @@ class FrameDecoder:
                       s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> None:
         """A match with a GNSS calibration: entries with lat/long are projected to pitch metres
         (one vectorised call per team and frame); entries without them use x/y."""
-        gnss: list[tuple[int, str, float, float]] = []
+        gnss: list[tuple[int, str, float, float, int]] = []
         plain: list[Any] = []
         index, players = self.roster.index, self.roster.players
         for pl in plist:
@@ -558,12 +569,16 @@ class FrameDecoder:
                 raise _Reject("bad_type", f"player {pid!r} lat/long must both be numbers")
             if not (-90.0 <= lat <= 90.0 and -180.0 <= lon <= 180.0):
                 raise _Reject("bad_value", f"player {pid!r} at lat {lat}, long {lon} is not a WGS 84 position")
-            gnss.append((i, pid, lat, lon))
+            gnss.append((i, pid, lat, lon, id(pl)))
         if plain:
             self._players_exact(plain, side, row, s_f, s_p, s_x, s_y)
         if not gnss:
             return
-        xs, ys = self.projection.to_pitch(np.array([g[2] for g in gnss]), np.array([g[3] for g in gnss]))
+        done = [self._projected.get(g[4]) for g in gnss]
+        if all(d is not None for d in done):
+            xs, ys = np.array([d[0] for d in done]), np.array([d[1] for d in done])  # type: ignore[index]
+        else:
+            xs, ys = self.projection.to_pitch(np.array([g[2] for g in gnss]), np.array([g[3] for g in gnss]))
         bad = np.flatnonzero((np.abs(xs) > self.x_lim) | (np.abs(ys) > self.y_lim))
         if bad.size:
             k = int(bad[0])
@@ -573,6 +588,34 @@ class FrameDecoder:
         s_p.extend(g[0] for g in gnss)
         s_x.extend(xs.tolist())
         s_y.extend(ys.tolist())
+
+    def _project_batch(self, objs: Sequence[Any]) -> dict[int, tuple[float, float]]:
+        """Every well-formed lat/long of a batch in one projection call (one pymap3d call per
+        batch instead of per frame); entries it skips are projected, or refused, frame by frame."""
+        keys: list[int] = []
+        lats: list[float] = []
+        lons: list[float] = []
+        for obj in objs:
+            teams = obj.get("teams") if type(obj) is dict else None
+            if type(teams) is not dict:
+                continue
+            for side in ("home", "away"):
+                team = teams.get(side)
+                plist = team.get("players") if type(team) is dict else None
+                if type(plist) is not list:
+                    continue
+                for pl in plist:
+                    if type(pl) is not dict:
+                        continue
+                    lat, lon = pl.get("lat"), pl.get("long")
+                    if type(lat) in _NUM and type(lon) in _NUM and -90.0 <= lat <= 90.0 and -180.0 <= lon <= 180.0:
+                        keys.append(id(pl))
+                        lats.append(lat)
+                        lons.append(lon)
+        if not keys:
+            return {}
+        xs, ys = self.projection.to_pitch(np.array(lats), np.array(lons))
+        return dict(zip(keys, zip(xs.tolist(), ys.tolist())))
 
     def _players_fast(self, plist: list[Any], side: int, row: int,
                       s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> bool:
