@@ -25,7 +25,7 @@ from service.engine.types import PERIODS, Block, Roster
 from service.live.broadcaster import Broadcaster
 from service.live.recorder import Recorder, RecorderError, write_json_atomic
 from service.live.reporting import Followup
-from service.wire.cdf import DecodeResult, FrameDecoder, FrameError
+from service.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message
 from service.wire.heart import HrDecoder, HrResult
 
 log = logging.getLogger("pacewire.ingest")
@@ -237,13 +237,10 @@ class MatchRunner:
             res = dec.decode_lines(data)
             raw = [data[i].strip() for i in res.accepted]
         else:
-            try:
-                obj = orjson.loads(data)
-            except orjson.JSONDecodeError as exc:
-                res = HrResult.empty([FrameError("bad_json", f"not valid JSON: {exc}")], rejected=1)
-                obj = []
+            objs = parse_message(data)
+            if isinstance(objs, FrameError):
+                res, raw = HrResult.empty([objs], rejected=1), []
             else:
-                objs = obj if isinstance(obj, list) else [obj]
                 res = dec.decode_objects(objs)
                 raw = [orjson.dumps(objs[i]) for i in res.accepted]
         out = IngestOutcome(len(res), res.rejected, res.duplicates, res.late, res.errors)

@@ -11,7 +11,7 @@ import math
 from collections import deque
 from dataclasses import dataclass, field
 from datetime import datetime
-from typing import Any, Iterable, Literal, Sequence
+from typing import Any, Callable, Iterable, Literal, Sequence
 
 import numpy as np
 import orjson
@@ -343,6 +343,38 @@ def _timestamp(value: Any) -> float:
     return dt.timestamp()
 
 
+def decode_json_lines(decode_objects: Callable[[Sequence[Any], Sequence[int]], Any], lines: Iterable[bytes | str],
+                      first_line: int = 1) -> Any:
+    """Parse JSON Lines (blank lines skipped) and hand the objects with their line numbers to
+    ``decode_objects``; lines that are not JSON become ``bad_json`` errors in its result
+    (which needs ``errors``, ``rejected`` and ``accepted``, as DecodeResult has)."""
+    objs: list[Any] = []
+    numbers: list[int] = []
+    errors: list[FrameError] = []
+    for i, line in enumerate(lines, start=first_line):
+        if not line.strip():
+            continue
+        try:
+            objs.append(orjson.loads(line))
+            numbers.append(i)
+        except orjson.JSONDecodeError as exc:
+            errors.append(FrameError("bad_json", f"not valid JSON: {exc}", None, i))
+    result = decode_objects(objs, numbers)
+    result.errors[:0] = errors
+    result.rejected += len(errors)
+    result.accepted = [numbers[k] - first_line for k in result.accepted]
+    return result
+
+
+def parse_message(data: bytes | str) -> list[Any] | FrameError:
+    """One WebSocket message: an object or a JSON array of them, as a list; bad_json if unreadable."""
+    try:
+        obj = orjson.loads(data)
+    except orjson.JSONDecodeError as exc:
+        return FrameError("bad_json", f"not valid JSON: {exc}")
+    return obj if isinstance(obj, list) else [obj]
+
+
 class FrameDecoder:
     """Decodes CDF frames for one match into blocks for the engine."""
 
@@ -360,32 +392,14 @@ class FrameDecoder:
 
     def decode_lines(self, lines: Iterable[bytes | str], first_line: int = 1) -> DecodeResult:
         """JSON Lines (one frame per line); blank lines are skipped."""
-        objs: list[Any] = []
-        numbers: list[int] = []
-        errors: list[FrameError] = []
-        for i, line in enumerate(lines, start=first_line):
-            if not line.strip():
-                continue
-            try:
-                objs.append(orjson.loads(line))
-                numbers.append(i)
-            except orjson.JSONDecodeError as exc:
-                errors.append(FrameError("bad_json", f"not valid JSON: {exc}", None, i))
-        result = self.decode_objects(objs, numbers)
-        result.errors[:0] = errors
-        result.rejected += len(errors)
-        result.accepted = [numbers[k] - first_line for k in result.accepted]
-        return result
+        return decode_json_lines(self.decode_objects, lines, first_line)
 
     def decode_message(self, data: bytes | str) -> DecodeResult:
         """One WebSocket message: a frame object or a JSON array of frames."""
-        try:
-            obj = orjson.loads(data)
-        except orjson.JSONDecodeError as exc:
-            return DecodeResult(Block.empty(self.roster.n), [FrameError("bad_json", f"not valid JSON: {exc}")], rejected=1)
-        if isinstance(obj, list):
-            return self.decode_objects(obj)
-        return self.decode_objects([obj])
+        objs = parse_message(data)
+        if isinstance(objs, FrameError):
+            return DecodeResult(Block.empty(self.roster.n), [objs], rejected=1)
+        return self.decode_objects(objs)
 
     def decode_objects(self, objs: Sequence[Any], lines: Sequence[int] | None = None) -> DecodeResult:
         if self.projection is not None and len(objs) > 1:
@@ -508,23 +522,26 @@ class FrameDecoder:
             return
         self._players_exact(plist, side, row, s_f, s_p, s_x, s_y)
 
+    def _player(self, pl: Any, side: int) -> tuple[int, str]:
+        """(roster index, id) of a player entry of team ``side``; _Reject naming what is wrong."""
+        if type(pl) is not dict:
+            raise _Reject("bad_type", "a player entry must be an object")
+        pid = pl.get("id")
+        if type(pid) is not str:
+            raise _Reject("bad_type" if "id" in pl else "missing_field", "a player entry needs a string id")
+        i = self.roster.index.get(pid)
+        if i is None:
+            raise _Reject("unknown_player", f"player {pid!r} is not in the match sheet")
+        if self.roster.players[i].team != side:
+            raise _Reject("unknown_player", f"player {pid!r} is listed under the other team")
+        return i, pid
+
     def _players_exact(self, plist: list[Any], side: int, row: int,
                        s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> None:
         """Per-player checks that name what is wrong."""
-        index = self.roster.index
-        players = self.roster.players
         x_lim, y_lim = self.x_lim, self.y_lim
         for pl in plist:
-            if type(pl) is not dict:
-                raise _Reject("bad_type", "a player entry must be an object")
-            pid = pl.get("id")
-            if type(pid) is not str:
-                raise _Reject("bad_type" if "id" in pl else "missing_field", "a player entry needs a string id")
-            i = index.get(pid)
-            if i is None:
-                raise _Reject("unknown_player", f"player {pid!r} is not in the match sheet")
-            if players[i].team != side:
-                raise _Reject("unknown_player", f"player {pid!r} is listed under the other team")
+            i, pid = self._player(pl, side)
             x = pl.get("x")
             y = pl.get("y")
             if x is None or y is None:
@@ -549,7 +566,6 @@ class FrameDecoder:
         (one vectorised call per team and frame); entries without them use x/y."""
         gnss: list[tuple[int, str, float, float, int]] = []
         plain: list[Any] = []
-        index, players = self.roster.index, self.roster.players
         for pl in plist:
             if type(pl) is not dict:
                 raise _Reject("bad_type", "a player entry must be an object")
@@ -557,14 +573,7 @@ class FrameDecoder:
             if lat is None and lon is None:
                 plain.append(pl)
                 continue
-            pid = pl.get("id")
-            if type(pid) is not str:
-                raise _Reject("bad_type" if "id" in pl else "missing_field", "a player entry needs a string id")
-            i = index.get(pid)
-            if i is None:
-                raise _Reject("unknown_player", f"player {pid!r} is not in the match sheet")
-            if players[i].team != side:
-                raise _Reject("unknown_player", f"player {pid!r} is listed under the other team")
+            i, pid = self._player(pl, side)
             if type(lat) not in _NUM or type(lon) not in _NUM or not (math.isfinite(lat) and math.isfinite(lon)):
                 raise _Reject("bad_type", f"player {pid!r} lat/long must both be numbers")
             if not (-90.0 <= lat <= 90.0 and -180.0 <= lon <= 180.0):

@@ -11,11 +11,10 @@ from dataclasses import dataclass, field
 from typing import Any, Iterable, Sequence
 
 import numpy as np
-import orjson
 
 from service.engine.heart import HeartParams
 from service.engine.types import Roster
-from service.wire.cdf import FrameError, _Reject, _timestamp
+from service.wire.cdf import FrameError, _Reject, _timestamp, decode_json_lines, parse_message
 
 SAMPLE_KEYS = ("player_id", "timestamp", "bpm")
 _KEY_SET = frozenset(SAMPLE_KEYS)
@@ -82,32 +81,14 @@ class HrDecoder:
 
     def decode_lines(self, lines: Iterable[bytes | str], first_line: int = 1) -> HrResult:
         """JSON Lines (one sample per line); blank lines are skipped."""
-        objs: list[Any] = []
-        numbers: list[int] = []
-        errors: list[FrameError] = []
-        for i, line in enumerate(lines, start=first_line):
-            if not line.strip():
-                continue
-            try:
-                objs.append(orjson.loads(line))
-                numbers.append(i)
-            except orjson.JSONDecodeError as exc:
-                errors.append(FrameError("bad_json", f"not valid JSON: {exc}", None, i))
-        result = self.decode_objects(objs, numbers)
-        result.errors[:0] = errors
-        result.rejected += len(errors)
-        result.accepted = [numbers[k] - first_line for k in result.accepted]
-        return result
+        return decode_json_lines(self.decode_objects, lines, first_line)
 
     def decode_message(self, data: bytes | str) -> HrResult:
         """One WebSocket message: a sample object or a JSON array of samples."""
-        try:
-            obj = orjson.loads(data)
-        except orjson.JSONDecodeError as exc:
-            return HrResult.empty([FrameError("bad_json", f"not valid JSON: {exc}")], rejected=1)
-        if isinstance(obj, list):
-            return self.decode_objects(obj)
-        return self.decode_objects([obj])
+        objs = parse_message(data)
+        if isinstance(objs, FrameError):
+            return HrResult.empty([objs], rejected=1)
+        return self.decode_objects(objs)
 
     def decode_objects(self, objs: Sequence[Any], lines: Sequence[int] | None = None) -> HrResult:
         players: list[int] = []
