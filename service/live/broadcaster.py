@@ -102,6 +102,7 @@ class Broadcaster:
         self._snapshot_fn = snapshot
         self.buffer_s = buffer_s
         self.buffer_max = 100_000
+        self.idle_max = 32  # streams kept for resumes with nobody on them; beyond, the longest idle go
         self.queue_size = queue_size
         self.max_subscribers = max_subscribers
         self.groups: dict[tuple[str, float], Group] = {}
@@ -138,10 +139,13 @@ class Broadcaster:
         text = dumps(envelope(kind, self.match_id, g.seq, snap_time, period, **body)).decode()
         now = time.monotonic()
         g.buffer.append((g.seq, now, text))
+        self._trim(g, now)
+        return text
+
+    def _trim(self, g: Group, now: float) -> None:
         horizon = now - self.buffer_s
         while g.buffer and (g.buffer[0][1] < horizon or len(g.buffer) > self.buffer_max):
             g.buffer.popleft()
-        return text
 
     def _fan_out(self, g: Group, text: str) -> None:
         for sub in list(g.subscribers):
@@ -184,19 +188,31 @@ class Broadcaster:
         """After the state changed: send a delta to every stream whose cadence is due."""
         now = time.monotonic() if now is None else now
         for g in list(self.groups.values()):
+            if not g.subscribers:
+                continue  # nobody to send to: a resume catches up with one delta from the state last sent
             if not force and now - g.last_sent < g.every - 1e-3:
                 continue
             if g.state is None:
                 self._refresh_state(g)
                 g.last_sent = now
                 continue
-            old_meta = g.meta
-            d = self._refresh_state(g)
-            if d is None and g.meta == old_meta:
-                continue
-            g.last_sent = now
-            self._fan_out(g, self._message(g, "delta", **(d or {})))
+            self._advance(g, now)
         self._expire(now)
+
+    def _advance(self, g: Group, now: float) -> None:
+        """Send the stream's delta to the current state, if anything changed."""
+        old_meta = g.meta
+        d = self._refresh_state(g)
+        if d is None and g.meta == old_meta:
+            return
+        g.last_sent = now
+        self._fan_out(g, self._message(g, "delta", **(d or {})))
+
+    def catch_up(self, g: Group) -> None:
+        """A stream that sent nothing while idle gets followed again: bring it to the current state
+        (the delta also goes to its buffer, so a ``since`` resume gets it)."""
+        if g.state is not None:
+            self._advance(g, time.monotonic())
 
     def publish(self, kind: str, player_id: str | None = None, team_id: str | None = None, **body: Any) -> None:
         """An event message (health, alert, period, report) to every stream that shows it."""
@@ -207,14 +223,21 @@ class Broadcaster:
                 self._fan_out(g, self._message(g, kind, **body))
 
     def _expire(self, now: float) -> None:
-        """Forget streams nobody follows once their resume buffer has run out."""
+        """Forget streams nobody follows once their resume buffer has run out, and the longest idle
+        beyond ``idle_max`` (each holds the state it last sent: many cadences must not pile up)."""
+        idle = []
         for key, g in list(self.groups.items()):
             if g.subscribers:
                 g.idle_since = None
-            elif g.idle_since is None:
+                continue
+            if g.idle_since is None:
                 g.idle_since = now
-            elif now - g.idle_since > self.buffer_s:
+            if now - g.idle_since > self.buffer_s:
                 del self.groups[key]
+            else:
+                idle.append((g.idle_since, key))
+        for _, key in sorted(idle)[:max(len(idle) - self.idle_max, 0)]:
+            del self.groups[key]
 
     # -- subscribers ----------------------------------------------------------------------
     def attach(self, sub: Subscriber, view: View, every: float, since: int | None) -> None:
@@ -222,6 +245,9 @@ class Broadcaster:
         g = self.group(view, every)
         sub.group = g
         g.idle_since = None
+        if not g.subscribers:
+            self.catch_up(g)
+            self._trim(g, time.monotonic())  # an idle stream added nothing, so its buffer ages here
         first: list[str]
         if since is not None and g.buffer is not None and 0 <= since <= g.seq and (
                 since == g.seq or (g.buffer and g.buffer[0][0] <= since + 1)):

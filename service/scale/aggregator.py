@@ -297,10 +297,17 @@ class AggMatch:
     async def want(self, stream: str, until: float) -> None:
         """A gateway needs this (view, cadence) stream: make (or restore) it."""
         sink = self.sinks.get(stream)
+        b = self.runner.broadcaster
+        if sink is not None and sink.group is not None and all(g is not sink.group for g in b.groups.values()):
+            del self.sinks[stream]  # its stream was forgotten while idle: start it again (below)
+            sink = None
         if sink is not None:
             sink.wanted_until = max(sink.wanted_until, until)
             if sink.group is not None and sink not in sink.group.subscribers:
+                idle = not sink.group.subscribers
                 sink.group.subscribers.add(sink)
+                if idle:  # an idle stream sends nothing: bring it to the current state
+                    b.catch_up(sink.group)
             return
         roster = self.runner.roster
         try:
@@ -309,7 +316,6 @@ class AggMatch:
         except (ValueError, ViewError):
             log.warning("%s: ignoring an unknown stream %r", self.match_id, stream)
             return
-        b = self.runner.broadcaster
         srv = self.agg.settings.server
         maxlen = min(b.buffer_max, int(srv.resume_buffer_s / every) + 500)
         sink = Sink(self.match_id, stream, self.out, maxlen)
