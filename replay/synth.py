@@ -9,6 +9,12 @@ The output is a CDF v0.3.2 recording folder (DESIGN §3):
 * ``tracking.jsonl.gz`` (or ``tracking.jsonl``) one CDF tracking frame per line
 * ``faults.json``    the feed faults deliberately injected (empty list if none)
 
+``--wearables`` writes the one-team GNSS + heart-rate variant of the same match
+(docs/wearables.md): the home team only (the away team keeps its id and name,
+no players), each player entry with ``lat``/``long`` as well as ``x``/``y``, no
+ball, a pitch calibration under ``venue.gnss_pitch``, heart-rate profiles on the
+sheet, and ``hr.jsonl`` (1 Hz samples; see plan_wearables).
+
 Coordinates are metres with the origin at the centre spot, x along the
 touchlines (|x| <= 52.5) and y along the goal lines (|y| <= 34). The home team
 attacks +x in the first half and the teams change ends at half-time.
@@ -57,7 +63,7 @@ import orjson
 from scipy.ndimage import uniform_filter1d
 from scipy.signal import lfilter, savgol_filter
 
-__all__ = ["write_match", "simulate_match", "movement_stats", "main"]
+__all__ = ["write_match", "simulate_match", "plan_wearables", "movement_stats", "main"]
 
 # --------------------------------------------------------------------------
 # Fixed scenario constants
@@ -258,15 +264,15 @@ class Timeline:
         """(first slot, slot count) of each half."""
         return (0, self.n1), (self.n1, self.n2)
 
+    def frame_ms(self) -> np.ndarray:
+        """Time of every slot, integer ms after the first kick-off."""
+        ms1 = np.round(np.arange(self.n1) * 1000.0 / self.fps).astype("int64")
+        ms2 = self.second_half_start_ms() + np.round(np.arange(self.n2) * 1000.0 / self.fps).astype("int64")
+        return np.concatenate([ms1, ms2])
+
     def timestamps(self) -> list[str]:
         """RFC 3339 UTC timestamps (ms precision, ``Z``) of every slot."""
-        i1 = np.arange(self.n1)
-        i2 = np.arange(self.n2)
-        ms1 = np.round(i1 * 1000.0 / self.fps).astype("int64")
-        start2 = self.second_half_start_ms()
-        ms2 = start2 + np.round(i2 * 1000.0 / self.fps).astype("int64")
-        ms = np.concatenate([ms1, ms2]).astype("timedelta64[ms]")
-        strings = np.datetime_as_string(KICKOFF + ms, unit="ms")
+        strings = np.datetime_as_string(KICKOFF + self.frame_ms().astype("timedelta64[ms]"), unit="ms")
         return [s + "Z" for s in strings.tolist()]
 
     def first_half_end_ms(self) -> int:
@@ -1225,6 +1231,233 @@ def plan_faults(rng: np.random.Generator, m: SynthMatch, minutes: float, *, outa
 
 
 # --------------------------------------------------------------------------
+# Wearables variant (docs/wearables.md): one team, GNSS fixes, heart rate
+# --------------------------------------------------------------------------
+# The centre spot of the wearables ground: open sea in the North Atlantic, so the
+# location is plainly fictional. The bearing of +x (clockwise from north) is arbitrary.
+GNSS_CENTRE = (47.5, -30.0)
+GNSS_BEARING_DEG = 24.0
+LATLON_DECIMALS = 7  # 1e-7 degree is about 1.1 cm of latitude, 0.75 cm of longitude here
+
+# Heart-rate profiles of the home squad by jersey: (hr_max_bpm, hr_rest_bpm, sex).
+# Invented; HRmax ~180-205 and HRrest ~40-60 bpm are usual for professional
+# players (from memory). The competition is a men's league, so all are male.
+HOME_HR_PROFILES: dict[int, tuple[int, int, str]] = {
+    1: (186, 54, "male"), 3: (197, 47, "male"), 5: (191, 51, "male"), 4: (189, 56, "male"),
+    2: (201, 44, "male"), 11: (199, 49, "male"), 8: (194, 42, "male"), 6: (192, 50, "male"),
+    7: (203, 46, "male"), 10: (190, 53, "male"), 9: (195, 48, "male"), 13: (184, 58, "male"),
+    15: (196, 52, "male"), 14: (198, 45, "male"), 17: (193, 55, "male"), 19: (200, 47, "male"),
+}
+# Jerseys whose resting heart rate the club never measured: left off the sheet, so
+# the demo shows the "omitted, and why" path (the simulation still uses the value above).
+HR_REST_UNKNOWN = frozenset({5})
+
+# Heart-rate model (1 Hz). Target = HRrest + %HRR(v) x (HRmax - HRrest), with
+# %HRR(v) = HRR_FLOOR + HRR_SPAN (1 - exp(-v / HRR_SPEED_MS)) rising with the running
+# speed v (m/s) averaged over the second: heart rate rises with running speed and
+# levels off near maximal speeds (common practice); the constants put an outfield
+# player's match mean near 80-85 % HRmax (Stolen et al. 2005, Sports Med 35:501).
+HRR_FLOOR = 0.40
+HRR_SPAN = 0.60
+HRR_SPEED_MS = 2.5
+HRR_SEATED = 0.20  # on the bench, after being substituted, in the half-time break (from memory)
+HRR_WARM_UP = 0.55  # warming up: substitutes before they come on, everyone before each kick-off (from memory)
+WARM_UP_S = 300.0  # warm-up before coming on, in a full match (scaled like stoppages)
+# First-order lag towards the target, per player: rising faster than falling
+# (heart-rate on-kinetics ~20-40 s at the onset of running, slower recovery; from memory).
+HR_TAU_UP_S = (25.0, 40.0)
+HR_TAU_DOWN_S = (40.0, 60.0)
+# Cardiovascular drift: a slow rise at the same running over each half
+# (Coyle & Gonzalez-Alonso 2001, Exerc Sport Sci Rev 29:88); the half-time break resets it.
+HR_DRIFT_BPM = (3.0, 6.0)
+HR_NOISE_BPM = 1.2  # chest-strap measurement noise, sd (from memory: ~1-2 bpm)
+# Faults of the heart-rate channel and of the units.
+HR_DROPOUT_S = (60.0, 90.0)  # one strap loses contact
+HR_SPIKE_BPM = 255  # one implausible sample (the server rejects > 230 bpm)
+UNIT_LATE_S = 180.0  # one unit switched on late, in a full match (scaled like stoppages)
+HR_EDGE_S = 5.0  # HR faults stay this far inside a period
+
+
+def hr_lag(target: np.ndarray, start: np.ndarray, tau_up: np.ndarray, tau_down: np.ndarray,
+           dt_s: float = 1.0) -> np.ndarray:
+    """Heart rate (bpm) following ``target`` (G, P) bpm through a first-order lag.
+
+    Each step moves the rate a share 1 - exp(-dt/tau) of the way to the target,
+    with tau_up (s) while the target is above the rate and tau_down (s) below it.
+    start: (P,) bpm before the first step. A loop per second (not per frame): the
+    asymmetric lag has no closed form.
+    """
+    a_up = 1.0 - np.exp(-dt_s / np.asarray(tau_up, float))
+    a_down = 1.0 - np.exp(-dt_s / np.asarray(tau_down, float))
+    out = np.empty(target.shape)
+    hr = np.asarray(start, float).copy()
+    for k in range(target.shape[0]):
+        gap = target[k] - hr
+        hr = hr + gap * np.where(gap > 0, a_up, a_down)
+        out[k] = hr
+    return out
+
+
+def hrr_of_speed(speed_ms: np.ndarray) -> np.ndarray:
+    """Target share of the heart-rate reserve (0-1) at a running speed (m/s); see HRR_FLOOR."""
+    return HRR_FLOOR + HRR_SPAN * (1.0 - np.exp(-np.asarray(speed_ms, float) / HRR_SPEED_MS))
+
+
+@dataclass
+class WearablesPlan:
+    """What the wearables variant adds to a simulated match (home team only)."""
+
+    unit_on: np.ndarray  # (S, 11) bool: the unit of the home player in each slot streams
+    samples: list[tuple[int, str, int]]  # (ms after kick-off, player id, bpm), time-ordered
+    records: list[dict]  # unit_late, hr_dropout, hr_spike (faults.json)
+    profiles: dict[str, tuple[int, int, str]]  # player id -> (hr_max_bpm, hr_rest_bpm, sex)
+
+
+def _home_speed(m: SynthMatch) -> np.ndarray:
+    """Speed (S, 11) m/s in each home slot, from frame-to-frame steps within each half."""
+    fps = m.timeline.fps
+    out = np.empty((m.timeline.n_slots, 11))
+    for start, n in m.timeline.halves:
+        p = m.positions[start:start + n, :11]
+        step = np.abs(np.diff(p, axis=0)) * fps
+        out[start + 1:start + n] = step
+        out[start] = step[0] if n > 1 else 0.0
+    return out
+
+
+def plan_wearables(m: SynthMatch, seed: int, faults: bool = True) -> WearablesPlan:
+    """Units and heart rate of the home team: who streams when, 1 Hz samples, HR faults.
+
+    Deterministic for a seed (its own random stream, so the tracking of the match
+    is the normal demo's). Heart rate follows each player's running speed through
+    the lag (hr_lag), plus cardiovascular drift over each half and strap noise,
+    rounded to whole bpm. Samples exist while a player's unit is on and he is on
+    the pitch in a period (the break is not streamed). One unit starts late
+    (UNIT_LATE_S), one strap drops out (HR_DROPOUT_S) and one sample is a spike
+    (HR_SPIKE_BPM); ``faults`` False leaves these three out.
+    """
+    rng = np.random.default_rng([seed, 2])
+    tl = m.timeline
+    fps = tl.fps
+    n_slots = tl.n_slots
+    scale = _scale(tl.n_slots / fps / 60.0)
+    squad = HOME.squad
+    n_squad = len(squad)
+    ids = [player_id(HOME, j) for j, _, _, _ in squad]
+    hr_max = np.array([HOME_HR_PROFILES[j][0] for j, _, _, _ in squad], float)
+    hr_rest = np.array([HOME_HR_PROFILES[j][1] for j, _, _, _ in squad], float)
+    who = m.squad_index[:, :11]  # squad index of the home player in each slot
+    rows = np.arange(n_slots)[:, None]
+    frame_ms = tl.frame_ms()
+    halves_ms = ((0, tl.first_half_end_ms()), (tl.second_half_start_ms(), tl.second_half_end_ms()))
+    ts = tl.timestamps()
+    half_of = np.repeat([0, 1], [tl.n1, tl.n2])
+    period_name = ("first_half", "second_half")
+    records: list[dict] = []
+
+    # one unit switched on late: an outfield starter who plays the whole match
+    home_subbed = {s.slot for s in m.subs if s.team == 0}
+    steady = [s for s in range(1, 11) if s not in home_subbed]
+    late_slot = int(rng.choice(steady))
+    late_n = min(int(round(UNIT_LATE_S * scale * fps)), tl.n1 - fps) if faults else 0
+    unit_on = np.ones((n_slots, 11), bool)
+    unit_on[:late_n, late_slot] = False
+    if late_n > 0:
+        records.append({
+            "kind": "unit_late", "period": "first_half", "time": ts[0], "duration_s": late_n / fps,
+            "frame_ids": list(range(late_n)), "player_id": ids[late_slot],
+        })
+
+    # running speed of each squad member per second of the match clock (NaN: not on the pitch)
+    speed = _home_speed(m)
+    n_sec = int(tl.second_half_end_ms() // 1000) + 2
+    sec = np.repeat(frame_ms // 1000, 11).reshape(n_slots, 11)
+    flat = (sec * n_squad + who).ravel()
+    sums = np.bincount(flat, weights=speed.ravel(), minlength=n_sec * n_squad).reshape(n_sec, n_squad)
+    counts = np.bincount(flat, minlength=n_sec * n_squad).reshape(n_sec, n_squad)
+    present = counts > 0
+    hrr = np.full((n_sec, n_squad), HRR_SEATED)
+    hrr[present] = hrr_of_speed(sums[present] / counts[present])
+    warm = int(round(WARM_UP_S * scale))
+    for q in range(11, n_squad):  # substitutes warm up before they come on
+        on = np.flatnonzero(present[:, q])
+        if on.size:
+            hrr[max(on[0] - warm, 0):on[0], q] = HRR_WARM_UP
+    kick2 = tl.second_half_start_ms() // 1000
+    hrr[max(kick2 - warm, 0):kick2, :] = HRR_WARM_UP  # back out before the second half
+    target = hr_rest + hrr * (hr_max - hr_rest)
+    tau_up = rng.uniform(*HR_TAU_UP_S, size=n_squad)
+    tau_down = rng.uniform(*HR_TAU_DOWN_S, size=n_squad)
+    hr = hr_lag(target, hr_rest + HRR_WARM_UP * (hr_max - hr_rest), tau_up, tau_down)
+    # cardiovascular drift: grows over each half in proportion to the time played in it
+    drift = rng.uniform(*HR_DRIFT_BPM, size=n_squad)
+    grid_ms = np.arange(n_sec) * 1000
+    for h0, h1 in halves_ms:
+        inside = (grid_ms >= h0) & (grid_ms < h1)
+        hr[inside] += ((grid_ms[inside] - h0) / (h1 - h0))[:, None] * drift[None, :]
+    hr = np.minimum(hr, hr_max)
+
+    # 1 Hz samples, each unit on its own sub-second phase, while the unit streams
+    on_q = np.zeros((n_slots, n_squad), bool)
+    on_q[rows, who] = unit_on
+    phase = rng.integers(0, 1000, size=n_squad)
+    noise = rng.normal(0.0, HR_NOISE_BPM, size=(n_sec, n_squad))
+    t = grid_ms[:, None] + phase[None, :]  # (n_sec, n_squad) ms after kick-off
+    frame = np.full(t.shape, -1)
+    for (h0, h1), (f0, n) in zip(halves_ms, tl.halves):
+        inside = (t >= h0) & (t < h1)
+        frame[inside] = f0 + np.minimum((t[inside] - h0) * fps // 1000, n - 1)
+    valid = frame >= 0
+    valid[valid] = on_q[frame[valid], np.nonzero(valid)[1]]
+    bpm = np.rint(hr + noise).astype(np.int64)
+
+    # strap dropout: a steady player, in the longer half, clear of its edges
+    drop_slot = int(rng.choice([s for s in steady if s != late_slot]))
+    h = int(np.argmax([h1 - h0 for h0, h1 in halves_ms]))
+    h0, h1 = halves_ms[h]
+    room_ms = h1 - h0 - 2 * HR_EDGE_S * 1000
+    length_ms = int(min(rng.uniform(*HR_DROPOUT_S) * 1000, room_ms))
+    if faults and length_ms >= 10_000:
+        start_ms = int(h0 + HR_EDGE_S * 1000 + rng.uniform(0, room_ms - length_ms))
+        col = t[:, drop_slot]
+        lost = valid[:, drop_slot] & (col >= start_ms) & (col < start_ms + length_ms)
+        kept = np.flatnonzero(valid[:, drop_slot] & ~lost)
+        idx = np.flatnonzero(lost)
+        if idx.size:
+            before, after = kept[kept < idx[0]], kept[kept > idx[-1]]
+            valid[idx, drop_slot] = False
+            records.append({
+                "kind": "hr_dropout", "period": period_name[h], "time": iso_ms(int(col[idx[0]])),
+                "duration_s": (int(col[idx[-1]]) - int(col[idx[0]])) / 1000.0 + 1.0, "frame_ids": [],
+                "player_id": ids[drop_slot], "samples_missing": int(idx.size),
+                "last_sample_before": iso_ms(int(col[before[-1]])) if before.size else None,
+                "first_sample_after": iso_ms(int(col[after[0]])) if after.size else None,
+            })
+
+    # one implausible spike, for another steady player, inside a period
+    spike_slot = int(rng.choice([s for s in steady if s not in (late_slot, drop_slot)]))
+    col = t[:, spike_slot]
+    inner = np.zeros(n_sec, bool)
+    for h0, h1 in halves_ms:
+        inner |= (col >= h0 + HR_EDGE_S * 1000) & (col < h1 - HR_EDGE_S * 1000)
+    cand = np.flatnonzero(valid[:, spike_slot] & inner)
+    if faults and cand.size:
+        k = int(rng.choice(cand))
+        bpm[k, spike_slot] = HR_SPIKE_BPM
+        f = int(frame[k, spike_slot])
+        records.append({
+            "kind": "hr_spike", "period": period_name[half_of[f]], "time": iso_ms(int(col[k])), "duration_s": 0.0,
+            "frame_ids": [], "player_id": ids[spike_slot], "bpm": HR_SPIKE_BPM,
+        })
+
+    k_idx, q_idx = np.nonzero(valid)
+    order = np.lexsort((q_idx, t[k_idx, q_idx]))
+    samples = [(int(t[k, q]), ids[q], int(bpm[k, q])) for k, q in zip(k_idx[order], q_idx[order])]
+    profiles = {ids[q]: HOME_HR_PROFILES[j] for q, (j, _, _, _) in enumerate(squad)}
+    return WearablesPlan(unit_on, samples, records, profiles)
+
+
+# --------------------------------------------------------------------------
 # Writing
 # --------------------------------------------------------------------------
 def _player_entry(club: Club, idx: int, starter: bool, played: bool, position: str) -> dict:
@@ -1365,11 +1598,14 @@ def build_sheet(m: SynthMatch) -> dict:
     }
 
 
-def _frame_lines(m: SynthMatch, fp: FaultPlan, block: int = 4096):
+def _frame_lines(m: SynthMatch, fp: FaultPlan, block: int = 4096, gnss=None):
     """Yield the JSON lines (bytes, with ``\\n``) in file order, faults applied.
 
     Positions are rounded to the centimetre; arrays become Python lists one
     block of frames at a time, which keeps memory flat for a full match.
+    gnss: a ``PitchProjection`` for the wearables variant: home players only,
+    each with ``lat``/``long`` (LATLON_DECIMALS) projected from the written x/y,
+    the away team empty and no ball (wearables see none).
     """
     tl = m.timeline
     ts = tl.timestamps()
@@ -1389,6 +1625,9 @@ def _frame_lines(m: SynthMatch, fp: FaultPlan, block: int = 4096):
     for b0 in range(0, tl.n_slots, block):
         b1 = min(b0 + block, tl.n_slots)
         bxs, bys, squad = xs[b0:b1].tolist(), ys[b0:b1].tolist(), m.squad_index[b0:b1].tolist()
+        if gnss is not None:
+            lat, lon = gnss.to_gnss(xs[b0:b1, :11], ys[b0:b1, :11])
+            blat, blon = np.round(lat, LATLON_DECIMALS).tolist(), np.round(lon, LATLON_DECIMALS).tolist()
         bx, by, bz = bx_all[b0:b1].tolist(), by_all[b0:b1].tolist(), bz_all[b0:b1].tolist()
         live, poss = m.ball_in_play[b0:b1].tolist(), m.ball_poss[b0:b1].tolist()
         for i, f in enumerate(range(b0, b1)):
@@ -1396,16 +1635,24 @@ def _frame_lines(m: SynthMatch, fp: FaultPlan, block: int = 4096):
                 continue
             hidden = fp.hidden.get(f, no_hidden)
             row_x, row_y, row_s = bxs[i], bys[i], squad[i]
-            teams = {}
-            for team, side in ((0, "home"), (1, "away")):
-                cols = range(11 * team, 11 * team + 11)
-                teams[side] = {"id": team_ids[team], "players": [
-                    {"id": ids[team][row_s[c]], "x": row_x[c], "y": row_y[c]} for c in cols if c not in hidden]}
-            frame = {
-                "frame_id": f, "timestamp": ts[f], "period": "first_half" if f < tl.n1 else "second_half",
-                "match": match, "teams": teams,
-                "ball": {"x": bx[i], "y": by[i], "z": bz[i], "status": live[i], "poss_team_id": team_ids[poss[i]]},
-            }
+            period = "first_half" if f < tl.n1 else "second_half"
+            if gnss is not None:
+                row_lat, row_lon = blat[i], blon[i]
+                home = [{"id": ids[0][row_s[c]], "x": row_x[c], "y": row_y[c], "lat": row_lat[c], "long": row_lon[c]}
+                        for c in range(11) if c not in hidden]
+                frame = {"frame_id": f, "timestamp": ts[f], "period": period, "match": match,
+                         "teams": {"home": {"id": team_ids[0], "players": home},
+                                   "away": {"id": team_ids[1], "players": []}}}
+            else:
+                teams = {}
+                for team, side in ((0, "home"), (1, "away")):
+                    cols = range(11 * team, 11 * team + 11)
+                    teams[side] = {"id": team_ids[team], "players": [
+                        {"id": ids[team][row_s[c]], "x": row_x[c], "y": row_y[c]} for c in cols if c not in hidden]}
+                frame = {
+                    "frame_id": f, "timestamp": ts[f], "period": period, "match": match, "teams": teams,
+                    "ball": {"x": bx[i], "y": by[i], "z": bz[i], "status": live[i], "poss_team_id": team_ids[poss[i]]},
+                }
             line = orjson.dumps(frame) + b"\n"
             if f in fp.swaps:
                 held = line
@@ -1420,7 +1667,7 @@ def _frame_lines(m: SynthMatch, fp: FaultPlan, block: int = 4096):
 
 def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int = 0, faults: bool = True,
                 compress: bool = True, *, outage: bool = True, dropouts: bool = True, duplicates: bool = True,
-                out_of_order: bool = True, jumps: bool = True) -> pathlib.Path:
+                out_of_order: bool = True, jumps: bool = True, wearables: bool = False) -> pathlib.Path:
     """Write the fictional demo match as a CDF folder and return the folder.
 
     out: folder (created). minutes: total playing time (95 = 45+2 and 45+4 min;
@@ -1436,6 +1683,9 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
     second half); the 20 s feed outage removes its slots, so frame ids skip
     over it. faults.json lists every injected fault with its kind, period,
     time (timestamp of its first frame), duration_s, frame_ids and player_id.
+
+    wearables: the one-team GNSS + heart-rate variant of the same match
+    (docs/wearables.md; see write_wearables_files).
     """
     out = pathlib.Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -1444,17 +1694,96 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
     on = bool(faults)
     fp = plan_faults(rng, m, minutes, outage=on and outage, dropouts=on and dropouts,
                      duplicates=on and duplicates, out_of_order=on and out_of_order, jumps=on and jumps)
+    for stale in ("tracking.jsonl", "tracking.jsonl.gz", "hr.jsonl", "hr.jsonl.gz"):
+        (out / stale).unlink(missing_ok=True)
+    if wearables:
+        return write_wearables_files(out, m, fp, seed, minutes, compress, faults=on)
     opts = orjson.OPT_INDENT_2
     (out / "meta.json").write_bytes(orjson.dumps(build_meta(m), option=opts) + b"\n")
     (out / "match.json").write_bytes(orjson.dumps(build_sheet(m), option=opts) + b"\n")
     faults_doc = {"match_id": MATCH_ID, "seed": int(seed), "fps": int(fps), "minutes": float(minutes),
                   "faults": fp.records}
     (out / "faults.json").write_bytes(orjson.dumps(faults_doc, option=opts) + b"\n")
-    for stale in ("tracking.jsonl", "tracking.jsonl.gz"):
-        (out / stale).unlink(missing_ok=True)
     path = out / ("tracking.jsonl.gz" if compress else "tracking.jsonl")
     _write_lines(path, _frame_lines(m, fp), compress)
     return out
+
+
+def gnss_calibration():
+    """The wearables ground's corner calibration (a ``GnssPitch``): the demo pitch at GNSS_CENTRE."""
+    from service.wire.gnss import rectangle
+
+    return rectangle(GNSS_CENTRE[0], GNSS_CENTRE[1], PITCH_LENGTH_M, PITCH_WIDTH_M, GNSS_BEARING_DEG)
+
+
+def build_wearables_meta(m: SynthMatch, cal) -> dict:
+    """The CDF meta of the wearables variant: the same match, the away squad unknown,
+    the venue with its GNSS calibration (``venue.gnss_pitch``, corner form)."""
+    meta = build_meta(m)
+    meta["teams"]["away"]["players"] = []
+    meta["venue"]["gnss_pitch"] = cal.model_dump(exclude_none=True)
+    return meta
+
+
+def build_wearables_sheet(m: SynthMatch, profiles: dict[str, tuple[int, int, str]]) -> dict:
+    """The match sheet of the wearables variant: home players with their heart-rate profile
+    (pacewire extension fields), the away team without players, home events only
+    (goals stay: they make the result)."""
+    sheet = build_sheet(m)
+    home_id = HOME.team_id
+    for p in sheet["teams"]["home"]["players"]:
+        hr_max, hr_rest, sex = profiles[p["id"]]
+        p["hr_max_bpm"] = hr_max
+        if p["jersey_number"] not in HR_REST_UNKNOWN:
+            p["hr_rest_bpm"] = hr_rest
+        p["sex"] = sex
+    sheet["teams"]["away"]["players"] = []
+    events = sheet["events"]
+    events["substitutions"] = [s for s in events["substitutions"] if s["team_id"] == home_id]
+    events["cards"] = [c for c in events["cards"] if c["team_id"] == home_id]
+    return sheet
+
+
+def write_wearables_files(out: pathlib.Path, m: SynthMatch, fp: FaultPlan, seed: int, minutes: float,
+                          compress: bool, faults: bool = True) -> pathlib.Path:
+    """Write the one-team GNSS + heart-rate variant of match ``m`` into ``out``.
+
+    meta.json with ``venue.gnss_pitch``; match.json with heart-rate profiles and
+    no away players; tracking frames of the home team only with lat/long and x/y,
+    no ball; hr.jsonl with the 1 Hz samples {"player_id", "timestamp", "bpm"},
+    time-ordered; faults.json with the home team's feed faults plus unit_late,
+    hr_dropout and hr_spike (plan_wearables).
+    """
+    cal = gnss_calibration()
+    from service.wire.gnss import PitchProjection
+
+    wear = plan_wearables(m, seed, faults=faults)
+    # the away team is not tracked: its feed faults do not exist; the late unit hides its player
+    fp.hidden = {f: {c for c in cols if c < 11} for f, cols in fp.hidden.items()}
+    fp.jumps = {f: j for f, j in fp.jumps.items() if j[0] < 11}
+    for f, c in zip(*np.nonzero(~wear.unit_on)):
+        fp.hidden.setdefault(int(f), set()).add(int(c))
+    away = {player_id(AWAY, j) for j, _, _, _ in AWAY.squad}
+    records = [r for r in fp.records if r["player_id"] not in away] + wear.records
+    records.sort(key=lambda r: (r["time"], r["kind"]))
+    opts = orjson.OPT_INDENT_2
+    (out / "meta.json").write_bytes(orjson.dumps(build_wearables_meta(m, cal), option=opts) + b"\n")
+    (out / "match.json").write_bytes(orjson.dumps(build_wearables_sheet(m, wear.profiles), option=opts) + b"\n")
+    faults_doc = {"match_id": MATCH_ID, "seed": int(seed), "fps": int(m.timeline.fps), "minutes": float(minutes),
+                  "variant": "wearables", "faults": records}
+    (out / "faults.json").write_bytes(orjson.dumps(faults_doc, option=opts) + b"\n")
+    path = out / ("tracking.jsonl.gz" if compress else "tracking.jsonl")
+    _write_lines(path, _frame_lines(m, fp, gnss=PitchProjection.from_calibration(cal)), compress)
+    _write_lines(out / "hr.jsonl", _hr_lines(wear.samples), False)
+    return out
+
+
+def _hr_lines(samples: list[tuple[int, str, int]]):
+    """JSON lines (bytes, with ``\\n``) of heart-rate samples (ms after kick-off, player id, bpm)."""
+    ms = np.array([t for t, _, _ in samples], dtype=np.int64).astype("timedelta64[ms]")
+    stamps = np.datetime_as_string(KICKOFF + ms, unit="ms").tolist()
+    for (_, pid, bpm), stamp in zip(samples, stamps):
+        yield orjson.dumps({"player_id": pid, "timestamp": stamp + "Z", "bpm": bpm}) + b"\n"
 
 
 def _write_lines(path: pathlib.Path, lines, compress: bool) -> None:
@@ -1571,6 +1900,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-out-of-order", action="store_true", help="no swapped adjacent frames")
     p.add_argument("--no-jumps", action="store_true", help="no single-frame position jumps")
     p.add_argument("--no-compress", action="store_true", help="write tracking.jsonl instead of .jsonl.gz")
+    p.add_argument("--wearables", action="store_true",
+                   help="the one-team GNSS + heart-rate variant (docs/wearables.md): home players only with "
+                        "lat/long, no ball, hr.jsonl")
     p.add_argument("--stats", action="store_true", help="also print per-role movement statistics")
     return p
 
@@ -1582,9 +1914,10 @@ def main(argv: list[str] | None = None) -> int:
     folder = write_match(args.out, minutes=args.minutes, fps=args.fps, seed=args.seed, faults=not args.no_faults,
                          compress=not args.no_compress, outage=not args.no_outage, dropouts=not args.no_dropouts,
                          duplicates=not args.no_duplicates, out_of_order=not args.no_out_of_order,
-                         jumps=not args.no_jumps)
+                         jumps=not args.no_jumps, wearables=args.wearables)
     n_faults = len(orjson.loads((folder / "faults.json").read_bytes())["faults"])
-    print(f"wrote {folder} ({args.minutes:g} min at {args.fps} fps, seed {args.seed}, {n_faults} faults) "
+    kind = "the wearables variant in " if args.wearables else ""
+    print(f"wrote {kind}{folder} ({args.minutes:g} min at {args.fps} fps, seed {args.seed}, {n_faults} faults) "
           f"in {time.perf_counter() - t0:.1f} s")
     if args.stats:
         stats = movement_stats(simulate_match(args.minutes, args.fps, args.seed))
