@@ -8,11 +8,20 @@ second of wall time after the last frame of the previous one).
 Seek (``--from MM:SS``): the frames before that match-clock time are sent at
 once as HTTP batches (the server analyses them immediately and they count in
 every figure), then streaming continues at the chosen speed.
+
+Heart rate (docs/wearables.md): when the recording has heart-rate samples
+(``hr.jsonl``), they go over a second socket, ``/ingest/MATCH/hr``, paced by
+their own timestamps on the frames' clock (the same start, speed and skipped
+breaks; a sample goes once the frames have reached its time, within a tick of
+its due time), one JSON array per tick. With ``--from`` the samples before the
+first streamed frame are posted at once to ``/api/matches/MATCH/hr`` (JSON
+Lines batches), after the frames before it.
 """
 from __future__ import annotations
 
 import argparse
 import asyncio
+import contextlib
 import signal
 import sys
 import time
@@ -30,6 +39,8 @@ from service.wire.cdf import _timestamp
 BREAK_WALL_S = 1.0  # wall time between periods in a replay
 TICK_S = 0.02  # frames due within one tick go in one message
 MAX_BYTES = 512 * 1024  # per message or batch, well under the server's 1 MiB default
+MAX_LINES_FAST = 250  # lines per message at max speed
+HR_BATCH = 1500  # heart-rate samples per HTTP batch, far under the server's batch limit
 
 
 class ReplayError(RuntimeError):
@@ -61,6 +72,29 @@ def parse_clock(text: str) -> float:
 
 def fmt_clock(seconds: float) -> str:
     return f"{int(seconds // 60):02d}:{int(seconds % 60):02d}"
+
+
+@dataclass
+class Sample:
+    line: bytes
+    t: float  # timestamp, s
+
+
+def samples_of(rec: Recording) -> list[Sample]:
+    """The heart-rate lines in file order with their time; an unreadable line keeps the
+    previous line's time and goes as it is (the server judges it)."""
+    out: list[Sample] = []
+    t = float("-inf")
+    for line in rec.hr_lines():
+        raw = line.rstrip(b"\r\n")
+        if not raw.strip():
+            continue
+        try:
+            t = _timestamp(orjson.loads(raw)["timestamp"])
+        except Exception:  # not ours to judge
+            pass
+        out.append(Sample(raw, t))
+    return out
 
 
 def frames_of(rec: Recording) -> Iterator[Frame]:
@@ -99,6 +133,7 @@ class Progress:
         self.last = 0.0
         self.t0 = time.monotonic()
         self.sent = 0
+        self.hr_sent = 0  # heart-rate samples
 
     def show(self, fr: Frame, sent: int, force: bool = False) -> None:
         now = time.monotonic()
@@ -114,10 +149,39 @@ class Progress:
         self.stream.flush()
 
 
+class _Paced:
+    """One ingest socket: lines due within one tick go in one message, sent at the due time
+    of its first line (``speed`` None: at once, MAX_LINES_FAST lines per message)."""
+
+    def __init__(self, ws: Any, wall0: float, speed: float | None) -> None:
+        self.ws, self.wall0, self.speed = ws, wall0, speed
+        self.out: list[bytes] = []
+        self.size = 0
+        self.due_at = 0.0
+        self.sent = 0
+
+    async def add(self, line: bytes, due: float) -> None:
+        full = self.size + len(line) > MAX_BYTES or (self.speed is None and len(self.out) >= MAX_LINES_FAST)
+        if self.out and (full or self.speed is not None and due - self.due_at > TICK_S):
+            await self.flush()
+        if not self.out:
+            self.due_at = due
+        self.out.append(line)
+        self.size += len(line) + 1
+
+    async def flush(self) -> None:
+        if self.out:
+            self.sent += await _send(self.ws, self.out, self.wall0, self.due_at, self.speed)
+            self.out, self.size = [], 0
+
+
 async def replay(folder: Path, to: str, speed: float | None, start_s: float | None = None, until_s: float | None = None,
                  token: str | None = None, match_id: str | None = None, progress: Progress | None = None,
                  stop: asyncio.Event | None = None) -> tuple[int, Frame | None]:
-    """Stream a folder; returns (frames sent, last frame sent). ``speed`` None: as fast as possible."""
+    """Stream a folder; returns (frames sent, last frame sent). ``speed`` None: as fast as possible.
+
+    Heart-rate samples, when the folder has them, go alongside (module docstring);
+    ``progress.hr_sent`` counts them."""
     import httpx
     import websockets
 
@@ -127,6 +191,8 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
     headers = {"Authorization": f"Bearer {token}"} if token else {}
     meta = dict(rec.meta)
     meta["match"] = {**meta.get("match", {}), "id": mid}
+    samples = samples_of(rec)
+    hr_next = 0  # index of the next heart-rate sample to send
     async with httpx.AsyncClient(base_url=base, headers=headers, timeout=60) as http:
         r = await http.put(f"/api/matches/{mid}", json={"meta": meta, "sheet": rec.sheet})
         if r.status_code >= 400:
@@ -153,17 +219,41 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
             if batch:
                 await _post(http, mid, batch)
                 sent += len(batch)
+            # the heart rate before the first streamed frame (all of it if none is left)
+            while hr_next < len(samples) and (pending is None or samples[hr_next].t < pending.t):
+                hr_next += 1
+            await _post_hr(http, mid, [s.line for s in samples[:hr_next]])
+            if progress is not None:
+                progress.hr_sent += hr_next
         ws_url = to if match_id is None else to.rsplit("/", 1)[0] + "/" + mid
-        async with websockets.connect(ws_url, additional_headers=headers, max_size=None) as ws:
-            drain = asyncio.create_task(_drain(ws))
+        async with contextlib.AsyncExitStack() as stack:
+            ws = await stack.enter_async_context(websockets.connect(ws_url, additional_headers=headers, max_size=None))
+            hr_ws = None
+            if hr_next < len(samples):
+                try:
+                    hr_ws = await stack.enter_async_context(
+                        websockets.connect(ws_url + "/hr", additional_headers=headers, max_size=None))
+                except websockets.InvalidStatus as exc:
+                    raise ReplayError(f"the server refused the heart-rate socket {ws_url}/hr "
+                                      f"({exc.response.status_code})") from None
+            drains = [asyncio.create_task(_drain(w)) for w in (ws, hr_ws) if w is not None]
             try:
                 wall0 = time.monotonic()
                 ref_t: float | None = None
                 period: str | None = None
                 shift = 0.0  # skipped break time, s of frame time
-                out: list[bytes] = []
-                out_size = 0
-                due_at = 0.0
+                out = _Paced(ws, wall0, speed)
+                hr_out = _Paced(hr_ws, wall0, speed) if hr_ws is not None else None
+                finished = True
+
+                def due_of(t: float) -> float:
+                    return 0.0 if speed is None or ref_t is None else (t - shift - ref_t) / speed
+
+                async def heart_rate_until(t: float) -> None:
+                    nonlocal hr_next
+                    while hr_next < len(samples) and samples[hr_next].t <= t:
+                        await hr_out.add(samples[hr_next].line, due_of(samples[hr_next].t))
+                        hr_next += 1
 
                 def stream() -> Iterator[Frame]:
                     if pending is not None:
@@ -171,9 +261,8 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
                     yield from frames
 
                 for fr in stream():
-                    if stop is not None and stop.is_set():
-                        break
-                    if until_s is not None and fr.clock_s > until_s:
+                    if stop is not None and stop.is_set() or until_s is not None and fr.clock_s > until_s:
+                        finished = False
                         break
                     if ref_t is None:
                         ref_t, period = fr.t, fr.period
@@ -182,23 +271,23 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
                         gap = fr.t - (last.t if last is not None else fr.t)
                         shift += max(gap - BREAK_WALL_S * (speed or 1.0), 0.0)
                         period = fr.period
-                    due = 0.0 if speed is None else (fr.t - shift - ref_t) / speed
-                    line = _rename(fr.line, mid, url_match, rec)
-                    full = out_size + len(line) > MAX_BYTES or (speed is None and len(out) >= 250)
-                    if out and (full or speed is not None and due - due_at > TICK_S):
-                        sent += await _send(ws, out, wall0, due_at, speed)
-                        out, out_size = [], 0
-                    if not out:
-                        due_at = due
-                    out.append(line)
-                    out_size += len(line) + 1
+                    await out.add(_rename(fr.line, mid, url_match, rec), due_of(fr.t))
                     last = fr
+                    if hr_out is not None:
+                        await heart_rate_until(fr.t)
                     if progress is not None:
-                        progress.show(fr, sent)
-                if out:
-                    sent += await _send(ws, out, wall0, due_at, speed)
+                        progress.show(fr, sent + out.sent)
+                if finished and hr_out is not None:
+                    await heart_rate_until(float("inf"))  # the samples after the last frame
+                await out.flush()
+                sent += out.sent
+                if hr_out is not None:
+                    await hr_out.flush()
+                    if progress is not None:
+                        progress.hr_sent += hr_out.sent
             finally:
-                drain.cancel()
+                for task in drains:
+                    task.cancel()
     if progress is not None and last is not None:
         progress.show(last, sent, force=True)
     return sent, last
@@ -216,6 +305,26 @@ async def _post(http: Any, mid: str, lines: list[bytes]) -> None:
     r = await http.post(f"/api/matches/{mid}/frames", content=b"\n".join(lines))
     if r.status_code >= 400:
         raise ReplayError(f"batch refused ({r.status_code}): {r.text[:300]}")
+
+
+async def _post_hr(http: Any, mid: str, lines: list[bytes]) -> None:
+    """Heart-rate samples as JSON Lines batches (HR_BATCH lines, MAX_BYTES at most)."""
+    batch: list[bytes] = []
+    size = 0
+    for line in lines:
+        if batch and (len(batch) >= HR_BATCH or size + len(line) > MAX_BYTES):
+            await _post_hr_batch(http, mid, batch)
+            batch, size = [], 0
+        batch.append(line)
+        size += len(line) + 1
+    if batch:
+        await _post_hr_batch(http, mid, batch)
+
+
+async def _post_hr_batch(http: Any, mid: str, lines: list[bytes]) -> None:
+    r = await http.post(f"/api/matches/{mid}/hr", content=b"\n".join(lines))
+    if r.status_code >= 400:
+        raise ReplayError(f"heart-rate batch refused ({r.status_code}): {r.text[:300]}")
 
 
 async def _send(ws: Any, lines: list[bytes], wall0: float, due: float, speed: float | None) -> int:
@@ -289,7 +398,8 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"\nstopped at {where} ({last.period if last else 'before the first frame'}, {sent} frames sent); "
                       f"resume with --from {where}", file=sys.stderr)
                 return 0
-            print(f"\nreplay of {args.folder} into {mid} done: {sent} frames", file=sys.stderr)
+            hr = f", {prog.hr_sent} heart-rate samples" if prog.hr_sent else ""
+            print(f"\nreplay of {args.folder} into {mid} done: {sent} frames{hr}", file=sys.stderr)
             if not args.loop:
                 return 0
             round_no += 1
