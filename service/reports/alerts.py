@@ -106,10 +106,10 @@ class AlertsSection(_Model):
     def _files(cls, data: Any) -> Any:
         """A rules file replaces the inline rules; both files are checked when the config loads."""
         if isinstance(data, dict):
-            try:
-                if data.get("rules_file"):
+            try:  # a file name that is not a string is left to the field's own check
+                if isinstance(data.get("rules_file"), str) and data["rules_file"]:
                     data = {**data, "rules": [r.model_dump() for r in load_rules(data["rules_file"])]}
-                if data.get("budgets_file"):
+                if isinstance(data.get("budgets_file"), str) and data["budgets_file"]:
                     load_budgets(data["budgets_file"])
             except RulesError as exc:
                 raise ValueError(str(exc)) from None
@@ -163,14 +163,20 @@ def _explain(exc: ValidationError, source: str) -> RulesError:
 def _read_data(path: Path, what: str) -> Any:
     try:
         text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise RulesError(f"{what} {path} is not UTF-8 text: {exc}") from None
     except OSError as exc:
         raise RulesError(f"cannot read {what} {path}: {exc.strerror}") from None
+    except ValueError as exc:  # a NUL in the name
+        raise RulesError(f"cannot read {what} {str(path)!r}: {exc}") from None
     try:
         return json.loads(text) if path.suffix.lower() == ".json" else tomllib.loads(text)
     except json.JSONDecodeError as exc:
         raise RulesError(f"{what} {path} is not valid JSON: {exc}") from None
     except tomllib.TOMLDecodeError as exc:
         raise RulesError(f"{what} {path} is not valid TOML: {exc}") from None
+    except RecursionError:
+        raise RulesError(f"{what} {path} nests too deeply to read") from None
 
 
 def load_rules(path: str | Path) -> list[Any]:
