@@ -8,6 +8,9 @@ of a clean offline pass over the same frames.
 from __future__ import annotations
 
 import asyncio
+import itertools
+import json
+import math
 import re
 import threading
 import time
@@ -23,6 +26,7 @@ import cdf_build as cb
 from live_server import LiveServer
 from service.analyze import analyze_folder
 from service.config import ConfigError, settings_from_dict, load_settings
+from service.reports.alerts import RulesError, load_budgets, load_rules
 
 FPS = 25
 IDS = cb.player_ids(3, 2)
@@ -184,6 +188,241 @@ def test_config_values(section, key, value):
                             section: {**getattr(base, section).model_dump(), key: value}})
     except ConfigError as exc:
         assert section in str(exc)
+
+
+# -- load budgets over HTTP, alert-rule and budget files through the config loader ----------------------
+# Caps and their bounds, (low, high]: service/reports/alerts.py `Caps` (the contract of PUT .../budgets)
+CAPS = {"minutes": (0, 150), "hsr_m": (0, 10_000), "sprint_m": (0, 10_000), "sprints": (0, 500)}
+_n = itertools.count()
+
+
+def _cap(key: str) -> st.SearchStrategy:
+    lo, hi = CAPS[key]
+    if key == "sprints":
+        return st.integers(lo + 1, hi)
+    return st.floats(lo, hi, exclude_min=True, allow_nan=False)
+
+
+good_caps = st.fixed_dictionaries({}, optional={k: _cap(k) for k in CAPS}).filter(bool)
+good_budgets = st.dictionaries(st.sampled_from(IDS), good_caps, max_size=5).map(lambda p: {"players": p})
+not_numbers = st.one_of(st.text(max_size=8).map(lambda t: "x" + t), st.lists(st.integers(), max_size=2),
+                        st.dictionaries(st.text(max_size=3), st.integers(), max_size=2))
+
+
+@st.composite
+def broken_budgets(draw, sheet: bool = True) -> tuple[object, str]:
+    """A good body with one fault; returns (body, text the error must name)."""
+    body = draw(good_budgets)
+    if not body["players"]:
+        body["players"][draw(st.sampled_from(IDS))] = draw(good_caps)
+    pid = draw(st.sampled_from(sorted(body["players"])))
+    caps = body["players"][pid]
+    key = draw(st.sampled_from(sorted(CAPS)))
+    lo, hi = CAPS[key]
+    faults = ["negative", "huge", "wrong_type", "unknown_cap", "no_caps", "players_shape", "no_players",
+              "extra_key", "not_object"] + (["unknown_player"] if sheet else []) + (["fraction"] if key == "sprints" else [])
+    fault = draw(st.sampled_from(faults))
+    if fault == "negative":
+        caps[key] = draw(st.one_of(st.floats(max_value=lo, allow_nan=False, allow_infinity=False),
+                                   st.integers(max_value=lo)))
+        return body, f"players.{pid}.{key}"
+    if fault == "huge":
+        caps[key] = draw(st.one_of(st.floats(hi, 1e308, exclude_min=True), st.integers(hi + 1, 2**63 - 1)))  # orjson writes 64-bit ints
+        return body, f"players.{pid}.{key}"
+    if fault == "wrong_type":
+        caps[key] = draw(not_numbers)
+        return body, f"players.{pid}.{key}"
+    if fault == "fraction":
+        caps[key] = draw(st.integers(0, hi - 1)) + 0.5
+        return body, f"players.{pid}.{key}"
+    if fault == "unknown_cap":
+        name = draw(st.text(max_size=10).filter(lambda t: t not in CAPS))
+        caps[name] = draw(json_values)
+        return body, f"players.{pid}.{name}"
+    if fault == "no_caps":
+        body["players"][pid] = {}
+        return body, f"players.{pid}"
+    if fault == "unknown_player":
+        other = draw(st.from_regex(r"\A[a-z0-9_]{1,12}\Z").filter(lambda t: t not in IDS))
+        body["players"][other] = dict(caps)
+        return body, f"players.{other}: not in the match sheet"
+    if fault == "players_shape":
+        body["players"] = draw(st.one_of(st.lists(json_values, max_size=3), st.integers(), st.text(max_size=5),
+                                         st.none(), st.booleans()))
+        return body, "players"
+    if fault == "no_players":
+        return {}, "players"
+    if fault == "extra_key":
+        name = draw(st.text(min_size=1, max_size=10).filter(lambda t: t != "players"))
+        body[name] = draw(json_values)
+        return body, name
+    return draw(st.one_of(st.lists(json_values, max_size=3), st.integers(), st.text(max_size=5), st.none())), "body"
+
+
+def _put_budgets(world, content: bytes) -> httpx.Response:
+    r = world.http.put("/api/matches/m_junk/budgets", content=content)
+    assert r.status_code < 500, r.text
+    return r
+
+
+@hsettings(max_examples=300, deadline=None, suppress_health_check=SLOW)
+@given(case=st.one_of(
+    good_budgets.map(lambda b: ("good", b, "")),
+    broken_budgets().map(lambda bn: ("bad", bn[0], bn[1])),
+    json_values.map(lambda v: ("any", v, "")),
+    st.binary(max_size=60).filter(lambda b: not _is_json(b)).map(lambda b: ("not_json", b, "")),
+))
+def test_budgets_put(world, case):
+    kind, body, needle = case
+    if not hasattr(world, "budgets_now"):
+        world.budgets_now = world.http.get("/api/matches/m_junk/budgets").json()["players"]
+    r = _put_budgets(world, body if kind == "not_json" else orjson.dumps(body))
+    if kind == "good" or (kind == "any" and r.status_code == 200):
+        assert r.status_code == 200, r.text
+        world.budgets_now = r.json()["players"]
+        if kind == "good":
+            assert world.budgets_now == body["players"]  # every cap kept, as sent
+    else:
+        err = r.json()["error"]
+        want = 400 if kind == "not_json" else 422
+        assert r.status_code == want and err["code"] == ("bad_json" if want == 400 else "bad_budgets"), r.text
+        assert needle in err["message"], (needle, err["message"])
+    # a refused body changes nothing: the budgets accepted last are still the match's budgets
+    assert world.http.get("/api/matches/m_junk/budgets").json()["players"] == world.budgets_now
+
+
+def _is_json(b: bytes) -> bool:
+    try:
+        orjson.loads(b)
+        return True
+    except orjson.JSONDecodeError:
+        return False
+
+
+def _toml(v) -> str:
+    """A TOML value (inline tables and arrays; None is left out, as TOML has no null)."""
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, int):
+        return str(v)
+    if isinstance(v, float):
+        return "nan" if v != v else ("inf" if v > 0 else "-inf") if math.isinf(v) else repr(v)
+    if isinstance(v, str):
+        return json.dumps(v, ensure_ascii=False).replace("\x7f", "\\u007f")
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml(x) for x in v if x is not None) + "]"
+    return "{" + ", ".join(f"{_toml(str(k))} = {_toml(x)}" for k, x in v.items() if x is not None) + "}"
+
+
+def _write(folder, data, fmt: str):
+    """``data`` as a TOML or JSON file (bytes are written as they are)."""
+    path = folder / f"f{next(_n)}.{fmt}"
+    if isinstance(data, bytes):
+        path.write_bytes(data)
+    elif fmt == "json":
+        path.write_text(json.dumps(data))
+    else:
+        path.write_text("".join(f"{_toml(k)} = {_toml(v)}\n" for k, v in data.items() if v is not None))
+    return path
+
+
+def _through_config(folder, key: str, path, needle: str) -> None:
+    """Load ``path`` as the config's ``alerts.{key}``: it loads, or a ConfigError names the key,
+    the file and ``needle``; nothing else may come out."""
+    cfg = folder / f"c{next(_n)}.toml"
+    cfg.write_text(f"[alerts]\n{key} = {json.dumps(str(path))}\n")
+    try:
+        load_settings(cfg)
+    except ConfigError as exc:
+        msg = str(exc)
+        assert "alerts" in msg and str(path) in msg and needle in msg, (needle, msg)
+
+
+rule_ids = st.from_regex(r"\A[a-z0-9_]{1,12}\Z")
+_drop_off = {"figure": st.sampled_from(["distance", "hsr"]), "window_min": st.integers(1, 30),
+             "min_on_pitch_min": st.floats(0, 150), "min_coverage": st.floats(0, 1)}
+# Valid rules per kind: service/reports/alerts.py (DropOffPeak, DropOffBaseline, LoadBudget)
+good_rule = st.one_of(
+    st.fixed_dictionaries({"kind": st.just("drop_off_peak"), **_drop_off, "share": st.floats(0, 1, exclude_min=True,
+                                                                                               exclude_max=True)},
+                          optional={"goalkeepers": st.booleans()}),
+    st.fixed_dictionaries({"kind": st.just("drop_off_baseline"), **_drop_off,
+                           "spreads": st.floats(0, 5, exclude_min=True), "min_matches": st.integers(1, 50)}),
+    st.fixed_dictionaries({"kind": st.just("load_budget"),
+                           "levels": st.lists(st.floats(0, 2, exclude_min=True), min_size=1, max_size=5,
+                                              unique=True).map(sorted)}),
+)
+
+
+@st.composite
+def rules_files(draw) -> tuple[object, str]:
+    """(rules file content, text an error must name): good rules, one field broken, or garbage."""
+    kind = draw(st.sampled_from(["good", "field", "field", "garbage"]))
+    if kind == "garbage":
+        return draw(st.one_of(st.binary(max_size=80), st.text(max_size=80).map(str.encode),
+                              st.integers(1, 3000).map(lambda n: b"rules = " + b"[" * n),
+                              st.integers(1, 3000).map(lambda n: b'{"rules": ' + b"[" * n + b"]" * n + b"}"))), ""
+    ids = draw(st.lists(rule_ids, min_size=1, max_size=4, unique=True))
+    rules = [{"id": i, **draw(good_rule)} for i in ids]
+    if kind == "good":
+        return {"rules": rules}, ""
+    k = draw(st.integers(0, len(rules) - 1))
+    field = draw(st.one_of(st.sampled_from(sorted(rules[k])), st.text(max_size=10)))
+    if draw(st.booleans()):
+        rules[k][field] = draw(json_values)
+    else:
+        rules[k].pop(field, None)
+    return {"rules": rules}, f"rules.{k}"
+
+
+@hsettings(max_examples=200, deadline=None)
+@given(content=rules_files(), fmt=st.sampled_from(["toml", "json"]))
+def test_rule_files(files, content, fmt):
+    data, needle = content
+    path = _write(files, data, fmt)
+    try:
+        load_rules(path)
+    except RulesError as exc:
+        msg = str(exc)
+        assert str(path) in msg, msg
+        # a broken field names its rule (rules.K...), or the rule ids when one became a duplicate
+        assert needle in msg or "rule ids must be unique" in msg, (needle, msg)
+        needle = needle if needle in msg else "rule ids must be unique"
+    _through_config(files, "rules_file", path, needle)
+
+
+@hsettings(max_examples=100, deadline=None)
+@given(content=st.one_of(good_budgets.map(lambda b: (b, "")), broken_budgets(sheet=False),
+                         st.binary(max_size=60).map(lambda b: (b, ""))),
+       fmt=st.sampled_from(["toml", "json"]))
+def test_budget_files(files, content, fmt):
+    data, needle = content
+    if not isinstance(data, (dict, bytes)):
+        data = {"players": data}  # a file is a table: a bad top level becomes a bad players value
+        needle = "players"
+    path = _write(files, data, fmt)
+    try:
+        load_budgets(path)
+    except RulesError as exc:
+        assert str(path) in str(exc) and needle in str(exc), (needle, str(exc))
+    _through_config(files, "budgets_file", path, needle)
+
+
+@hsettings(max_examples=100, deadline=None)
+@given(key=st.sampled_from(["rules_file", "budgets_file"]), value=json_values)
+def test_rule_and_budget_file_keys(key, value):
+    base = load_settings()
+    data = {k: v for k, v in base.model_dump().items() if k != "extra"}
+    data["alerts"] = {**data["alerts"], key: value}
+    try:
+        settings_from_dict(data)
+    except ConfigError as exc:
+        assert f"alerts.{key}" in str(exc) or f"{key.split('_')[0]} file" in str(exc), str(exc)
+
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory):
+    return tmp_path_factory.mktemp("rule-files")
 
 
 def test_good_match_unchanged_and_nothing_leaked(world):
