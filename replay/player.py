@@ -12,10 +12,11 @@ every figure), then streaming continues at the chosen speed.
 Heart rate (docs/wearables.md): when the recording has heart-rate samples
 (``hr.jsonl``), they go over a second socket, ``/ingest/MATCH/hr``, paced by
 their own timestamps on the frames' clock (the same start, speed and skipped
-breaks; a sample goes once the frames have reached its time, within a tick of
-its due time), one JSON array per tick. With ``--from`` the samples before the
-first streamed frame are posted at once to ``/api/matches/MATCH/hr`` (JSON
-Lines batches), after the frames before it.
+break; samples in a break go at once, with the next period), one JSON array
+per tick; the two sockets share the ticks, so neither waits for the other, also
+through a hole in the tracking. With ``--from`` the samples before the first
+streamed frame are posted at once to ``/api/matches/MATCH/hr`` (JSON Lines
+batches), after the frames before it.
 """
 from __future__ import annotations
 
@@ -244,15 +245,24 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
                 shift = 0.0  # skipped break time, s of frame time
                 out = _Paced(ws, wall0, speed)
                 hr_out = _Paced(hr_ws, wall0, speed) if hr_ws is not None else None
+                channels = [c for c in (out, hr_out) if c is not None]
                 finished = True
 
                 def due_of(t: float) -> float:
                     return 0.0 if speed is None or ref_t is None else (t - shift - ref_t) / speed
 
-                async def heart_rate_until(t: float) -> None:
+                async def emit(channel: _Paced, line: bytes, due: float) -> None:
+                    # one clock for both sockets: the other one's tick goes first once it is over
+                    for other in channels:
+                        if other is not channel and other.out and speed is not None and due - other.due_at > TICK_S:
+                            await other.flush()
+                    await channel.add(line, due)
+
+                async def heart_rate_before(t: float) -> None:
+                    # samples in a break get the next period's clock: they go at once, as the break is skipped
                     nonlocal hr_next
-                    while hr_next < len(samples) and samples[hr_next].t <= t:
-                        await hr_out.add(samples[hr_next].line, due_of(samples[hr_next].t))
+                    while hr_next < len(samples) and samples[hr_next].t < t:
+                        await emit(hr_out, samples[hr_next].line, due_of(samples[hr_next].t))
                         hr_next += 1
 
                 def stream() -> Iterator[Frame]:
@@ -271,14 +281,14 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
                         gap = fr.t - (last.t if last is not None else fr.t)
                         shift += max(gap - BREAK_WALL_S * (speed or 1.0), 0.0)
                         period = fr.period
-                    await out.add(_rename(fr.line, mid, url_match, rec), due_of(fr.t))
-                    last = fr
                     if hr_out is not None:
-                        await heart_rate_until(fr.t)
+                        await heart_rate_before(fr.t)
+                    await emit(out, _rename(fr.line, mid, url_match, rec), due_of(fr.t))
+                    last = fr
                     if progress is not None:
                         progress.show(fr, sent + out.sent)
                 if finished and hr_out is not None:
-                    await heart_rate_until(float("inf"))  # the samples after the last frame
+                    await heart_rate_before(float("inf"))  # the samples after the last frame
                 await out.flush()
                 sent += out.sent
                 if hr_out is not None:
