@@ -443,6 +443,7 @@ class MatchRunner:
         elif kind == "period_end":
             if self.state.period_name() == ev["period"]:
                 self.state.end_period()
+        self._stall_view = None  # a stalled feed's copy predates the event: the next read copies anew
         self.broadcaster.invalidate()
 
     def event_message(self, ev: dict[str, Any]) -> None:
