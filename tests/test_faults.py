@@ -469,3 +469,31 @@ def apply(state: dict, msg: dict) -> None:
             else:
                 into[k] = v
     merge(state, {k: msg[k] for k in ("players", "teams", "health") if k in msg})
+
+
+def test_events_during_a_stall_show_at_once(tmp_path):
+    """The final whistle and a red card while the feed is stalled (a stoppage) change what is shown
+    straight away: the ended period's figures equal the offline pass, the player is off."""
+    srv = LiveServer(tmp_path / "data").start()
+    try:
+        setup(srv)
+        objs = cb.frames(moving(10.6), IDS, 3)  # ends within a second: the period end counts its tail
+        assert post(srv, objs).status_code == 200
+        time.sleep(3.0)
+        assert snapshot(srv)["health"]["state"] == "stalled"
+        last = objs[-1]["frame_id"]
+        r = httpx.post(f"{srv.http}/api/matches/m_test/events", timeout=10,
+                       json={"type": "period_end", "period": "first_half", "frame_id": last})
+        assert r.status_code == 200, r.text
+        ended = snapshot(srv)
+        r = httpx.post(f"{srv.http}/api/matches/m_test/events", timeout=10,
+                       json={"type": "card", "card": "red", "player_id": "a2", "frame_id": last})
+        assert r.status_code == 200, r.text
+        carded = snapshot(srv)
+    finally:
+        srv.stop()
+    want = analyze_folder(tmp_path / "data" / "matches" / "m_test").snapshot()
+    for pid in IDS:  # every figure, windows too (on_pitch is live state)
+        assert {k: v for k, v in ended["players"][pid].items() if k != "on_pitch"} == \
+               {k: v for k, v in want["players"][pid].items() if k != "on_pitch"}, pid
+    assert carded["players"]["a2"]["on_pitch"] is False
