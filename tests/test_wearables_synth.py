@@ -441,10 +441,6 @@ def whole(tmp_path_factory) -> pathlib.Path:
     return synth.write_match(tmp_path_factory.mktemp("whole"), minutes=190 / 60, fps=25, seed=11, wearables=True)
 
 
-@pytest.mark.xfail(strict=False, reason=(
-    "server: when the spike's error reply is sent after the client has closed the socket, "
-    "service/live/app.py ingest_socket takes the failed send for a disconnect and drops the messages "
-    "still queued (the last ~460 samples at max speed); reported"))
 def test_replay_at_max_speed_gives_the_figures_of_analyze(server, whole):
     prog = Progress(io.StringIO())
     sent, last = asyncio.run(replay(whole, f"{server.ws}/ingest/m_wear", None, progress=prog))
@@ -465,9 +461,6 @@ def test_seek_posts_the_earlier_heart_rate_and_gives_the_same_figures(server, wh
     _assert_same(_settled(server, "m_seek"), want)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "live rolling windows (span_s, m_per_min, hr_mean_bpm ...) differ from pacewire analyze when a "
-    "period ends between whole seconds (also for the normal synth match, e.g. --minutes 2); reported"))
 def test_windows_when_a_period_ends_between_whole_seconds(server, short):
     asyncio.run(replay(short, f"{server.ws}/ingest/m_mid", 50.0, start_s=120.0))
     got, want = _settled(server, "m_mid"), analyze_folder(short).snapshot()

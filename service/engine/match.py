@@ -232,8 +232,17 @@ class MatchState:
         finally:
             self.health = health
         twin.health = health
-        twin.flush()
+        twin.freeze()
         return twin
+
+    def freeze(self) -> None:
+        """Finalise the tail and count the second in progress as complete, as a period end
+        does, without ending the period: for a view no frame will follow (a stalled feed's
+        copy, a cut at a match time), so its windows equal an offline pass over the same frames."""
+        self.flush()
+        cur = self.current
+        if cur is not None and not cur.ended:
+            cur.bins.finish()
 
     # -- accumulation ----------------------------------------------------------------
     def _apply(self, per: _Period, fin: Final) -> None:

@@ -223,6 +223,7 @@ def create_app(opts: ServerOptions) -> FastAPI:
             await ws.close(code=1008)
             return
         recorder = runner.hr_recorder if hr else runner.recorder
+        can_reply = True
         try:
             while True:
                 msg = await ws.receive()
@@ -237,9 +238,13 @@ def create_app(opts: ServerOptions) -> FastAPI:
                 errs = [e.as_dict() for e in out.errors]
                 if not out.stored:
                     errs.append({"code": "not_stored", "message": recorder.error or "the recording cannot be written"})
-                for e in errs:
-                    await ws.send_text(orjson.dumps(envelope("error", match_id, 0, runner.state.match_time_s(),
-                                                             runner.state.period_name(), **e)).decode())
+                for e in errs if can_reply else ():
+                    try:
+                        await ws.send_text(orjson.dumps(envelope("error", match_id, 0, runner.state.match_time_s(),
+                                                                 runner.state.period_name(), **e)).decode())
+                    except Exception:  # the provider closed its side: still read what it sent before closing
+                        can_reply = False
+                        break
         except WebSocketDisconnect:
             return
 

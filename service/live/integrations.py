@@ -123,7 +123,7 @@ def figures_at(folder: Path, settings: Settings, match_id: str, at_s: float,
     for ev in events:
         if _event_applies(ev, last_fid, at_s):
             _replay_event(state, ev)
-    state.flush()
+    state.freeze()
     return state.snapshot()
 
 
