@@ -18,6 +18,8 @@ from service.wire.messages import changed, dumps, envelope
 
 log = logging.getLogger("pacewire.broadcaster")
 
+CADENCE_BURST = 2.0  # deltas a stream may send in a row on frame count, a late frame and the next one
+
 
 class ViewError(ValueError):
     """A subscription asked for a view that does not exist."""
@@ -87,6 +89,9 @@ class Group:
     state: dict[str, Any] | None = None  # the last state sent (view body)
     meta: tuple[float, str | None] = (0.0, None)  # match_time_s, period of that state
     last_sent: float = 0.0
+    frames_sent: int = 0  # the feed's frame count at last_sent
+    tokens: float = 0.0  # deltas the stream may send ahead of its wall-time cadence (Broadcaster._due)
+    tokens_at: float = 0.0
     buffer: deque[tuple[int, float, str]] = field(default_factory=deque)
     subscribers: set[Subscriber] = field(default_factory=set)
     idle_since: float | None = None
@@ -97,8 +102,9 @@ class Broadcaster:
 
     def __init__(self, match_id: str, snapshot: Callable[[], dict[str, Any]], buffer_s: float,
                  queue_size: int, max_subscribers: int, on_message: Callable[[int], None] | None = None,
-                 on_drop: Callable[[], None] | None = None) -> None:
+                 on_drop: Callable[[], None] | None = None, fps: float | None = None) -> None:
         self.match_id = match_id
+        self.fps = fps  # the feed's nominal rate: cadences also count in frames (see tick)
         self._snapshot_fn = snapshot
         self.buffer_s = buffer_s
         self.buffer_max = 100_000
@@ -184,28 +190,50 @@ class Broadcaster:
         return d
 
     # -- output ------------------------------------------------------------------------
-    def tick(self, now: float | None = None, force: bool = False) -> None:
-        """After the state changed: send a delta to every stream whose cadence is due."""
+    def _due(self, g: Group, now: float, frames: int | None) -> bool:
+        """A stream's cadence is up: its ``every`` of wall time passed, or its ``every`` of feed frames
+        came while its rate allows (a bucket of at most CADENCE_BURST deltas, refilled at one per
+        ``every``). Counting frames keeps a frame that arrives a little early after a late one from
+        waiting a whole cadence (arrival jitter); the bucket keeps a fast replay to the cadence's rate."""
+        if now - g.last_sent >= g.every - 1e-3:
+            return True
+        if frames is None or self.fps is None or frames - g.frames_sent < max(round(g.every * self.fps), 1):
+            return False
+        return self._tokens(g, now) >= 1.0 - 1e-6
+
+    @staticmethod
+    def _tokens(g: Group, now: float) -> float:
+        return min(g.tokens + (now - g.tokens_at) / g.every, CADENCE_BURST)
+
+    def _mark_sent(self, g: Group, now: float, frames: int | None) -> None:
+        g.tokens = max(self._tokens(g, now) - 1.0, 0.0)
+        g.tokens_at = g.last_sent = now
+        if frames is not None:
+            g.frames_sent = frames
+
+    def tick(self, now: float | None = None, force: bool = False, frames: int | None = None) -> None:
+        """After the state changed: send a delta to every stream whose cadence is due.
+        ``frames``: the feed's frame count now (frames applied so far), if known."""
         now = time.monotonic() if now is None else now
         for g in list(self.groups.values()):
             if not g.subscribers:
                 continue  # nobody to send to: a resume catches up with one delta from the state last sent
-            if not force and now - g.last_sent < g.every - 1e-3:
+            if not force and not self._due(g, now, frames):
                 continue
             if g.state is None:
                 self._refresh_state(g)
-                g.last_sent = now
+                self._mark_sent(g, now, frames)
                 continue
-            self._advance(g, now)
+            self._advance(g, now, frames)
         self._expire(now)
 
-    def _advance(self, g: Group, now: float) -> None:
+    def _advance(self, g: Group, now: float, frames: int | None = None) -> None:
         """Send the stream's delta to the current state, if anything changed."""
         old_meta = g.meta
         d = self._refresh_state(g)
         if d is None and g.meta == old_meta:
             return
-        g.last_sent = now
+        self._mark_sent(g, now, frames)
         self._fan_out(g, self._message(g, "delta", **(d or {})))
 
     def catch_up(self, g: Group) -> None:

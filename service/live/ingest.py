@@ -81,7 +81,7 @@ class MatchRunner:
         srv = settings.server
         self.broadcaster = Broadcaster(self.match_id, self.snapshot_body, srv.resume_buffer_s, srv.subscriber_queue,
                                        srv.max_subscribers, on_message=self.hooks.messages_out,
-                                       on_drop=self.hooks.dropped)
+                                       on_drop=self.hooks.dropped, fps=roster.fps)
         self._queue: asyncio.Queue[tuple[DecodeResult | HrResult, float]] = asyncio.Queue()
         self._tasks: list[asyncio.Task] = []
         self.score = [0, 0]
@@ -319,7 +319,7 @@ class MatchRunner:
             self._announce_period("start", period, self.state.last_frame_id)  # type: ignore[arg-type]
             self._period_seen = period
         self.broadcaster.invalidate()
-        self.broadcaster.tick()
+        self.broadcaster.tick(frames=self.state.frames)
         self.followup.after_apply()
         self.last_applied_wall = time.time()
 

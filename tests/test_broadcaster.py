@@ -1,0 +1,90 @@
+"""The broadcaster on its own: cadence of deltas against the feed's frames and the wall clock.
+
+The clock is passed in (``tick(now=...)``), so these tests time nothing.
+"""
+from __future__ import annotations
+
+from typing import Any
+
+import orjson
+
+from service.live.broadcaster import Broadcaster, Subscriber, View
+
+FPS = 25
+
+
+class _Feed:
+    """A snapshot source whose figures change with every frame."""
+
+    def __init__(self) -> None:
+        self.frames = 0
+
+    def snapshot(self) -> dict[str, Any]:
+        t = self.frames / FPS
+        return {"match_time_s": t, "period": "first_half", "players": {"p1": {"distance_m": 2.0 * t}},
+                "teams": {}, "health": {"frames": self.frames}}
+
+
+def _stream(every: float) -> tuple[_Feed, Broadcaster, Subscriber]:
+    feed = _Feed()
+    b = Broadcaster("m", feed.snapshot, buffer_s=60.0, queue_size=10_000, max_subscribers=10, fps=FPS)
+    sub = Subscriber(_never, 10_000)
+    b.attach(sub, View("all"), every, None)
+    return feed, b, sub
+
+
+async def _never(text: str) -> None:  # pragma: no cover - the queue is read directly here
+    raise AssertionError("not pumped in these tests")
+
+
+def _deltas(sub: Subscriber) -> list[dict[str, Any]]:
+    out = []
+    while not sub.queue.empty():
+        msg = orjson.loads(sub.queue.get_nowait())
+        if msg["type"] == "delta":
+            out.append(msg)
+    return out
+
+
+def test_one_frame_cadence_sends_every_frame_through_arrival_jitter():
+    """every = one frame: each new frame gets its delta, also a frame that comes 15 ms after a late
+    one (wall-time gating alone held it back a whole frame; common practice: a cadence of one frame
+    means every frame)."""
+    feed, b, sub = _stream(1 / FPS)
+    _deltas(sub)  # the opening snapshot
+    arrivals = [0.0, 0.040, 0.105, 0.120, 0.160, 0.230, 0.241, 0.280]  # late, then on time
+    for k, t in enumerate(arrivals):
+        feed.frames = k + 1
+        b.invalidate()
+        b.tick(now=100.0 + t, frames=feed.frames)
+    got = _deltas(sub)
+    assert [d["health"]["frames"] for d in got] == list(range(1, len(arrivals) + 1))
+    assert [d["seq"] for d in got] == list(range(1, len(arrivals) + 1))
+
+
+def test_fast_replay_keeps_the_cadence_rate():
+    """Frames 4 ms apart (a 10x replay): a one-frame stream still sends about one delta per 40 ms
+    of wall time (at most CADENCE_BURST ahead), and a 1 s stream about one per second."""
+    for every, seconds, most in ((1 / FPS, 0.4, 0.4 * FPS + 2), (1.0, 5.0, 5 + 2)):
+        feed, b, sub = _stream(every)
+        _deltas(sub)
+        n = int(seconds / 0.004)
+        for k in range(n):
+            feed.frames = k + 1
+            b.invalidate()
+            b.tick(now=100.0 + 0.004 * k, frames=feed.frames)
+        sent = len(_deltas(sub))
+        assert seconds / every - 1 <= sent <= most, (every, sent)
+
+
+def test_one_second_cadence_at_real_time_sends_once_a_second():
+    feed, b, sub = _stream(1.0)
+    _deltas(sub)
+    for k in range(5 * FPS):
+        feed.frames = k + 1
+        b.invalidate()
+        b.tick(now=100.0 + k / FPS + (0.01 if k % 3 == 0 else 0.0), frames=feed.frames)
+    sent = _deltas(sub)
+    assert 4 <= len(sent) <= 5
+    steps = [b2["health"]["frames"] - a["health"]["frames"] for a, b2 in zip(sent, sent[1:])]
+    assert all(s >= FPS - 1 for s in steps), steps
