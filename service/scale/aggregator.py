@@ -2,14 +2,17 @@
 
 A match is claimed with a lease (``SET lease owner NX PX``, renewed at a third
 of its length). The claimant rebuilds the match from its latest checkpoint and
-the stream after it, then reads new entries through the consumer group
-``aggregators``. Its broadcaster holds one stream per (view, cadence) that some
-gateway asked for; every message of a stream goes out in one Lua call that
-first checks the lease (a lapsed owner publishes nothing), appends the message
-to the stream's resume buffer, publishes it on the stream's channel and stores
-the stream's snapshot at that seq. That snapshot is also the stream's
-hand-over: a successor restores seq and last state from it, so clients see the
-seq continue and a delta that brings them to the rebuilt state.
+the streams after it (frames and events; heart-rate samples), then reads new
+entries of both through the consumer group ``aggregators``. Heart-rate figures
+depend on timestamps only (docs/wearables.md), so the two streams are read
+independently, each from its own position in the checkpoint. Its broadcaster
+holds one stream per (view, cadence) that some gateway asked for; every
+message of a stream goes out in one Lua call that first checks the lease (a
+lapsed owner publishes nothing), appends the message to the stream's resume
+buffer, publishes it on the stream's channel and stores the stream's snapshot
+at that seq. That snapshot is also the stream's hand-over: a successor
+restores seq and last state from it, so clients see the seq continue and a
+delta that brings them to the rebuilt state.
 """
 from __future__ import annotations
 
@@ -23,6 +26,7 @@ import uuid
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import orjson
 from redis.exceptions import RedisError, ResponseError
 
@@ -32,6 +36,7 @@ from service.live.ingest import Hooks, MatchRunner
 from service.scale import keys
 from service.scale.settings import ScaleSettings
 from service.wire.cdf import parse_setup
+from service.wire.heart import HrResult
 
 log = logging.getLogger("pacewire.scale.aggregator")
 
@@ -122,6 +127,8 @@ class AggMatch:
         self.runner = runner
         self.key = keys.frames(match_id)
         self.last_id = b"0-0"
+        self.hr_key = keys.hr(match_id)
+        self.hr_last_id = b"0-0"  # heart-rate entries applied up to here
         self.out: asyncio.Queue[tuple[Sink, str | None]] = asyncio.Queue()
         self.sinks: dict[str, Sink] = {}
         self.tasks: list[asyncio.Task] = []
@@ -141,18 +148,19 @@ class AggMatch:
             except Exception:  # an unreadable checkpoint: the whole stream will do
                 log.warning("%s: checkpoint unreadable, replaying the whole stream", self.match_id)
                 self.runner = r = _fresh_runner(self.agg, self.match_id, r.roster)
-                self.last_id = b"0-0"
+                self.last_id = self.hr_last_id = b"0-0"
         n = 0
-        start = self.last_id
         count = self.agg.scale.read_count
-        while True:
-            lo = b"(" + start if start != b"0-0" else b"-"
-            batch = await self.redis.xrange(self.key, lo, "+", count=count)
-            if not batch:
-                break
-            self._apply(batch, now=None)
-            n += len(batch)
-            start = batch[-1][0]
+        for key, start, apply in ((self.key, self.last_id, lambda b: self._apply(b, now=None)),
+                                  (self.hr_key, self.hr_last_id, self._apply_hr)):
+            while True:
+                lo = b"(" + start if start != b"0-0" else b"-"
+                batch = await self.redis.xrange(key, lo, "+", count=count)
+                if not batch:
+                    break
+                apply(batch)
+                n += len(batch)
+                start = batch[-1][0]
         await self._read_counts()
         h = r.state.health
         h.first_arrival = h.last_arrival = None  # as after a restart: health starts afresh
@@ -162,29 +170,31 @@ class AggMatch:
             if per.ended:
                 r._period_told.add(("end", per.name))
         r.broadcaster.invalidate()
-        # the consumer group: made if missing, then moved to what was rebuilt; old consumers go
-        try:
-            await self.redis.xgroup_create(self.key, GROUP, id="0", mkstream=True)
-        except ResponseError as exc:
-            if "BUSYGROUP" not in str(exc):
-                raise
-        await self.redis.xgroup_setid(self.key, GROUP, self.last_id)
-        for c in await self.redis.xinfo_consumers(self.key, GROUP):
-            name = c["name"].decode() if isinstance(c["name"], bytes) else c["name"]
-            if name != self.agg.owner:
-                await self.redis.xgroup_delconsumer(self.key, GROUP, name)
+        # the consumer groups: made if missing, then moved to what was rebuilt; old consumers go
+        for key, last in ((self.key, self.last_id), (self.hr_key, self.hr_last_id)):
+            try:
+                await self.redis.xgroup_create(key, GROUP, id="0", mkstream=True)
+            except ResponseError as exc:
+                if "BUSYGROUP" not in str(exc):
+                    raise
+            await self.redis.xgroup_setid(key, GROUP, last)
+            for c in await self.redis.xinfo_consumers(key, GROUP):
+                name = c["name"].decode() if isinstance(c["name"], bytes) else c["name"]
+                if name != self.agg.owner:
+                    await self.redis.xgroup_delconsumer(key, GROUP, name)
         return n
 
     def _checkpoint_state(self) -> dict[str, Any]:
         r = self.runner
         return {"state": r.state, "gate": r.decoder.gate, "score": r.score, "events": r.events,
-                "told": r._period_told, "last_id": self.last_id}
+                "told": r._period_told, "last_id": self.last_id, "hr_last_id": self.hr_last_id}
 
     def _restore(self, cp: dict[str, Any]) -> None:
         r = self.runner
         r.state, r.decoder.gate, r.score, r.events = cp["state"], cp["gate"], cp["score"], cp["events"]
         r._period_told = set(cp["told"])
         self.last_id = cp["last_id"]
+        self.hr_last_id = cp.get("hr_last_id", b"0-0")  # a checkpoint from before the heart-rate stream
 
     async def checkpoint(self) -> None:
         """Engine state + stream position, so a successor replays only what came after."""
@@ -231,11 +241,40 @@ class AggMatch:
         flush()
         return frames
 
+    def _apply_hr(self, entries: list[tuple[bytes, dict[bytes, bytes]]]) -> int:
+        """Apply heart-rate entries: samples ingest's gate accepted, so they are not gated again
+        (a sample let through after a run of hr_jump rejections counts here as it does live)."""
+        r = self.runner
+        index = r.roster.index
+        player: list[int] = []
+        t: list[float] = []
+        bpm: list[float] = []
+        for eid, f in entries:
+            try:
+                i, ti, bi = index[f[b"p"].decode()], float(f[b"t"]), float(f[b"b"])
+            except (KeyError, ValueError, UnicodeDecodeError):
+                log.warning("%s: skipped an unreadable heart-rate entry %s", self.match_id, eid)
+            else:
+                player.append(i)
+                t.append(ti)
+                bpm.append(bi)
+            self.hr_last_id = eid
+        if player:
+            got = HrResult(np.asarray(player, np.int64), np.asarray(t, np.float64), np.asarray(bpm, np.float64), [])
+            try:
+                r.state.ingest_heart(got)  # drops were counted at ingest (keys.counts)
+                if r._stall_view is not None:  # the stalled feed's finalised copy shows them too
+                    r._stall_view.add_heart(got.player, got.t, got.bpm)
+            except Exception:
+                log.exception("%s: engine failed on heart-rate samples; skipped", self.match_id)
+        return len(player)
+
     async def _read_loop(self) -> None:
         r = self.runner
+        hr_key = self.hr_key.encode()
         while not self.stopped:
             try:
-                resp = await self.redis.xreadgroup(GROUP, self.agg.owner, {self.key: ">"},
+                resp = await self.redis.xreadgroup(GROUP, self.agg.owner, {self.key: ">", self.hr_key: ">"},
                                                    count=self.agg.scale.read_count, block=500)
             except RedisError as exc:
                 log.warning("%s: stream read failed: %s", self.match_id, exc)
@@ -243,11 +282,16 @@ class AggMatch:
                 continue
             if not resp:
                 continue
-            entries = resp[0][1]
             if self.stopped:
                 return
+            got = {key: entries for key, entries in resp if entries}
+            hr = got.pop(hr_key, [])
+            entries = next(iter(got.values()), [])
+            if hr and self._apply_hr(hr) and not entries:
+                r.broadcaster.invalidate()
+                r.broadcaster.tick()
             t0 = time.perf_counter()
-            n = self._apply(entries, now=time.time())
+            n = self._apply(entries, now=time.time()) if entries else 0
             if n:
                 r.applied_frames += n
                 r._stall_view = None
@@ -255,7 +299,11 @@ class AggMatch:
                 r.hooks.processing(time.perf_counter() - t0)
                 r.hooks.frames_in(n)
             try:
-                await self.redis.xack(self.key, GROUP, *[e[0] for e in entries])
+                async with self.redis.pipeline(transaction=False) as p:
+                    for key, done in ((self.key, entries), (self.hr_key, hr)):
+                        if done:
+                            p.xack(key, GROUP, *[e[0] for e in done])
+                    await p.execute()
             except RedisError:
                 pass  # the entries are applied; a successor replays from the checkpoint anyway
             if time.monotonic() - self.last_checkpoint > self.agg.scale.checkpoint_s:
@@ -266,10 +314,16 @@ class AggMatch:
 
     async def _read_counts(self) -> None:
         c = await self.redis.hgetall(keys.counts(self.match_id))
-        h = self.runner.state.health
+        r = self.runner
+        h = r.state.health
         h.rejected = int(c.get(b"rejected", 0))
         h.duplicates = int(c.get(b"duplicates", 0))
         h.late = int(c.get(b"late", 0))
+        hr = tuple(int(c.get(k, 0)) for k in (b"hr_rejected", b"hr_duplicates", b"hr_late"))
+        for st in (r.state, r._stall_view):  # a stalled feed's copy holds its own heart-rate counters
+            if st is not None and (st.hr_rejected, st.hr_duplicates, st.hr_late) != hr:
+                st.hr_rejected, st.hr_duplicates, st.hr_late = hr
+                r.broadcaster.invalidate()
 
     async def _status_loop(self) -> None:
         """Once a second: ingest counters in, summary and full snapshot out (REST reads)."""

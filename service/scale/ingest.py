@@ -1,8 +1,11 @@
-"""The ``ingest`` role: set-up and frames in, appended to a Redis Stream per match.
+"""The ``ingest`` role: set-up, frames and heart rate in, appended to Redis Streams per match.
 
 Same endpoints and checks as the single process (the decoder decides what is
 accepted); an accepted frame becomes stream entry ``frame_id-1`` (keys.py), so
 Redis itself refuses a duplicate or late frame whichever ingest node sends it.
+Heart-rate samples are gated per player (docs/wearables.md): the gate lives in
+Redis beside the samples' stream and a batch is appended only if the gate it
+was checked against is still the stored one, so every node continues one gate.
 A batch is acknowledged only once Redis has answered for every entry; if Redis
 cannot be reached the decoder forgets the batch and the provider is told
 ``not_stored`` (HTTP 503 / an ingest ``error`` message) so it sends it again.
@@ -15,18 +18,21 @@ import time
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
 import orjson
 from fastapi import FastAPI, Request, WebSocket, WebSocketDisconnect
 from fastapi.responses import JSONResponse, Response
 from redis.exceptions import RedisError, ResponseError
 
 from service.config import Settings
+from service.engine.match import heart_params
 from service.engine.types import Roster
 from service.live.app import ID, _error, _same, _token
 from service.live.ingest import EventError, IngestOutcome, MatchRunner
 from service.live.matches import MATCH_ID
 from service.scale import keys
-from service.wire.cdf import DecodeResult, FrameDecoder, FrameError, SetupError, parse_setup
+from service.wire.cdf import DecodeResult, FrameDecoder, FrameError, SetupError, parse_message, parse_setup
+from service.wire.heart import HrDecoder, HrGate
 from service.wire.messages import envelope
 
 log = logging.getLogger("pacewire.scale.ingest")
@@ -39,6 +45,26 @@ if #top > 0 then ms = string.match(top[1][1], '^(%d+)-') end
 return redis.call('XADD', KEYS[1], ms .. '-*', 'e', ARGV[1])
 """
 
+# Heart-rate samples go in only if the gate they passed is still the stored one (its version), then the
+# gate is stored with the next version: a compare-and-set, so two nodes never both admit a player's sample.
+# KEYS: hr stream, gate hash, counts hash. ARGV: version checked against, new gate, rejected, duplicates,
+# late, then 4 per sample: line, player id, t (UTC s), bpm. Returns {1, new version} or {0, version, gate}.
+_APPEND_HR = """
+local v = redis.call('HGET', KEYS[2], 'v') or ''
+if v ~= ARGV[1] then return {0, v, redis.call('HGET', KEYS[2], 'g') or ''} end
+for a = 6, #ARGV, 4 do
+  redis.call('XADD', KEYS[1], '*', 'h', ARGV[a], 'p', ARGV[a + 1], 't', ARGV[a + 2], 'b', ARGV[a + 3])
+end
+local names = {'hr_rejected', 'hr_duplicates', 'hr_late'}
+for k = 1, 3 do
+  if tonumber(ARGV[2 + k]) > 0 then redis.call('HINCRBY', KEYS[3], names[k], ARGV[2 + k]) end
+end
+local nv = tostring((tonumber(v) or 0) + 1)
+redis.call('HSET', KEYS[2], 'v', nv, 'g', ARGV[2])
+return {1, nv}
+"""
+HR_ATTEMPTS = 20  # compare-and-set rounds before a batch is answered not_stored (nodes racing on one match)
+
 
 class StoreUnavailable(RuntimeError):
     """Redis could not be reached: nothing was kept."""
@@ -49,8 +75,25 @@ class IngestMatch:
     roster: Roster
     setup_raw: bytes
     decoder: FrameDecoder
+    hr: HrDecoder
     lock: asyncio.Lock = field(default_factory=asyncio.Lock)
     primed: bool = False
+    hr_lock: asyncio.Lock = field(default_factory=asyncio.Lock)
+    hr_version: str | None = None  # version of the stored gate that hr.gate equals; None: not loaded yet
+
+
+def gate_bytes(gate: HrGate) -> bytes:
+    """The heart-rate gate as stored in Redis: last t, last bpm, jump streak per player (float64)."""
+    return np.stack([gate.last_t, gate.last_bpm, gate.streak.astype(np.float64)]).tobytes()
+
+
+def load_gate(gate: HrGate, raw: bytes | None) -> None:
+    """Set ``gate`` to the stored one; a missing or differently sized one (another set-up) is a fresh gate."""
+    if raw and len(raw) == 3 * 8 * gate.n:
+        a = np.frombuffer(raw, np.float64).reshape(3, gate.n)
+        gate.restore((a[0], a[1], a[2].astype(np.int64)))
+    else:
+        gate.restore(HrGate(gate.n).checkpoint())
 
 
 class StreamIngest:
@@ -62,10 +105,12 @@ class StreamIngest:
         self.matches: dict[str, IngestMatch] = {}
         self.error: str | None = None
         self._add_event = redis.register_script(_ADD_EVENT)
+        self._append_hr = redis.register_script(_APPEND_HR)
 
     def _new(self, roster: Roster, raw: bytes) -> IngestMatch:
         d = self.settings.decode
-        return IngestMatch(roster, raw, FrameDecoder(roster, d.outside_margin_m, d.recent_ids))
+        return IngestMatch(roster, raw, FrameDecoder(roster, d.outside_margin_m, d.recent_ids),
+                           HrDecoder(roster, heart_params(self.settings)))
 
     async def setup(self, match_id: str, meta: Any, sheet: Any) -> tuple[Roster, bool]:
         """Store the set-up in Redis (every role reads the roster from there). Raises SetupError,
@@ -83,9 +128,12 @@ class StreamIngest:
                     return roster, False
                 if await self.redis.xlen(keys.frames(match_id)):
                     raise SetupConflict(f"match {match_id} already has frames with a different set-up")
+                if await self.redis.xlen(keys.hr(match_id)):
+                    raise SetupConflict(f"match {match_id} already has heart-rate samples with a different set-up")
             async with self.redis.pipeline(transaction=True) as p:
                 p.set(keys.setup(match_id), raw)
                 p.sadd(keys.MATCHES, match_id)
+                p.delete(keys.hr_gate(match_id))  # a gate is per roster: the new set-up starts afresh
                 await p.execute()
         except RedisError as exc:
             raise StoreUnavailable(f"Redis unavailable: {exc}") from exc
@@ -167,7 +215,7 @@ class StreamIngest:
 
     def _unstored(self, match_id: str, exc: Exception) -> IngestOutcome:
         self.error = f"Redis unavailable: {exc}"
-        log.warning("%s: frames not stored: %s", match_id, exc)
+        log.warning("%s: not stored: %s", match_id, exc)
         return IngestOutcome(0, 0, 0, 0, [], stored=False)
 
     async def _append(self, match_id: str, m: IngestMatch, res: DecodeResult, raw: list[bytes],
@@ -223,6 +271,62 @@ class StreamIngest:
         self.error = None
         return out
 
+    # -- heart rate -------------------------------------------------------------------------------
+    async def ingest_hr(self, match_id: str, m: IngestMatch, data: bytes | str | list[bytes]) -> IngestOutcome:
+        """Heart-rate samples: JSON Lines (a list of lines, HTTP) or one message (an object or an
+        array), checked as the single process checks them (``MatchRunner.ingest_hr``) against the
+        gate stored in Redis; answered once Redis has the accepted samples."""
+        dec = m.hr
+        objs = None if isinstance(data, list) else parse_message(data)
+        if isinstance(objs, FrameError):  # nothing reached the gate: count it, as frames count bad JSON
+            try:
+                await self.redis.hincrby(keys.counts(match_id), "hr_rejected", 1)
+            except RedisError:
+                pass
+            return IngestOutcome(0, 1, 0, 0, [objs])
+        async with m.hr_lock:
+            for _attempt in range(HR_ATTEMPTS):
+                try:
+                    if m.hr_version is None:
+                        v, g = await self.redis.hmget(keys.hr_gate(match_id), "v", "g")
+                        load_gate(dec.gate, g)
+                        m.hr_version = (v or b"").decode()
+                except RedisError as exc:
+                    return self._unstored(match_id, exc)
+                cp = dec.gate.checkpoint()
+                if objs is None:
+                    res = dec.decode_lines(data)  # type: ignore[arg-type]
+                    raw = [data[i].strip() for i in res.accepted]  # type: ignore[index]
+                else:
+                    res = dec.decode_objects(objs)
+                    raw = [orjson.dumps(objs[i]) for i in res.accepted]
+                out = IngestOutcome(len(res), res.rejected, res.duplicates, res.late, res.errors)
+                if not (len(res) or res.rejected or res.duplicates or res.late):
+                    return out
+                args: list[Any] = [m.hr_version, gate_bytes(dec.gate), res.rejected, res.duplicates, res.late]
+                ids = m.roster.players
+                for line, i, t, bpm in zip(raw, res.player.tolist(), res.t.tolist(), res.bpm.tolist()):
+                    args += [line, ids[i].id, repr(t), repr(bpm)]
+                try:
+                    ans = await self._append_hr(keys=[keys.hr(match_id), keys.hr_gate(match_id),
+                                                      keys.counts(match_id)], args=args)
+                except RedisError as exc:
+                    dec.gate.restore(cp)
+                    m.hr_version = None  # the script may have run before the connection broke: reload
+                    out.accepted, out.stored = 0, False
+                    self._unstored(match_id, exc)
+                    return out
+                if int(ans[0]) == 1:
+                    m.hr_version = ans[1].decode()
+                    self.error = None
+                    return out
+                # another node moved the gate on since this one last stored it: take it and check again
+                load_gate(dec.gate, ans[2])
+                m.hr_version = ans[1].decode()
+        out = IngestOutcome(0, 0, 0, 0, [], stored=False)
+        self.error = f"heart-rate gate of match {match_id} changed {HR_ATTEMPTS} times during one batch; send it again"
+        return out
+
     # -- events -----------------------------------------------------------------------------------
     async def add_event(self, match_id: str, m: IngestMatch, event: Any) -> dict[str, Any]:
         """Validate (the single process's rules) and append one match event after the latest frame."""
@@ -263,6 +367,21 @@ def create_ingest_app(redis: Any, settings: Settings, ingest_token: str | None) 
             chunks.append(chunk)
         return b"".join(chunks)
 
+    async def writing(request: Request, match_id: str) -> tuple[IngestMatch, bytes] | Response:
+        """A write request's match and body, or the answer refusing it (token, match, size)."""
+        if not can_write(_token(request.headers, request.query_params)):
+            return unauthorised()
+        try:
+            m = await store.get(match_id)
+        except StoreUnavailable as exc:
+            return unavailable(exc)
+        if m is None:
+            return unknown(match_id)
+        body = await read_body(request)
+        if isinstance(body, Response):
+            return body
+        return m, body
+
     @app.put("/api/matches/{match_id}")
     async def put_match(request: Request, match_id: str = ID) -> Response:
         from service.live.matches import SetupConflict
@@ -293,17 +412,10 @@ def create_ingest_app(redis: Any, settings: Settings, ingest_token: str | None) 
 
     @app.post("/api/matches/{match_id}/frames")
     async def post_frames(request: Request, match_id: str = ID) -> Response:
-        if not can_write(_token(request.headers, request.query_params)):
-            return unauthorised()
-        try:
-            m = await store.get(match_id)
-        except StoreUnavailable as exc:
-            return unavailable(exc)
-        if m is None:
-            return unknown(match_id)
-        body = await read_body(request)
-        if isinstance(body, Response):
-            return body
+        got = await writing(request, match_id)
+        if isinstance(got, Response):
+            return got
+        m, body = got
         lines = body.split(b"\n")
         if len(lines) > srv.max_batch_frames + 1:
             return _error(413, "too_many_frames", f"more than {srv.max_batch_frames} frames in one batch")
@@ -314,17 +426,10 @@ def create_ingest_app(redis: Any, settings: Settings, ingest_token: str | None) 
 
     @app.post("/api/matches/{match_id}/events")
     async def post_events(request: Request, match_id: str = ID) -> Response:
-        if not can_write(_token(request.headers, request.query_params)):
-            return unauthorised()
-        try:
-            m = await store.get(match_id)
-        except StoreUnavailable as exc:
-            return unavailable(exc)
-        if m is None:
-            return unknown(match_id)
-        body = await read_body(request)
-        if isinstance(body, Response):
-            return body
+        got = await writing(request, match_id)
+        if isinstance(got, Response):
+            return got
+        m, body = got
         try:
             data = orjson.loads(body)
         except orjson.JSONDecodeError as exc:
@@ -341,8 +446,23 @@ def create_ingest_app(redis: Any, settings: Settings, ingest_token: str | None) 
             done += 1
         return JSONResponse({"applied": done})
 
-    @app.websocket("/ingest/{match_id}")
-    async def ws_ingest(ws: WebSocket, match_id: str = ID) -> None:
+    @app.post("/api/matches/{match_id}/hr")
+    async def post_hr(request: Request, match_id: str = ID) -> Response:
+        """Heart-rate samples (docs/wearables.md): JSON Lines, or one JSON array."""
+        got = await writing(request, match_id)
+        if isinstance(got, Response):
+            return got
+        m, body = got
+        data: bytes | list[bytes] = body if body.lstrip()[:1] == b"[" else body.split(b"\n")
+        if isinstance(data, list) and len(data) > srv.max_batch_frames + 1:
+            return _error(413, "too_many_samples", f"more than {srv.max_batch_frames} samples in one batch")
+        out = await store.ingest_hr(match_id, m, data)
+        if not out.stored:
+            return _error(503, "not_stored", store.error or "Redis unavailable", **out.as_dict())
+        return JSONResponse(out.as_dict())
+
+    async def ingest_socket(ws: WebSocket, match_id: str, hr: bool) -> None:
+        """A provider's socket: frames (or heart-rate samples) in, an ``error`` message per refusal out."""
         await ws.accept()
         if not can_write(_token(ws.headers, ws.query_params)):
             await ws.close(code=1008, reason="unauthorised")
@@ -361,6 +481,7 @@ def create_ingest_app(redis: Any, settings: Settings, ingest_token: str | None) 
             await say("unknown_match", f"no match {match_id!r}")
             await ws.close(code=1008)
             return
+        can_reply = True
         try:
             while True:
                 msg = await ws.receive()
@@ -371,14 +492,26 @@ def create_ingest_app(redis: Any, settings: Settings, ingest_token: str | None) 
                     data = msg.get("bytes")
                 if data is None:
                     continue
-                out = await store.ingest_message(match_id, m, data)
+                out = await (store.ingest_hr(match_id, m, data) if hr else store.ingest_message(match_id, m, data))
                 errs = [e.as_dict() for e in out.errors]
                 if not out.stored:
                     errs.append({"code": "not_stored", "message": store.error or "Redis unavailable"})
-                for e in errs:
-                    await ws.send_text(orjson.dumps(envelope("error", match_id, 0, 0.0, None, **e)).decode())
+                for e in errs if can_reply else ():
+                    try:
+                        await ws.send_text(orjson.dumps(envelope("error", match_id, 0, 0.0, None, **e)).decode())
+                    except Exception:  # the provider closed its side: still read what it sent before closing
+                        can_reply = False
+                        break
         except WebSocketDisconnect:
             return
+
+    @app.websocket("/ingest/{match_id}")
+    async def ws_ingest(ws: WebSocket, match_id: str = ID) -> None:
+        await ingest_socket(ws, match_id, hr=False)
+
+    @app.websocket("/ingest/{match_id}/hr")
+    async def ws_ingest_hr(ws: WebSocket, match_id: str = ID) -> None:
+        await ingest_socket(ws, match_id, hr=True)
 
     @app.get("/healthz")
     async def healthz() -> Response:

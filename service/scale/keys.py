@@ -21,8 +21,16 @@ def frames(m: str) -> str:
     return f"{PREFIX}:frames:{m}"  # the durable log: one entry per frame (and per event)
 
 
+def hr(m: str) -> str:
+    return f"{PREFIX}:hr:{m}"  # heart-rate log: one entry per accepted sample (docs/wearables.md)
+
+
+def hr_gate(m: str) -> str:
+    return f"{PREFIX}:hrgate:{m}"  # hash: v (version), g (ingest's per-player heart-rate gate), shared by nodes
+
+
 def counts(m: str) -> str:
-    return f"{PREFIX}:counts:{m}"  # hash: rejected / duplicates / late counted at ingest
+    return f"{PREFIX}:counts:{m}"  # hash: rejected / duplicates / late (and hr_ ones) counted at ingest
 
 
 def lease(m: str) -> str:

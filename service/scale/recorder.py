@@ -1,11 +1,12 @@
 """The ``recorder`` role: the CDF folder of every match, written from its stream.
 
-In scaled mode the stream is the durable log; this role turns it into the
+In scaled mode the streams are the durable log; this role turns them into the
 same folder the single process records (``meta.json``, ``match.json``,
-``tracking.jsonl``, ``events.jsonl``) for replay, analysis and reports. The
-position read so far is stored beside the files with their lengths, written
-after an fsync, so a restart cuts any unconfirmed tail and carries on with no
-line lost or doubled. Run one recorder per data folder.
+``tracking.jsonl``, ``events.jsonl``, and ``hr.jsonl`` once the match has
+heart-rate samples) for replay, analysis and reports. The positions read so
+far are stored beside the files with their lengths, written after an fsync, so
+a restart cuts any unconfirmed tail and carries on with no line lost or
+doubled. Run one recorder per data folder.
 """
 from __future__ import annotations
 
@@ -37,28 +38,39 @@ class MatchFolder:
         if self.pos_path.exists():
             pos = orjson.loads(self.pos_path.read_bytes())
         self.last_id: str = pos["id"]
-        self.files = {name: folder / f"{name}.jsonl" for name in ("tracking", "events")}
+        self.hr_last_id: str = pos.get("hr_id", "0-0")  # a position file from before the heart-rate stream
+        self.files = {name: folder / f"{name}.jsonl" for name in ("tracking", "events", "hr")}
+        self.sizes = {name: int(pos.get(name, 0)) for name in self.files}
         for name, path in self.files.items():
+            if name == "hr" and not path.exists():
+                continue  # made with the first sample: a match without heart rate has no hr.jsonl
             with open(path, "ab") as fh:
-                fh.truncate(int(pos[name]))  # an unconfirmed tail goes; it is read again
+                fh.truncate(self.sizes[name])  # an unconfirmed tail goes; it is read again
 
-    def write(self, entries: list[tuple[bytes, dict[bytes, bytes]]]) -> None:
-        out: dict[str, list[bytes]] = {"tracking": [], "events": []}
+    def write(self, entries: list[tuple[bytes, dict[bytes, bytes]]], hr: bool = False) -> None:
+        """Entries of the match's frames stream (frames and events), or of its heart-rate stream."""
+        out: dict[str, list[bytes]] = {"hr": []} if hr else {"tracking": [], "events": []}
         for _eid, f in entries:
-            if b"f" in f:
+            if b"h" in f:
+                out["hr"].append(f[b"h"] + b"\n")
+            elif b"f" in f:
                 out["tracking"].append(f[b"f"] + b"\n")
             elif b"e" in f:
                 out["events"].append(f[b"e"] + b"\n")
-        sizes = {}
         for name, lines in out.items():
+            if not lines and not self.files[name].exists():
+                continue
             with open(self.files[name], "ab") as fh:
                 if lines:
                     fh.write(b"".join(lines))
                     fh.flush()
                     os.fsync(fh.fileno())
-                sizes[name] = fh.tell()
-        self.last_id = entries[-1][0].decode()
-        write_json_atomic(self.pos_path, {"id": self.last_id, **sizes})
+                self.sizes[name] = fh.tell()
+        if hr:
+            self.hr_last_id = entries[-1][0].decode()
+        else:
+            self.last_id = entries[-1][0].decode()
+        write_json_atomic(self.pos_path, {"id": self.last_id, "hr_id": self.hr_last_id, **self.sizes})
 
 
 class StreamRecorder:
@@ -95,11 +107,15 @@ class StreamRecorder:
                 if not self.matches:
                     await asyncio.sleep(0.5)
                     continue
-                streams = {keys.frames(mid): m.last_id for mid, m in self.matches.items()}
+                streams = {}
+                for mid, m in self.matches.items():
+                    streams[keys.frames(mid)] = m.last_id
+                    streams[keys.hr(mid)] = m.hr_last_id
                 resp = await self.redis.xread(streams, count=self.scale.read_count, block=500)
                 for key, entries in resp or []:
-                    mid = key.decode().split(":", 2)[2]
-                    await asyncio.to_thread(self.matches[mid].write, entries)
+                    _, kind, mid = key.decode().split(":", 2)
+                    if entries:
+                        await asyncio.to_thread(self.matches[mid].write, entries, kind == "hr")
             except asyncio.CancelledError:
                 raise
             except RedisError as exc:
