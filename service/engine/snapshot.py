@@ -221,6 +221,47 @@ def _hr_health(state: "MatchState", on_pitch: list[bool]) -> dict[str, float | N
     return out
 
 
+def _health(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None,
+            on_pitch: list[bool], cov: np.ndarray) -> dict[str, Any]:
+    """The snapshot's ``health`` object at wall-clock ``now`` (None: the last frame's time)."""
+    h = state.health
+    clock = now if now is not None else (h.last_arrival if h.last_arrival is not None else 0.0)
+    dropout = state.dropout()
+    status, reasons = h.evaluate(clock, dropout, extra_reasons)
+    lag_med, lag_p95 = h.lag(clock)
+    cov_r = np.round(cov, 3).tolist()
+    roster = state.roster
+    heart = state.heart
+    health = {
+        "state": status,
+        "reasons": reasons,
+        "fps_observed": round(h.fps_observed(clock), 2),
+        "fps_nominal": state.fps,
+        "dropout": round(dropout, 3),
+        "lag_s": None if lag_med is None else round(lag_med, 3),
+        "lag_p95_s": None if lag_p95 is None else round(lag_p95, 3),
+        "late": h.late,
+        "duplicates": h.duplicates,
+        "rejected": h.rejected,
+        "jumps": state.jumps,
+        "frames": state.frames,
+        "coverage": {pl.id: cov_r[i] for i, pl in enumerate(roster.players)},
+    }
+    if heart is not None:
+        health["hr_coverage"] = _hr_health(state, on_pitch)
+    if heart is not None or state.hr_rejected or state.hr_duplicates or state.hr_late:
+        health["hr_rejected"] = state.hr_rejected
+        health["hr_duplicates"] = state.hr_duplicates
+        health["hr_late"] = state.hr_late
+    return health
+
+
+def build_health(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
+    """The snapshot's ``health`` alone, equal to ``build_snapshot(...)["health"]`` at the same ``now``
+    (the health check runs four times a second and needs no figures)."""
+    return _health(state, now, extra_reasons, state.on_pitch().tolist(), state.coverage())
+
+
 def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
     roster = state.roster
     n = state.n
@@ -318,33 +359,7 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
         outfield["windows"] = tw
         teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": True, "outfield": outfield}
 
-    h = state.health
-    clock = now if now is not None else (h.last_arrival if h.last_arrival is not None else 0.0)
-    dropout = state.dropout()
-    status, reasons = h.evaluate(clock, dropout, extra_reasons)
-    lag_med, lag_p95 = h.lag(clock)
-    cov_r = np.round(cov, 3).tolist()
-    health = {
-        "state": status,
-        "reasons": reasons,
-        "fps_observed": round(h.fps_observed(clock), 2),
-        "fps_nominal": state.fps,
-        "dropout": round(dropout, 3),
-        "lag_s": None if lag_med is None else round(lag_med, 3),
-        "lag_p95_s": None if lag_p95 is None else round(lag_p95, 3),
-        "late": h.late,
-        "duplicates": h.duplicates,
-        "rejected": h.rejected,
-        "jumps": state.jumps,
-        "frames": state.frames,
-        "coverage": {pl.id: cov_r[i] for i, pl in enumerate(roster.players)},
-    }
-    if heart is not None:
-        health["hr_coverage"] = _hr_health(state, on_pitch)
-    if heart is not None or state.hr_rejected or state.hr_duplicates or state.hr_late:
-        health["hr_rejected"] = state.hr_rejected
-        health["hr_duplicates"] = state.hr_duplicates
-        health["hr_late"] = state.hr_late
+    health = _health(state, now, extra_reasons, on_pitch, cov)
     return {
         "match_id": roster.match_id,
         "match_time_s": round(state.match_time_s(), 2),

@@ -21,6 +21,7 @@ import orjson
 from service.config import Settings
 from service.engine.health import STALLED
 from service.engine.match import MatchState
+from service.engine.snapshot import build_health
 from service.engine.types import PERIODS, Block, Roster
 from service.live.broadcaster import Broadcaster
 from service.live.recorder import Recorder, RecorderError, write_json_atomic
@@ -329,8 +330,7 @@ class MatchRunner:
 
     def _set_health_now(self) -> None:
         self.broadcaster.invalidate()
-        snap = self.broadcaster.snapshot()
-        self._maybe_health_message(snap["health"])
+        self._maybe_health_message(self.health_body())
 
     def _maybe_health_message(self, health: dict[str, Any]) -> None:
         """Push a health message when the state or the kinds of reasons change."""
@@ -350,8 +350,8 @@ class MatchRunner:
                     self._stall_told = True  # subscribers get the finalised figures at once
                     self.broadcaster.invalidate()
                     self.broadcaster.tick(force=True)
-                self.broadcaster.invalidate()
-                self._maybe_health_message(self.broadcaster.snapshot()["health"])
+                self.broadcaster.invalidate()  # health moves with the clock: the next read builds afresh
+                self._maybe_health_message(self.health_body())
                 if time.monotonic() - last_save > 5.0:
                     last_save = time.monotonic()
                     await asyncio.to_thread(self.save_counters)
@@ -365,6 +365,12 @@ class MatchRunner:
         if self._stall_view is None and h.last_arrival is not None and now - h.last_arrival > self.settings.health.stall_s:
             self._stall_view = self.state.provisional()
             self._stall_told = False
+
+    def health_body(self) -> dict[str, Any]:
+        """The snapshot's ``health`` now, without building the figures."""
+        now = time.time()
+        self._stalled_view(now)
+        return build_health(self._stall_view or self.state, now, self.extra_reasons())
 
     def snapshot_body(self) -> dict[str, Any]:
         now = time.time()
