@@ -43,7 +43,7 @@ def add_heart_rate(state: MatchState, rec: Recording) -> list[FrameError]:
     the lines refused."""
     if rec.hr is None:
         return []
-    res = HrDecoder(state.roster, state.heart_params).decode_lines(rec.hr_lines())
+    res = HrDecoder(state.roster, state.heart_params, recorded=True).decode_lines(rec.hr_lines())
     state.ingest_heart(res)
     return res.errors
 

@@ -352,3 +352,18 @@ def test_live_heart_rate_endpoints_refuse_clearly(server):
     # a match without heart rate shows none of its fields; counters appear once samples were refused
     snap = httpx.get(f"{http}/api/matches/{mid}/snapshot").json()
     assert "hr_bpm" not in snap["players"]["h1"] and snap["health"]["hr_rejected"] == 2
+
+
+def test_samples_let_in_by_the_jump_reset_count_again_when_read_back_from_the_recording():
+    # docs/wearables.md: after 3 hr_jump rejections in a row the next sample is accepted; a recording
+    # holds only accepted samples, so reading it back must not apply the jump rule again
+    roster = parse_setup(wearable_meta(), wearable_sheet(1))
+    params = new_match(wearable_meta(), wearable_sheet(1), load_settings())[0].heart_params
+    bpm = [100, 101, 225, 225, 225, 225, 226, 227]  # 4 Hz: the 225s jump > 40 bpm/s from 101
+    lines = cb.lines([{"player_id": "h1", "timestamp": cb.stamp(k / 4), "bpm": b} for k, b in enumerate(bpm)])
+    live = HrDecoder(roster, params).decode_lines(lines)
+    assert [e.code for e in live.errors] == ["hr_jump"] * 3 and len(live) == 5
+    kept = [lines[i] for i in live.accepted]
+    again = HrDecoder(roster, params, recorded=True).decode_lines(kept)
+    assert len(again) == 5 and again.errors == []
+    assert len(HrDecoder(roster, params).decode_lines(kept)) == 3  # what a fresh live gate would have kept

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
+import numpy as np
 import orjson
 
 from service.config import Settings
@@ -135,7 +136,12 @@ class MatchRunner:
         hr = self.folder / "hr.jsonl"
         if hr.exists():
             with open(hr, "rb") as fh:
-                res = self.hr_decoder.decode_lines(fh)
+                res = HrDecoder(self.roster, self.state.heart_params, recorded=True).decode_lines(fh)
+            # the live gate continues from the recorded samples (the last one per player)
+            gate = self.hr_decoder.gate
+            for i in set(res.player.tolist()):
+                k = int(np.flatnonzero(res.player == i)[-1])
+                gate.last_t[i], gate.last_bpm[i] = res.t[k], res.bpm[k]
             res.rejected = res.duplicates = res.late = 0  # live drops come from counters.json
             self.state.ingest_heart(res)
         ev = self.folder / "events.jsonl"
@@ -245,10 +251,11 @@ class MatchRunner:
                 res = dec.decode_objects(objs)
                 raw = [orjson.dumps(objs[i]) for i in res.accepted]
         out = IngestOutcome(len(res), res.rejected, res.duplicates, res.late, res.errors)
-        st = self.state
-        st.hr_rejected += res.rejected
-        st.hr_duplicates += res.duplicates
-        st.hr_late += res.late
+        for st in (self.state, self._stall_view):  # a stalled feed's copy shows the counts too
+            if st is not None:
+                st.hr_rejected += res.rejected
+                st.hr_duplicates += res.duplicates
+                st.hr_late += res.late
         res.rejected = res.duplicates = res.late = 0  # counted here, once
         if out.rejected or out.duplicates or out.late:
             self.broadcaster.invalidate()

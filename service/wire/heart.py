@@ -74,9 +74,12 @@ class HrResult:
 class HrDecoder:
     """Decodes heart-rate samples for one match; gates them per player."""
 
-    def __init__(self, roster: Roster, params: HeartParams) -> None:
+    def __init__(self, roster: Roster, params: HeartParams, recorded: bool = False) -> None:
+        """``recorded``: the samples were accepted live (a recording): the hr_jump rule is not
+        applied again, since a sample let in by its reset would be refused by a fresh gate."""
         self.roster = roster
         self.p = params
+        self.recorded = recorded
         self.gate = HrGate(roster.n)
 
     def decode_lines(self, lines: Iterable[bytes | str], first_line: int = 1) -> HrResult:
@@ -112,7 +115,8 @@ class HrDecoder:
                         errors.append(FrameError("late", f"sample of player {pid!r} at {stamp} is older than "
                                                          "that player's last accepted sample", None, line))
                     continue
-                self._jump(i, t, bpm, obj)
+                if not self.recorded:
+                    self._jump(i, t, bpm, obj)
             except _Reject as rej:
                 res.rejected += 1
                 errors.append(FrameError(rej.code, rej.message, None, line))
