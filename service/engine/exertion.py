@@ -1,8 +1,9 @@
 """Per-sample exertion figures: speed bands, efforts, metabolic power.
 
 Everything here works on final kinematic samples shaped (n, players). Figures
-are accumulated as integers in micro-units (µm, µJ/kg) so that sums do not
-depend on how the samples were split into blocks.
+are whole numbers of micro-units (µm, µJ/kg) or counts, so that sums do not
+depend on how the samples were split into blocks (the per-sample matrix holds
+them as float64, exact below 2**53, for a fast summing product).
 """
 from __future__ import annotations
 
@@ -57,7 +58,13 @@ class ExertionParams:
 def minetti_cost(es: np.ndarray) -> np.ndarray:
     """Energy cost of running at equivalent slope ``es``, J/kg/m (Minetti et al. 2002)."""
     i = np.clip(es, -0.45, 0.45)
-    return np.polyval(MINETTI_2002, i)
+    # Horner's scheme in place, the same operations in the same order as np.polyval
+    y = i * MINETTI_2002[0]
+    for c in MINETTI_2002[1:-1]:
+        y += c
+        y *= i
+    y += MINETTI_2002[-1]
+    return y
 
 
 def minetti_pavei_cost(es: np.ndarray, flat: float = 3.6) -> np.ndarray:
@@ -87,7 +94,11 @@ def metabolic_power(speed: np.ndarray, accel: np.ndarray, p: ExertionParams) -> 
     if p.model == "osgnach2010":
         es = accel / G
         em = np.sqrt(es * es + 1.0)
-        return minetti_cost(es) * em * p.kt * speed
+        cost = minetti_cost(es)
+        cost *= em
+        cost *= p.kt
+        cost *= speed
+        return cost
     es = accel / G + p.air_k * speed * speed / G
     em = np.sqrt(es * es + 1.0)
     running = (speed >= np.polyval(TRANSITION_2018, es)) | (speed > 2.5)
@@ -98,32 +109,46 @@ def metabolic_power(speed: np.ndarray, accel: np.ndarray, p: ExertionParams) -> 
 class EffortCounter:
     """Counts runs of a condition held at least ``min_n`` samples; one run counts once.
 
-    Columns are independent, each with its own minimum; the run length carries
-    across calls, so a run split over blocks counts once.
+    Columns are independent, each with its own minimum (``min_n`` broadcasts
+    against the column shape); the run length carries across calls, so a run
+    split over blocks counts once.
     """
 
-    def __init__(self, min_n: np.ndarray) -> None:
+    _BIG = 1 << 40  # above any run length: keeps the running maximum below positive
+
+    def __init__(self, min_n: np.ndarray, shape: tuple[int, ...] | None = None) -> None:
         self.min_n = np.maximum(np.asarray(min_n, np.int64), 1)
-        self.carry = np.zeros(self.min_n.shape, np.int64)
+        self.carry = np.zeros(self.min_n.shape if shape is None else shape, np.int64)
 
     def reset(self) -> None:
         self.carry[:] = 0
 
+    def grow(self, k: int) -> None:
+        """``k`` more columns on the last axis, with no run in progress."""
+        self.carry = np.concatenate([self.carry, np.zeros((*self.carry.shape[:-1], k), np.int64)], axis=-1)
+
     def step(self, cond: np.ndarray) -> np.ndarray:
-        """``cond`` (n, C) bool → (n, C) bool marking the sample where a run reaches its minimum."""
+        """``cond`` (n, *columns) bool → (n, *columns) bool marking the sample where a run reaches its minimum."""
         n = cond.shape[0]
         if n == 0:
             return cond
-        rows = np.arange(1, n + 1)[:, None]
-        # (1-based) row of the last False at or before each row; 0: none in this block
-        last_false = np.maximum.accumulate(np.where(cond, 0, rows), axis=0)
-        length = np.where(cond, rows - last_false + np.where(last_false == 0, self.carry, 0), 0)
+        rows = (np.arange(n + 1, dtype=np.int64) + self._BIG).reshape(-1, *([1] * (cond.ndim - 1)))
+        # running maximum of (row + BIG) over rows where the condition fails; row 0 stands for the
+        # run carried in: its last failure lies ``carry`` rows back
+        last_fail = np.empty((n + 1, *cond.shape[1:]), np.int64)
+        np.subtract(self._BIG, self.carry, out=last_fail[0])
+        np.multiply(rows[1:], ~cond, out=last_fail[1:])
+        np.maximum.accumulate(last_fail, axis=0, out=last_fail)
+        length = rows[1:] - last_fail[1:]
         self.carry = length[-1].copy()
         return length == self.min_n
 
 
 class Exertion:
-    """Turns final kinematic samples into the figure matrix for one period."""
+    """Turns final kinematic samples into the figure matrix for one period.
+
+    Columns are the players seen in the period (``grow`` adds them as they appear).
+    """
 
     def __init__(self, params: ExertionParams, n_players: int, zone_edges: np.ndarray, zone_scale: np.ndarray) -> None:
         self.p = params
@@ -134,33 +159,51 @@ class Exertion:
         self.inv_scale = 1.0 / zone_scale
         self.n_zones = zone_edges.shape[0] + 1
         # one counter for HSR, sprint, accel, decel runs of every player: columns (4, P)
-        mins = np.repeat([params.speed_min_n, params.speed_min_n, params.accel_min_n, params.accel_min_n], n_players)
-        self.efforts = EffortCounter(mins)
+        mins = np.array([params.speed_min_n, params.speed_min_n, params.accel_min_n, params.accel_min_n])[:, None]
+        self.efforts = EffortCounter(mins, (4, n_players))
 
     def reset(self) -> None:
         self.efforts.reset()
 
-    def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray
-             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Returns (figures (n, P, N_FIG) int64 in micro-units or counts,
-        zone index (n, P), metabolic power (n, P) W/kg)."""
+    def grow(self, zone_scale: np.ndarray) -> None:
+        """Columns for players seen for the first time (their speed-band scales)."""
+        self.n += len(zone_scale)
+        self.inv_scale = np.concatenate([self.inv_scale, 1.0 / zone_scale])
+        self.efforts.grow(len(zone_scale))
+
+    def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray, full: bool = False
+             ) -> tuple[np.ndarray, np.ndarray]:
+        """Returns (figures (n, N_FIG, P) float64 holding integers: micro-units or counts,
+        zone index (n, P)). ``full``: every sample valid and seen (the masks are not read)."""
         p = self.p
         n = speed.shape[0]
-        dist_um = np.rint(speed * (self.dt * MICRO)).astype(np.int64)
+        per_um = self.dt * MICRO
+        fig = np.empty((n, N_FIG, self.n))
+        dist = fig[:, DIST]
+        np.multiply(speed, per_um, out=dist)
+        np.rint(dist, out=dist)
         power = metabolic_power(speed, accel, p)
-        power[~valid] = 0.0
-        in_hsr = valid & (speed >= p.hsr_ms)
-        in_spr = valid & (speed >= p.sprint_ms)
-        conds = np.concatenate([in_hsr, in_spr, valid & (accel >= p.accel_ms2), valid & (accel <= p.decel_ms2)], axis=1)
-        counts = self.efforts.step(conds).reshape(n, 4, self.n)
-        fig = np.empty((n, self.n, N_FIG), np.int64)
-        fig[..., DIST] = dist_um
-        fig[..., HSR] = dist_um * (in_hsr & ~in_spr)
-        fig[..., SPRINT] = dist_um * in_spr
-        fig[..., ENERGY] = np.rint(power * (self.dt * MICRO))
-        fig[..., HIPOW] = dist_um * (power > p.high_power_wkg)
-        fig[..., N_HSR:N_DEC + 1] = counts.transpose(0, 2, 1)
-        fig[..., VALID] = valid
-        fig[..., SEEN] = seen
+        if not full:
+            power[~valid] = 0.0
+        energy = fig[:, ENERGY]
+        np.multiply(power, per_um, out=energy)
+        np.rint(energy, out=energy)
+        np.multiply(dist, power > p.high_power_wkg, out=fig[:, HIPOW])
+        conds = np.empty((n, 4, self.n), bool)  # HSR, sprint, accel, decel
+        np.greater_equal(speed, p.hsr_ms, out=conds[:, 0])
+        np.greater_equal(speed, p.sprint_ms, out=conds[:, 1])
+        np.greater_equal(accel, p.accel_ms2, out=conds[:, 2])
+        np.less_equal(accel, p.decel_ms2, out=conds[:, 3])
+        if not full:
+            conds &= valid[:, None, :]
+        np.multiply(dist, conds[:, 0], out=fig[:, HSR])
+        np.multiply(dist, conds[:, 1], out=fig[:, SPRINT])
+        fig[:, HSR] -= fig[:, SPRINT]  # a sprint sample is not an HSR-band sample (sprint_ms > hsr_ms)
+        fig[:, N_HSR:N_DEC + 1] = self.efforts.step(conds)
+        if full:
+            fig[:, VALID:SEEN + 1] = 1.0
+        else:
+            fig[:, VALID] = valid
+            fig[:, SEEN] = seen
         zone = np.searchsorted(self.zone_edges, speed * self.inv_scale, side="right")
-        return fig, zone, power
+        return fig, zone

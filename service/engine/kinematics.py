@@ -80,6 +80,7 @@ class Final:
     xy: np.ndarray  # (n, P, 2) smoothed position, m
     speed: np.ndarray  # m/s (0 where not valid)
     accel: np.ndarray  # m/s^2, tangential: d|v|/dt (0 where not valid)
+    full: bool = False  # every sample valid and seen (valid and seen are all True)
 
     def __len__(self) -> int:
         return int(self.valid.shape[0])
@@ -138,6 +139,8 @@ class Track:
         self._rows = 0
         self._clean_upto = 0  # slots below this were checked uniform and jump-free
         self._clean_cols: np.ndarray | None = None
+        self._clean_all = False  # _clean_cols is all True
+        self._true: dict[int, np.ndarray] = {}  # all-True (rows, players) masks, by row count
         self.end = 0  # one past the last slot received
         self.fin = 0  # first slot not yet final
         self.jumps = 0  # jumps counted in final slots
@@ -162,8 +165,12 @@ class Track:
             self._off, self._rows = 0, 0
             self._store[:] = np.nan
             self._clean_cols = None
-        self._extend(int(slots[-1]) + 1)
-        self.buf[slots - self.base] = xy
+        last = int(slots[-1])
+        self._extend(last + 1)
+        if last - first + 1 == len(slots):  # contiguous slots (the usual case): a slice, not a scatter
+            self.buf[first - self.base: last + 1 - self.base] = xy
+        else:
+            self.buf[slots - self.base] = xy
         self._collect(out, self.advance())
         return out
 
@@ -172,6 +179,17 @@ class Track:
         out: list[Final] = []
         self._collect(out, self.advance(closed=True))
         return out
+
+    def grow(self, k: int) -> None:
+        """``k`` more players, not seen so far."""
+        store = np.full((self._store.shape[0], self.n + k, 2), np.nan)
+        store[:, : self.n] = self._store
+        self._store = store
+        self.n += k
+        if self._clean_cols is not None:
+            self._clean_cols = np.concatenate([self._clean_cols, np.zeros(k, bool)])
+        self._clean_all = False
+        self._true = {}
 
     @staticmethod
     def _collect(out: list[Final], item: Final | None) -> None:
@@ -331,17 +349,20 @@ class Track:
         # only rows not checked before (and the one before them, for the step)
         start = max(self._clean_upto - 1 - self.base, 0) if self._clean_cols is not None else 0
         part = buf[start:]
+        lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
+        d = part[1:] - part[:-1]  # unseen players give NaN, which compares False
+        step2 = (d * d).sum(axis=2)
+        if start > 0 and self._clean_all and (step2 <= lim * lim).all():
+            # everyone seen in every slot so far: a missing sample (NaN) fails this test as a jump does
+            self._clean_upto = self.end
+            return self._clean_cols
         seen = ~np.isnan(part[:, :, 0])
         cols = seen[0] if start == 0 else self._clean_cols
-        if not (seen == cols).all():
-            self._clean_cols = None
-            return None
-        d = part[1:] - part[:-1]  # unseen players give NaN, which compares False
-        lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
-        if ((d * d).sum(axis=2) > lim * lim).any():
+        if not (seen == cols).all() or (step2 > lim * lim).any():
             self._clean_cols = None
             return None
         self._clean_cols = cols
+        self._clean_all = bool(cols.all())
         self._clean_upto = self.end
         return cols
 
@@ -363,6 +384,9 @@ class Track:
         """Centred fit for rows r0..r1 of ``src`` (rows r0-h .. r1+h-1 must exist)
         as one matrix product per chunk → (3, n, P, 2): position, velocity, acceleration."""
         h = self.p.half
+        if r1 - r0 <= self._CHUNK:
+            rows = src[r0 - h: r1 + h].reshape(r1 - r0 + 2 * h, self.n * 2)
+            return (self._band_matrix(r1 - r0) @ rows).reshape(3, r1 - r0, self.n, 2)
         out = np.empty((3, r1 - r0, self.n, 2))
         for a in range(r0, r1, self._CHUNK):
             b = min(a + self._CHUNK, r1)
@@ -373,6 +397,12 @@ class Track:
 
     def _smooth_clean(self, r0: int, r1: int, cols: np.ndarray) -> Final:
         res = self._centred(self.buf, r0, r1)
+        if self._clean_all:
+            v = self._true.get(r1 - r0)
+            if v is None:
+                v = self._true[r1 - r0] = np.ones((r1 - r0, self.n), bool)
+                v.flags.writeable = False
+            return self._finish(r0, r1, v, res, full=True)
         return self._finish(r0, r1, np.broadcast_to(cols, (r1 - r0, self.n)), res)
 
     def _smooth(self, r0: int, r1: int, valid: np.ndarray, kept: np.ndarray, run_s: np.ndarray,
@@ -400,12 +430,18 @@ class Track:
             res[:, ei, ep] = np.einsum("mcw,dmw->dmc", ew, ec)
         return self._finish(r0, r1, v, res, kept[r0:r1])
 
-    def _finish(self, r0: int, r1: int, v: np.ndarray, res: np.ndarray, kept: np.ndarray | None = None) -> Final:
+    def _finish(self, r0: int, r1: int, v: np.ndarray, res: np.ndarray, kept: np.ndarray | None = None,
+                full: bool = False) -> Final:
+        """Speed and tangential acceleration (v·a/|v|, 0 below the still speed) from the fit.
+        ``full``: ``v`` is all True."""
         p = self.p
         pos, vel, acc = res
         speed = np.hypot(vel[..., 0], vel[..., 1])
         moving = speed > p.still_speed_ms
-        tang = (vel[..., 0] * acc[..., 0] + vel[..., 1] * acc[..., 1]) / np.where(moving, speed, 1.0)
-        speed = np.where(v, speed, 0.0)
-        tang = np.where(v & moving, tang, 0.0)
-        return Final(self.base + r0, v, v if kept is None else kept, pos, speed, tang)
+        dot = vel[..., 0] * acc[..., 0]
+        dot += vel[..., 1] * acc[..., 1]
+        tang = np.zeros_like(speed)
+        np.divide(dot, speed, out=tang, where=moving if full else v & moving)
+        if not full:
+            speed = np.where(v, speed, 0.0)
+        return Final(self.base + r0, v, v if kept is None else kept, pos, speed, tang, full)

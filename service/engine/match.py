@@ -27,35 +27,97 @@ CONTEXTS = ("in_possession", "out_of_possession", "out_of_play")
 _U = 1e-6  # micro-units to units
 
 
+def _widen(a: np.ndarray, k: int, fill: Any, axis: int = 0) -> np.ndarray:
+    shape = list(a.shape)
+    shape[axis] = k
+    return np.concatenate([a, np.full(shape, fill, a.dtype)], axis=axis)
+
+
 @dataclass
 class _Period:
-    """One period's running state."""
+    """One period's running state.
+
+    The engine works only on the players seen in the period so far: the columns
+    ``cols`` (roster indices, in order of appearance), grown when a player first
+    appears (a player never seen has all-zero figures). The properties below give
+    the per-player arrays roster-wide (P = roster size)."""
 
     index: int
     t0: float  # timestamp of slot 0, s
+    n: int  # roster size
     track: Track
     exertion: Exertion
     bins: SecondBins
-    sums: np.ndarray  # (P, N_FIG) int64
-    zones: np.ndarray  # (P, Z) int64 µm
-    poss: np.ndarray  # (P, 3, 2) int64 µm: context × (distance, hsr)
-    max_speed: np.ndarray  # (P,) m/s
-    first_seen: np.ndarray  # (P,) slot, -1 never
-    last_seen: np.ndarray  # (P,) slot, -1 never
-    off_slots: np.ndarray  # (P,) slots in gaps long enough to mean "off the pitch"
-    last_valid: np.ndarray  # (P,) slot of the latest credited sample, -1 never
-    last_speed: np.ndarray  # (P,) m/s at last_valid
     ball: np.ndarray  # (slots,) int8
     poss_team: np.ndarray  # (slots,) int8
+    cols: np.ndarray  # (C,) roster index of each column
+    unseen: np.ndarray  # roster indices not seen so far
+    team: np.ndarray  # (C,) int8
+    c_sums: np.ndarray  # (N_FIG, C) int64
+    c_zones: np.ndarray  # (C, Z) int64 µm
+    c_poss: np.ndarray  # (C, 4, 2) int64 µm: context (the contract's three, then unknown) × (distance, hsr)
+    c_max_speed: np.ndarray  # (C,) m/s
+    c_first_seen: np.ndarray  # (C,) slot, -1 never
+    c_last_seen: np.ndarray  # (C,) slot, -1 never
+    c_off_slots: np.ndarray  # (C,) slots in gaps long enough to mean "off the pitch"
+    c_last_valid: np.ndarray  # (C,) slot of the latest credited sample, -1 never
+    c_last_speed: np.ndarray  # (C,) m/s at last_valid
     last_slot: int = -1  # latest slot received
     ended: bool = False
+    full_upto: int = -1  # end slot of the latest final samples if every column was seen in all of them
+    in_order: bool = False  # the columns are the whole roster in roster order
 
     @property
     def name(self) -> str:
         return PERIODS[self.index]
 
+    def _roster(self, a: np.ndarray, fill: Any) -> np.ndarray:
+        out = np.full((self.n, *a.shape[1:]), fill, a.dtype)
+        out[self.cols] = a
+        return out
+
+    @property
+    def sums(self) -> np.ndarray:
+        """(P, N_FIG) int64."""
+        return self._roster(self.c_sums.T, 0)
+
+    @property
+    def zones(self) -> np.ndarray:
+        """(P, Z) int64 µm."""
+        return self._roster(self.c_zones, 0)
+
+    @property
+    def poss(self) -> np.ndarray:
+        """(P, 3, 2) int64 µm: context × (distance, hsr)."""
+        return self._roster(self.c_poss[:, :3], 0)
+
+    @property
+    def max_speed(self) -> np.ndarray:
+        return self._roster(self.c_max_speed, 0.0)
+
+    @property
+    def first_seen(self) -> np.ndarray:
+        return self._roster(self.c_first_seen, -1)
+
+    @property
+    def last_seen(self) -> np.ndarray:
+        return self._roster(self.c_last_seen, -1)
+
+    @property
+    def off_slots(self) -> np.ndarray:
+        return self._roster(self.c_off_slots, 0)
+
+    @property
+    def last_valid(self) -> np.ndarray:
+        return self._roster(self.c_last_valid, -1)
+
+    @property
+    def last_speed(self) -> np.ndarray:
+        return self._roster(self.c_last_speed, 0.0)
+
     def onpitch_slots(self) -> np.ndarray:
-        return np.where(self.first_seen >= 0, self.last_seen - self.first_seen + 1 - self.off_slots, 0)
+        first, last = self.c_first_seen, self.c_last_seen
+        return self._roster(np.where(first >= 0, last - first + 1 - self.c_off_slots, 0), 0)
 
 
 class MatchState:
@@ -129,11 +191,14 @@ class MatchState:
         self.frames += n
         self.last_frame_id = int(block.frame_id[-1])
         self.last_t = float(block.t[-1])
-        if (block.ball != BALL_UNKNOWN).any():
+        if not self.has_ball and (block.ball != BALL_UNKNOWN).any():
             self.has_ball = True
         bounds = np.flatnonzero(np.diff(block.period)) + 1
-        for part in np.split(np.arange(n), bounds):
-            self._step_period(block.take(slice(int(part[0]), int(part[-1]) + 1)))
+        if not len(bounds):
+            self._step_period(block)
+        else:
+            for a, b in zip([0, *bounds.tolist()], [*bounds.tolist(), n]):
+                self._step_period(block.take(slice(a, b)))
         if self.heart is not None:
             self._settle_heart()
 
@@ -169,29 +234,57 @@ class MatchState:
                 self._end(cur)
             cur = self._start(idx, float(b.t[0]))
         slots = b.slot
-        last = int(slots[-1])
+        first, last = int(slots[0]), int(slots[-1])
         if last >= cur.ball.shape[0]:
             cap = max(2 * cur.ball.shape[0], last + 1)
             cur.ball = np.concatenate([cur.ball, np.full(cap - cur.ball.shape[0], BALL_UNKNOWN, np.int8)])
             cur.poss_team = np.concatenate([cur.poss_team, np.full(cap - cur.poss_team.shape[0], NO_TEAM, np.int8)])
-        cur.ball[slots] = b.ball
-        cur.poss_team[slots] = b.poss
+        at = slice(first, last + 1) if last - first + 1 == len(slots) else slots
+        cur.ball[at] = b.ball
+        cur.poss_team[at] = b.poss
         cur.last_slot = last
-        for fin in cur.track.feed(slots, b.xy):
+        xy = b.xy
+        if cur.unseen.size and not np.isnan(xy[:, cur.unseen, 0]).all():
+            self._grow(cur, cur.unseen[~np.isnan(xy[:, cur.unseen, 0]).all(axis=0)])
+        if not cur.in_order:
+            xy = xy[:, cur.cols]
+        for fin in cur.track.feed(slots, xy):
             self._apply(cur, fin)
 
     def _start(self, idx: int, t0: float) -> _Period:
-        n = self.n
         per = _Period(
-            index=idx, t0=t0, track=Track(self.kin, n), exertion=Exertion(self.exp, n, self.zone_edges, self.zone_scale),
-            bins=SecondBins(self.fps, n, self.peak_s),
-            sums=np.zeros((n, ex.N_FIG), np.int64), zones=np.zeros((n, self.zone_edges.shape[0] + 1), np.int64),
-            poss=np.zeros((n, 3, 2), np.int64), max_speed=np.zeros(n), first_seen=np.full(n, -1, np.int64),
-            last_seen=np.full(n, -1, np.int64), off_slots=np.zeros(n, np.int64), last_valid=np.full(n, -1, np.int64),
-            last_speed=np.zeros(n), ball=np.full(1024, BALL_UNKNOWN, np.int8), poss_team=np.full(1024, NO_TEAM, np.int8),
+            index=idx, t0=t0, n=self.n, track=Track(self.kin, 0),
+            exertion=Exertion(self.exp, 0, self.zone_edges, self.zone_scale[:0]), bins=SecondBins(self.fps, self.n, self.peak_s),
+            ball=np.full(1024, BALL_UNKNOWN, np.int8), poss_team=np.full(1024, NO_TEAM, np.int8),
+            cols=np.zeros(0, np.int64), unseen=np.arange(self.n), team=self.team[:0],
+            c_sums=np.zeros((ex.N_FIG, 0), np.int64), c_zones=np.zeros((0, self.zone_edges.shape[0] + 1), np.int64),
+            c_poss=np.zeros((0, 4, 2), np.int64), c_max_speed=np.zeros(0), c_first_seen=np.zeros(0, np.int64),
+            c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64), c_last_valid=np.zeros(0, np.int64),
+            c_last_speed=np.zeros(0),
         )
         self.periods.append(per)
         return per
+
+    def _grow(self, per: _Period, new: np.ndarray) -> None:
+        """Columns for players seen for the first time in the period (``new``: roster indices)."""
+        k = len(new)
+        per.cols = np.concatenate([per.cols, new])
+        per.unseen = per.unseen[~np.isin(per.unseen, new)]
+        per.team = self.team[per.cols]
+        per.track.grow(k)
+        per.exertion.grow(self.zone_scale[new])
+        per.bins.grow(new)
+        per.c_sums = _widen(per.c_sums, k, 0, axis=1)
+        per.c_zones = _widen(per.c_zones, k, 0)
+        per.c_poss = _widen(per.c_poss, k, 0)
+        per.c_max_speed = _widen(per.c_max_speed, k, 0.0)
+        per.c_first_seen = _widen(per.c_first_seen, k, -1)
+        per.c_last_seen = _widen(per.c_last_seen, k, -1)
+        per.c_off_slots = _widen(per.c_off_slots, k, 0)
+        per.c_last_valid = _widen(per.c_last_valid, k, -1)
+        per.c_last_speed = _widen(per.c_last_speed, k, 0.0)
+        per.full_upto = -1
+        per.in_order = len(per.cols) == self.n and bool((per.cols == np.arange(self.n)).all())
 
     def _end(self, per: _Period) -> None:
         for fin in per.track.close():
@@ -247,22 +340,34 @@ class MatchState:
     # -- accumulation ----------------------------------------------------------------
     def _apply(self, per: _Period, fin: Final) -> None:
         n = len(fin)
-        fig, zone, _power = per.exertion.step(fin.valid, fin.seen, fin.speed, fin.accel)
-        secs = per.bins.add(fin.slot0, fig)
-        per.sums += secs.sum(axis=0)
-        nz = per.zones.shape[1]
-        cols = np.arange(self.n)
-        flat = (cols * nz + zone).ravel()
-        per.zones += np.bincount(flat, weights=fig[..., ex.DIST].ravel(), minlength=nz * self.n).reshape(self.n, nz).astype(np.int64)
-        np.maximum(per.max_speed, fin.speed.max(axis=0), out=per.max_speed)
+        end = fin.slot0 + n
+        full = fin.full
+        fig, zone = per.exertion.step(fin.valid, fin.seen, fin.speed, fin.accel, full)
+        total = per.bins.add(fin.slot0, fig)
+        per.c_sums += total
+        m = len(per.cols)
+        nz = per.c_zones.shape[1]
+        zone += np.arange(0, m * nz, nz)  # one bin per (player, band)
+        per.c_zones += np.bincount(zone.ravel(), weights=fig[:, ex.DIST].ravel(), minlength=nz * m
+                                   ).reshape(m, nz).astype(np.int64)
+        np.maximum(per.c_max_speed, fin.speed.max(axis=0), out=per.c_max_speed)
         # latest credited sample
-        last_row = n - 1 - np.argmax(fin.valid[::-1], axis=0)
-        got = fin.valid[last_row, cols]
-        per.last_valid = np.where(got, fin.slot0 + last_row, per.last_valid)
-        per.last_speed = np.where(got, fin.speed[last_row, cols], per.last_speed)
-        self._onpitch(per, fin.seen, fin.slot0)
+        if full:
+            per.c_last_valid.fill(end - 1)
+            per.c_last_speed[:] = fin.speed[-1]
+        else:
+            cols = np.arange(m)
+            last_row = n - 1 - np.argmax(fin.valid[::-1], axis=0)
+            got = fin.valid[last_row, cols]
+            per.c_last_valid = np.where(got, fin.slot0 + last_row, per.c_last_valid)
+            per.c_last_speed = np.where(got, fin.speed[last_row, cols], per.c_last_speed)
+        if full and per.full_upto == fin.slot0:
+            per.c_last_seen.fill(end - 1)  # everyone seen up to here and on: no gap, no first sighting
+        else:
+            self._onpitch(per, fin.seen, fin.slot0)
+        per.full_upto = end if full else -1
         if self.has_ball:
-            self._possession(per, fin, fig)
+            self._possession(per, fin, fig, total)
 
     def _onpitch(self, per: _Period, seen: np.ndarray, slot0: int) -> None:
         """On the pitch from first to last seen sample; gaps longer than the
@@ -274,33 +379,52 @@ class MatchState:
         first_row = np.argmax(seen, axis=0)
         last_row = n - 1 - np.argmax(seen[::-1], axis=0)
         # gap before this chunk's first seen sample, from the last one seen before it
-        lead = np.where(anyseen & (per.last_seen >= 0), slot0 + first_row - per.last_seen - 1, 0)
+        lead = np.where(anyseen & (per.c_last_seen >= 0), slot0 + first_row - per.c_last_seen - 1, 0)
         off = np.where(lead > self.timeout_slots, lead, 0)
         if not seen[:, anyseen].all():
             # gaps inside the chunk (rare: dropouts): previous seen row of each seen row
             rows = np.arange(n)[:, None]
             prev = np.maximum.accumulate(np.where(seen, rows, -1), axis=0)
-            prev = np.vstack([np.full((1, self.n), -1), prev[:-1]])
+            prev = np.vstack([np.full((1, seen.shape[1]), -1), prev[:-1]])
             gap = np.where(seen & (prev >= 0), rows - prev - 1, 0)
             off = off + np.where(gap > self.timeout_slots, gap, 0).sum(axis=0)
-        per.off_slots += off
-        per.first_seen = np.where((per.first_seen < 0) & anyseen, slot0 + first_row, per.first_seen)
-        per.last_seen = np.where(anyseen, slot0 + last_row, per.last_seen)
+        per.c_off_slots += off
+        per.c_first_seen = np.where((per.c_first_seen < 0) & anyseen, slot0 + first_row, per.c_first_seen)
+        per.c_last_seen = np.where(anyseen, slot0 + last_row, per.c_last_seen)
 
-    def _possession(self, per: _Period, fin: Final, fig: np.ndarray) -> None:
-        """Distance and HSR split by ball context: in possession, out of possession, out of play."""
+    @staticmethod
+    def _context(ball: int, poss: int, team: int) -> int:
+        """Ball context of a team: 0 in possession, 1 out of possession, 2 out of play, 3 unknown."""
+        if ball == BALL_OUT:
+            return 2
+        if ball != BALL_IN or poss == NO_TEAM:
+            return 3
+        return 0 if poss == team else 1
+
+    def _possession(self, per: _Period, fin: Final, fig: np.ndarray, total: np.ndarray) -> None:
+        """Distance and HSR split by ball context: in possession, out of possession, out of play.
+        ``total``: the block's sums (N_FIG, C)."""
         slots = slice(fin.slot0, fin.slot0 + len(fin))
-        ball = per.ball[slots][:, None]
-        poss = per.poss_team[slots][:, None]
-        own = poss == self.team[None, :]
+        ball = per.ball[slots]
+        poss = per.poss_team[slots]
+        b0, p0 = int(ball[0]), int(poss[0])
+        if (ball == b0).all() and (poss == p0).all():
+            # one context per team over the whole block (the usual case): add the block's sums
+            ctx = np.array([self._context(b0, p0, 0), self._context(b0, p0, 1)])[per.team]
+            per.c_poss[np.arange(len(ctx)), ctx] += total[[ex.DIST, ex.HSR]].T
+            return
+        ball = ball[:, None]
+        poss = poss[:, None]
+        own = poss == per.team[None, :]
         # context 0 in, 1 out of possession, 2 out of play, 3 unknown
         ctx = np.where(ball == BALL_OUT, 2, np.where(ball != BALL_IN, 3, np.where(own, 0, np.where(poss == NO_TEAM, 3, 1))))
-        flat = (np.arange(self.n) * 4 + ctx).ravel()
-        size = 4 * self.n
-        d = np.bincount(flat, weights=fig[..., ex.DIST].ravel(), minlength=size).reshape(self.n, 4)
-        h = np.bincount(flat, weights=fig[..., ex.HSR].ravel(), minlength=size).reshape(self.n, 4)
-        per.poss[:, :, 0] += d[:, :3].astype(np.int64)
-        per.poss[:, :, 1] += h[:, :3].astype(np.int64)
+        m = ctx.shape[1]
+        flat = (np.arange(m) * 4 + ctx).ravel()
+        size = 4 * m
+        d = np.bincount(flat, weights=fig[:, ex.DIST].ravel(), minlength=size).reshape(m, 4)
+        h = np.bincount(flat, weights=fig[:, ex.HSR].ravel(), minlength=size).reshape(m, 4)
+        per.c_poss[:, :3, 0] += d[:, :3].astype(np.int64)
+        per.c_poss[:, :3, 1] += h[:, :3].astype(np.int64)
 
     # -- output ------------------------------------------------------------------------
     def match_time_s(self) -> float:

@@ -2,6 +2,10 @@
 
 Peak demands are the maximum over rolling windows of the cumulative figure
 (Fereday et al. 2020, J Sci Med Sport 23:764), updated as seconds complete.
+
+The bins hold only the players seen in the period (``cols``: roster indices in
+order of appearance; a player never seen has all-zero figures); what they
+return is roster-wide, one row per player.
 """
 from __future__ import annotations
 
@@ -9,95 +13,173 @@ import numpy as np
 
 from service.engine.exertion import DIST, N_FIG
 
+_SEGMENTS: dict[tuple[int, int, int, int], np.ndarray] = {}  # summing matrices, by (rows, skip, first cut, fps)
+_PEAK_CHUNK = 256  # seconds per batched peak update: bounds its temporary arrays
+
+
+def _segments(n: int, skip: int, cut: int, fps: int) -> np.ndarray:
+    """(q + 1, n) 0/1 matrix: row 0 sums rows [skip, cut), the next rows each further
+    ``fps`` rows (the last one possibly short), the final row all n rows. Sums of
+    integer-valued floats below 2**53 are exact in any order, so one matrix product
+    gives exact per-second sums."""
+    key = (n, skip, cut, fps)
+    m = _SEGMENTS.get(key)
+    if m is None:
+        edges = [skip, *range(min(cut, n), n, fps), n]
+        m = np.zeros((len(edges), n))
+        for j, (a, b) in enumerate(zip(edges[:-1], edges[1:])):
+            m[j, a:b] = 1.0
+        m[-1] = 1.0
+        if len(_SEGMENTS) >= 512:  # block sizes and phases vary live: keep the cache bounded
+            _SEGMENTS.clear()
+        _SEGMENTS[key] = m
+    return m
+
+
+def _widen(a: np.ndarray, k: int, fill: int) -> np.ndarray:
+    """``a`` with ``k`` more columns on its last axis, set to ``fill``."""
+    return np.concatenate([a, np.full((*a.shape[:-1], k), fill, a.dtype)], axis=-1)
+
 
 class SecondBins:
-    """One period's figures per second: bins[s, player, figure] (int64 micro-units)."""
+    """One period's figures per second (int64 micro-units or counts), as cumulative sums:
+    ``_cs[s, figure, column]`` = sum over the seconds before s."""
 
     def __init__(self, fps: int, n_players: int, peak_s: list[int]) -> None:
         self.fps = fps
-        self.n = n_players
-        self._cs = np.zeros((64, n_players, N_FIG), np.int64)  # _cs[s] = sum of seconds < s
-        self.partial = np.zeros((n_players, N_FIG), np.int64)  # the second in progress
-        self.partial_sec = 0
+        self.n = n_players  # roster size: the width of what the bins return
+        self.cols = np.zeros(0, np.int64)  # roster index of each column
+        self._cs = np.zeros((64, N_FIG, 0), np.int64)
+        self._run = np.zeros((N_FIG, 0), np.int64)  # cs of the second in progress plus its rows so far
         self.complete = 0  # seconds fully final
         self.end_slot = 0  # one past the last final slot
         self.peak_s = peak_s
-        self.peak = {w: np.full((n_players, N_FIG), -1, np.int64) for w in peak_s}
-        self.peak_start = {w: np.full(n_players, -1, np.int64) for w in peak_s}
+        self._win = np.array(sorted(set(peak_s)), np.int64)
+        self._peak = np.full((len(self._win), N_FIG, 0), -1, np.int64)
+        self._peak_start = np.full((len(self._win), 0), -1, np.int64)
+
+    def grow(self, new_cols: np.ndarray) -> None:
+        """Add columns for players seen for the first time (all zero so far)."""
+        k = len(new_cols)
+        self.cols = np.concatenate([self.cols, new_cols])
+        self._cs = _widen(self._cs, k, 0)
+        self._run = _widen(self._run, k, 0)
+        # windows evaluated already saw these players' zeros: peak 0 from second 0
+        reached = np.where(self.complete >= self._win, 0, -1)
+        self._peak = np.concatenate([self._peak, np.broadcast_to(reached[:, None, None], (len(self._win), N_FIG, k))], 2)
+        self._peak_start = np.concatenate([self._peak_start, np.broadcast_to(reached[:, None], (len(self._win), k))], 1)
 
     def add(self, slot0: int, fig: np.ndarray) -> np.ndarray:
-        """Add final rows starting at ``slot0`` (contiguous slots); returns their
-        per-second sums (seconds touched, P, F)."""
+        """Add final rows ``fig`` (n, N_FIG, columns), integer-valued float64, at contiguous
+        slots from ``slot0``; returns their total (N_FIG, columns) as int64."""
         n = fig.shape[0]
         fps = self.fps
-        self.end_slot = slot0 + n
-        s_first = slot0 // fps
-        s_last = (slot0 + n - 1) // fps
-        if s_first > self.partial_sec:
-            self._close_to(s_first)
-        if s_first == s_last:
-            sums = fig.sum(axis=0)[None]
-            self.partial += sums[0]
+        end = slot0 + n
+        self.end_slot = end
+        lo = self.complete * fps
+        skip = 0
+        if slot0 < lo:
+            # rows in a second finish() already closed (frames after a period end): they count in the
+            # next second, except those of such rows that reach past it, which were always dropped
+            skip = lo - slot0 if end > lo else 0
+        elif slot0 >= lo + fps:
+            self._close_to(slot0 // fps)  # a gap: the seconds before hold nothing more
+            lo = self.complete * fps
+        k = max(end // fps - self.complete, 0)  # seconds this call completes
+        seg = _segments(n, skip, lo + fps - slot0, fps) @ fig.reshape(n, fig.shape[1] * fig.shape[2])
+        seg = seg.astype(np.int64).reshape(seg.shape[0], *fig.shape[1:])
+        if k:
+            c = self.complete
+            self._reserve(c + k + 1)
+            rows = self._cs[c + 1: c + 1 + k]
+            if k == 1:
+                np.add(self._run, seg[0], out=rows[0])
+            else:
+                np.cumsum(seg[:k], axis=0, out=rows)
+                rows += self._run
+            self._run = rows[-1] + seg[k] if seg.shape[0] > k + 1 else rows[-1].copy()
+            self.complete = c + k
+            self._update_peaks(c)
         else:
-            starts = np.arange(s_first + 1, s_last + 1) * fps - slot0
-            sums = np.add.reduceat(fig, np.concatenate(([0], starts)), axis=0)
-            self.partial += sums[0]
-            self._close_to(s_first + 1)
-            # whole seconds strictly inside, then the last (possibly partial) one
-            self._append(sums[1:-1])
-            self.partial_sec = s_last
-            self.partial = sums[-1].copy()
-        if (slot0 + n) % fps == 0:
-            self._close_to(s_last + 1)
-        return sums
+            self._run += seg[0]
+        return seg[-1]
 
     def finish(self) -> None:
         """The period ended: the second in progress counts as complete."""
         if self.end_slot > self.complete * self.fps:  # final rows in a second not yet closed
-            self._close_to(self.partial_sec + 1)
+            self._close_to(self.complete + 1)
+
+    def _reserve(self, rows: int) -> None:
+        if rows > self._cs.shape[0]:
+            grown = np.zeros((max(2 * self._cs.shape[0], rows), *self._cs.shape[1:]), np.int64)
+            grown[: self.complete + 1] = self._cs[: self.complete + 1]
+            self._cs = grown
 
     def _close_to(self, sec: int) -> None:
-        """Seconds below ``sec`` are complete; empty seconds in between count zero."""
+        """Seconds below ``sec`` are complete; the rows so far count in the first of them."""
         if sec <= self.complete:
             return
-        rows = np.zeros((sec - self.complete, self.n, N_FIG), np.int64)
-        if self.partial_sec >= self.complete:
-            rows[self.partial_sec - self.complete] = self.partial
-        self.partial = np.zeros((self.n, N_FIG), np.int64)
-        self.partial_sec = sec
-        self._append(rows)
+        c = self.complete
+        self._reserve(sec + 1)
+        self._cs[c + 1: sec + 1] = self._run
+        self.complete = sec
+        self._update_peaks(c)
 
-    def _append(self, rows: np.ndarray) -> None:
-        if rows.shape[0] == 0:
+    def _update_peaks(self, old: int) -> None:
+        """Rolling windows ending at the seconds completed since ``old``: a window ending at
+        second index i covers seconds [i - w, i). Each figure keeps its own maximum; the start
+        follows the distance peak (the first second it was reached)."""
+        win = self._win
+        end = self.complete
+        if end < win[0]:
             return
-        old = self.complete
-        new = old + rows.shape[0]
-        if new + 1 > self._cs.shape[0]:
-            grown = np.zeros((max(2 * self._cs.shape[0], new + 1), self.n, N_FIG), np.int64)
-            grown[: old + 1] = self._cs[: old + 1]
-            self._cs = grown
-        np.cumsum(rows, axis=0, out=self._cs[old + 1: new + 1])
-        self._cs[old + 1: new + 1] += self._cs[old]
-        self.complete = new
-        self._update_peaks(old)
+        cs = self._cs
+        if end == old + 1:  # one second completed (the live case): every window at once
+            nv = int(np.searchsorted(win, end, side="right"))
+            peak, start = self._peak[:nv], self._peak_start[:nv]
+            sums = cs[end] - cs[end - win[:nv]]
+            better = sums[:, DIST] > peak[:, DIST]
+            start[...] = np.where(better, end - win[:nv, None], start)
+            np.maximum(peak, sums, out=peak)
+            return
+        for a in range(max(old + 1, int(win[0])), end + 1, _PEAK_CHUNK):
+            i = np.arange(a, min(a + _PEAK_CHUNK, end + 1))
+            nv = int(np.searchsorted(win, i[-1], side="right"))
+            peak, start = self._peak[:nv], self._peak_start[:nv]
+            back = i[:, None] - win[None, :nv]  # (k, windows)
+            sums = cs[i][:, None] - cs[np.maximum(back, 0)]  # (k, windows, F, P)
+            sums[back < 0] = -1  # windows not yet full: never a peak
+            best = sums.max(axis=0)
+            arg = sums[:, :, DIST].argmax(axis=0)
+            better = best[:, DIST] > peak[:, DIST]
+            start[...] = np.where(better, i[arg] - win[:nv, None], start)
+            np.maximum(peak, best, out=peak)
+
+    # -- reading: roster-wide ------------------------------------------------------------
+    def _roster(self, a: np.ndarray, fill: int = 0) -> np.ndarray:
+        """(N_FIG, columns) → (players, N_FIG); players never seen get ``fill``."""
+        out = np.full((self.n, a.shape[0]), fill, np.int64)
+        out[self.cols] = a.T
+        return out
 
     @property
-    def cs(self) -> np.ndarray:
-        return self._cs[: self.complete + 1]
+    def peak(self) -> dict[int, np.ndarray]:
+        """Best rolling-window sums so far, per window length (s): (players, N_FIG); -1 before
+        the period holds a full window."""
+        out = {}
+        for j, w in enumerate(self._win.tolist()):
+            out[w] = self._roster(self._peak[j], 0 if self.complete >= w else -1)
+        return out
 
-    def _update_peaks(self, old_complete: int) -> None:
-        cs = self.cs
-        end = self.complete
-        for w in self.peak_s:
-            lo = max(old_complete, w)  # window ending at second index i covers [i - w, i)
-            if lo > end:
-                continue
-            sums = cs[lo: end + 1] - cs[lo - w: end + 1 - w]  # (k, P, F)
-            best = sums.max(axis=0)
-            arg = sums[..., DIST].argmax(axis=0)
-            better = sums[arg, np.arange(self.n), DIST] > self.peak[w][:, DIST]
-            self.peak_start[w] = np.where(better, lo + arg - w, self.peak_start[w])
-            np.maximum(self.peak[w], best, out=self.peak[w])
+    @property
+    def peak_start(self) -> dict[int, np.ndarray]:
+        """Second (within the period) where each player's distance peak starts, -1 before a full window."""
+        out = {}
+        for j, w in enumerate(self._win.tolist()):
+            s = np.full(self.n, 0 if self.complete >= w else -1, np.int64)
+            s[self.cols] = self._peak_start[j]
+            out[w] = s
+        return out
 
     def covered_s(self, start: int, stop: int) -> float:
         """Seconds of final data in complete seconds [start, stop): the last
@@ -107,8 +189,7 @@ class SecondBins:
         return max(min(stop * self.fps, self.end_slot) - start * self.fps, 0) / self.fps
 
     def span(self, start: int, stop: int) -> np.ndarray:
-        """Sum over complete seconds [start, stop) → (P, F)."""
+        """Sum over complete seconds [start, stop) → (players, N_FIG)."""
         start = min(max(start, 0), self.complete)
         stop = min(max(stop, start), self.complete)
-        return self.cs[stop] - self.cs[start]
-
+        return self._roster(self._cs[stop] - self._cs[start])
