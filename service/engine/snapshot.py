@@ -3,12 +3,15 @@
 Built vectorised over players. Parts that change only when a second of data
 completes (windows) or never again (ended periods) are cached on the state
 and reused as the same objects, so consumers that diff snapshots skip them
-at once.
+at once. Within a part, each player's row is rebuilt only when its inputs
+changed since the last build (``_reuse``), and a player none of whose parts
+changed keeps the same player object: live, substitutes and stopped players
+cost nothing per frame.
 """
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Callable
 
 import numpy as np
 
@@ -21,58 +24,112 @@ if TYPE_CHECKING:
 _U = 1e-6
 _WINDOW_KEYS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",
                 "high_power_m", "m_per_min", "metabolic_power_wkg")
+_COUNTS = [ex.N_HSR, ex.N_SPR, ex.N_ACC, ex.N_DEC]
+_WINDOW_ND = (1, 1, 1, 1, 1, 1, 2)  # decimals: distance, hsr, sprint, energy, high power, m/min, W/kg
+_SCALES: dict[tuple[int, ...], np.ndarray] = {}
 
 
-def _col(a: np.ndarray, nd: int) -> list:
-    return np.round(a.astype(float), nd).tolist()
+def _rounded(cols: list[np.ndarray], nd: tuple[int, ...]) -> list[list[float]]:
+    """Rows of the columns, column j rounded to nd[j] decimals in one pass, the way np.round rounds
+    (x * 10**d, rint, / 10**d), so the values are the same to the bit."""
+    scale = _SCALES.get(nd)
+    if scale is None:
+        scale = _SCALES[nd] = np.array([10.0 ** d for d in nd])
+    m = np.empty((len(cols[0]), len(cols)))
+    for j, c in enumerate(cols):
+        m[:, j] = c
+    return (np.rint(m * scale) / scale).tolist()
 
 
-def _window_cols(sums: np.ndarray, span_s: np.ndarray) -> dict[str, list]:
-    """Figures of one window for every row of ``sums`` (rows, F) in micro-units; span_s (rows,)."""
+def _window_rows(sums: np.ndarray, span_s: np.ndarray, extra: tuple[tuple[str, np.ndarray, int], ...] = ()
+                 ) -> list[dict[str, Any]]:
+    """Figures of one window for every row of ``sums`` (rows, F) in micro-units; span_s (rows,);
+    ``extra``: (key, column, decimals) added after the window figures."""
     dist = sums[:, ex.DIST] * _U
+    energy = sums[:, ex.ENERGY] * _U
     ok = span_s > 0
     safe = np.where(ok, span_s, 1.0)
-    mpm = np.round(dist / (safe / 60.0), 1)
-    mp = np.round(sums[:, ex.ENERGY] * _U / safe, 2)
-    return {
-        "distance_m": _col(dist, 1),
-        "hsr_m": _col(sums[:, ex.HSR] * _U, 1),
-        "sprint_m": _col(sums[:, ex.SPRINT] * _U, 1),
-        "hsr_efforts": sums[:, ex.N_HSR].tolist(),
-        "sprints": sums[:, ex.N_SPR].tolist(),
-        "accels": sums[:, ex.N_ACC].tolist(),
-        "decels": sums[:, ex.N_DEC].tolist(),
-        "energy_jkg": _col(sums[:, ex.ENERGY] * _U, 1),
-        "high_power_m": _col(sums[:, ex.HIPOW] * _U, 1),
-        "m_per_min": [v if o else None for v, o in zip(mpm.tolist(), ok.tolist())],
-        "metabolic_power_wkg": [v if o else None for v, o in zip(mp.tolist(), ok.tolist())],
-    }
+    f = _rounded([dist, sums[:, ex.HSR] * _U, sums[:, ex.SPRINT] * _U, energy, sums[:, ex.HIPOW] * _U,
+                  dist / (safe / 60.0), energy / safe, *(c for _, c, _ in extra)],
+                 _WINDOW_ND + tuple(d for _, _, d in extra))
+    keys = [(k, j) for j, (k, _, _) in enumerate(extra, len(_WINDOW_ND))]
+    out = []
+    for r, c, o in zip(f, sums[:, _COUNTS].tolist(), ok.tolist()):
+        row = {"distance_m": r[0], "hsr_m": r[1], "sprint_m": r[2], "hsr_efforts": c[0], "sprints": c[1],
+               "accels": c[2], "decels": c[3], "energy_jkg": r[3], "high_power_m": r[4],
+               "m_per_min": r[5] if o else None, "metabolic_power_wkg": r[6] if o else None}
+        for k, j in keys:
+            row[k] = r[j]
+        out.append(row)
+    return out
+
+
+def _windows(sums: np.ndarray, span_s: np.ndarray, extra: tuple[tuple[str, np.ndarray, int], ...] = ()
+             ) -> list[dict[str, Any]]:
+    return _window_rows(sums, span_s, (("span_s", span_s, 1), *extra))
+
+
+def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: list[str], onpitch_s: np.ndarray,
+             max_speed: np.ndarray, coverage: np.ndarray) -> list[dict[str, Any]]:
+    """Scalar figures + zones per player over one stretch (match or period)."""
+    rows = _window_rows(sums, onpitch_s, (("minutes", onpitch_s / 60.0, 2), ("max_speed_ms", max_speed, 2),
+                                          ("coverage", coverage, 3)))
+    for row, z in zip(rows, np.round(zones * _U, 1).tolist()):
+        row["zones"] = dict(zip(zone_names, z))
+    return rows
+
+
+def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable[[Any], list]) -> list:
+    """``build(rows)``: one object per row of ``inputs`` (rows, k), which determines it in full. Rows whose
+    inputs equal those of the last call under ``name`` come back as the very objects returned then, so a
+    diff against the last snapshot skips them at once; only the others are built. Callers never mutate
+    what this returns."""
+    hit = cache.get(name)
+    if hit is not None and hit[0].shape == inputs.shape:
+        changed = (hit[0] != inputs).any(axis=1)
+        if not changed.any():
+            return hit[1]
+        idx = np.flatnonzero(changed)
+        rows = list(hit[1])
+        for i, r in zip(idx.tolist(), build(idx)):
+            rows[i] = r
+    else:
+        rows = build(slice(None))
+    cache[name] = (inputs, rows)
+    return rows
+
+
+def _stack(*cols: np.ndarray) -> np.ndarray:
+    """Inputs of _reuse as one float matrix (integer sums in micro-units stay exact below 2**53)."""
+    return np.column_stack([c.reshape(c.shape[0], -1) for c in cols]).astype(float, copy=False)
+
+
+def _cached_windows(cache: dict[Any, Any], name: Any, sums: np.ndarray, span_s: np.ndarray,
+                    extra: tuple[tuple[str, np.ndarray, int], ...] = ()) -> list[dict[str, Any]]:
+    return _reuse(cache, name, _stack(sums, span_s, *(c for _, c, _ in extra)),
+                  lambda r: _windows(sums[r], span_s[r], tuple((k, c[r], d) for k, c, d in extra)))
+
+
+def _cached_figures(cache: dict[Any, Any], name: Any, state: "MatchState", sums: np.ndarray, zones: np.ndarray,
+                    onpitch_s: np.ndarray, max_speed: np.ndarray, coverage: np.ndarray) -> list[dict[str, Any]]:
+    return _reuse(cache, name, _stack(sums, zones, onpitch_s, max_speed, coverage),
+                  lambda r: _figures(sums[r], zones[r], state.zone_names, onpitch_s[r], max_speed[r], coverage[r]))
+
+
+def _same(old: dict[str, Any] | None, keys: list[str], values: list[Any]) -> bool:
+    """``old`` holds exactly these keys, in order, each with the very same object."""
+    if old is None or len(old) != len(keys):
+        return False
+    for (k0, v0), k, v in zip(old.items(), keys, values):
+        if k0 != k or v0 is not v:
+            return False
+    return True
 
 
 def _rows(cols: dict[str, list], n: int) -> list[dict[str, Any]]:
     keys = list(cols)
     vals = [cols[k] for k in keys]
     return [dict(zip(keys, [v[i] for v in vals])) for i in range(n)]
-
-
-def _windows(sums: np.ndarray, span_s: np.ndarray, extra: dict[str, list] | None = None) -> list[dict[str, Any]]:
-    cols = _window_cols(sums, span_s)
-    cols["span_s"] = _col(span_s, 1)
-    if extra:
-        cols.update(extra)
-    return _rows(cols, sums.shape[0])
-
-
-def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: list[str], onpitch_s: np.ndarray,
-             max_speed: np.ndarray, coverage: np.ndarray) -> list[dict[str, Any]]:
-    """Scalar figures + zones per player over one stretch (match or period)."""
-    cols = _window_cols(sums, onpitch_s)
-    cols["minutes"] = _col(onpitch_s / 60.0, 2)
-    cols["max_speed_ms"] = _col(max_speed, 2)
-    cols["coverage"] = _col(coverage, 3)
-    zm = np.round(zones * _U, 1).tolist()
-    cols["zones"] = [dict(zip(zone_names, z)) for z in zm]
-    return _rows(cols, sums.shape[0])
 
 
 def _blocks(state: "MatchState", per: "_Period") -> list[tuple[str, int, int]]:
@@ -100,7 +157,8 @@ def _cache(state: "MatchState") -> dict[Any, Any]:
 
 
 def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int, np.ndarray]]:
-    """windows per player, and the last-N sums of the current period; cached per completed second."""
+    """windows per player, and the last-N sums of the current period; cached per completed second.
+    A player's windows object, and each window in it, stays the same object while unchanged."""
     periods = state.periods
     cur = state.current
     seen_players = int((cur.first_seen >= 0).sum()) if cur is not None else 0
@@ -111,7 +169,8 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
     if hit is not None and hit[0] == key:
         return hit[1], hit[2]
     n, fps = state.n, state.fps
-    per_player: list[dict[str, Any]] = [{} for _ in range(n)]
+    names: list[str] = []
+    cols: list[list[Any]] = []  # per window name, one row (or None) per player
     team_last: dict[int, np.ndarray] = {}
     if cur is not None:
         b = cur.bins
@@ -123,8 +182,8 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
             covered = b.covered_s(start, stop)
             span = np.clip(covered - np.clip(first_sec - start, 0, None), 0, None).astype(float)
             team_last[m] = sums
-            for i, w in enumerate(_windows(sums, span)):
-                per_player[i][f"last_{m}min"] = w
+            names.append(f"last_{m}min")
+            cols.append(_cached_windows(cache, ("last", m), sums, span))
     for w_s in state.peak_s:
         best = np.full((n, ex.N_FIG), -1, np.int64)
         start_clock = np.full(n, -1.0)
@@ -133,18 +192,29 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
             better = pk[:, ex.DIST] > best[:, ex.DIST]
             start_clock = np.where(better, CLOCK_START_MIN[per.name] * 60 + per.bins.peak_start[w_s], start_clock)
             best = np.maximum(best, pk)
-        rows = _windows(np.maximum(best, 0), np.full(n, float(w_s)), {"start_s": _col(start_clock, 1)})
-        k = f"peak_{w_s // 60}min"
-        for i in range(n):
-            per_player[i][k] = rows[i] if best[i, ex.DIST] >= 0 else None
+        span = np.full(n, float(w_s))
+
+        def peak_rows(r: Any, best: np.ndarray = best, span: np.ndarray = span, start: np.ndarray = start_clock) -> list:
+            rows = _windows(np.maximum(best[r], 0), span[r], (("start_s", start[r], 1),))
+            return [w if ok else None for w, ok in zip(rows, (best[r][:, ex.DIST] >= 0).tolist())]
+
+        names.append(f"peak_{w_s // 60}min")
+        cols.append(_reuse(cache, ("peak", w_s), _stack(best, start_clock), peak_rows))
     for per in periods:
         bins = per.bins
         for k, s0, s1 in _blocks(state, per):
             if s0 >= bins.complete:
                 continue
-            span = bins.covered_s(s0, s1)
-            for i, w in enumerate(_windows(bins.span(s0, s1), np.full(n, span))):
-                per_player[i][k] = w
+            names.append(k)
+            cols.append(_cached_windows(cache, ("block", per.index, k), bins.span(s0, s1),
+                                        np.full(n, bins.covered_s(s0, s1))))
+    prev = cache.get("windows_players")
+    per_player = []
+    for i in range(n):
+        values = [c[i] for c in cols]
+        old = prev[i] if prev is not None and len(prev) == n else None
+        per_player.append(old if _same(old, names, values) else dict(zip(names, values)))
+    cache["windows_players"] = per_player
     cache["windows"] = (key, per_player, team_last)
     return per_player, team_last
 
@@ -157,7 +227,8 @@ def _period_figures(state: "MatchState", per: "_Period") -> list[dict[str, Any]]
         return cache[key]
     o = per.onpitch_slots()
     cov = np.where(o > 0, np.minimum(per.sums[:, ex.VALID] / np.maximum(o, 1), 1.0), 0.0)
-    figs = _figures(per.sums, per.zones, state.zone_names, o / state.fps, per.max_speed, cov)
+    figs = _cached_figures(cache, ("figures", per.index), state, per.sums, per.zones, o / state.fps,
+                           per.max_speed, cov)
     if per.ended:
         cache[key] = figs
     return figs
@@ -256,6 +327,25 @@ def _health(state: "MatchState", now: float | None, extra_reasons: list[dict[str
     return health
 
 
+def _team_windows(state: "MatchState", k: int, mask: np.ndarray, team_last: dict[int, np.ndarray]) -> dict[str, Any]:
+    """A team's last-N outfield windows; the same object until a second completes or the players counted
+    change (``team_last`` comes from the windows cache, whose key says when it changed)."""
+    cache = _cache(state)
+    key = (cache["windows"][0], mask.tobytes())
+    hit = cache.get(("team", k))
+    if hit is not None and hit[0] == key:
+        return hit[1]
+    tw: dict[str, Any] = {}
+    cur = state.current
+    if cur is not None:
+        stop = cur.bins.complete
+        for m, sums in team_last.items():
+            span = cur.bins.covered_s(stop - m * 60, stop)
+            tw[f"last_{m}min"] = _cached_windows(cache, ("team", k, m), sums[mask].sum(axis=0)[None], np.array([span]))[0]
+    cache[("team", k)] = (key, tw)
+    return tw
+
+
 def build_health(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
     """The snapshot's ``health`` alone, equal to ``build_snapshot(...)["health"]`` at the same ``now``
     (the health check runs four times a second and needs no figures)."""
@@ -283,7 +373,8 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
     onp_s = onp / fps
     cov = state.coverage()
     on_pitch = state.on_pitch().tolist()
-    figs = _figures(total, zones, state.zone_names, onp_s, vmax, cov)
+    cache = _cache(state)
+    figs = _cached_figures(cache, ("figures", "match"), state, total, zones, onp_s, vmax, cov)
     windows, team_last = _player_windows(state)
     per_figs = [(per.name, _period_figures(state, per)) for per in periods]
     heart = state.heart
@@ -305,43 +396,63 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
         speed = [s if r else None for s, r in zip(sp, recent.tolist())]
     poss_rows = None
     if state.has_ball:
-        pm = np.round(poss * _U, 1).tolist()
-        poss_rows = [{ctx: {"distance_m": pm[i][k][0], "hsr_m": pm[i][k][1]} for k, ctx in enumerate(CONTEXTS)}
-                     for i in range(n)]
+        flat = poss.reshape(n, -1)
 
+        def poss_build(r: Any) -> list[dict[str, Any]]:
+            pm = np.round(poss[r] * _U, 1).tolist()
+            return [{ctx: {"distance_m": p[k][0], "hsr_m": p[k][1]} for k, ctx in enumerate(CONTEXTS)} for p in pm]
+
+        poss_rows = _reuse(cache, "possession", flat.astype(float), poss_build)
+
+    # a player whose every part is the object of the last snapshot keeps that player object (a diff skips it)
+    prev = cache.get("players")
+    made: dict[str, tuple[tuple[Any, ...], dict[str, Any]]] = {}
     players: dict[str, Any] = {}
+    period_names = [name for name, _ in per_figs]
     for i, pl in enumerate(roster.players):
-        obj: dict[str, Any] = {
-            "team_id": roster.team_ids[pl.team],
-            "jersey_number": pl.jersey_number,
-            "name": pl.name,
-            "is_goalkeeper": pl.is_goalkeeper,
-            "on_pitch": on_pitch[i],
-            "speed_ms": speed[i],
-            **figs[i],
-            "windows": windows[i],
-            "periods": {name: pf[i] for name, pf in per_figs},
-        }
-        if poss_rows is not None:
-            obj["possession"] = poss_rows[i]
-        if hr_rows is not None:
-            obj.update(hr_rows[i])
+        parts = (figs[i], windows[i], *(pf[i] for _, pf in per_figs),
+                 None if poss_rows is None else poss_rows[i])
+        old = prev.get(pl.id) if prev is not None else None
+        if (hr_rows is None and old is not None and old[0][0] == on_pitch[i] and old[0][1] == speed[i]
+                and old[0][2] == period_names and len(old[0][3]) == len(parts)
+                and all(a is b for a, b in zip(old[0][3], parts))):
+            obj = old[1]
+        else:
+            obj = {
+                "team_id": roster.team_ids[pl.team],
+                "jersey_number": pl.jersey_number,
+                "name": pl.name,
+                "is_goalkeeper": pl.is_goalkeeper,
+                "on_pitch": on_pitch[i],
+                "speed_ms": speed[i],
+                **figs[i],
+                "windows": windows[i],
+                "periods": {name: pf[i] for name, pf in per_figs},
+            }
+            if poss_rows is not None:
+                obj["possession"] = poss_rows[i]
+            if hr_rows is not None:
+                obj.update(hr_rows[i])
+        made[pl.id] = ((on_pitch[i], speed[i], period_names, parts), obj)
         players[pl.id] = obj
+    cache["players"] = made
 
     elapsed_s = sum((max(p.last_slot, 0) + 1) / fps for p in periods) if periods else 0.0
     teams: dict[str, Any] = {}
     tracked = roster.tracked()
+    masks = [(state.team == k) & ~state.gk & (onp > 0) for k in range(len(roster.team_ids))]
+    tsums = np.array([total[m].sum(axis=0) for m in masks], np.int64).reshape(len(masks), ex.N_FIG)
+    outfields = _window_rows(tsums, np.full(len(masks), elapsed_s))  # both teams in one pass
     for k, tid in enumerate(roster.team_ids):
         if not tracked[k]:
             # one-team feed: the other team's figures are absent, not zeros
             teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": False}
             continue
-        mask = (state.team == k) & ~state.gk & (onp > 0)
-        tsum = total[mask].sum(axis=0).tolist()
+        mask = masks[k]
+        tsum = tsums[k].tolist()
         minutes = float(onp_s[mask].sum()) / 60.0
         count = int(mask.sum())
-        outfield = _windows(np.array([tsum], np.int64), np.array([elapsed_s]))[0]
-        outfield.pop("span_s")
+        outfield = outfields[k]
         outfield["players"] = count
         outfield["minutes"] = round(elapsed_s / 60.0, 2)
         outfield["per_player"] = {
@@ -350,13 +461,7 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
             "sprint_m": round(tsum[ex.SPRINT] * _U / count, 1) if count else None,
             "m_per_min": round(tsum[ex.DIST] * _U / minutes, 1) if minutes > 0 else None,
         }
-        tw: dict[str, Any] = {}
-        if cur is not None:
-            stop = cur.bins.complete
-            for m, sums in team_last.items():
-                span = cur.bins.covered_s(stop - m * 60, stop)
-                tw[f"last_{m}min"] = _windows(sums[mask].sum(axis=0)[None], np.array([span]))[0]
-        outfield["windows"] = tw
+        outfield["windows"] = _team_windows(state, k, mask, team_last)
         teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": True, "outfield": outfield}
 
     health = _health(state, now, extra_reasons, on_pitch, cov)
