@@ -4,11 +4,14 @@ The clock is passed in (``tick(now=...)``), so these tests time nothing.
 """
 from __future__ import annotations
 
+import copy
 from typing import Any
 
 import orjson
+from hypothesis import given, settings as hsettings, strategies as st
 
 from service.live.broadcaster import Broadcaster, Subscriber, View
+from service.wire.messages import apply_delta, changed
 
 FPS = 25
 
@@ -88,3 +91,30 @@ def test_one_second_cadence_at_real_time_sends_once_a_second():
     assert 4 <= len(sent) <= 5
     steps = [b2["health"]["frames"] - a["health"]["frames"] for a, b2 in zip(sent, sent[1:])]
     assert all(s >= FPS - 1 for s in steps), steps
+
+
+_leaf = st.one_of(st.none(), st.booleans(), st.integers(-3, 3), st.floats(-2, 2, allow_nan=False), st.text("ab", max_size=2))
+_tree = st.recursive(_leaf, lambda kids: st.dictionaries(st.text("abcd", min_size=1, max_size=2), kids, max_size=4),
+                     max_leaves=20)
+
+
+@given(old=st.dictionaries(st.text("abcd", min_size=1, max_size=2), _tree, max_size=5),
+       new=st.dictionaries(st.text("abcd", min_size=1, max_size=2), _tree, max_size=5))
+@hsettings(max_examples=400, deadline=None)
+def test_a_delta_applied_to_the_old_state_gives_the_new_one(old, new):
+    """What a client does (apply_delta) with what the broadcaster sends (changed) rebuilds the new
+    state exactly, except that a key removed becomes None (DESIGN §3: a key that disappeared is sent
+    as null)."""
+    d = changed(old, new)
+    got = apply_delta(copy.deepcopy(old), d or {})
+    assert _without_nulls(got) == _without_nulls(new)
+    assert (d is None) == (old == new)
+    # the same object on both sides is never looked into (the snapshot reuses unchanged parts)
+    shared = {"x": new}
+    assert changed({"x": new, "y": 1}, {**shared, "y": 2}) == {"y": 2}
+
+
+def _without_nulls(v: Any) -> Any:
+    if type(v) is dict:
+        return {k: _without_nulls(x) for k, x in v.items() if x is not None}
+    return v

@@ -18,24 +18,35 @@ def envelope(kind: str, match_id: str, seq: int, match_time_s: float, period: st
 def diff(old: Any, new: Any) -> Any:
     """The leaves of ``new`` that differ from ``old`` (nested dicts); _MISSING if none.
 
-    A key that disappeared is sent as None.
+    A key that disappeared is sent as None. A value that is the very object of ``old`` is skipped
+    without looking inside (snapshots reuse unchanged parts, see service/engine/snapshot.py).
     """
     if old is new:
         return _MISSING
     if type(old) is not dict or type(new) is not dict:
         return _MISSING if old == new else new
     out: dict[str, Any] = {}
+    get = old.get
+    kept = 0  # keys of new also in old: when all of old's, none disappeared
     for key, value in new.items():
-        prev = old.get(key, _MISSING)
+        prev = get(key, _MISSING)
+        if prev is value:
+            kept += 1
+            continue
         if prev is _MISSING:
             out[key] = value
             continue
-        d = diff(prev, value)
-        if d is not _MISSING:
-            out[key] = d
-    for key in old:
-        if key not in new:
-            out[key] = None
+        kept += 1
+        if type(value) is dict and type(prev) is dict:
+            d = diff(prev, value)
+            if d is not _MISSING:
+                out[key] = d
+        elif prev != value:
+            out[key] = value
+    if kept != len(old):
+        for key in old:
+            if key not in new:
+                out[key] = None
     return out if out else _MISSING
 
 
