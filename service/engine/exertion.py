@@ -119,6 +119,7 @@ class EffortCounter:
     def __init__(self, min_n: np.ndarray, shape: tuple[int, ...] | None = None) -> None:
         self.min_n = np.maximum(np.asarray(min_n, np.int64), 1)
         self.carry = np.zeros(self.min_n.shape if shape is None else shape, np.int64)
+        self._rows: dict[tuple[int, int], np.ndarray] = {}  # (row count, ndim) -> row numbers + BIG
 
     def reset(self) -> None:
         self.carry[:] = 0
@@ -132,7 +133,12 @@ class EffortCounter:
         n = cond.shape[0]
         if n == 0:
             return cond
-        rows = (np.arange(n + 1, dtype=np.int64) + self._BIG).reshape(-1, *([1] * (cond.ndim - 1)))
+        rows = self._rows.get((n, cond.ndim))
+        if rows is None:
+            rows = (np.arange(n + 1, dtype=np.int64) + self._BIG).reshape(-1, *([1] * (cond.ndim - 1)))
+            self._rows[(n, cond.ndim)] = rows
+            if len(self._rows) > 64:  # block sizes vary live: keep a few
+                self._rows = {(n, cond.ndim): rows}
         # running maximum of (row + BIG) over rows where the condition fails; row 0 stands for the
         # run carried in: its last failure lies ``carry`` rows back
         last_fail = np.empty((n + 1, *cond.shape[1:]), np.int64)
@@ -157,6 +163,7 @@ class Exertion:
         # band of a sample: searchsorted(zone_edges, speed / zone_scale[player])
         self.zone_edges = zone_edges
         self.inv_scale = 1.0 / zone_scale
+        self.unit_scale = bool((zone_scale == 1.0).all())  # absolute bands: speed / 1 is speed
         self.n_zones = zone_edges.shape[0] + 1
         # one counter for HSR, sprint, accel, decel runs of every player: columns (4, P)
         mins = np.array([params.speed_min_n, params.speed_min_n, params.accel_min_n, params.accel_min_n])[:, None]
@@ -169,6 +176,7 @@ class Exertion:
         """Columns for players seen for the first time (their speed-band scales)."""
         self.n += len(zone_scale)
         self.inv_scale = np.concatenate([self.inv_scale, 1.0 / zone_scale])
+        self.unit_scale = self.unit_scale and bool((zone_scale == 1.0).all())
         self.efforts.grow(len(zone_scale))
 
     def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray, full: bool = False
@@ -205,5 +213,5 @@ class Exertion:
         else:
             fig[:, VALID] = valid
             fig[:, SEEN] = seen
-        zone = np.searchsorted(self.zone_edges, speed * self.inv_scale, side="right")
+        zone = np.searchsorted(self.zone_edges, speed if self.unit_scale else speed * self.inv_scale, side="right")
         return fig, zone

@@ -351,7 +351,8 @@ class Track:
         part = buf[start:]
         lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
         d = part[1:] - part[:-1]  # unseen players give NaN, which compares False
-        step2 = (d * d).sum(axis=2)
+        step2 = d[..., 0] * d[..., 0]
+        step2 += d[..., 1] * d[..., 1]
         if start > 0 and self._clean_all and (step2 <= lim * lim).all():
             # everyone seen in every slot so far: a missing sample (NaN) fails this test as a jump does
             self._clean_upto = self.end
@@ -440,7 +441,7 @@ class Track:
         moving = speed > p.still_speed_ms
         dot = vel[..., 0] * acc[..., 0]
         dot += vel[..., 1] * acc[..., 1]
-        tang = np.zeros_like(speed)
+        tang = np.zeros(speed.shape)
         np.divide(dot, speed, out=tang, where=moving if full else v & moving)
         if not full:
             speed = np.where(v, speed, 0.0)

@@ -6,7 +6,7 @@ snapshot body (DESIGN §3): ``players``, ``teams``, ``health``.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -66,6 +66,7 @@ class _Period:
     ended: bool = False
     full_upto: int = -1  # end slot of the latest final samples if every column was seen in all of them
     in_order: bool = False  # the columns are the whole roster in roster order
+    zone_bin: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))  # (C,) first bincount bin of each column
 
     @property
     def name(self) -> str:
@@ -193,11 +194,12 @@ class MatchState:
         self.last_t = float(block.t[-1])
         if not self.has_ball and (block.ball != BALL_UNKNOWN).any():
             self.has_ball = True
-        bounds = np.flatnonzero(np.diff(block.period)) + 1
-        if not len(bounds):
+        period = block.period
+        if (period == period[0]).all():
             self._step_period(block)
         else:
-            for a, b in zip([0, *bounds.tolist()], [*bounds.tolist(), n]):
+            bounds = (np.flatnonzero(period[1:] != period[:-1]) + 1).tolist()
+            for a, b in zip([0, *bounds], [*bounds, n]):
                 self._step_period(block.take(slice(a, b)))
         if self.heart is not None:
             self._settle_heart()
@@ -284,6 +286,7 @@ class MatchState:
         per.c_last_valid = _widen(per.c_last_valid, k, -1)
         per.c_last_speed = _widen(per.c_last_speed, k, 0.0)
         per.full_upto = -1
+        per.zone_bin = np.arange(len(per.cols)) * per.c_zones.shape[1]
         per.in_order = len(per.cols) == self.n and bool((per.cols == np.arange(self.n)).all())
 
     def _end(self, per: _Period) -> None:
@@ -347,7 +350,7 @@ class MatchState:
         per.c_sums += total
         m = len(per.cols)
         nz = per.c_zones.shape[1]
-        zone += np.arange(0, m * nz, nz)  # one bin per (player, band)
+        zone += per.zone_bin  # one bin per (player, band)
         per.c_zones += np.bincount(zone.ravel(), weights=fig[:, ex.DIST].ravel(), minlength=nz * m
                                    ).reshape(m, nz).astype(np.int64)
         np.maximum(per.c_max_speed, fin.speed.max(axis=0), out=per.c_max_speed)

@@ -9,6 +9,8 @@ return is roster-wide, one row per player.
 """
 from __future__ import annotations
 
+from bisect import bisect_right
+
 import numpy as np
 
 from service.engine.exertion import DIST, N_FIG
@@ -55,6 +57,7 @@ class SecondBins:
         self.end_slot = 0  # one past the last final slot
         self.peak_s = peak_s
         self._win = np.array(sorted(set(peak_s)), np.int64)
+        self._win_list = self._win.tolist()
         self._peak = np.full((len(self._win), N_FIG, 0), -1, np.int64)
         self._peak_start = np.full((len(self._win), 0), -1, np.int64)
 
@@ -90,7 +93,8 @@ class SecondBins:
         seg = seg.astype(np.int64).reshape(seg.shape[0], *fig.shape[1:])
         if k:
             c = self.complete
-            self._reserve(c + k + 1)
+            if c + k + 1 > self._cs.shape[0]:
+                self._reserve(c + k + 1)
             rows = self._cs[c + 1: c + 1 + k]
             if k == 1:
                 np.add(self._run, seg[0], out=rows[0])
@@ -135,7 +139,7 @@ class SecondBins:
             return
         cs = self._cs
         if end == old + 1:  # one second completed (the live case): every window at once
-            nv = int(np.searchsorted(win, end, side="right"))
+            nv = bisect_right(self._win_list, end)
             peak, start = self._peak[:nv], self._peak_start[:nv]
             sums = cs[end] - cs[end - win[:nv]]
             better = sums[:, DIST] > peak[:, DIST]
