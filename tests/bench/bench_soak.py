@@ -9,7 +9,7 @@ frame, SUBSCRIBERS sockets subscribe to ``WS /live`` (half at the default
 processes; each checks that every message's ``seq`` is one more than the
 last, from its opening snapshot to the end.
 
-Every SAMPLE_S seconds the server's VmRSS (/proc/PID/status) is sampled with
+Every few seconds (``plan``) the server's VmRSS (/proc/PID/status) is sampled with
 the match clock (``GET /api/matches``). The curve goes to
 ``tests/bench/out/soak_rss.json`` (git-ignored). Warm-up: the first
 ``warmup_s`` of wall time (the engine's windows, the streams and the
@@ -29,7 +29,7 @@ over the folder the server recorded: every player figure but ``on_pitch``
 (live state), and the teams (``soak_figures_equal`` 1 or 0).
 
 Full: the 95-minute match (about 10 wall minutes). Quick (``make bench
-QUICK=1``): 2 minutes of match, the same 200 subscribers, about 20 s.
+QUICK=1``): 1 minute of match, the same 200 subscribers, about 15 s.
 
     python tests/bench/bench_soak.py [--quick]
 """
@@ -66,16 +66,17 @@ SPEED = 10
 SUBSCRIBERS = 200
 CLIENT_PROCS = 2
 CADENCES = (1.0, 0.2)  # every= of the subscribers, in turn (1 s is the bench page's default)
-SAMPLE_S = 3.0
+
 OUT = _HERE / "out" / "soak_rss.json"
 CTX = mp.get_context("fork")
 SEQ = re.compile(rb'"seq":(\d+)')
 TYPE = re.compile(rb'"type":"(\w+)"')
 
 
-def warmup_s(quick: bool) -> float:
-    """Wall seconds before the RSS baseline: 10 match minutes in full (60 s at 10x), a third of a quick run."""
-    return 4.0 if quick else 60.0
+def plan(quick: bool) -> tuple[float, float, float]:
+    """(match minutes, RSS sample interval s, warm-up s): warm-up is 10 match minutes in full (60 s of
+    wall time at 10x), the first quarter of a quick run."""
+    return (1.0, 1.0, 1.5) if quick else (95.0, 3.0, 60.0)
 
 
 # -- subscribers -------------------------------------------------------------------------------------------
@@ -212,8 +213,7 @@ def _entry(value: float, unit: str, baseline: float | None = None, ratio: float 
 
 
 def run(quick: bool) -> dict[str, dict]:
-    minutes = 2.0 if quick else 95.0
-    warm = warmup_s(quick)
+    minutes, sample_s, warm = plan(quick)
     with tempfile.TemporaryDirectory(prefix="pacewire-soak-") as tmp:
         tmp = Path(tmp)
         folder = tmp / "match"
@@ -225,7 +225,7 @@ def run(quick: bool) -> dict[str, dict]:
         sheet = orjson.loads((folder / "match.json").read_bytes())
         meta["match"] = {**meta.get("match", {}), "id": MATCH}
         print(f"bench_soak: {minutes:g}-minute synthetic match ({synth_s:.1f} s to generate) at {SPEED}x into one "
-              f"server, {SUBSCRIBERS} subscribers over {CLIENT_PROCS} processes; RSS every {SAMPLE_S:g} s", flush=True)
+              f"server, {SUBSCRIBERS} subscribers over {CLIENT_PROCS} processes; RSS every {sample_s:g} s", flush=True)
         srv = LiveServer(tmp / "data")
         subs: Subscribers | None = None
         replay: subprocess.Popen | None = None
@@ -252,7 +252,7 @@ def run(quick: bool) -> dict[str, dict]:
                     samples.append([round(now - t_start, 2), clock, round(rss_mb(pid), 2)])
                     if report_at is None and http.get(f"/api/matches/{MATCH}/reports").json()["reports"]:
                         report_at = round(now - t_start, 2)
-                    next_t += SAMPLE_S
+                    next_t += sample_s
                 time.sleep(min(max(next_t - time.monotonic(), 0.0), 0.2))
             replay_log.close()
             if replay.returncode != 0:
@@ -266,7 +266,7 @@ def run(quick: bool) -> dict[str, dict]:
                 if snap["health"]["state"] == "stalled":
                     break
                 time.sleep(0.5)
-            time.sleep(1.0)  # the stall's final delta reaches every subscriber
+            time.sleep(0.5)  # the stall's final delta reaches every subscriber
             at_stall = get_json(http, f"/api/matches/{MATCH}/snapshot")
             stalled = [round(time.monotonic() - t_start, 2), at_stall["match_time_s"], round(rss_mb(pid), 2)]
             # the final whistle, as the operator or provider sends it: the period ends, its last partial
@@ -274,7 +274,7 @@ def run(quick: bool) -> dict[str, dict]:
             http.post(f"/api/matches/{MATCH}/events", json={"type": "period_end", "period": at_stall["period"],
                                                              "frame_id": last_frame_id(tmp / "data" / "matches" / MATCH)
                                                              }).raise_for_status()
-            time.sleep(1.0)
+            time.sleep(0.5)
             snap = get_json(http, f"/api/matches/{MATCH}/snapshot")
             stats = subs.stop()
             subs = None
@@ -308,7 +308,7 @@ def run(quick: bool) -> dict[str, dict]:
     growth = end - base
     out = {"created": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"), "quick": quick,
            "minutes": minutes, "speed": SPEED, "subscribers": SUBSCRIBERS, "cadences_s": list(CADENCES),
-           "sample_s": SAMPLE_S, "warmup_s": warm, "half_time_report_listed_s": report_at,
+           "sample_s": sample_s, "warmup_s": warm, "half_time_report_listed_s": report_at,
            "rss_start_mb": round(rss_start, 2), "after_stall": stalled,
            "columns": ["wall_s", "match_time_s", "rss_mb"], "samples": samples}
     OUT.parent.mkdir(parents=True, exist_ok=True)
