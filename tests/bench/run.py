@@ -77,7 +77,7 @@ def table(results: dict[str, dict]) -> str:
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--quick", action="store_true", help="short runs (well under a minute in all)")
+    ap.add_argument("--quick", action="store_true", help="short runs (under two minutes in all on 2 idle cores)")
     ap.add_argument("--only", nargs="*", help="module names to run (bench_engine or engine)")
     args = ap.parse_args(argv)
     for p in (str(ROOT), str(HERE.parent)):  # the service package, and test helpers such as cdf_build
@@ -88,6 +88,7 @@ def main(argv: list[str] | None = None) -> int:
     modules: dict[str, dict] = {}
     failed = []
     t_all = time.perf_counter()
+    load0 = os.getloadavg()  # other work on a shared machine shows in every timing: record it
     for path in discover(args.only):
         name = path.stem
         t = time.perf_counter()
@@ -108,6 +109,8 @@ def main(argv: list[str] | None = None) -> int:
         "python": platform.python_version(),
         "machine": platform.machine(),
         "platform": platform.platform(),
+        "loadavg_start": [round(x, 2) for x in load0],
+        "loadavg_end": [round(x, 2) for x in os.getloadavg()],
         "modules": modules,
         "results": merged,
     }
@@ -116,6 +119,9 @@ def main(argv: list[str] | None = None) -> int:
     print(table(merged))
     print(f"\n{len(modules) - len(failed)}/{len(modules)} benchmark modules ran in "
           f"{time.perf_counter() - t_all:.1f} s{' (quick)' if args.quick else ''}; wrote {RESULTS.name}")
+    print("seconds per module: " + ", ".join(f"{k.removeprefix('bench_')} {v['seconds']:g}" for k, v in modules.items())
+          + f"; load average {' '.join(f'{x:.2f}' for x in load0)} at the start, "
+          + " ".join(f"{x:.2f}" for x in doc["loadavg_end"]) + f" at the end ({os.cpu_count()} CPUs)")
     if failed:
         print("FAILED: " + ", ".join(failed))
     return 1 if failed or not modules else 0
