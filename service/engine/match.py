@@ -25,6 +25,8 @@ CLOCK_START_MIN = {"first_half": 0, "second_half": 45, "first_half_extratime": 9
                    "second_half_extratime": 105, "shootout": 120}
 CONTEXTS = ("in_possession", "out_of_possession", "out_of_play")
 _U = 1e-6  # micro-units to units
+_DIST_HSR = slice(ex.DIST, ex.HSR + 1)  # distance and HSR rows of the figure sums
+assert ex.HSR == ex.DIST + 1
 
 
 def _widen(a: np.ndarray, k: int, fill: Any, axis: int = 0) -> np.ndarray:
@@ -48,14 +50,14 @@ class _Period:
     track: Track
     exertion: Exertion
     bins: SecondBins
-    ball: np.ndarray  # (slots,) int8
-    poss_team: np.ndarray  # (slots,) int8
+    ball_poss: np.ndarray  # (slots, 2) int8: ball state, team in possession
     cols: np.ndarray  # (C,) roster index of each column
     unseen: np.ndarray  # roster indices not seen so far
     team: np.ndarray  # (C,) int8
     c_sums: np.ndarray  # (N_FIG, C) int64
     c_zones: np.ndarray  # (C, Z) int64 µm
     c_poss: np.ndarray  # (C, 4, 2) int64 µm: context (the contract's three, then unknown) × (distance, hsr)
+    poss_pend: np.ndarray  # (2, C) int64 µm: distance, hsr since the ball context last changed
     c_max_speed: np.ndarray  # (C,) m/s
     c_first_seen: np.ndarray  # (C,) slot, -1 never
     c_last_seen: np.ndarray  # (C,) slot, -1 never
@@ -66,6 +68,7 @@ class _Period:
     ended: bool = False
     full_upto: int = -1  # end slot of the latest final samples if every column was seen in all of them
     in_order: bool = False  # the columns are the whole roster in roster order
+    poss_ctx: tuple[int, int] | None = None  # context of each team for poss_pend
     zone_bin: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))  # (C,) first bincount bin of each column
 
     @property
@@ -90,7 +93,16 @@ class _Period:
     @property
     def poss(self) -> np.ndarray:
         """(P, 3, 2) int64 µm: context × (distance, hsr)."""
-        return self._roster(self.c_poss[:, :3], 0)
+        c = self.c_poss
+        if self.poss_ctx is not None:
+            c = c.copy()
+            self.add_pending(c)
+        return self._roster(c[:, :3], 0)
+
+    def add_pending(self, c_poss: np.ndarray) -> None:
+        """Add the sums held since the ball context last changed to ``c_poss``."""
+        ctx = np.array(self.poss_ctx)[self.team]
+        c_poss[np.arange(len(ctx)), ctx] += self.poss_pend.T
 
     @property
     def max_speed(self) -> np.ndarray:
@@ -237,13 +249,13 @@ class MatchState:
             cur = self._start(idx, float(b.t[0]))
         slots = b.slot
         first, last = int(slots[0]), int(slots[-1])
-        if last >= cur.ball.shape[0]:
-            cap = max(2 * cur.ball.shape[0], last + 1)
-            cur.ball = np.concatenate([cur.ball, np.full(cap - cur.ball.shape[0], BALL_UNKNOWN, np.int8)])
-            cur.poss_team = np.concatenate([cur.poss_team, np.full(cap - cur.poss_team.shape[0], NO_TEAM, np.int8)])
+        if last >= cur.ball_poss.shape[0]:
+            cap = max(2 * cur.ball_poss.shape[0], last + 1)
+            more = np.full((cap - cur.ball_poss.shape[0], 2), (BALL_UNKNOWN, NO_TEAM), np.int8)
+            cur.ball_poss = np.concatenate([cur.ball_poss, more])
         at = slice(first, last + 1) if last - first + 1 == len(slots) else slots
-        cur.ball[at] = b.ball
-        cur.poss_team[at] = b.poss
+        cur.ball_poss[at, 0] = b.ball
+        cur.ball_poss[at, 1] = b.poss
         cur.last_slot = last
         xy = b.xy
         if cur.unseen.size and not np.isnan(xy[:, cur.unseen, 0]).all():
@@ -257,10 +269,10 @@ class MatchState:
         per = _Period(
             index=idx, t0=t0, n=self.n, track=Track(self.kin, 0),
             exertion=Exertion(self.exp, 0, self.zone_edges, self.zone_scale[:0]), bins=SecondBins(self.fps, self.n, self.peak_s),
-            ball=np.full(1024, BALL_UNKNOWN, np.int8), poss_team=np.full(1024, NO_TEAM, np.int8),
+            ball_poss=np.full((1024, 2), (BALL_UNKNOWN, NO_TEAM), np.int8),
             cols=np.zeros(0, np.int64), unseen=np.arange(self.n), team=self.team[:0],
             c_sums=np.zeros((ex.N_FIG, 0), np.int64), c_zones=np.zeros((0, self.zone_edges.shape[0] + 1), np.int64),
-            c_poss=np.zeros((0, 4, 2), np.int64), c_max_speed=np.zeros(0), c_first_seen=np.zeros(0, np.int64),
+            c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64), c_max_speed=np.zeros(0), c_first_seen=np.zeros(0, np.int64),
             c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64), c_last_valid=np.zeros(0, np.int64),
             c_last_speed=np.zeros(0),
         )
@@ -279,6 +291,7 @@ class MatchState:
         per.c_sums = _widen(per.c_sums, k, 0, axis=1)
         per.c_zones = _widen(per.c_zones, k, 0)
         per.c_poss = _widen(per.c_poss, k, 0)
+        per.poss_pend = _widen(per.poss_pend, k, 0, axis=1)
         per.c_max_speed = _widen(per.c_max_speed, k, 0.0)
         per.c_first_seen = _widen(per.c_first_seen, k, -1)
         per.c_last_seen = _widen(per.c_last_seen, k, -1)
@@ -404,20 +417,33 @@ class MatchState:
             return 3
         return 0 if poss == team else 1
 
+    @staticmethod
+    def _settle_possession(per: _Period) -> None:
+        if per.poss_ctx is not None:
+            per.add_pending(per.c_poss)
+            per.poss_ctx = None
+            per.poss_pend[:] = 0
+
     def _possession(self, per: _Period, fin: Final, fig: np.ndarray, total: np.ndarray) -> None:
         """Distance and HSR split by ball context: in possession, out of possession, out of play.
         ``total``: the block's sums (N_FIG, C)."""
-        slots = slice(fin.slot0, fin.slot0 + len(fin))
-        ball = per.ball[slots]
-        poss = per.poss_team[slots]
-        b0, p0 = int(ball[0]), int(poss[0])
-        if (ball == b0).all() and (poss == p0).all():
-            # one context per team over the whole block (the usual case): add the block's sums
-            ctx = np.array([self._context(b0, p0, 0), self._context(b0, p0, 1)])[per.team]
-            per.c_poss[np.arange(len(ctx)), ctx] += total[[ex.DIST, ex.HSR]].T
+        bp = per.ball_poss[fin.slot0: fin.slot0 + len(fin)]
+        code = bp.view(np.int16)  # ball state and possession of a slot as one number
+        if (code == code[0]).all():
+            # one context per team over the whole block (the usual case): the block's sums wait
+            # with those of earlier blocks until the context changes
+            b0, p0 = int(bp[0, 0]), int(bp[0, 1])
+            ctx = (self._context(b0, p0, 0), self._context(b0, p0, 1))
+            if ctx == per.poss_ctx:
+                per.poss_pend += total[_DIST_HSR]
+            else:
+                self._settle_possession(per)
+                per.poss_ctx = ctx
+                per.poss_pend[:] = total[_DIST_HSR]
             return
-        ball = ball[:, None]
-        poss = poss[:, None]
+        self._settle_possession(per)
+        ball = bp[:, 0:1]
+        poss = bp[:, 1:2]
         own = poss == per.team[None, :]
         # context 0 in, 1 out of possession, 2 out of play, 3 unknown
         ctx = np.where(ball == BALL_OUT, 2, np.where(ball != BALL_IN, 3, np.where(own, 0, np.where(poss == NO_TEAM, 3, 1))))
