@@ -38,6 +38,20 @@ def _segments(n: int, skip: int, cut: int, fps: int) -> np.ndarray:
     return m
 
 
+def _segment_sums(flat: np.ndarray, skip: int, cut: int, fps: int) -> np.ndarray:
+    """What ``_segments(n, skip, cut, fps) @ flat`` gives, for long blocks."""
+    n = flat.shape[0]
+    cut = min(cut, n)
+    whole = (n - cut) // fps
+    parts = [flat[skip:cut].sum(axis=0, keepdims=True)]
+    if whole:
+        parts.append(flat[cut: cut + whole * fps].reshape(whole, fps, flat.shape[1]).sum(axis=1))
+    if cut + whole * fps < n:
+        parts.append(flat[cut + whole * fps:].sum(axis=0, keepdims=True))
+    parts.append(flat.sum(axis=0, keepdims=True))
+    return np.concatenate(parts)
+
+
 def _widen(a: np.ndarray, k: int, fill: int) -> np.ndarray:
     """``a`` with ``k`` more columns on its last axis, set to ``fill``."""
     return np.concatenate([a, np.full((*a.shape[:-1], k), fill, a.dtype)], axis=-1)
@@ -89,7 +103,11 @@ class SecondBins:
             self._close_to(slot0 // fps)  # a gap: the seconds before hold nothing more
             lo = self.complete * fps
         k = max(end // fps - self.complete, 0)  # seconds this call completes
-        seg = _segments(n, skip, lo + fps - slot0, fps) @ fig.reshape(n, fig.shape[1] * fig.shape[2])
+        flat = fig.reshape(n, fig.shape[1] * fig.shape[2])
+        if n <= 4 * fps:
+            seg = _segments(n, skip, lo + fps - slot0, fps) @ flat
+        else:  # a long block: whole seconds by a reshaped sum (the product grows with n squared)
+            seg = _segment_sums(flat, skip, lo + fps - slot0, fps)
         seg = seg.astype(np.int64).reshape(seg.shape[0], *fig.shape[1:])
         if k:
             c = self.complete
