@@ -42,6 +42,45 @@ def savgol_weights(window: int, order: int, deriv: int, delta: float, pos: int) 
     return pinv[deriv] * math.factorial(deriv) / delta ** deriv
 
 
+class _Fit:
+    """Savitzky-Golay coefficients of one (window, order, sample interval), shared by every
+    track (read-only): ``coef[d, j]`` is derivative d evaluated at position j of the window;
+    ``band(n)`` the banded matrix of the centred fit for n output rows."""
+
+    def __init__(self, window: int, order: int, dt: float) -> None:
+        self.window = window
+        self.coef = np.stack([np.stack([savgol_weights(window, order, d, dt, j) for j in range(window)])
+                              for d in range(3)])
+        self.coef.flags.writeable = False
+        self._band: dict[int, np.ndarray] = {}
+
+    def band(self, n: int) -> np.ndarray:
+        """(3n, n + window - 1): row d*n + i holds derivative d's centred coefficients for output row i."""
+        m = self._band.get(n)
+        if m is None:
+            w = self.window
+            m = np.zeros((3, n, n + w - 1))
+            for i in range(n):
+                m[:, i, i:i + w] = self.coef[:, w // 2, :]
+            m = m.reshape(3 * n, n + w - 1)
+            m.flags.writeable = False
+            self._band[n] = m
+        return m
+
+    def __deepcopy__(self, memo: dict) -> "_Fit":
+        return self  # read-only: a copied track shares it
+
+
+_FITS: dict[tuple[int, int, float], _Fit] = {}
+
+
+def _fit(window: int, order: int, dt: float) -> _Fit:
+    fit = _FITS.get((window, order, dt))
+    if fit is None:
+        fit = _FITS[(window, order, dt)] = _Fit(window, order, dt)
+    return fit
+
+
 @dataclass(frozen=True)
 class KinematicParams:
     fps: int
@@ -114,8 +153,26 @@ def _shift_up(a: np.ndarray, fill: int) -> np.ndarray:
 
 def _gather(a: np.ndarray, idx: np.ndarray) -> np.ndarray:
     """a[idx[i, p], p] for a (N, P) or (N, P, 2) array; idx must be in range."""
-    cols = np.arange(idx.shape[1])[None, :]
-    return a[idx, cols]
+    return _take(a, _flat(idx))
+
+
+def _flat(idx: np.ndarray) -> np.ndarray:
+    """Row indices (N, P) as flat indices into an (N, P, ...) array."""
+    return idx * idx.shape[1] + np.arange(idx.shape[1])
+
+
+def _take(a: np.ndarray, flat: np.ndarray) -> np.ndarray:
+    """_gather with flat indices (a gather used more than once); np.take is the fastest gather."""
+    if a.ndim == 3:
+        return np.take(a.reshape(-1, a.shape[2]), flat, axis=0)
+    return np.take(a.reshape(-1), flat)
+
+
+def _norm(d: np.ndarray) -> np.ndarray:
+    """Length of (..., 2) vectors: the sum of squares of np.linalg.norm, without a reduction over an axis of two."""
+    s = d[..., 0] * d[..., 0]
+    s += d[..., 1] * d[..., 1]
+    return np.sqrt(s, out=s)
 
 
 class Track:
@@ -125,13 +182,7 @@ class Track:
         self.p = params
         self.n = n_players
         self.dt = 1.0 / params.fps
-        w, h = params.window, params.half
-        # coefficients[d, j]: derivative d evaluated at position j of the window.
-        self._coef = np.stack([
-            np.stack([savgol_weights(w, params.order, d, self.dt, j) for j in range(w)])
-            for d in range(3)
-        ])
-        self._band: dict[int, np.ndarray] = {}  # banded matrices of the centred fit, by row count
+        self._fit = _fit(params.window, params.order, self.dt)
         self.base = 0  # slot of buf[0]
         # buf is a window onto a larger store, so extending and trimming rarely copy
         self._store = np.full((256, n_players, 2), np.nan)
@@ -235,15 +286,17 @@ class Track:
         next_s = _shift_up(_next_true(seen), _BIG)  # next seen, strictly after
         has_prev = seen & (prev_s >= 0) & (rows - prev_s <= reach)
         prev_c = np.clip(prev_s, 0, n_rows - 1)
-        step = np.linalg.norm(buf - _gather(buf, prev_c), axis=2)
+        prev_f = _flat(prev_c)
+        buf_prev = _take(buf, prev_f)
+        step = _norm(buf - buf_prev)
         jprev = has_prev & (step > vmax_step * (rows - prev_c) + tol)
         has_next = seen & (next_s < _BIG) & (next_s - rows <= reach)
         next_c = np.clip(next_s, 0, n_rows - 1)
         jnext = has_next & _gather(jprev, next_c)
-        skip = np.linalg.norm(_gather(buf, next_c) - _gather(buf, prev_c), axis=2)
+        skip = _norm(_gather(buf, next_c) - buf_prev)
         jskip = skip > vmax_step * (next_c - prev_c) + tol
         spike = jprev & jnext & ~jskip
-        split = jprev & ~spike & ~_gather(spike, prev_c)
+        split = jprev & ~spike & ~_take(spike, prev_f)
         kept = seen & ~spike
 
         # bridging gaps of up to p.bridge slots between kept samples
@@ -369,31 +422,19 @@ class Track:
 
     _CHUNK = 64  # rows per banded product: small enough that the band matrix stays cheap
 
-    def _band_matrix(self, n: int) -> np.ndarray:
-        """(3n, n + 2h): row d*n + i holds derivative d's centred coefficients for output row i."""
-        m = self._band.get(n)
-        if m is None:
-            w = self.p.window
-            m = np.zeros((3, n, n + w - 1))
-            for i in range(n):
-                m[:, i, i:i + w] = self._coef[:, self.p.half, :]
-            m = m.reshape(3 * n, n + w - 1)
-            self._band[n] = m
-        return m
-
     def _centred(self, src: np.ndarray, r0: int, r1: int) -> np.ndarray:
         """Centred fit for rows r0..r1 of ``src`` (rows r0-h .. r1+h-1 must exist)
         as one matrix product per chunk → (3, n, P, 2): position, velocity, acceleration."""
         h = self.p.half
         if r1 - r0 <= self._CHUNK:
             rows = src[r0 - h: r1 + h].reshape(r1 - r0 + 2 * h, self.n * 2)
-            return (self._band_matrix(r1 - r0) @ rows).reshape(3, r1 - r0, self.n, 2)
+            return (self._fit.band(r1 - r0) @ rows).reshape(3, r1 - r0, self.n, 2)
         out = np.empty((3, r1 - r0, self.n, 2))
         for a in range(r0, r1, self._CHUNK):
             b = min(a + self._CHUNK, r1)
             k = b - a
             rows = src[a - h: b + h].reshape(k + 2 * h, self.n * 2)
-            out[:, a - r0: b - r0] = (self._band_matrix(k) @ rows).reshape(3, k, self.n, 2)
+            out[:, a - r0: b - r0] = (self._fit.band(k) @ rows).reshape(3, k, self.n, 2)
         return out
 
     def _smooth_clean(self, r0: int, r1: int, cols: np.ndarray) -> Final:
@@ -427,7 +468,7 @@ class Track:
             win = sliding_window_view(src, w, axis=0)  # padded row i + h is buffer row i
             ei, ep = np.nonzero(edge)
             ew = win[w0[ei, ep] + h, ep]  # (m, 2, W)
-            ec = self._coef[:, j[ei, ep], :]  # (3, m, W)
+            ec = self._fit.coef[:, j[ei, ep], :]  # (3, m, W)
             res[:, ei, ep] = np.einsum("mcw,dmw->dmc", ew, ec)
         return self._finish(r0, r1, v, res, kept[r0:r1])
 
