@@ -10,6 +10,8 @@ from __future__ import annotations
 import math
 from collections import deque
 from dataclasses import dataclass, field
+from itertools import chain
+from operator import itemgetter
 from datetime import datetime
 from typing import Any, Callable, Iterable, Literal, Sequence
 
@@ -292,6 +294,15 @@ class FrameGate:
         while len(self.recent) > n:
             self.recent_set.discard(self.recent.pop())
 
+    def save(self) -> tuple:
+        """Everything, for :meth:`load` (checkpoint/restore undo a few admissions, not a batch)."""
+        return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, deque(self.recent),
+                set(self.recent_set))
+
+    def load(self, saved: tuple) -> None:
+        (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, recent, recent_set) = saved
+        self.recent, self.recent_set = deque(recent), set(recent_set)
+
     def admit(self, frame_id: int, t: float, period: int, slot: int) -> None:
         self.last_id, self.last_t = frame_id, t
         if period != self.period:
@@ -329,6 +340,9 @@ class _Reject(Exception):
 
 _NUM = (float, int)
 _NUM_SET = frozenset(_NUM)
+_ID, _X, _Y = itemgetter("id"), itemgetter("x"), itemgetter("y")
+_BULK_MIN = 8  # frames in a call before the players of all its frames are checked at once
+_BULK_PAUSE = 8  # calls decoded frame by frame after a batch the bulk check could not take
 
 
 def _timestamp(value: Any) -> float:
@@ -389,6 +403,7 @@ class FrameDecoder:
         self._projected: dict[int, tuple[float, float]] = {}  # id(player entry) -> (x, y), for one batch
         # player id -> roster index, per side: a player under the wrong team is not found
         self._side_index = tuple({p.id: i for i, p in enumerate(roster.players) if p.team == side} for side in (0, 1))
+        self._bulk_pause = 0
 
     def decode_lines(self, lines: Iterable[bytes | str], first_line: int = 1) -> DecodeResult:
         """JSON Lines (one frame per line); blank lines are skipped."""
@@ -405,12 +420,27 @@ class FrameDecoder:
         if self.projection is not None and len(objs) > 1:
             self._projected = self._project_batch(objs)
         try:
-            return self._decode_objects(objs, lines)
+            if self.projection is None and len(objs) >= _BULK_MIN and not self._bulk_pause:
+                saved = self.gate.save()
+                res = self._decode_objects(objs, lines, bulk=True)
+                if res is not None:
+                    return res
+                # some player entry needs the per-player checks: decode again, frame by frame
+                self.gate.load(saved)
+                self._bulk_pause = _BULK_PAUSE
+            elif self._bulk_pause:
+                self._bulk_pause -= 1
+            return self._decode_objects(objs, lines)  # type: ignore[return-value]
         finally:
             self._projected = {}  # keyed by object ids: valid for this batch only
 
-    def _decode_objects(self, objs: Sequence[Any], lines: Sequence[int] | None) -> DecodeResult:
+    def _decode_objects(self, objs: Sequence[Any], lines: Sequence[int] | None, bulk: bool = False
+                        ) -> DecodeResult | None:
+        """``bulk``: the players of all accepted frames are checked together at the end, and
+        None comes back if any entry is not plainly good (the caller then decodes frame by
+        frame, where each check names what is wrong); otherwise the result is the same."""
         n_players = self.roster.n
+        plists: tuple[list[Any], list[Any]] = ([], [])
         fids: list[int] = []
         ts: list[float] = []
         periods: list[int] = []
@@ -451,9 +481,18 @@ class FrameDecoder:
                 period = PERIOD_INDEX[obj["period"]]
                 slot = gate.slot_of(period, t)
                 row = len(fids)
-                for side in (0, 1):
-                    self._players(obj["teams"][("home", "away")[side]], side, row, s_f, s_p, s_x, s_y)
-                ball, team = self._ball(obj.get("ball"))
+                if not bulk:
+                    for side in (0, 1):
+                        self._players(obj["teams"][("home", "away")[side]], side, row, s_f, s_p, s_x, s_y)
+                    ball, team = self._ball(obj.get("ball"))
+                else:
+                    try:
+                        ball, team = self._ball(obj.get("ball"))
+                    except Exception:
+                        # frame by frame the players come first: a fault there is the one to report
+                        for side in (0, 1):
+                            self._players(obj["teams"][("home", "away")[side]], side, row, [], [], [], [])
+                        raise
             except _Reject as rej:
                 del s_f[mark:], s_p[mark:], s_x[mark:], s_y[mark:]
                 res.rejected += 1
@@ -465,6 +504,10 @@ class FrameDecoder:
                 errors.append(FrameError("bad_frame", f"frame could not be read: {type(exc).__name__}: {exc}", fid_known, line))
                 continue
             res.accepted.append(k)
+            if bulk:
+                teams = obj["teams"]
+                plists[0].append(teams["home"]["players"])
+                plists[1].append(teams["away"]["players"])
             fids.append(fid)
             ts.append(t)
             periods.append(period)
@@ -473,13 +516,19 @@ class FrameDecoder:
             poss.append(team)
             gate.admit(fid, t, period, slot)
         n = len(fids)
+        samples: list[tuple[Any, Any, Any, Any]] = [(s_f, s_p, s_x, s_y)] if s_f else []
+        if bulk:
+            got = self._players_bulk(plists)
+            if got is None:
+                return None
+            samples = got
         if n:
             xy = np.full((n, n_players, 2), np.nan)
-            if s_f:
-                f = np.asarray(s_f)
-                p = np.asarray(s_p)
-                xy[f, p, 0] = s_x
-                xy[f, p, 1] = s_y
+            for f, p, x, y in samples:
+                f = np.asarray(f)
+                p = np.asarray(p)
+                xy[f, p, 0] = x
+                xy[f, p, 1] = y
             res.block = Block(
                 frame_id=np.asarray(fids, np.int64), t=np.asarray(ts, np.float64),
                 period=np.asarray(periods, np.int8), slot=np.asarray(slots, np.int64), xy=xy,
@@ -649,6 +698,35 @@ class FrameDecoder:
         s_x.extend(xs)
         s_y.extend(ys)
         return True
+
+    def _players_bulk(self, plists: tuple[list[Any], list[Any]]) -> list[tuple[Any, Any, Any, Any]] | None:
+        """(rows, roster indices, x, y) per team from the player lists of every accepted frame
+        (one list per frame and team), checked as :meth:`_players_fast` checks them, by
+        C-level maps and numpy instead of per-frame Python; None if any entry is not plainly
+        good."""
+        out = []
+        for side, lists in enumerate(plists):
+            flat = list(chain.from_iterable(lists))
+            if not flat:
+                continue
+            try:
+                idx = list(map(self._side_index[side].__getitem__, map(_ID, flat)))
+                xs = list(map(_X, flat))
+                ys = list(map(_Y, flat))
+            except (KeyError, TypeError, IndexError):
+                return None
+            if not _NUM_SET.issuperset(map(type, xs)) or not _NUM_SET.issuperset(map(type, ys)):
+                return None  # nulls (unseen) or bad types
+            try:
+                x = np.array(xs, np.float64)
+                y = np.array(ys, np.float64)
+            except OverflowError:
+                return None
+            # NaN and infinity fail these too
+            if not ((np.abs(x) <= self.x_lim).all() and (np.abs(y) <= self.y_lim).all()):
+                return None
+            out.append((np.repeat(np.arange(len(lists)), list(map(len, lists))), idx, x, y))
+        return out
 
     def _ball(self, ball: Any) -> tuple[int, int]:
         if ball is None:
