@@ -111,8 +111,16 @@ def _cached_windows(cache: dict[Any, Any], name: Any, sums: np.ndarray, span_s: 
 
 
 def _cached_figures(cache: dict[Any, Any], name: Any, state: "MatchState", sums: np.ndarray, zones: np.ndarray,
-                    onpitch_s: np.ndarray, max_speed: np.ndarray, coverage: np.ndarray) -> list[dict[str, Any]]:
-    return _reuse(cache, name, _stack(sums, zones, onpitch_s, max_speed, coverage),
+                    onpitch_s: np.ndarray, max_speed: np.ndarray, coverage: np.ndarray,
+                    same_as: Any = None) -> list[dict[str, Any]]:
+    """Figure rows (see _reuse); the rows cached under ``same_as`` when their inputs are these (a match
+    of one period so far: its figures are the period's)."""
+    inputs = _stack(sums, zones, onpitch_s, max_speed, coverage)
+    hit = cache.get(same_as) if same_as is not None else None
+    if hit is not None and hit[0].shape == inputs.shape and np.array_equal(hit[0], inputs):
+        cache[name] = hit
+        return hit[1]
+    return _reuse(cache, name, inputs,
                   lambda r: _figures(sums[r], zones[r], state.zone_names, onpitch_s[r], max_speed[r], coverage[r]))
 
 
@@ -184,13 +192,14 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
             team_last[m] = sums
             names.append(f"last_{m}min")
             cols.append(_cached_windows(cache, ("last", m), sums, span))
+    peaks = [(CLOCK_START_MIN[per.name] * 60, per.bins.peak, per.bins.peak_start) for per in periods]
     for w_s in state.peak_s:
         best = np.full((n, ex.N_FIG), -1, np.int64)
         start_clock = np.full(n, -1.0)
-        for per in periods:
-            pk = per.bins.peak[w_s]
+        for clock_s, peak, peak_start in peaks:
+            pk = peak[w_s]
             better = pk[:, ex.DIST] > best[:, ex.DIST]
-            start_clock = np.where(better, CLOCK_START_MIN[per.name] * 60 + per.bins.peak_start[w_s], start_clock)
+            start_clock = np.where(better, clock_s + peak_start[w_s], start_clock)
             best = np.maximum(best, pk)
         span = np.full(n, float(w_s))
 
@@ -228,7 +237,7 @@ def _period_figures(state: "MatchState", per: "_Period") -> list[dict[str, Any]]
     o = per.onpitch_slots()
     cov = np.where(o > 0, np.minimum(per.sums[:, ex.VALID] / np.maximum(o, 1), 1.0), 0.0)
     figs = _cached_figures(cache, ("figures", per.index), state, per.sums, per.zones, o / state.fps,
-                           per.max_speed, cov)
+                           per.max_speed, cov, same_as=("figures", "match"))
     if per.ended:
         cache[key] = figs
     return figs
@@ -327,23 +336,26 @@ def _health(state: "MatchState", now: float | None, extra_reasons: list[dict[str
     return health
 
 
-def _team_windows(state: "MatchState", k: int, mask: np.ndarray, team_last: dict[int, np.ndarray]) -> dict[str, Any]:
-    """A team's last-N outfield windows; the same object until a second completes or the players counted
-    change (``team_last`` comes from the windows cache, whose key says when it changed)."""
+def _team_windows(state: "MatchState", masks: list[np.ndarray], team_last: dict[int, np.ndarray]) -> list[dict[str, Any]]:
+    """Each team's last-N outfield windows, all in one pass; the same objects until a second completes
+    or the players counted change (``team_last`` comes from the windows cache, whose key says when)."""
     cache = _cache(state)
-    key = (cache["windows"][0], mask.tobytes())
-    hit = cache.get(("team", k))
+    key = (cache["windows"][0], b"".join(m.tobytes() for m in masks))
+    hit = cache.get("team_windows")
     if hit is not None and hit[0] == key:
         return hit[1]
-    tw: dict[str, Any] = {}
+    out: list[dict[str, Any]] = [{} for _ in masks]
     cur = state.current
-    if cur is not None:
+    if cur is not None and team_last:
         stop = cur.bins.complete
-        for m, sums in team_last.items():
-            span = cur.bins.covered_s(stop - m * 60, stop)
-            tw[f"last_{m}min"] = _cached_windows(cache, ("team", k, m), sums[mask].sum(axis=0)[None], np.array([span]))[0]
-    cache[("team", k)] = (key, tw)
-    return tw
+        names = [f"last_{m}min" for m in team_last]
+        spans = [cur.bins.covered_s(stop - m * 60, stop) for m in team_last]
+        sums = np.array([s[mask].sum(axis=0) for mask in masks for s in team_last.values()], np.int64)
+        rows = _windows(sums.reshape(-1, ex.N_FIG), np.array(spans * len(masks), float))
+        for k in range(len(masks)):
+            out[k] = dict(zip(names, rows[k * len(names):(k + 1) * len(names)]))
+    cache["team_windows"] = (key, out)
+    return out
 
 
 def build_health(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
@@ -443,6 +455,7 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
     masks = [(state.team == k) & ~state.gk & (onp > 0) for k in range(len(roster.team_ids))]
     tsums = np.array([total[m].sum(axis=0) for m in masks], np.int64).reshape(len(masks), ex.N_FIG)
     outfields = _window_rows(tsums, np.full(len(masks), elapsed_s))  # both teams in one pass
+    team_windows = _team_windows(state, masks, team_last)
     for k, tid in enumerate(roster.team_ids):
         if not tracked[k]:
             # one-team feed: the other team's figures are absent, not zeros
@@ -461,7 +474,7 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
             "sprint_m": round(tsum[ex.SPRINT] * _U / count, 1) if count else None,
             "m_per_min": round(tsum[ex.DIST] * _U / minutes, 1) if minutes > 0 else None,
         }
-        outfield["windows"] = _team_windows(state, k, mask, team_last)
+        outfield["windows"] = team_windows[k]
         teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": True, "outfield": outfield}
 
     health = _health(state, now, extra_reasons, on_pitch, cov)
