@@ -11,7 +11,8 @@ last, from its opening snapshot to the end.
 
 Every few seconds (``plan``) the server's VmRSS (/proc/PID/status) is sampled with
 the match clock (``GET /api/matches``). The curve goes to
-``tests/bench/out/soak_rss.json`` (git-ignored). Warm-up: the first
+``tests/bench/out/soak_rss.json`` (``soak_rss_quick.json`` in quick mode;
+git-ignored). Warm-up: the first
 ``warmup_s`` of wall time (the engine's windows, the streams and the
 allocator fill); ``soak_rss_growth_mb_after_warmup`` = the last sample minus
 the first after warm-up (baseline: that sample). Two steps after warm-up are
@@ -67,7 +68,7 @@ SUBSCRIBERS = 200
 CLIENT_PROCS = 2
 CADENCES = (1.0, 0.2)  # every= of the subscribers, in turn (1 s is the bench page's default)
 
-OUT = _HERE / "out" / "soak_rss.json"
+OUT = _HERE / "out" / "soak_rss.json"  # quick runs write soak_rss_quick.json beside it: the full curve stays
 CTX = mp.get_context("fork")
 SEQ = re.compile(rb'"seq":(\d+)')
 TYPE = re.compile(rb'"type":"(\w+)"')
@@ -311,12 +312,13 @@ def run(quick: bool) -> dict[str, dict]:
            "sample_s": sample_s, "warmup_s": warm, "half_time_report_listed_s": report_at,
            "rss_start_mb": round(rss_start, 2), "after_stall": stalled,
            "columns": ["wall_s", "match_time_s", "rss_mb"], "samples": samples}
-    OUT.parent.mkdir(parents=True, exist_ok=True)
-    OUT.write_text(json.dumps(out, indent=1) + "\n")
+    path = OUT.with_name("soak_rss_quick.json") if quick else OUT
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(json.dumps(out, indent=1) + "\n")
     print(f"  replay {wall:.0f} s wall for {minutes:g} min of match; RSS {rss_start:.1f} MB at start, {base:.1f} MB "
           f"after {warm:g} s warm-up, {end:.1f} MB at the end (max {max(s[2] for s in samples):.1f}); the half-time "
           f"report was listed at {report_at} s (its charts load matplotlib once); {stalled[2]:.1f} MB once stalled "
-          f"(a finalised copy of the state is shown); curve in {OUT.relative_to(ROOT)}", flush=True)
+          f"(a finalised copy of the state is shown); curve in {path.relative_to(ROOT)}", flush=True)
     print(f"  subscribers: {min(per_sub)}-{max(per_sub)} messages each ({kib:.1f} KiB on average), {gaps} seq gaps, "
           f"{resyncs} resync snapshots, "
           f"{len(lost)} lost connections{': ' + lost[0] if lost else ''}", flush=True)
