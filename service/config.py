@@ -249,6 +249,10 @@ def _read(path: Path) -> dict[str, Any]:
         raise ConfigError(f"cannot read config file {path}: {exc.strerror}") from exc
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"config file {path} is not valid TOML: {exc}") from exc
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"config file {path} is not UTF-8 text: {exc.reason} at byte {exc.start}") from None
+    except RecursionError:
+        raise ConfigError(f"config file {path} nests tables or arrays too deeply") from None
 
 
 def settings_from_dict(data: dict[str, Any], source: str = "config") -> Settings:

@@ -56,3 +56,14 @@ def test_unreadable_or_broken_file(tmp_path):
     f.write_text("[speed\n")
     with pytest.raises(ConfigError, match="not valid TOML"):
         load_settings(f)
+
+
+def test_config_files_that_are_not_utf8_or_nest_too_deeply_get_a_clear_error(tmp_path):
+    deep = tmp_path / "deep.toml"
+    deep.write_text("a = " + "[" * 5000 + "1" + "]" * 5000 + "\n")
+    binary = tmp_path / "binary.toml"
+    binary.write_bytes(b"\xff\xfe[speed]\n")
+    with pytest.raises(ConfigError, match="too deeply"):
+        load_settings(deep)
+    with pytest.raises(ConfigError, match="not UTF-8"):
+        load_settings(binary)
