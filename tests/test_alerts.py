@@ -373,3 +373,14 @@ def test_budgets_over_http_and_alerts_on_the_live_stream(tmp_path):
         assert away_alerts == []  # a stream showing the other team does not get h2's alerts
     finally:
         srv.stop()
+
+
+def test_budget_caps_take_numbers_only():
+    # a cap of true or "12" is a typing mistake to name, not a value to guess (common practice: strict input)
+    from service.reports.alerts import RulesError, parse_budgets
+
+    for bad in (True, "12", [60]):
+        with pytest.raises(RulesError, match="players.h1.minutes"):
+            parse_budgets({"players": {"h1": {"minutes": bad}}})
+    assert parse_budgets({"players": {"h1": {"minutes": 60, "hsr_m": 450.5}}}).players["h1"].items() == [
+        ("minutes", 60.0), ("hsr_m", 450.5)]

@@ -133,6 +133,9 @@ class RulesFile(_Model):
 class Caps(_Model):
     """One player's load budget for a match; at least one cap."""
 
+    # numbers only: true or "12" as a cap is a mistake to name, not to guess at
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
+
     minutes: float | None = Field(default=None, gt=0, le=150)
     hsr_m: float | None = Field(default=None, gt=0, le=10000)
     sprint_m: float | None = Field(default=None, gt=0, le=10000)
