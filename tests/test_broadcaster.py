@@ -4,10 +4,12 @@ The clock is passed in (``tick(now=...)``), so these tests time nothing.
 """
 from __future__ import annotations
 
+import asyncio
 import copy
 from typing import Any
 
 import orjson
+import pytest
 from hypothesis import given, settings as hsettings, strategies as st
 
 from service.live.broadcaster import Broadcaster, Subscriber, View
@@ -118,3 +120,99 @@ def _without_nulls(v: Any) -> Any:
     if type(v) is dict:
         return {k: _without_nulls(x) for k, x in v.items() if x is not None}
     return v
+
+
+class _Socket:
+    """A subscriber's socket: takes each message at once while ``open`` is set, else waits for it
+    (a full send buffer); records what it sent, in order."""
+
+    def __init__(self) -> None:
+        self.open = asyncio.Event()
+        self.open.set()
+        self.sent: list[dict[str, Any]] = []
+        self.fail: Exception | None = None
+
+    async def send(self, text: str) -> None:
+        await self.open.wait()
+        if self.fail is not None:
+            raise self.fail
+        self.sent.append(orjson.loads(text))
+
+
+def _pumped(every: float, limit: int = 10_000) -> tuple[_Feed, Broadcaster, Subscriber, _Socket]:
+    feed = _Feed()
+    b = Broadcaster("m", feed.snapshot, buffer_s=60.0, queue_size=limit, max_subscribers=10, fps=FPS)
+    sock = _Socket()
+    sub = Subscriber(sock.send, limit)
+    b.attach(sub, View("all"), every, None)
+    sub.task = asyncio.get_running_loop().create_task(b.pump(sub))
+    return feed, b, sub, sock
+
+
+def _frame(feed: _Feed, b: Broadcaster) -> None:
+    feed.frames += 1
+    b.invalidate()
+    b.tick(now=100.0 + feed.frames / FPS, frames=feed.frames)
+
+
+def test_deltas_reach_the_socket_in_order_also_when_it_stalls():
+    """A socket that takes data gets each delta within the tick that made it (written inline, no
+    task switch); one that stalls gets the waiting deltas later, in seq order, none lost or twice."""
+
+    async def main() -> None:
+        feed, b, sub, sock = _pumped(1 / FPS)
+        await asyncio.sleep(0)  # the pump sends the opening snapshot and waits
+        assert [m["type"] for m in sock.sent] == ["snapshot"]
+        for _ in range(5):
+            _frame(feed, b)
+            assert sock.sent[-1]["health"]["frames"] == feed.frames  # before any await: written inline
+        sock.open.clear()  # the send buffer is full
+        for _ in range(5):
+            _frame(feed, b)
+        await asyncio.sleep(0.01)
+        assert len(sock.sent) == 6
+        sock.open.set()
+        for _ in range(20):
+            await asyncio.sleep(0)
+        _frame(feed, b)  # the pump caught up and waits again: inline once more
+        assert sock.sent[-1]["health"]["frames"] == feed.frames
+        assert [m["seq"] for m in sock.sent] == list(range(0, 12))
+        b.detach(sub)
+        sub.task.cancel()
+
+    asyncio.run(main())
+
+
+def test_a_stalled_socket_over_its_queue_gets_one_fresh_snapshot_after_the_send_under_way():
+    async def main() -> None:
+        feed, b, sub, sock = _pumped(1 / FPS, limit=3)
+        await asyncio.sleep(0)
+        _frame(feed, b)
+        sock.open.clear()
+        for _ in range(6):  # the first waits inside the socket; three queue; then the backlog overflows
+            _frame(feed, b)
+        assert sub.dropped >= 1
+        sock.open.set()
+        for _ in range(20):
+            await asyncio.sleep(0)
+        kinds = [(m["type"], m["seq"], m.get("resync")) for m in sock.sent]
+        assert kinds[:3] == [("snapshot", 0, None), ("delta", 1, None), ("delta", 2, None)]
+        assert ("snapshot", b.groups[("all", 0.04)].seq, True) in kinds[3:]
+        seqs = [s for _, s, _ in kinds]
+        assert seqs == sorted(seqs)  # never back in time
+        b.detach(sub)
+        sub.task.cancel()
+
+    asyncio.run(main())
+
+
+def test_a_send_that_fails_inline_ends_the_pump_with_its_error():
+    async def main() -> None:
+        feed, b, sub, sock = _pumped(1 / FPS)
+        await asyncio.sleep(0)
+        sock.fail = ConnectionResetError("peer gone")
+        _frame(feed, b)
+        with pytest.raises(ConnectionResetError):
+            await asyncio.wait_for(sub.task, 1.0)
+
+    asyncio.run(main())

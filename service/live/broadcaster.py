@@ -74,11 +74,58 @@ class Subscriber:
     def __init__(self, send: Callable[[str], Awaitable[None]], queue_size: int) -> None:
         self.send = send
         self.limit = queue_size  # the opening messages may exceed it; later ones may not
-        self.queue: asyncio.Queue[str] = asyncio.Queue()
+        self.queue: asyncio.Queue[Any] = asyncio.Queue()  # message texts, and _Resume/_Failed (see pump)
         self.dropped = 0
         self.closed = False
         self.task: asyncio.Task | None = None
         self.group: "Group | None" = None
+        self.idle = False  # its pump waits on an empty queue: the broadcaster writes to the socket itself
+
+
+class _Resume:
+    """A send started inline (Broadcaster._write_now) that had to wait, for the socket's buffer to
+    drain: awaited by the subscriber's pump, it goes on from where it stopped, as the task that runs
+    a coroutine would (it hands up what the send waits on and passes back what the task throws in)."""
+
+    __slots__ = ("coro", "waiting")
+
+    def __init__(self, coro: Any, waiting: Any) -> None:
+        self.coro, self.waiting = coro, waiting
+
+    def __await__(self) -> Any:
+        coro, waiting = self.coro, self.waiting
+        while True:
+            try:
+                yield waiting
+            except BaseException as exc:  # the pump was cancelled while the send waited: so is the send
+                try:
+                    waiting = coro.throw(exc)
+                except StopIteration:
+                    return
+                continue
+            try:
+                waiting = coro.send(None)
+            except StopIteration:
+                return
+
+    def close(self) -> None:
+        self.coro.close()
+
+
+class _Failed:
+    """A send started inline that raised: the pump raises it, as its own send would have."""
+
+    __slots__ = ("exc",)
+
+    def __init__(self, exc: BaseException) -> None:
+        self.exc = exc
+
+    def __await__(self) -> Any:
+        raise self.exc
+        yield  # pragma: no cover - makes this a generator
+
+    def close(self) -> None:
+        pass
 
 
 @dataclass
@@ -159,12 +206,20 @@ class Broadcaster:
         self._on_message(len(g.subscribers))
 
     def _offer(self, sub: Subscriber, text: str) -> None:
+        if sub.idle and sub.queue.empty():
+            self._write_now(sub, text)
+            return
         if sub.queue.qsize() < sub.limit:
             sub.queue.put_nowait(text)
             return
-        # slow reader: replace its backlog by one fresh snapshot
+        # slow reader: replace its backlog by one fresh snapshot (a send already under way goes on)
+        under_way = []
         while not sub.queue.empty():
-            sub.queue.get_nowait()
+            item = sub.queue.get_nowait()
+            if type(item) is not str:
+                under_way.append(item)
+        for item in under_way:
+            sub.queue.put_nowait(item)
         sub.dropped += 1
         self.dropped += 1
         self._on_drop()
@@ -291,8 +346,40 @@ class Broadcaster:
             sub.group.subscribers.discard(sub)
         sub.closed = True
 
+    @staticmethod
+    def _write_now(sub: Subscriber, text: str) -> None:
+        """Send on the caller's turn of the event loop, with no task switch per subscriber and message:
+        the send coroutine runs until it finishes, which it does at once while the socket takes data.
+        If it has to wait, the pump finishes it (and sends what queues up meanwhile, in order)."""
+        coro = sub.send(text)
+        try:
+            waiting = coro.send(None)
+        except StopIteration:
+            return
+        except Exception as exc:  # the socket is gone: the pump ends on it, as when it sent itself
+            sub.queue.put_nowait(_Failed(exc))
+            return
+        sub.queue.put_nowait(_Resume(coro, waiting))
+
     async def pump(self, sub: Subscriber) -> None:
-        """Send a subscriber's queue to its socket until it closes."""
-        while not sub.closed:
-            text = await sub.queue.get()
-            await sub.send(text)
+        """Send a subscriber's queue to its socket until it closes. While it waits on an empty queue,
+        new messages are written at once by the broadcaster (_write_now), not queued."""
+        try:
+            while not sub.closed:
+                if sub.queue.empty():
+                    sub.idle = True
+                    try:
+                        item = await sub.queue.get()
+                    finally:
+                        sub.idle = False
+                else:
+                    item = sub.queue.get_nowait()
+                if type(item) is str:
+                    await sub.send(item)
+                else:
+                    await item  # a send started inline: finish it (or raise what it raised)
+        finally:
+            while not sub.queue.empty():  # sends started inline and never finished: let them go
+                item = sub.queue.get_nowait()
+                if type(item) is not str:
+                    item.close()
