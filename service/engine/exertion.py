@@ -13,7 +13,8 @@ import numpy as np
 
 G = 9.81  # m/s^2
 
-# Columns of the per-sample figure matrix (see ``sample_figures``).
+# Columns of the per-sample figure matrix (see ``Exertion.step``, which relies on HSR, SPRINT
+# and the four counts being adjacent and in this order).
 DIST, HSR, SPRINT, ENERGY, HIPOW, N_HSR, N_SPR, N_ACC, N_DEC, VALID, SEEN = range(11)
 N_FIG = 11
 MICRO = 1_000_000
@@ -57,7 +58,7 @@ class ExertionParams:
 
 def minetti_cost(es: np.ndarray) -> np.ndarray:
     """Energy cost of running at equivalent slope ``es``, J/kg/m (Minetti et al. 2002)."""
-    i = np.clip(es, -0.45, 0.45)
+    i = np.minimum(np.maximum(es, -0.45), 0.45)  # np.clip's result, without its Python wrapper
     # Horner's scheme in place, the same operations in the same order as np.polyval
     y = i * MINETTI_2002[0]
     for c in MINETTI_2002[1:-1]:
@@ -128,8 +129,9 @@ class EffortCounter:
         """``k`` more columns on the last axis, with no run in progress."""
         self.carry = np.concatenate([self.carry, np.zeros((*self.carry.shape[:-1], k), np.int64)], axis=-1)
 
-    def step(self, cond: np.ndarray) -> np.ndarray:
-        """``cond`` (n, *columns) bool → (n, *columns) bool marking the sample where a run reaches its minimum."""
+    def step(self, cond: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """``cond`` (n, *columns) bool → (n, *columns) marking the sample where a run reaches its
+        minimum (bool, or written into ``out``)."""
         n = cond.shape[0]
         if n == 0:
             return cond
@@ -147,7 +149,7 @@ class EffortCounter:
         np.maximum.accumulate(last_fail, axis=0, out=last_fail)
         length = rows[1:] - last_fail[1:]
         self.carry = length[-1].copy()
-        return length == self.min_n
+        return np.equal(length, self.min_n, out=out)
 
 
 class Exertion:
@@ -168,6 +170,7 @@ class Exertion:
         # one counter for HSR, sprint, accel, decel runs of every player: columns (4, P)
         mins = np.array([params.speed_min_n, params.speed_min_n, params.accel_min_n, params.accel_min_n])[:, None]
         self.efforts = EffortCounter(mins, (4, n_players))
+        self._speed_bands = np.array([[params.hsr_ms], [params.sprint_ms]])
 
     def reset(self) -> None:
         self.efforts.reset()
@@ -198,16 +201,14 @@ class Exertion:
         np.rint(energy, out=energy)
         np.multiply(dist, power > p.high_power_wkg, out=fig[:, HIPOW])
         conds = np.empty((n, 4, self.n), bool)  # HSR, sprint, accel, decel
-        np.greater_equal(speed, p.hsr_ms, out=conds[:, 0])
-        np.greater_equal(speed, p.sprint_ms, out=conds[:, 1])
+        np.greater_equal(speed[:, None, :], self._speed_bands, out=conds[:, 0:2])
         np.greater_equal(accel, p.accel_ms2, out=conds[:, 2])
         np.less_equal(accel, p.decel_ms2, out=conds[:, 3])
         if not full:
             conds &= valid[:, None, :]
-        np.multiply(dist, conds[:, 0], out=fig[:, HSR])
-        np.multiply(dist, conds[:, 1], out=fig[:, SPRINT])
+        np.multiply(dist[:, None, :], conds[:, 0:2], out=fig[:, HSR:SPRINT + 1])
         fig[:, HSR] -= fig[:, SPRINT]  # a sprint sample is not an HSR-band sample (sprint_ms > hsr_ms)
-        fig[:, N_HSR:N_DEC + 1] = self.efforts.step(conds)
+        self.efforts.step(conds, out=fig[:, N_HSR:N_DEC + 1])
         if full:
             fig[:, VALID:SEEN + 1] = 1.0
         else:

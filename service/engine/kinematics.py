@@ -404,10 +404,14 @@ class Track:
         part = buf[start:]
         lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
         d = part[1:] - part[:-1]  # unseen players give NaN, which compares False
+        if start > 0 and self._clean_all and (not d.size or np.abs(d).max() <= 0.7 * lim):
+            # everyone seen in every slot so far, and no step component above 0.7 lim, so no step
+            # above lim (0.98 lim^2 at most, whatever the rounding); a missing sample (NaN) fails
+            self._clean_upto = self.end
+            return self._clean_cols
         step2 = d[..., 0] * d[..., 0]
         step2 += d[..., 1] * d[..., 1]
         if start > 0 and self._clean_all and (step2 <= lim * lim).all():
-            # everyone seen in every slot so far: a missing sample (NaN) fails this test as a jump does
             self._clean_upto = self.end
             return self._clean_cols
         seen = ~np.isnan(part[:, :, 0])
@@ -477,7 +481,7 @@ class Track:
         """Speed and tangential acceleration (v·a/|v|, 0 below the still speed) from the fit.
         ``full``: ``v`` is all True."""
         p = self.p
-        pos, vel, acc = res
+        vel, acc = res[1], res[2]
         speed = np.hypot(vel[..., 0], vel[..., 1])
         moving = speed > p.still_speed_ms
         dot = vel[..., 0] * acc[..., 0]
@@ -486,4 +490,4 @@ class Track:
         np.divide(dot, speed, out=tang, where=moving if full else v & moving)
         if not full:
             speed = np.where(v, speed, 0.0)
-        return Final(self.base + r0, v, v if kept is None else kept, pos, speed, tang, full)
+        return Final(self.base + r0, v, v if kept is None else kept, res[0], speed, tang, full)

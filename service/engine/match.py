@@ -68,6 +68,8 @@ class _Period:
     ended: bool = False
     full_upto: int = -1  # end slot of the latest final samples if every column was seen in all of them
     in_order: bool = False  # the columns are the whole roster in roster order
+    order: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))  # cols, then unseen
+    poss_code: int | None = None  # ball state and possession (int16 view) of the blocks in poss_pend
     poss_ctx: tuple[int, int] | None = None  # context of each team for poss_pend
     zone_bin: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))  # (C,) first bincount bin of each column
 
@@ -258,10 +260,13 @@ class MatchState:
         cur.ball_poss[at, 1] = b.poss
         cur.last_slot = last
         xy = b.xy
-        if cur.unseen.size and not np.isnan(xy[:, cur.unseen, 0]).all():
-            self._grow(cur, cur.unseen[~np.isnan(xy[:, cur.unseen, 0]).all(axis=0)])
         if not cur.in_order:
-            xy = xy[:, cur.cols]
+            xy = xy[:, cur.order]  # players seen so far, then the others
+            m = len(cur.cols)
+            if m < self.n and not np.isnan(xy[:, m:, 0]).all():
+                self._grow(cur, cur.unseen[~np.isnan(xy[:, m:, 0]).all(axis=0)])
+                xy = b.xy[:, cur.order]
+            xy = xy[:, : len(cur.cols)]
         for fin in cur.track.feed(slots, xy):
             self._apply(cur, fin)
 
@@ -270,7 +275,7 @@ class MatchState:
             index=idx, t0=t0, n=self.n, track=Track(self.kin, 0),
             exertion=Exertion(self.exp, 0, self.zone_edges, self.zone_scale[:0]), bins=SecondBins(self.fps, self.n, self.peak_s),
             ball_poss=np.full((1024, 2), (BALL_UNKNOWN, NO_TEAM), np.int8),
-            cols=np.zeros(0, np.int64), unseen=np.arange(self.n), team=self.team[:0],
+            cols=np.zeros(0, np.int64), unseen=np.arange(self.n), order=np.arange(self.n), team=self.team[:0],
             c_sums=np.zeros((ex.N_FIG, 0), np.int64), c_zones=np.zeros((0, self.zone_edges.shape[0] + 1), np.int64),
             c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64), c_max_speed=np.zeros(0), c_first_seen=np.zeros(0, np.int64),
             c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64), c_last_valid=np.zeros(0, np.int64),
@@ -299,6 +304,7 @@ class MatchState:
         per.c_last_valid = _widen(per.c_last_valid, k, -1)
         per.c_last_speed = _widen(per.c_last_speed, k, 0.0)
         per.full_upto = -1
+        per.order = np.concatenate([per.cols, per.unseen])
         per.zone_bin = np.arange(len(per.cols)) * per.c_zones.shape[1]
         per.in_order = len(per.cols) == self.n and bool((per.cols == np.arange(self.n)).all())
 
@@ -421,7 +427,7 @@ class MatchState:
     def _settle_possession(per: _Period) -> None:
         if per.poss_ctx is not None:
             per.add_pending(per.c_poss)
-            per.poss_ctx = None
+            per.poss_ctx = per.poss_code = None
             per.poss_pend[:] = 0
 
     def _possession(self, per: _Period, fin: Final, fig: np.ndarray, total: np.ndarray) -> None:
@@ -429,17 +435,18 @@ class MatchState:
         ``total``: the block's sums (N_FIG, C)."""
         bp = per.ball_poss[fin.slot0: fin.slot0 + len(fin)]
         code = bp.view(np.int16)  # ball state and possession of a slot as one number
-        if (code == code[0]).all():
+        c0 = code[0, 0]
+        if (code == c0).all():
             # one context per team over the whole block (the usual case): the block's sums wait
             # with those of earlier blocks until the context changes
-            b0, p0 = int(bp[0, 0]), int(bp[0, 1])
-            ctx = (self._context(b0, p0, 0), self._context(b0, p0, 1))
-            if ctx == per.poss_ctx:
+            if c0 == per.poss_code:
                 per.poss_pend += total[_DIST_HSR]
-            else:
-                self._settle_possession(per)
-                per.poss_ctx = ctx
-                per.poss_pend[:] = total[_DIST_HSR]
+                return
+            self._settle_possession(per)
+            b0, p0 = int(bp[0, 0]), int(bp[0, 1])
+            per.poss_ctx = (self._context(b0, p0, 0), self._context(b0, p0, 1))
+            per.poss_code = int(c0)
+            per.poss_pend[:] = total[_DIST_HSR]
             return
         self._settle_possession(per)
         ball = bp[:, 0:1]

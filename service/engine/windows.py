@@ -72,6 +72,7 @@ class SecondBins:
         self.peak_s = peak_s
         self._win = np.array(sorted(set(peak_s)), np.int64)
         self._win_list = self._win.tolist()
+        self._win_col = self._win[:, None]
         self._peak = np.full((len(self._win), N_FIG, 0), -1, np.int64)
         self._peak_start = np.full((len(self._win), 0), -1, np.int64)
 
@@ -160,8 +161,7 @@ class SecondBins:
             nv = bisect_right(self._win_list, end)
             peak, start = self._peak[:nv], self._peak_start[:nv]
             sums = cs[end] - cs[end - win[:nv]]
-            better = sums[:, DIST] > peak[:, DIST]
-            start[...] = np.where(better, end - win[:nv, None], start)
+            np.copyto(start, end - self._win_col[:nv], where=sums[:, DIST] > peak[:, DIST])
             np.maximum(peak, sums, out=peak)
             return
         for a in range(max(old + 1, int(win[0])), end + 1, _PEAK_CHUNK):
