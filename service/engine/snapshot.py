@@ -79,22 +79,28 @@ def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: list[str], onpitch
     return rows
 
 
-def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable[[Any], list]) -> list:
+def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable[[Any], list],
+           rebuilt: list[np.ndarray] | None = None) -> list:
     """``build(rows)``: one object per row of ``inputs`` (rows, k), which determines it in full. Rows whose
     inputs equal those of the last call under ``name`` come back as the very objects returned then, so a
     diff against the last snapshot skips them at once; only the others are built. Callers never mutate
-    what this returns."""
+    what this returns. ``rebuilt`` gets the indices of the rows built."""
     hit = cache.get(name)
     if hit is not None and hit[0].shape == inputs.shape:
         changed = (hit[0] != inputs).any(axis=1)
         if not changed.any():
+            if rebuilt is not None:
+                rebuilt.append(np.zeros(0, np.int64))
             return hit[1]
         idx = np.flatnonzero(changed)
         rows = list(hit[1])
         for i, r in zip(idx.tolist(), build(idx)):
             rows[i] = r
     else:
+        idx = np.arange(inputs.shape[0])
         rows = build(slice(None))
+    if rebuilt is not None:
+        rebuilt.append(idx)
     cache[name] = (inputs, rows)
     return rows
 
@@ -166,7 +172,9 @@ def _cache(state: "MatchState") -> dict[Any, Any]:
 
 def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int, np.ndarray]]:
     """windows per player, and the last-N sums of the current period; cached per completed second.
-    A player's windows object, and each window in it, stays the same object while unchanged."""
+    A player's windows object, and each window in it, stays the same object while unchanged. The
+    last-N and block windows of every player are one row set (one pass when a second completes), the
+    peak windows another."""
     periods = state.periods
     cur = state.current
     seen_players = int((cur.first_seen >= 0).sum()) if cur is not None else 0
@@ -177,8 +185,9 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
     if hit is not None and hit[0] == key:
         return hit[1], hit[2]
     n, fps = state.n, state.fps
-    names: list[str] = []
-    cols: list[list[Any]] = []  # per window name, one row (or None) per player
+    names: list[str] = []  # last-N, then blocks: rows k * n .. k * n + n - 1 of the row set
+    sums: list[np.ndarray] = []
+    spans: list[np.ndarray] = []
     team_last: dict[int, np.ndarray] = {}
     if cur is not None:
         b = cur.bins
@@ -186,44 +195,61 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
         first_sec = np.where(cur.first_seen >= 0, cur.first_seen // fps, stop)
         for m in state.settings.windows.last_min:
             start = max(stop - m * 60, 0)
-            sums = b.span(start, stop)
+            last = b.span(start, stop)
             covered = b.covered_s(start, stop)
-            span = np.clip(covered - np.clip(first_sec - start, 0, None), 0, None).astype(float)
-            team_last[m] = sums
+            team_last[m] = last
             names.append(f"last_{m}min")
-            cols.append(_cached_windows(cache, ("last", m), sums, span))
-    peaks = [(CLOCK_START_MIN[per.name] * 60, per.bins.peak, per.bins.peak_start) for per in periods]
-    for w_s in state.peak_s:
-        best = np.full((n, ex.N_FIG), -1, np.int64)
-        start_clock = np.full(n, -1.0)
-        for clock_s, peak, peak_start in peaks:
-            pk = peak[w_s]
-            better = pk[:, ex.DIST] > best[:, ex.DIST]
-            start_clock = np.where(better, clock_s + peak_start[w_s], start_clock)
-            best = np.maximum(best, pk)
-        span = np.full(n, float(w_s))
-
-        def peak_rows(r: Any, best: np.ndarray = best, span: np.ndarray = span, start: np.ndarray = start_clock) -> list:
-            rows = _windows(np.maximum(best[r], 0), span[r], (("start_s", start[r], 1),))
-            return [w if ok else None for w, ok in zip(rows, (best[r][:, ex.DIST] >= 0).tolist())]
-
-        names.append(f"peak_{w_s // 60}min")
-        cols.append(_reuse(cache, ("peak", w_s), _stack(best, start_clock), peak_rows))
+            sums.append(last)
+            spans.append(np.clip(covered - np.clip(first_sec - start, 0, None), 0, None).astype(float))
     for per in periods:
         bins = per.bins
         for k, s0, s1 in _blocks(state, per):
             if s0 >= bins.complete:
                 continue
             names.append(k)
-            cols.append(_cached_windows(cache, ("block", per.index, k), bins.span(s0, s1),
-                                        np.full(n, bins.covered_s(s0, s1))))
+            sums.append(bins.span(s0, s1))
+            spans.append(np.full(n, bins.covered_s(s0, s1)))
+    rebuilt: list[np.ndarray] = []
+    rows: list[Any] = []
+    if names:
+        all_sums, all_spans = np.concatenate(sums), np.concatenate(spans)
+        rows = _reuse(cache, ("windows", tuple(names)), _stack(all_sums, all_spans),
+                      lambda r: _windows(all_sums[r], all_spans[r]), rebuilt)
+    peak_names = [f"peak_{w_s // 60}min" for w_s in state.peak_s]
+    peak_rows: list[Any] = []
+    if peak_names:
+        best = np.full((len(peak_names), n, ex.N_FIG), -1, np.int64)
+        start_clock = np.full((len(peak_names), n), -1.0)
+        for per in periods:
+            clock_s, peak, peak_start = CLOCK_START_MIN[per.name] * 60, per.bins.peak, per.bins.peak_start
+            for j, w_s in enumerate(state.peak_s):
+                pk = peak[w_s]
+                better = pk[:, ex.DIST] > best[j, :, ex.DIST]
+                start_clock[j] = np.where(better, clock_s + peak_start[w_s], start_clock[j])
+                best[j] = np.maximum(best[j], pk)
+        best, start_clock = best.reshape(-1, ex.N_FIG), start_clock.reshape(-1)
+        span = np.repeat(np.array([float(w_s) for w_s in state.peak_s]), n)
+
+        def build_peaks(r: Any) -> list:
+            made = _windows(np.maximum(best[r], 0), span[r], (("start_s", start_clock[r], 1),))
+            return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist())]
+
+        peak_rows = _reuse(cache, ("peaks", tuple(peak_names)), _stack(best, start_clock), build_peaks, rebuilt)
     prev = cache.get("windows_players")
-    per_player = []
-    for i in range(n):
-        values = [c[i] for c in cols]
-        old = prev[i] if prev is not None and len(prev) == n else None
-        per_player.append(old if _same(old, names, values) else dict(zip(names, values)))
+    all_names = names[:len(team_last)] + peak_names + names[len(team_last):]  # the contract's order
+    if prev is None or len(prev) != n or cache.get("windows_names") != all_names:
+        touched = range(n)
+        per_player: list[dict[str, Any]] = [{} for _ in range(n)]
+    else:
+        touched = np.unique(np.concatenate([r % n for r in rebuilt])).tolist() if rebuilt else []
+        per_player = list(prev)
+    n_last = len(team_last)
+    for i in touched:
+        values = [rows[k * n + i] for k in range(n_last)] + [peak_rows[k * n + i] for k in range(len(peak_names))] + \
+                 [rows[k * n + i] for k in range(n_last, len(names))]
+        per_player[i] = dict(zip(all_names, values))
     cache["windows_players"] = per_player
+    cache["windows_names"] = all_names
     cache["windows"] = (key, per_player, team_last)
     return per_player, team_last
 
