@@ -170,7 +170,7 @@ class Exertion:
         # one counter for HSR, sprint, accel, decel runs of every player: columns (4, P)
         mins = np.array([params.speed_min_n, params.speed_min_n, params.accel_min_n, params.accel_min_n])[:, None]
         self.efforts = EffortCounter(mins, (4, n_players))
-        self._speed_bands = np.array([[params.hsr_ms], [params.sprint_ms]])
+        self._speed_bands = np.array([params.hsr_ms, params.sprint_ms])[:, None, None]
 
     def reset(self) -> None:
         self.efforts.reset()
@@ -184,35 +184,36 @@ class Exertion:
 
     def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray, full: bool = False
              ) -> tuple[np.ndarray, np.ndarray]:
-        """Returns (figures (n, N_FIG, P) float64 holding integers: micro-units or counts,
-        zone index (n, P)). ``full``: every sample valid and seen (the masks are not read)."""
+        """Returns (figures (N_FIG, n, P) float64 holding integers: micro-units or counts,
+        zone index (n, P)). ``full``: every sample valid and seen (the masks are not read).
+        Figure-major, so each figure is one contiguous (n, P) array."""
         p = self.p
         n = speed.shape[0]
         per_um = self.dt * MICRO
-        fig = np.empty((n, N_FIG, self.n))
-        dist = fig[:, DIST]
+        fig = np.empty((N_FIG, n, self.n))
+        dist = fig[DIST]
         np.multiply(speed, per_um, out=dist)
         np.rint(dist, out=dist)
         power = metabolic_power(speed, accel, p)
         if not full:
             power[~valid] = 0.0
-        energy = fig[:, ENERGY]
+        energy = fig[ENERGY]
         np.multiply(power, per_um, out=energy)
         np.rint(energy, out=energy)
-        np.multiply(dist, power > p.high_power_wkg, out=fig[:, HIPOW])
-        conds = np.empty((n, 4, self.n), bool)  # HSR, sprint, accel, decel
-        np.greater_equal(speed[:, None, :], self._speed_bands, out=conds[:, 0:2])
-        np.greater_equal(accel, p.accel_ms2, out=conds[:, 2])
-        np.less_equal(accel, p.decel_ms2, out=conds[:, 3])
+        np.multiply(dist, power > p.high_power_wkg, out=fig[HIPOW])
+        conds = np.empty((4, n, self.n), bool)  # HSR, sprint, accel, decel
+        np.greater_equal(speed, self._speed_bands, out=conds[0:2])
+        np.greater_equal(accel, p.accel_ms2, out=conds[2])
+        np.less_equal(accel, p.decel_ms2, out=conds[3])
         if not full:
-            conds &= valid[:, None, :]
-        np.multiply(dist[:, None, :], conds[:, 0:2], out=fig[:, HSR:SPRINT + 1])
-        fig[:, HSR] -= fig[:, SPRINT]  # a sprint sample is not an HSR-band sample (sprint_ms > hsr_ms)
-        self.efforts.step(conds, out=fig[:, N_HSR:N_DEC + 1])
+            conds &= valid
+        np.multiply(dist, conds[0:2], out=fig[HSR:SPRINT + 1])
+        fig[HSR] -= fig[SPRINT]  # a sprint sample is not an HSR-band sample (sprint_ms > hsr_ms)
+        self.efforts.step(conds.transpose(1, 0, 2), out=fig[N_HSR:N_DEC + 1].transpose(1, 0, 2))
         if full:
-            fig[:, VALID:SEEN + 1] = 1.0
+            fig[VALID:SEEN + 1] = 1.0
         else:
-            fig[:, VALID] = valid
-            fig[:, SEEN] = seen
+            fig[VALID] = valid
+            fig[SEEN] = seen
         zone = np.searchsorted(self.zone_edges, speed if self.unit_scale else speed * self.inv_scale, side="right")
         return fig, zone

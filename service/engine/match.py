@@ -370,7 +370,7 @@ class MatchState:
         m = len(per.cols)
         nz = per.c_zones.shape[1]
         zone += per.zone_bin  # one bin per (player, band)
-        per.c_zones += np.bincount(zone.ravel(), weights=fig[:, ex.DIST].ravel(), minlength=nz * m
+        per.c_zones += np.bincount(zone.ravel(), weights=fig[ex.DIST].ravel(), minlength=nz * m
                                    ).reshape(m, nz).astype(np.int64)
         np.maximum(per.c_max_speed, fin.speed.max(axis=0), out=per.c_max_speed)
         # latest credited sample
@@ -457,8 +457,8 @@ class MatchState:
         m = ctx.shape[1]
         flat = (np.arange(m) * 4 + ctx).ravel()
         size = 4 * m
-        d = np.bincount(flat, weights=fig[:, ex.DIST].ravel(), minlength=size).reshape(m, 4)
-        h = np.bincount(flat, weights=fig[:, ex.HSR].ravel(), minlength=size).reshape(m, 4)
+        d = np.bincount(flat, weights=fig[ex.DIST].ravel(), minlength=size).reshape(m, 4)
+        h = np.bincount(flat, weights=fig[ex.HSR].ravel(), minlength=size).reshape(m, 4)
         per.c_poss[:, :3, 0] += d[:, :3].astype(np.int64)
         per.c_poss[:, :3, 1] += h[:, :3].astype(np.int64)
 

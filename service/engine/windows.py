@@ -38,18 +38,18 @@ def _segments(n: int, skip: int, cut: int, fps: int) -> np.ndarray:
     return m
 
 
-def _segment_sums(flat: np.ndarray, skip: int, cut: int, fps: int) -> np.ndarray:
-    """What ``_segments(n, skip, cut, fps) @ flat`` gives, for long blocks."""
-    n = flat.shape[0]
+def _segment_sums(fig: np.ndarray, skip: int, cut: int, fps: int) -> np.ndarray:
+    """What ``np.matmul(_segments(n, skip, cut, fps), fig)`` gives for fig (F, n, P), for long blocks."""
+    f, n, p = fig.shape
     cut = min(cut, n)
     whole = (n - cut) // fps
-    parts = [flat[skip:cut].sum(axis=0, keepdims=True)]
+    parts = [fig[:, skip:cut].sum(axis=1, keepdims=True)]
     if whole:
-        parts.append(flat[cut: cut + whole * fps].reshape(whole, fps, flat.shape[1]).sum(axis=1))
+        parts.append(fig[:, cut: cut + whole * fps].reshape(f, whole, fps, p).sum(axis=2))
     if cut + whole * fps < n:
-        parts.append(flat[cut + whole * fps:].sum(axis=0, keepdims=True))
-    parts.append(flat.sum(axis=0, keepdims=True))
-    return np.concatenate(parts)
+        parts.append(fig[:, cut + whole * fps:].sum(axis=1, keepdims=True))
+    parts.append(fig.sum(axis=1, keepdims=True))
+    return np.concatenate(parts, axis=1)
 
 
 def _widen(a: np.ndarray, k: int, fill: int) -> np.ndarray:
@@ -88,9 +88,9 @@ class SecondBins:
         self._peak_start = np.concatenate([self._peak_start, np.broadcast_to(reached[:, None], (len(self._win), k))], 1)
 
     def add(self, slot0: int, fig: np.ndarray) -> np.ndarray:
-        """Add final rows ``fig`` (n, N_FIG, columns), integer-valued float64, at contiguous
+        """Add final rows ``fig`` (N_FIG, n, columns), integer-valued float64, at contiguous
         slots from ``slot0``; returns their total (N_FIG, columns) as int64."""
-        n = fig.shape[0]
+        n = fig.shape[1]
         fps = self.fps
         end = slot0 + n
         self.end_slot = end
@@ -104,12 +104,11 @@ class SecondBins:
             self._close_to(slot0 // fps)  # a gap: the seconds before hold nothing more
             lo = self.complete * fps
         k = max(end // fps - self.complete, 0)  # seconds this call completes
-        flat = fig.reshape(n, fig.shape[1] * fig.shape[2])
         if n <= 4 * fps:
-            seg = _segments(n, skip, lo + fps - slot0, fps) @ flat
+            seg = np.matmul(_segments(n, skip, lo + fps - slot0, fps), fig)
         else:  # a long block: whole seconds by a reshaped sum (the product grows with n squared)
-            seg = _segment_sums(flat, skip, lo + fps - slot0, fps)
-        seg = seg.astype(np.int64).reshape(seg.shape[0], *fig.shape[1:])
+            seg = _segment_sums(fig, skip, lo + fps - slot0, fps)
+        seg = seg.astype(np.int64).transpose(1, 0, 2)  # (segments, F, P)
         if k:
             c = self.complete
             if c + k + 1 > self._cs.shape[0]:
