@@ -261,11 +261,11 @@ class MatchState:
         cur.last_slot = last
         xy = b.xy
         if not cur.in_order:
-            xy = xy[:, cur.order]  # players seen so far, then the others
+            xy = np.take(xy, cur.order, axis=1)  # players seen so far, then the others (take: 4x fancy indexing)
             m = len(cur.cols)
             if m < self.n and not np.isnan(xy[:, m:, 0]).all():
                 self._grow(cur, cur.unseen[~np.isnan(xy[:, m:, 0]).all(axis=0)])
-                xy = b.xy[:, cur.order]
+                xy = np.take(b.xy, cur.order, axis=1)
             xy = xy[:, : len(cur.cols)]
         for fin in cur.track.feed(slots, xy):
             self._apply(cur, fin)

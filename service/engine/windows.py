@@ -108,7 +108,7 @@ class SecondBins:
             seg = np.matmul(_segments(n, skip, lo + fps - slot0, fps), fig)
         else:  # a long block: whole seconds by a reshaped sum (the product grows with n squared)
             seg = _segment_sums(fig, skip, lo + fps - slot0, fps)
-        seg = seg.astype(np.int64).transpose(1, 0, 2)  # (segments, F, P)
+        seg = seg.transpose(1, 0, 2).astype(np.int64, order="C")  # (segments, F, P), each contiguous
         if k:
             c = self.complete
             if c + k + 1 > self._cs.shape[0]:
@@ -159,7 +159,7 @@ class SecondBins:
         if end == old + 1:  # one second completed (the live case): every window at once
             nv = bisect_right(self._win_list, end)
             peak, start = self._peak[:nv], self._peak_start[:nv]
-            sums = cs[end] - cs[end - win[:nv]]
+            sums = cs[end] - np.take(cs, end - win[:nv], axis=0)
             np.copyto(start, end - self._win_col[:nv], where=sums[:, DIST] > peak[:, DIST])
             np.maximum(peak, sums, out=peak)
             return
