@@ -48,7 +48,7 @@ class _Fit:
     ``band(n)`` the banded matrix of the centred fit for n output rows."""
 
     def __init__(self, window: int, order: int, dt: float) -> None:
-        self.window = window
+        self.window, self.order, self.dt = window, order, dt
         self.coef = np.stack([np.stack([savgol_weights(window, order, d, dt, j) for j in range(window)])
                               for d in range(3)])
         self.coef.flags.writeable = False
@@ -69,6 +69,9 @@ class _Fit:
 
     def __deepcopy__(self, memo: dict) -> "_Fit":
         return self  # read-only: a copied track shares it
+
+    def __reduce__(self) -> tuple:
+        return _fit, (self.window, self.order, self.dt)  # a pickled track carries no matrices
 
 
 _FITS: dict[tuple[int, int, float], _Fit] = {}
