@@ -375,7 +375,8 @@ class Track:
         if closed:
             stop = self.end
         else:
-            stop = min(self.end - h, self.base + int(doubt.min()) - h)
+            # no player seen yet in the period (no columns): nothing in doubt
+            stop = min(self.end - h, self.base + (int(doubt.min()) if doubt.size else self.end - self.base) - h)
         if stop <= self.fin:
             return None
         out = self._smooth(self.fin - self.base, stop - self.base, valid, kept, run_s, run_e, xyb, jumps)
