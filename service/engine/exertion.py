@@ -215,5 +215,5 @@ class Exertion:
         else:
             fig[VALID] = valid
             fig[SEEN] = seen
-        zone = np.searchsorted(self.zone_edges, speed if self.unit_scale else speed * self.inv_scale, side="right")
+        zone = self.zone_edges.searchsorted(speed if self.unit_scale else speed * self.inv_scale, side="right")
         return fig, zone

@@ -408,7 +408,7 @@ class Track:
         part = buf[start:]
         lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
         d = part[1:] - part[:-1]  # unseen players give NaN, which compares False
-        if start > 0 and self._clean_all and (not d.size or np.abs(d).max() <= 0.7 * lim):
+        if start > 0 and self._clean_all and (not d.size or np.maximum.reduce(np.abs(d), axis=None) <= 0.7 * lim):
             # everyone seen in every slot so far, and no step component above 0.7 lim, so no step
             # above lim (0.98 lim^2 at most, whatever the rounding); a missing sample (NaN) fails
             self._clean_upto = self.end

@@ -7,6 +7,7 @@ snapshot body (DESIGN §3): ``players``, ``teams``, ``health``.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -26,6 +27,9 @@ CLOCK_START_MIN = {"first_half": 0, "second_half": 45, "first_half_extratime": 9
 CONTEXTS = ("in_possession", "out_of_possession", "out_of_play")
 _U = 1e-6  # micro-units to units
 _DIST_HSR = slice(ex.DIST, ex.HSR + 1)  # distance and HSR rows of the figure sums
+# In the per-block path, reductions and gathers call the ufunc or method directly: the
+# ndarray.all()/max() and np.take()/np.searchsorted() wrappers cost about a microsecond of Python each.
+_all = partial(np.logical_and.reduce, axis=None)
 assert ex.HSR == ex.DIST + 1
 
 
@@ -209,7 +213,7 @@ class MatchState:
         if not self.has_ball and (block.ball != BALL_UNKNOWN).any():
             self.has_ball = True
         period = block.period
-        if (period == period[0]).all():
+        if _all(period == period[0]):
             self._step_period(block)
         else:
             bounds = (np.flatnonzero(period[1:] != period[:-1]) + 1).tolist()
@@ -261,11 +265,11 @@ class MatchState:
         cur.last_slot = last
         xy = b.xy
         if not cur.in_order:
-            xy = np.take(xy, cur.order, axis=1)  # players seen so far, then the others (take: 4x fancy indexing)
+            xy = xy.take(cur.order, axis=1)  # players seen so far, then the others (take: 4x fancy indexing)
             m = len(cur.cols)
-            if m < self.n and not np.isnan(xy[:, m:, 0]).all():
+            if m < self.n and not _all(np.isnan(xy[:, m:, 0])):
                 self._grow(cur, cur.unseen[~np.isnan(xy[:, m:, 0]).all(axis=0)])
-                xy = np.take(b.xy, cur.order, axis=1)
+                xy = b.xy.take(cur.order, axis=1)
             xy = xy[:, : len(cur.cols)]
         for fin in cur.track.feed(slots, xy):
             self._apply(cur, fin)
@@ -372,7 +376,7 @@ class MatchState:
         zone += per.zone_bin  # one bin per (player, band)
         per.c_zones += np.bincount(zone.ravel(), weights=fig[ex.DIST].ravel(), minlength=nz * m
                                    ).reshape(m, nz).astype(np.int64)
-        np.maximum(per.c_max_speed, fin.speed.max(axis=0), out=per.c_max_speed)
+        np.maximum(per.c_max_speed, np.maximum.reduce(fin.speed, axis=0), out=per.c_max_speed)
         # latest credited sample
         if full:
             per.c_last_valid.fill(end - 1)
@@ -436,7 +440,7 @@ class MatchState:
         bp = per.ball_poss[fin.slot0: fin.slot0 + len(fin)]
         code = bp.view(np.int16)  # ball state and possession of a slot as one number
         c0 = code[0, 0]
-        if (code == c0).all():
+        if _all(code == c0):
             # one context per team over the whole block (the usual case): the block's sums wait
             # with those of earlier blocks until the context changes
             if c0 == per.poss_code:

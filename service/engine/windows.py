@@ -159,7 +159,7 @@ class SecondBins:
         if end == old + 1:  # one second completed (the live case): every window at once
             nv = bisect_right(self._win_list, end)
             peak, start = self._peak[:nv], self._peak_start[:nv]
-            sums = cs[end] - np.take(cs, end - win[:nv], axis=0)
+            sums = cs[end] - cs.take(end - win[:nv], axis=0)
             np.copyto(start, end - self._win_col[:nv], where=sums[:, DIST] > peak[:, DIST])
             np.maximum(peak, sums, out=peak)
             return
