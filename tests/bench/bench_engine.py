@@ -7,6 +7,8 @@ blocks of one second (the live shape of the data, minus JSON); the numpy
 pass computes the same figures over the whole arrays at once; floodlight
 does its batch filter + kinematics + metabolic power. Design targets
 (DESIGN / brief): engine <= 2x the numpy pass and <= 1/3 of floodlight.
+``engine_us_per_frame_single``: a frame fed on its own (one frame per WebSocket
+message), over a shorter match of the same kind.
 
     python tests/bench/bench_engine.py [--quick] [--profile]
 """
@@ -288,6 +290,10 @@ def run(quick: bool) -> dict[str, dict]:
           f"best of {REPEATS}, one BLAS thread")
 
     engine_s, state = best_of(lambda: feed_engine(m, settings, bl))
+    # frames one at a time (a provider's WebSocket, one frame per message): the first minutes only
+    one = synth_match(4.0 if quick else 10.0, seed=8)
+    one_bl = blocks(one, per_block=1)
+    single_s, _ = best_of(lambda: feed_engine(one, settings, one_bl))
     snap_s, snap = best_of(state.snapshot)
     numpy_s, ref = best_of(lambda: numpy_pass(m, settings))
     cols = np.flatnonzero(m.seen)
@@ -304,6 +310,7 @@ def run(quick: bool) -> dict[str, dict]:
     return {
         "engine_s": _entry(engine_s, "s"),
         "engine_us_per_frame": _entry(engine_s / n_frames * 1e6, "us/frame"),
+        "engine_us_per_frame_single": _entry(single_s / len(one_bl) * 1e6, "us/frame"),
         "snapshot_ms": _entry(snap_s * 1e3, "ms"),
         "numpy_pass_s": _entry(numpy_s, "s"),
         "floodlight_s": _entry(floodlight_s, "s"),
