@@ -450,6 +450,8 @@ class Track:
         if self._clean_all:
             v = self._true.get(r1 - r0)
             if v is None:
+                if len(self._true) >= 64:  # block sizes vary live: keep a few
+                    self._true = {}
                 v = self._true[r1 - r0] = np.ones((r1 - r0, self.n), bool)
                 v.flags.writeable = False
             return self._finish(r0, r1, v, res, full=True)
