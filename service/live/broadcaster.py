@@ -378,6 +378,7 @@ class Broadcaster:
                     await sub.send(item)
                 else:
                     await item  # a send started inline: finish it (or raise what it raised)
+                item = None  # not kept while idle (the opening snapshot, tens of kB, for the socket's life)
         finally:
             while not sub.queue.empty():  # sends started inline and never finished: let them go
                 item = sub.queue.get_nowait()
