@@ -216,3 +216,30 @@ def test_a_send_that_fails_inline_ends_the_pump_with_its_error():
             await asyncio.wait_for(sub.task, 1.0)
 
     asyncio.run(main())
+
+
+def test_a_resume_gets_exactly_the_messages_sent_after_its_seq():
+    """since=N (DESIGN §3): every later message, from N+1 on, as sent, from the resume buffer (which
+    keeps written deltas deflated), events between the deltas included."""
+
+    async def main() -> None:
+        feed, b, first, sock = _pumped(1 / FPS)
+        await asyncio.sleep(0)
+        for k in range(30):
+            _frame(feed, b)
+            if k == 12:
+                b.publish("health", health={"state": "degraded", "reasons": []})
+        assert any(type(e) is bytes for _, _, e in b.groups[("all", 0.04)].buffer)
+        late = _Socket()
+        sub = Subscriber(late.send, 10_000)
+        b.attach(sub, View("all"), 1 / FPS, since=9)
+        sub.task = asyncio.get_running_loop().create_task(b.pump(sub))
+        for _ in range(5):
+            await asyncio.sleep(0)
+        assert late.sent == [m for m in sock.sent if m["seq"] > 9]
+        assert [m["seq"] for m in late.sent] == list(range(10, 32))
+        for s in (first, sub):
+            b.detach(s)
+            s.task.cancel()
+
+    asyncio.run(main())
