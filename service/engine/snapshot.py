@@ -110,12 +110,6 @@ def _stack(*cols: np.ndarray) -> np.ndarray:
     return np.column_stack([c.reshape(c.shape[0], -1) for c in cols]).astype(float, copy=False)
 
 
-def _cached_windows(cache: dict[Any, Any], name: Any, sums: np.ndarray, span_s: np.ndarray,
-                    extra: tuple[tuple[str, np.ndarray, int], ...] = ()) -> list[dict[str, Any]]:
-    return _reuse(cache, name, _stack(sums, span_s, *(c for _, c, _ in extra)),
-                  lambda r: _windows(sums[r], span_s[r], tuple((k, c[r], d) for k, c, d in extra)))
-
-
 def _cached_figures(cache: dict[Any, Any], name: Any, state: "MatchState", sums: np.ndarray, zones: np.ndarray,
                     onpitch_s: np.ndarray, max_speed: np.ndarray, coverage: np.ndarray,
                     same_as: Any = None) -> list[dict[str, Any]]:
@@ -128,16 +122,6 @@ def _cached_figures(cache: dict[Any, Any], name: Any, state: "MatchState", sums:
         return hit[1]
     return _reuse(cache, name, inputs,
                   lambda r: _figures(sums[r], zones[r], state.zone_names, onpitch_s[r], max_speed[r], coverage[r]))
-
-
-def _same(old: dict[str, Any] | None, keys: list[str], values: list[Any]) -> bool:
-    """``old`` holds exactly these keys, in order, each with the very same object."""
-    if old is None or len(old) != len(keys):
-        return False
-    for (k0, v0), k, v in zip(old.items(), keys, values):
-        if k0 != k or v0 is not v:
-            return False
-    return True
 
 
 def _rows(cols: dict[str, list], n: int) -> list[dict[str, Any]]:
