@@ -673,7 +673,7 @@ def run_case(case: Case, url: str, field_name: str, scale: float, wait_first: bo
         frames_in = max(d.get("pacewire_frames_in_total", 0.0), 1.0)
         print(f"    server over the window: {frames_in:.0f} frames in {blocks:.0f} blocks, "
               f"{1e3 * d.get('pacewire_processing_seconds_sum', 0) / blocks:.2f} ms wall per block (its own "
-              f"histogram: engine + snapshot + delta + queueing), {1e3 * window['server'] * (window['t1'] - window['t0']) / frames_in:.2f} "
+              f"histogram: engine + snapshot + delta + writes to the subscribers that take them at once), {1e3 * window['server'] * (window['t1'] - window['t0']) / frames_in:.2f} "
               f"ms CPU per frame in all; {np.mean(n_win):.1f} deltas per subscriber; "
               f"{d.get('pacewire_dropped_backlogs_total', 0):.0f} backlogs dropped", flush=True)
     return Result(float(p50), float(p99), len(lat), missing, window["server"], window["clients"], window["other"],
