@@ -120,6 +120,18 @@ def create_app(opts: ServerOptions) -> FastAPI:
             chunks.append(chunk)
         return b"".join(chunks)
 
+    async def write_request(request: Request, match_id: str) -> tuple[Any, bytes] | Response:
+        """The opening of every provider POST: token, match, body; a Response when refused."""
+        if not can_write(_token(request.headers, request.query_params)):
+            return unauthorised()
+        runner = matches.get(match_id)
+        if runner is None:
+            return unknown(match_id)
+        body = await read_body(request)
+        if isinstance(body, Response):
+            return body
+        return runner, body
+
     # -- set-up and ingest -------------------------------------------------------------------
     @app.put("/api/matches/{match_id}")
     async def put_match(request: Request, match_id: str = ID) -> Response:
@@ -149,14 +161,10 @@ def create_app(opts: ServerOptions) -> FastAPI:
 
     @app.post("/api/matches/{match_id}/frames")
     async def post_frames(request: Request, match_id: str = ID) -> Response:
-        if not can_write(_token(request.headers, request.query_params)):
-            return unauthorised()
-        runner = matches.get(match_id)
-        if runner is None:
-            return unknown(match_id)
-        body = await read_body(request)
-        if isinstance(body, Response):
-            return body
+        got = await write_request(request, match_id)
+        if isinstance(got, Response):
+            return got
+        runner, body = got
         lines = body.split(b"\n")
         if len(lines) > srv.max_batch_frames + 1:
             return _error(413, "too_many_frames", f"more than {srv.max_batch_frames} frames in one batch")
@@ -167,14 +175,10 @@ def create_app(opts: ServerOptions) -> FastAPI:
 
     @app.post("/api/matches/{match_id}/events")
     async def post_events(request: Request, match_id: str = ID) -> Response:
-        if not can_write(_token(request.headers, request.query_params)):
-            return unauthorised()
-        runner = matches.get(match_id)
-        if runner is None:
-            return unknown(match_id)
-        body = await read_body(request)
-        if isinstance(body, Response):
-            return body
+        got = await write_request(request, match_id)
+        if isinstance(got, Response):
+            return got
+        runner, body = got
         try:
             data = orjson.loads(body)
         except orjson.JSONDecodeError as exc:
@@ -194,14 +198,10 @@ def create_app(opts: ServerOptions) -> FastAPI:
     @app.post("/api/matches/{match_id}/hr")
     async def post_hr(request: Request, match_id: str = ID) -> Response:
         """Heart-rate samples (docs/wearables.md): JSON Lines, or one JSON array."""
-        if not can_write(_token(request.headers, request.query_params)):
-            return unauthorised()
-        runner = matches.get(match_id)
-        if runner is None:
-            return unknown(match_id)
-        body = await read_body(request)
-        if isinstance(body, Response):
-            return body
+        got = await write_request(request, match_id)
+        if isinstance(got, Response):
+            return got
+        runner, body = got
         data: bytes | list[bytes] = body if body.lstrip()[:1] == b"[" else body.split(b"\n")
         if isinstance(data, list) and len(data) > srv.max_batch_frames + 1:
             return _error(413, "too_many_samples", f"more than {srv.max_batch_frames} samples in one batch")
