@@ -21,10 +21,10 @@ bench: $(STAMP)
 	$(PY) tests/bench/run.py $(if $(QUICK),--quick,)
 
 demo: $(STAMP)
-	$(PY) -m service.cli demo
+	$(PY) -m pacewire demo
 
 schema: $(STAMP)
-	$(PY) -m service.wire.schema --out docs/schema
+	$(PY) -m pacewire.wire.schema --out docs/schema
 
 clean:
 	rm -rf $(VENV) bench-results.json

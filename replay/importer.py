@@ -2,7 +2,7 @@
 
 kloppy is an optional extra (``pip install pacewire[import]``); without it the
 command says how to install it. The conversion itself is in
-:mod:`replay.kloppy_cdf`.
+:mod:`pacewire.replay.kloppy_cdf`.
 """
 from __future__ import annotations
 
@@ -41,7 +41,7 @@ def _loader(fmt: str) -> Callable[..., Any]:
 
 def load_dataset(source: Path, fmt: str, meta: Path | None = None, sample_rate: float | None = None) -> Any:
     """Load a tracking recording with kloppy, in CDF coordinates."""
-    from replay.kloppy_cdf import to_cdf_coordinates
+    from pacewire.replay.kloppy_cdf import to_cdf_coordinates
 
     if fmt not in FORMATS:
         raise ValueError(f"unknown format {fmt!r}: one of {', '.join(sorted(FORMATS))}")
@@ -64,7 +64,7 @@ def load_dataset(source: Path, fmt: str, meta: Path | None = None, sample_rate: 
 
 
 def import_recording(source: Path, fmt: str, out: Path, meta: Path | None = None, match_id: str | None = None) -> Path:
-    from replay.kloppy_cdf import write_folder
+    from pacewire.replay.kloppy_cdf import write_folder
 
     dataset = load_dataset(source, fmt, meta)
     return write_folder(dataset, out, match_id)

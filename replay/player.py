@@ -33,9 +33,9 @@ from urllib.parse import urlsplit, urlunsplit
 
 import orjson
 
-from replay.recording import Recording, open_recording
-from service.engine.match import CLOCK_START_MIN
-from service.wire.cdf import _timestamp
+from pacewire.wire.recording import Recording, open_recording
+from pacewire.engine.match import CLOCK_START_MIN
+from pacewire.wire.cdf import parse_timestamp
 
 BREAK_WALL_S = 1.0  # wall time between periods in a replay
 TICK_S = 0.02  # frames due within one tick go in one message
@@ -91,7 +91,7 @@ def samples_of(rec: Recording) -> list[Sample]:
         if not raw.strip():
             continue
         try:
-            t = _timestamp(orjson.loads(raw)["timestamp"])
+            t = parse_timestamp(orjson.loads(raw)["timestamp"])
         except Exception:  # not ours to judge
             pass
         out.append(Sample(raw, t))
@@ -109,7 +109,7 @@ def frames_of(rec: Recording) -> Iterator[Frame]:
         try:
             obj = orjson.loads(raw)
             period = obj["period"]
-            t = _timestamp(obj["timestamp"])
+            t = parse_timestamp(obj["timestamp"])
             start = t0.setdefault(period, t)
             clock = CLOCK_START_MIN.get(period, 0) * 60.0 + (t - start)
             last = (t, clock, period)

@@ -1711,7 +1711,7 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
 
 def gnss_calibration():
     """The wearables ground's corner calibration (a ``GnssPitch``): the demo pitch at GNSS_CENTRE."""
-    from service.wire.gnss import rectangle
+    from pacewire.wire.gnss import rectangle
 
     return rectangle(GNSS_CENTRE[0], GNSS_CENTRE[1], PITCH_LENGTH_M, PITCH_WIDTH_M, GNSS_BEARING_DEG)
 
@@ -1755,7 +1755,7 @@ def write_wearables_files(out: pathlib.Path, m: SynthMatch, fp: FaultPlan, seed:
     hr_dropout and hr_spike (plan_wearables).
     """
     cal = gnss_calibration()
-    from service.wire.gnss import PitchProjection
+    from pacewire.wire.gnss import PitchProjection
 
     wear = plan_wearables(m, seed, faults=faults)
     # the away team is not tracked: its feed faults do not exist; the late unit hides its player

@@ -1,6 +1,8 @@
 """pacewire: live exertion service for football."""
 import os
 
+__version__ = "0.1.0"
+
 # The engine's matrix products are small: one BLAS thread is fastest, and on a
 # busy machine several threads spin against each other (measured: ~3x slower
 # with two threads on two loaded cores). Set before numpy loads; a user's own

@@ -6,11 +6,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
-from replay.recording import Recording, open_recording
-from service.config import Settings, load_settings
-from service.engine.match import MatchState
-from service.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
-from service.wire.heart import HrDecoder
+from pacewire.wire.recording import Recording, open_recording
+from pacewire.config import Settings, load_settings
+from pacewire.engine.match import MatchState
+from pacewire.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
+from pacewire.wire.heart import HrDecoder
 
 
 @dataclass

@@ -8,10 +8,10 @@ import orjson
 
 
 def _analyze(args: argparse.Namespace) -> int:
-    from replay.recording import RecordingError
-    from service.analyze import StrictError, analyze_folder, print_table
-    from service.config import ConfigError, load_settings
-    from service.wire.cdf import SetupError
+    from pacewire.wire.recording import RecordingError
+    from pacewire.analyze import StrictError, analyze_folder, print_table
+    from pacewire.config import ConfigError, load_settings
+    from pacewire.wire.cdf import SetupError
 
     try:
         settings = load_settings(args.config)
@@ -33,7 +33,7 @@ def _analyze(args: argparse.Namespace) -> int:
         return 2
     snap = result.snapshot()
     if args.json:
-        from service.wire.messages import envelope
+        from pacewire.wire.messages import envelope
 
         body = {k: snap[k] for k in ("players", "teams", "health")}
         msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"], **body)
@@ -44,7 +44,10 @@ def _analyze(args: argparse.Namespace) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    from pacewire import __version__
+
     parser = argparse.ArgumentParser(prog="pacewire", description="Live exertion service for football.")
+    parser.add_argument("--version", action="version", version=f"pacewire {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
 
     p = sub.add_parser("analyze", help="run the engine over a CDF folder and print the final figures")
@@ -59,20 +62,20 @@ def build_parser() -> argparse.ArgumentParser:
                        ("import", "convert a recording kloppy reads into a CDF folder")):
         sub.add_parser(name, help=text, add_help=False)
 
-    from service.live import server
+    from pacewire.live import server
 
     p = sub.add_parser("serve", help="run the live service")
     server.add_arguments(p)
     p.set_defaults(func=server.run)
 
-    from service import demo
+    from pacewire.replay import demo
 
     p = sub.add_parser("demo", help="generate the demo match, serve it and replay it")
     demo.add_arguments(p)
     p.set_defaults(func=demo.run)
 
-    from service.reports import offline
-    from service.store import commands as history_commands
+    from pacewire.reports import offline
+    from pacewire.store import commands as history_commands
 
     p = sub.add_parser("report", help="build the half-time and full-time reports of a recording")
     offline.add_arguments(p)
@@ -87,13 +90,13 @@ def main(argv: list[str] | None = None) -> int:
     argv = list(sys.argv[1:] if argv is None else argv)
     # these parse their own options
     if argv and argv[0] == "synth":
-        from replay.synth import main as synth_main
+        from pacewire.replay.synth import main as synth_main
         return synth_main(argv[1:])
     if argv and argv[0] == "replay":
-        from replay.player import main as replay_main
+        from pacewire.replay.player import main as replay_main
         return replay_main(argv[1:])
     if argv and argv[0] == "import":
-        from replay.importer import main as import_main
+        from pacewire.replay.importer import main as import_main
         return import_main(argv[1:])
     args = build_parser().parse_args(argv)
     return args.func(args)

@@ -7,7 +7,7 @@ It keeps a local copy of the match state (``sub.state``: ``players``, ``teams``,
 with ``resync: true``).
 
     import asyncio
-    from service.client import subscribe
+    from pacewire.client import subscribe
 
     async def main():
         sub = subscribe("http://localhost:8000", "m_fict_001", view="team:t_home", every=1.0)
@@ -37,7 +37,7 @@ import orjson
 from websockets.asyncio.client import ClientConnection, connect
 from websockets.exceptions import ConnectionClosed, InvalidHandshake, InvalidStatus, InvalidURI
 
-from service.wire.messages import CONTRACT_VERSION, apply_delta
+from pacewire.wire.messages import CONTRACT_VERSION, apply_delta
 
 BODY = ("players", "teams", "health")
 

@@ -12,9 +12,10 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-from service.reports.alerts import AlertsSection  # alert rules are data; their models live beside the rules
+from pacewire.reports.alerts import AlertsSection  # alert rules are data; their models live beside the rules
 
-DEFAULT_PATH = Path(__file__).resolve().parent.parent / "config" / "default.toml"
+# Shipped inside the package; in the repository a link to config/default.toml, the one source.
+DEFAULT_PATH = Path(__file__).with_name("default.toml")
 
 
 class _Section(BaseModel):

@@ -40,7 +40,7 @@ class LiveServer:
         return f"ws://127.0.0.1:{self.port}"
 
     def start(self, timeout: float = 60.0) -> "LiveServer":
-        cmd = [sys.executable, "-m", "service.cli", "serve", "--port", str(self.port), "--data", str(self.data),
+        cmd = [sys.executable, "-m", "pacewire", "serve", "--port", str(self.port), "--data", str(self.data),
                "--log-level", "warning", *self.args]
         if self.config is not None:
             cmd += ["--config", str(self.config)]

@@ -14,15 +14,15 @@ import websockets
 
 import cdf_build as cb
 from live_server import LiveServer
-from service.config import ConfigError, load_settings
-from service.engine.blocks import clock_block, window_coverage
-from service.engine.match import MatchState
-from service.engine.types import BALL_IN, PERIOD_INDEX, Block
-from service.reports.alerts import (Alerter, Band, Caps, DropOffBaseline, DropOffPeak, LoadBudget, RulesError,
+from pacewire.config import ConfigError, load_settings
+from pacewire.engine.blocks import clock_block, window_coverage
+from pacewire.engine.match import MatchState
+from pacewire.engine.types import BALL_IN, PERIOD_INDEX, Block
+from pacewire.reports.alerts import (Alerter, Band, Caps, DropOffBaseline, DropOffPeak, LoadBudget, RulesError,
                                     check_rules, load_rules, parse_budgets)
-from service.store import history
-from service.store.record import MatchRecord
-from service.wire.cdf import parse_setup
+from pacewire.store import history
+from pacewire.store.record import MatchRecord
+from pacewire.wire.cdf import parse_setup
 
 FPS = 25
 N_HOME, N_AWAY = 3, 2  # h1 and a1 are goalkeepers
@@ -298,7 +298,7 @@ def test_default_rules_are_valid_and_computable():
 def test_budget_files_load_and_bad_ones_are_refused(tmp_path):
     f = tmp_path / "budgets.toml"
     f.write_text('[players.h2]\nminutes = 60\nsprints = 12\n')
-    from service.reports.alerts import load_budgets
+    from pacewire.reports.alerts import load_budgets
 
     assert load_budgets(f).players["h2"].items() == [("minutes", 60.0), ("sprints", 12.0)]
     bad = tmp_path / "bad.toml"
@@ -377,7 +377,7 @@ def test_budgets_over_http_and_alerts_on_the_live_stream(tmp_path):
 
 def test_budget_caps_take_numbers_only():
     # a cap of true or "12" is a typing mistake to name, not a value to guess (common practice: strict input)
-    from service.reports.alerts import RulesError, parse_budgets
+    from pacewire.reports.alerts import RulesError, parse_budgets
 
     for bad in (True, "12", [60]):
         with pytest.raises(RulesError, match="players.h1.minutes"):

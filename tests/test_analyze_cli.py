@@ -9,7 +9,7 @@ import orjson
 import pytest
 
 import cdf_build as cb
-from service.analyze import analyze_folder
+from pacewire.analyze import analyze_folder
 
 FPS = 25
 
@@ -33,7 +33,7 @@ def _folder(tmp_path, gz=False, bad_lines: dict[int, bytes] | None = None):
 
 
 def pacewire(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "service.cli", *args], capture_output=True, timeout=120)
+    return subprocess.run([sys.executable, "-m", "pacewire", *args], capture_output=True, timeout=120)
 
 
 @pytest.mark.parametrize("gz", [False, True])

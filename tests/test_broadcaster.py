@@ -12,8 +12,8 @@ import orjson
 import pytest
 from hypothesis import given, settings as hsettings, strategies as st
 
-from service.live.broadcaster import Broadcaster, Subscriber, View
-from service.wire.messages import apply_delta, changed
+from pacewire.live.broadcaster import Broadcaster, Subscriber, View
+from pacewire.wire.messages import apply_delta, changed
 
 FPS = 25
 

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import pytest
 
-from service.config import DEFAULT_PATH, ConfigError, load_settings
+from pacewire.config import DEFAULT_PATH, ConfigError, load_settings
 
 
 def test_defaults_carry_the_design_thresholds():

@@ -9,7 +9,7 @@ import pytest
 from hypothesis import given, settings as hsettings, strategies as st
 
 import cdf_build as cb
-from service.wire.cdf import FrameDecoder, SetupError, parse_setup
+from pacewire.wire.cdf import FrameDecoder, SetupError, parse_setup
 
 
 @pytest.fixture

@@ -9,7 +9,7 @@ import numpy as np
 from hypothesis import given, settings as hsettings, strategies as st
 
 import cdf_build as cb
-from service.wire.cdf import DecodeResult, FrameDecoder, parse_setup
+from pacewire.wire.cdf import DecodeResult, FrameDecoder, parse_setup
 
 N_HOME, N_AWAY = 3, 3
 IDS = cb.player_ids(N_HOME, N_AWAY)

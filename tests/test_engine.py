@@ -6,9 +6,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings as hsettings, strategies as st
 
 import cdf_build as cb
-from service.analyze import new_match
-from service.config import load_settings
-from service.engine.types import Block
+from pacewire.analyze import new_match
+from pacewire.config import load_settings
+from pacewire.engine.types import Block
 
 FPS = 25
 
@@ -270,7 +270,7 @@ def test_block_take_and_concat_round_trip():
 
 
 def test_health_lag_rules():
-    from service.engine.health import FeedHealth, HealthParams
+    from pacewire.engine.health import FeedHealth, HealthParams
 
     def feed(offset_fn, seconds=30):
         h = FeedHealth(HealthParams(5.0, 0.9, 0.2, 2.0, 2.0), fps_nominal=25)
@@ -292,7 +292,7 @@ def test_savgol_weights_equal_scipys():
     # Savitzky & Golay 1964 as implemented by scipy.signal.savgol_coeffs (the reference)
     from scipy.signal import savgol_coeffs
 
-    from service.engine.kinematics import savgol_weights
+    from pacewire.engine.kinematics import savgol_weights
 
     for w, order in ((25, 3), (11, 2), (51, 3)):
         for d in range(3):

@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 import cdf_build as cb
-from service.analyze import new_match
-from service.config import load_settings
+from pacewire.analyze import new_match
+from pacewire.config import load_settings
 
 FPS = 25
 N_HOME, N_AWAY = 3, 2

@@ -14,7 +14,7 @@ import websockets
 
 import cdf_build as cb
 from live_server import LiveServer
-from service.analyze import analyze_folder
+from pacewire.analyze import analyze_folder
 
 FPS = 25
 IDS = cb.player_ids(3, 2)

@@ -24,9 +24,9 @@ from websockets.sync.client import connect
 
 import cdf_build as cb
 from live_server import LiveServer
-from service.analyze import analyze_folder
-from service.config import ConfigError, settings_from_dict, load_settings
-from service.reports.alerts import RulesError, load_budgets, load_rules
+from pacewire.analyze import analyze_folder
+from pacewire.config import ConfigError, settings_from_dict, load_settings
+from pacewire.reports.alerts import RulesError, load_budgets, load_rules
 
 FPS = 25
 IDS = cb.player_ids(3, 2)

@@ -15,8 +15,8 @@ import pytest
 from geographiclib.geodesic import Geodesic
 from hypothesis import given, settings as hsettings, strategies as st
 
-from service.config import load_settings
-from service.wire.gnss import (
+from pacewire.config import load_settings
+from pacewire.wire.gnss import (
     CORNERS, CalibrationError, GnssPitch, PitchProjection, check_venue, parse_calibration, rectangle,
 )
 

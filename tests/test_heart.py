@@ -9,10 +9,10 @@ import pytest
 from hypothesis import given, settings as hsettings, strategies as st
 
 import cdf_build as cb
-from service.engine import heart as hr
-from service.engine.heart import HeartParams, HeartProfile, HeartRate
-from service.wire.cdf import parse_setup
-from service.wire.heart import HrDecoder
+from pacewire.engine import heart as hr
+from pacewire.engine.heart import HeartParams, HeartProfile, HeartRate
+from pacewire.wire.cdf import parse_setup
+from pacewire.wire.heart import HrDecoder
 
 P = HeartParams()
 T0 = 1_773_500_400.0  # 2026-03-14T15:00:00Z, a fictional kick-off

@@ -7,12 +7,12 @@ import statistics
 import numpy as np
 import pytest
 
-from replay.synth import write_match
-from service.analyze import analyze_folder
-from service.cli import main as cli
-from service.config import load_settings
-from service.store import history
-from service.store.record import MatchRecord, match_record, robust_band
+from pacewire.replay.synth import write_match
+from pacewire.analyze import analyze_folder
+from pacewire.cli import main as cli
+from pacewire.config import load_settings
+from pacewire.store import history
+from pacewire.store.record import MatchRecord, match_record, robust_band
 
 MIN_MINUTES = 2.5  # of a 3-minute match: the starters who played it through
 CONFIG = f"[history]\nmin_minutes = {MIN_MINUTES}\n"
@@ -122,7 +122,7 @@ def test_robust_band():
 
 def test_records_name_their_source():
     snap = {"match_id": "m", "match_time_s": 0.0, "players": {}, "teams": {}, "health": {}}
-    from service.engine.blocks import BlockSeries
+    from pacewire.engine.blocks import BlockSeries
 
     empty = BlockSeries(15, (), (), np.zeros(0), np.zeros(0), np.zeros((0, 0, 11), np.int64), np.zeros((0, 0)), ())
     assert match_record(snap, empty, "live").source == "live"

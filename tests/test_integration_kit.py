@@ -25,10 +25,10 @@ import websockets
 
 import cdf_build as cb
 from live_server import LiveServer
-from service.analyze import analyze_folder
-from service.client import SubscriptionError, run_until, subscribe, subscribe_sync
-from service.live.integrations import FIGURE_COLUMNS
-from service.wire.schema import json_schemas, strict
+from pacewire.analyze import analyze_folder
+from pacewire.client import SubscriptionError, run_until, subscribe, subscribe_sync
+from pacewire.live.integrations import FIGURE_COLUMNS
+from pacewire.wire.schema import json_schemas, strict
 
 ROOT = Path(__file__).resolve().parent.parent
 ASYNCAPI_SCHEMA = Path(__file__).parent / "data" / "asyncapi-3.0.0.schema.json"
@@ -439,7 +439,7 @@ def test_export_at_a_match_time_equals_an_offline_run_to_that_time(run):
 
 
 def test_analyze_json_prints_a_snapshot_message_of_the_schema(tmp_path, capsysbinary):
-    from service.cli import main
+    from pacewire.cli import main
 
     folder = cb.write_folder(tmp_path / "rec", cb.meta(MATCH), cb.sheet(N_HOME, N_AWAY), make_frames(4.0))
     assert main(["analyze", str(folder), "--json"]) == 0

@@ -13,7 +13,7 @@ from websockets.exceptions import ConnectionClosed
 
 import cdf_build as cb
 from live_server import LiveServer
-from service.analyze import analyze_folder
+from pacewire.analyze import analyze_folder
 
 FPS = 25
 N_HOME, N_AWAY = 3, 2

@@ -15,8 +15,8 @@ import pytest
 
 import cdf_build as cb
 from live_server import LiveServer
-from replay.player import replay
-from service.analyze import analyze_folder
+from pacewire.replay.player import replay
+from pacewire.analyze import analyze_folder
 
 FPS = 25
 IDS = cb.player_ids(2, 2)
@@ -133,7 +133,7 @@ def test_import_of_kloppy_epts_sample_is_valid_cdf(tmp_path):
     import cdf
 
     files = importlib.resources.files("kloppy") / "tests" / "files"
-    out = subprocess.run([sys.executable, "-m", "service.cli", "import", str(files / "epts_metrica_tracking.txt"),
+    out = subprocess.run([sys.executable, "-m", "pacewire", "import", str(files / "epts_metrica_tracking.txt"),
                           "--format", "epts", "--meta", str(files / "epts_metrica_metadata.xml"),
                           "--out", str(tmp_path / "imp")], capture_output=True, timeout=120)
     assert out.returncode == 0, out.stderr
@@ -158,6 +158,6 @@ def test_import_of_kloppy_epts_sample_is_valid_cdf(tmp_path):
 
 def test_import_without_a_needed_meta_file_says_so(tmp_path):
     files = importlib.resources.files("kloppy") / "tests" / "files"
-    out = subprocess.run([sys.executable, "-m", "service.cli", "import", str(files / "epts_metrica_tracking.txt"),
+    out = subprocess.run([sys.executable, "-m", "pacewire", "import", str(files / "epts_metrica_tracking.txt"),
                           "--format", "epts", "--out", str(tmp_path / "imp")], capture_output=True, timeout=120)
     assert out.returncode == 2 and b"needs --meta" in out.stderr

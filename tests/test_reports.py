@@ -19,13 +19,13 @@ import websockets
 
 import cdf_build as cb
 from live_server import LiveServer
-from service.analyze import analyze_folder
-from service.config import load_settings
-from service.reports.builder import FILES
-from service.reports.offline import build_offline
-from service.reports.page import HEALTH_CAUTION, LIVE_CAVEAT
-from service.reports.table import flatten, parse_cell, to_csv
-from service.store import history
+from pacewire.analyze import analyze_folder
+from pacewire.config import load_settings
+from pacewire.reports.builder import FILES
+from pacewire.reports.offline import build_offline
+from pacewire.reports.page import HEALTH_CAUTION, LIVE_CAVEAT
+from pacewire.reports.table import flatten, parse_cell, to_csv
+from pacewire.store import history
 
 FPS = 25
 N_HOME, N_AWAY = 4, 3
@@ -175,7 +175,7 @@ def test_offline_report_equals_live_report(live, tmp_path):
     for mid, kinds in (("m_a", ("half_time", "full_time")), ("m_b", ("half_time",))):
         out = tmp_path / mid
         if mid == "m_a":  # the command, with its progress bar
-            run = subprocess.run([sys.executable, "-m", "service.cli", "report", str(srv.data / "matches" / mid),
+            run = subprocess.run([sys.executable, "-m", "pacewire", "report", str(srv.data / "matches" / mid),
                                   "--out", str(out), "--config", str(srv.config)], capture_output=True, text=True,
                                  timeout=120)
             assert run.returncode == 0, run.stderr
@@ -242,8 +242,8 @@ def test_report_table_holds_every_contract_figure():
 
 
 def _tiny_state():
-    from service.engine.match import MatchState
-    from service.wire.cdf import FrameDecoder, parse_setup
+    from pacewire.engine.match import MatchState
+    from pacewire.wire.cdf import FrameDecoder, parse_setup
 
     settings = load_settings()
     roster = parse_setup(cb.meta("m_t"), cb.sheet(N_HOME, N_AWAY))
@@ -255,7 +255,7 @@ def _tiny_state():
 
 
 def test_offline_cli_refuses_a_missing_folder(tmp_path):
-    run = subprocess.run([sys.executable, "-m", "service.cli", "report", str(tmp_path / "nothing"), "--out",
+    run = subprocess.run([sys.executable, "-m", "pacewire", "report", str(tmp_path / "nothing"), "--out",
                           str(tmp_path / "out")], capture_output=True, text=True, timeout=60)
     assert run.returncode == 2 and "not a folder" in run.stderr
     assert not any((tmp_path / "out" / "full_time" / name).exists() for name in FILES)
@@ -263,9 +263,9 @@ def test_offline_cli_refuses_a_missing_folder(tmp_path):
 
 def test_synthetic_match_report(tmp_path):
     """A full squad from the synthetic match generator: every player of the sheet named, valid HTML."""
-    from replay.synth import write_match
-    from service.engine.blocks import block_series
-    from service.reports.builder import ReportInput, build_report
+    from pacewire.replay.synth import write_match
+    from pacewire.engine.blocks import block_series
+    from pacewire.reports.builder import ReportInput, build_report
 
     folder = write_match(tmp_path / "synth", minutes=2, fps=25, seed=11, faults=False)
     state = analyze_folder(folder).state

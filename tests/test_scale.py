@@ -17,7 +17,7 @@ import websockets
 import cdf_build as cb
 from live_server import LiveServer
 from redis_server import RedisServer, cli, redis_available
-from service.analyze import analyze_folder
+from pacewire.analyze import analyze_folder
 from test_live import FPS, IDS, apply, frames, setup_body, stream
 
 if not redis_available():

@@ -17,7 +17,7 @@ import websockets
 
 from live_server import LiveServer
 from redis_server import RedisServer, redis_available
-from service.scale import keys
+from pacewire.scale import keys
 from test_live import setup_body
 
 if not redis_available():

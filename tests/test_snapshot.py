@@ -10,11 +10,11 @@ from pathlib import Path
 import orjson
 import pytest
 
-from replay import synth
-from service.analyze import new_match
-from service.config import load_settings
-from service.engine.snapshot import build_health
-from service.wire.heart import HrDecoder
+from pacewire.replay import synth
+from pacewire.analyze import new_match
+from pacewire.config import load_settings
+from pacewire.engine.snapshot import build_health
+from pacewire.wire.heart import HrDecoder
 
 NOW = 1.9e9  # a wall clock for health (any fixed value: both builds see the same)
 

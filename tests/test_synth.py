@@ -21,7 +21,7 @@ import orjson
 import pytest
 from cdf.validators.custom import ValidationWarning
 
-from replay import synth
+from pacewire.replay import synth
 
 FPS = 25
 HALF_LENGTH_M = 52.5  # pitch 105 x 68 m, origin at the centre spot (DESIGN §3)
@@ -187,7 +187,7 @@ def test_cli_flags_switch_faults_and_compression(tmp_path):
 
 
 def test_committed_demo_clip_is_what_the_documented_command_writes(tmp_path):
-    # demo_feeds/README.md: `python -m replay.synth --out demo_feeds/clip --minutes 4 --seed 7`
+    # demo_feeds/README.md: `python -m pacewire.replay.synth --out demo_feeds/clip --minutes 4 --seed 7`
     clip = pathlib.Path(__file__).resolve().parents[1] / "demo_feeds" / "clip"
     fresh = synth.write_match(tmp_path / "clip", minutes=4, seed=7)
     assert _bytes(fresh) == _bytes(clip)

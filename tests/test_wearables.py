@@ -18,12 +18,12 @@ import websockets
 
 import cdf_build as cb
 from live_server import LiveServer
-from service.analyze import analyze_folder, new_match
-from service.config import load_settings
-from service.wire.cdf import SetupError, parse_setup
-from service.wire.gnss import PitchProjection, rectangle
-from service.wire.heart import HrDecoder
-from service.wire.schema import json_schemas, strict
+from pacewire.analyze import analyze_folder, new_match
+from pacewire.config import load_settings
+from pacewire.wire.cdf import SetupError, parse_setup
+from pacewire.wire.gnss import PitchProjection, rectangle
+from pacewire.wire.heart import HrDecoder
+from pacewire.wire.schema import json_schemas, strict
 
 FPS = 25
 # A fictional ground: open sea west of nowhere, chosen so that it is no real venue.

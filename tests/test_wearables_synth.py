@@ -25,10 +25,10 @@ import pytest
 from cdf.validators.custom import ValidationWarning
 
 from live_server import LiveServer
-from replay import synth
-from replay.player import Progress, replay
-from service.analyze import analyze_folder
-from service.wire.gnss import PitchProjection, parse_calibration
+from pacewire.replay import synth
+from pacewire.replay.player import Progress, replay
+from pacewire.analyze import analyze_folder
+from pacewire.wire.gnss import PitchProjection, parse_calibration
 
 HR_LOW_BPM, HR_HIGH_BPM = 40, 215  # common practice: athletes' resting HR rarely below ~40, HRmax rarely above ~210
 SPIKE_BPM = 255  # the injected implausible sample (the brief)
@@ -252,7 +252,7 @@ def test_one_team_only_no_ball_and_the_home_roster_with_heart_rate_profiles(shor
 
 def test_lat_long_project_back_to_x_y_within_2_cm(short):
     # 7 decimals of a degree is ~1.1 cm of latitude (the brief: ~1 cm); the projection back
-    # goes through service.wire.gnss (pymap3d), independent of how the synth placed them
+    # goes through pacewire.wire.gnss (pymap3d), independent of how the synth placed them
     proj = PitchProjection.from_calibration(_json(short / "meta.json")["venue"]["gnss_pitch"])
     rows = np.array([(p["x"], p["y"], p["lat"], p["long"]) for f in _frames(short) for p in f["teams"]["home"]["players"]])
     x, y = proj.to_pitch(rows[:, 2], rows[:, 3])

@@ -31,12 +31,12 @@ import pytest
 import cdf_build as cb
 import page_conftest as pc
 from live_server import LiveServer
-from service.config import load_settings
-from service.engine.blocks import block_series
-from service.reports.builder import ReportInput, build_report
-from service.reports.offline import build_offline
-from service.reports.page import HEALTH_CAUTION, HR_CAVEAT, OMITTED_MARK
-from service.reports.table import flatten, to_csv
+from pacewire.config import load_settings
+from pacewire.engine.blocks import block_series
+from pacewire.reports.builder import ReportInput, build_report
+from pacewire.reports.offline import build_offline
+from pacewire.reports.page import HEALTH_CAUTION, HR_CAVEAT, OMITTED_MARK
+from pacewire.reports.table import flatten, to_csv
 from test_reports import _tiny_state, assert_csv_equals_snapshot, collect, parse_strict
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -114,9 +114,9 @@ def match_hr() -> list[dict[str, Any]]:
 
 # -- reports from the engine directly -------------------------------------------------------------
 def engine_state(match_id: str, with_hr: bool):
-    from service.engine.match import MatchState
-    from service.wire.cdf import FrameDecoder, parse_setup
-    from service.wire.heart import HrDecoder
+    from pacewire.engine.match import MatchState
+    from pacewire.wire.cdf import FrameDecoder, parse_setup
+    from pacewire.wire.heart import HrDecoder
 
     settings = load_settings()
     roster = parse_setup(cb.meta(match_id, fps=FPS), sheet())
@@ -243,7 +243,7 @@ def test_heart_rate_report_from_the_engine(tmp_path):
 def test_report_heart_rate_from_a_hand_built_snapshot():
     """The page function against the contract alone: a strap at 41 % coverage is tagged, a figure
     left out shows the em dash with its reason, and absent HR keys mean no heart-rate section."""
-    from service.reports.page import heart_table, page
+    from pacewire.reports.page import heart_table, page
 
     base = {"jersey_number": 7, "name": "Gil Hartwell", "team_id": HOME, "is_goalkeeper": False, "minutes": 12.0,
             "hr_bpm": None, "hr_pct_max": None, "hr_mean_bpm": 151.2, "hr_peak_bpm": 179.0,

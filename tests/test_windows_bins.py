@@ -7,8 +7,8 @@ from __future__ import annotations
 import numpy as np
 from hypothesis import given, settings as hsettings, strategies as st
 
-from service.engine.exertion import DIST, N_FIG
-from service.engine.windows import SecondBins
+from pacewire.engine.exertion import DIST, N_FIG
+from pacewire.engine.windows import SecondBins
 
 FPS = 5
 ROSTER = 5

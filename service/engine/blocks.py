@@ -16,11 +16,11 @@ from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 
-from service.engine import exertion as ex
-from service.engine.match import CLOCK_START_MIN
+from pacewire.engine import exertion as ex
+from pacewire.engine.match import CLOCK_START_MIN
 
 if TYPE_CHECKING:
-    from service.engine.match import MatchState
+    from pacewire.engine.match import MatchState
 
 _U = 1e-6  # micro-units to units
 
@@ -28,7 +28,7 @@ _U = 1e-6  # micro-units to units
 @dataclass(frozen=True)
 class BlockSeries:
     """Per-block sums: ``sums[b, p, figure]`` (int64 micro-units or counts,
-    columns of :mod:`service.engine.exertion`), players in roster order."""
+    columns of :mod:`pacewire.engine.exertion`), players in roster order."""
 
     block_min: int
     keys: tuple[str, ...]  # "block_0_15", ...; a stoppage-time block is "block_45+" (split mode)

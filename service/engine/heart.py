@@ -1,6 +1,6 @@
 """Heart-rate accumulation: credited time, mean, zones, Edwards and Banister TRIMP.
 
-Samples arrive already gated (``service.wire.heart.HrDecoder``), per player in
+Samples arrive already gated (``pacewire.wire.heart.HrDecoder``), per player in
 time order. Each sample credits the time since the same player's previous
 sample (at most ``max_gap_s``) to the period whose span holds its timestamp,
 at the second ``floor(t - t0)`` of that period. Sums are int64 micro-units,

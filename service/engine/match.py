@@ -12,14 +12,14 @@ from typing import Any
 
 import numpy as np
 
-from service.config import Settings
-from service.engine import exertion as ex
-from service.engine.exertion import Exertion, ExertionParams
-from service.engine.health import FeedHealth, HealthParams
-from service.engine.heart import HeartParams, HeartProfile, HeartRate
-from service.engine.kinematics import Final, KinematicParams, Track
-from service.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIODS, Block, Roster
-from service.engine.windows import SecondBins
+from pacewire.config import Settings
+from pacewire.engine import exertion as ex
+from pacewire.engine.exertion import Exertion, ExertionParams
+from pacewire.engine.health import FeedHealth, HealthParams
+from pacewire.engine.heart import HeartParams, HeartProfile, HeartRate
+from pacewire.engine.kinematics import Final, KinematicParams, Track
+from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIODS, Block, Roster
+from pacewire.engine.windows import SecondBins
 
 # Football clock: minute at which each period starts (Laws of the Game).
 CLOCK_START_MIN = {"first_half": 0, "second_half": 45, "first_half_extratime": 90,
@@ -203,7 +203,7 @@ class MatchState:
             self.step(b)
 
     def step(self, block: Block) -> None:
-        """Apply a block of accepted frames (from :class:`service.wire.cdf.FrameDecoder`)."""
+        """Apply a block of accepted frames (from :class:`pacewire.wire.cdf.FrameDecoder`)."""
         n = len(block)
         if n == 0:
             return
@@ -224,7 +224,7 @@ class MatchState:
 
     def ingest_heart(self, result: Any) -> None:
         """Count a heart-rate decoder result's drops and add its accepted samples
-        (:class:`service.wire.heart.HrResult`)."""
+        (:class:`pacewire.wire.heart.HrResult`)."""
         self.hr_rejected += result.rejected
         self.hr_duplicates += result.duplicates
         self.hr_late += result.late
@@ -527,7 +527,7 @@ class MatchState:
         ``now``: wall-clock seconds for health (live); None evaluates at the last
         frame's time (offline: no arrival lag is known).
         """
-        from service.engine.snapshot import build_snapshot  # keeps this module small
+        from pacewire.engine.snapshot import build_snapshot  # keeps this module small
 
         return build_snapshot(self, now, extra_reasons)
 

@@ -15,11 +15,11 @@ from typing import TYPE_CHECKING, Any, Callable
 
 import numpy as np
 
-from service.engine import exertion as ex
-from service.engine.match import CLOCK_START_MIN, CONTEXTS
+from pacewire.engine import exertion as ex
+from pacewire.engine.match import CLOCK_START_MIN, CONTEXTS
 
 if TYPE_CHECKING:
-    from service.engine.match import MatchState, _Period
+    from pacewire.engine.match import MatchState, _Period
 
 _U = 1e-6
 _WINDOW_KEYS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",
@@ -292,7 +292,7 @@ def _with_heart_windows(state: "MatchState", windows: list[dict[str, Any]]) -> l
 def _hr_health(state: "MatchState", on_pitch: list[bool]) -> dict[str, float | None]:
     """Heart-rate samples received over the last minute ÷ expected, per player on the pitch: a strap
     that drops out shows here as low coverage, not as a low heart rate."""
-    from service.engine.heart import HR_N
+    from pacewire.engine.heart import HR_N
 
     cur = state.current
     hr = state.heart

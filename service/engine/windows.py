@@ -13,7 +13,7 @@ from bisect import bisect_right
 
 import numpy as np
 
-from service.engine.exertion import DIST, N_FIG
+from pacewire.engine.exertion import DIST, N_FIG
 
 _SEGMENTS: dict[tuple[int, int, int, int], np.ndarray] = {}  # summing matrices, by (rows, skip, first cut, fps)
 _PEAK_CHUNK = 256  # seconds per batched peak update: bounds its temporary arrays

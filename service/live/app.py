@@ -16,14 +16,14 @@ from fastapi.responses import FileResponse, JSONResponse, PlainTextResponse, Res
 from fastapi.staticfiles import StaticFiles
 from prometheus_client import CONTENT_TYPE_LATEST, CollectorRegistry, Counter, Gauge, Histogram, generate_latest
 
-from service.config import Settings
-from service.live.broadcaster import Subscriber, View, ViewError
-from service.live.ingest import EventError, Hooks
-from service.live.integrations import make_router
-from service.live.matches import MATCH_ID, Matches, SetupConflict
-from service.live.reporting import add_routes as add_report_routes
-from service.wire.cdf import SetupError
-from service.wire.messages import envelope
+from pacewire.config import Settings
+from pacewire.live.broadcaster import Subscriber, View, ViewError
+from pacewire.live.ingest import EventError, Hooks
+from pacewire.live.integrations import make_router
+from pacewire.live.matches import MATCH_ID, Matches, SetupConflict
+from pacewire.live.reporting import add_routes as add_report_routes
+from pacewire.wire.cdf import SetupError
+from pacewire.wire.messages import envelope
 
 log = logging.getLogger("pacewire.app")
 ID = PathParam(pattern=MATCH_ID.pattern)

@@ -15,7 +15,7 @@ from collections import deque
 from dataclasses import dataclass, field
 from typing import Any, Awaitable, Callable
 
-from service.wire.messages import changed, dumps, envelope
+from pacewire.wire.messages import changed, dumps, envelope
 
 log = logging.getLogger("pacewire.broadcaster")
 

@@ -19,16 +19,16 @@ from typing import Any, Callable
 import numpy as np
 import orjson
 
-from service.config import Settings
-from service.engine.health import STALLED
-from service.engine.match import MatchState
-from service.engine.snapshot import build_health
-from service.engine.types import PERIODS, Block, Roster
-from service.live.broadcaster import Broadcaster
-from service.live.recorder import Recorder, RecorderError, write_json_atomic
-from service.live.reporting import Followup
-from service.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message
-from service.wire.heart import HrDecoder, HrResult
+from pacewire.config import Settings
+from pacewire.engine.health import STALLED
+from pacewire.engine.match import MatchState
+from pacewire.engine.snapshot import build_health
+from pacewire.engine.types import PERIODS, Block, Roster
+from pacewire.live.broadcaster import Broadcaster
+from pacewire.live.recorder import Recorder, RecorderError, write_json_atomic
+from pacewire.live.reporting import Followup
+from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message
+from pacewire.wire.heart import HrDecoder, HrResult
 
 log = logging.getLogger("pacewire.ingest")
 

@@ -24,15 +24,15 @@ import orjson
 from fastapi import APIRouter, Path as PathParam, Request
 from fastapi.responses import Response
 
-from replay.recording import open_recording
-from service.analyze import add_heart_rate, new_match
-from service.config import Settings
-from service.engine.match import CLOCK_START_MIN, MatchState
-from service.engine.types import PERIODS
-from service.live.matches import MATCH_ID, Matches
-from service.wire.asyncapi import asyncapi_document
-from service.wire.messages import CONTRACT_VERSION
-from service.wire.schema import JSON_SCHEMA_DIALECT, json_schemas
+from pacewire.wire.recording import open_recording
+from pacewire.analyze import add_heart_rate, new_match
+from pacewire.config import Settings
+from pacewire.engine.match import CLOCK_START_MIN, MatchState
+from pacewire.engine.types import PERIODS
+from pacewire.live.matches import MATCH_ID, Matches
+from pacewire.wire.asyncapi import asyncapi_document
+from pacewire.wire.messages import CONTRACT_VERSION
+from pacewire.wire.schema import JSON_SCHEMA_DIALECT, json_schemas
 
 ID_COLUMNS = ("player_id", "team_id", "jersey_number", "name", "is_goalkeeper", "on_pitch")
 FIGURE_COLUMNS = ("minutes", "distance_m", "m_per_min", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels",
@@ -129,7 +129,7 @@ def figures_at(folder: Path, settings: Settings, match_id: str, at_s: float,
 
 def make_router(matches: Matches, can_read: Callable[[str | None], bool]) -> APIRouter:
     # app.py includes this router from create_app, so its helpers are importable by now
-    from service.live.app import _error, _token
+    from pacewire.live.app import _error, _token
 
     router = APIRouter()
     schemas = json_schemas()

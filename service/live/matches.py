@@ -8,10 +8,10 @@ from typing import Any
 
 import orjson
 
-from service.config import Settings
-from service.live.ingest import Hooks, MatchRunner
-from service.live.recorder import write_json_atomic
-from service.wire.cdf import gnss_tolerances, parse_setup
+from pacewire.config import Settings
+from pacewire.live.ingest import Hooks, MatchRunner
+from pacewire.live.recorder import write_json_atomic
+from pacewire.wire.cdf import gnss_tolerances, parse_setup
 
 log = logging.getLogger("pacewire.matches")
 

@@ -25,19 +25,19 @@ import orjson
 from fastapi import FastAPI, Request
 from fastapi.responses import FileResponse, JSONResponse, Response
 
-from service.engine.blocks import block_series, clock_block, window_coverage
-from service.live.recorder import write_json_atomic
-from service.reports.alerts import Alerter, Budgets, DropOffBaseline, RulesError, load_budgets, parse_budgets, \
+from pacewire.engine.blocks import block_series, clock_block, window_coverage
+from pacewire.live.recorder import write_json_atomic
+from pacewire.reports.alerts import Alerter, Budgets, DropOffBaseline, RulesError, load_budgets, parse_budgets, \
     rules_from_settings
-from service.reports.builder import FILES, KINDS, ReportInput, build_report, list_reports, report_kind
-from service.reports.offline import report_input, state_until
-from service.store import history
-from service.store.record import match_record
-from service.wire.messages import CONTRACT_VERSION, dumps
+from pacewire.reports.builder import FILES, KINDS, ReportInput, build_report, list_reports, report_kind
+from pacewire.reports.offline import report_input, state_until
+from pacewire.store import history
+from pacewire.store.record import match_record
+from pacewire.wire.messages import CONTRACT_VERSION, dumps
 
 if TYPE_CHECKING:
-    from service.live.ingest import MatchRunner
-    from service.live.matches import Matches
+    from pacewire.live.ingest import MatchRunner
+    from pacewire.live.matches import Matches
 
 log = logging.getLogger("pacewire.reporting")
 MEDIA = {"report.html": "text/html; charset=utf-8", "report.csv": "text/csv; charset=utf-8",
@@ -269,7 +269,7 @@ def add_routes(app: FastAPI, matches: "Matches", can_read: Callable[[Any], bool]
                token: Callable[[Any, Any], str | None], error: Callable[..., JSONResponse]) -> None:
     """Report files and budgets: ``GET /api/matches/{id}/reports/{kind}/{file}``,
     ``GET``/``PUT /api/matches/{id}/budgets``."""
-    from service.live.matches import MATCH_ID
+    from pacewire.live.matches import MATCH_ID
 
     def find(request: Request, match_id: str, write: bool) -> Any:
         allowed = can_write if write else can_read

@@ -27,12 +27,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     if getattr(args, "role", "all") != "all":
-        from service.scale.roles import run_role
+        from pacewire.scale.roles import run_role
         return run_role(args)
     import uvicorn
 
-    from service.config import ConfigError, load_settings
-    from service.live.app import ServerOptions, create_app
+    from pacewire.config import ConfigError, load_settings
+    from pacewire.live.app import ServerOptions, create_app
 
     try:
         settings = load_settings(args.config)

@@ -26,7 +26,7 @@ import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 if TYPE_CHECKING:
-    from service.config import Settings
+    from pacewire.config import Settings
 
 # rule figure -> (snapshot key of the window total, history rate figure, words)
 FIGURES = {"distance": ("distance_m", "m_per_min", "distance"),

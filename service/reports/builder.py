@@ -18,12 +18,12 @@ from typing import Any
 import numpy as np
 import orjson
 
-from service.engine import exertion as ex
-from service.engine.blocks import BlockSeries
-from service.reports import charts
-from service.reports.page import page, zone_names
-from service.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
-from service.wire.messages import envelope
+from pacewire.engine import exertion as ex
+from pacewire.engine.blocks import BlockSeries
+from pacewire.reports import charts
+from pacewire.reports.page import page, zone_names
+from pacewire.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
+from pacewire.wire.messages import envelope
 
 KINDS = ("half_time", "full_time")
 FILES = ("report.html", "report.csv", "snapshot.json")

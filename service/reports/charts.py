@@ -15,8 +15,8 @@ from typing import Any, Callable
 
 import numpy as np
 
-from service.engine import exertion as ex
-from service.engine.blocks import BlockSeries
+from pacewire.engine import exertion as ex
+from pacewire.engine.blocks import BlockSeries
 
 # our own palette: ink, paper, grid; home and away; speed bands
 INK, PAPER, GRID, MUTED = "#1f2a30", "#fbf8f1", "#ddd6c6", "#6b7479"

@@ -14,12 +14,12 @@ import time
 from pathlib import Path
 from typing import Any, TextIO
 
-from replay.recording import Recording, open_recording
-from service.config import Settings
-from service.engine.blocks import block_series
-from service.engine.match import MatchState
-from service.engine.types import PERIOD_INDEX
-from service.reports.builder import ReportInput, build_report, report_kind
+from pacewire.wire.recording import Recording, open_recording
+from pacewire.config import Settings
+from pacewire.engine.blocks import block_series
+from pacewire.engine.match import MatchState
+from pacewire.engine.types import PERIOD_INDEX
+from pacewire.reports.builder import ReportInput, build_report, report_kind
 
 
 class ProgressBar:
@@ -69,7 +69,7 @@ def run_recording(folder: str | Path, settings: Settings, progress: bool = True,
     """Run a recording through the engine (as ``pacewire analyze`` does) with a progress
     bar on stderr. Returns (finished state, recording, bad lines skipped). Heart-rate samples
     (hr.jsonl) go in first: they count as tracking reaches their time, as live."""
-    from service.analyze import add_heart_rate, new_match
+    from pacewire.analyze import add_heart_rate, new_match
 
     rec = open_recording(folder)
     state, decoder = new_match(rec.meta, rec.sheet, settings)
@@ -150,9 +150,9 @@ def build_offline(folder: str | Path, out: str | Path, settings: Settings, progr
 
 
 def cli_report(args: argparse.Namespace) -> int:
-    from replay.recording import RecordingError
-    from service.config import ConfigError, load_settings
-    from service.wire.cdf import SetupError
+    from pacewire.wire.recording import RecordingError
+    from pacewire.config import ConfigError, load_settings
+    from pacewire.wire.cdf import SetupError
 
     try:
         settings = load_settings(args.config)

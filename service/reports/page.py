@@ -5,7 +5,7 @@ import html
 import time
 from typing import Any
 
-from service.reports.table import has_heart_rate, one_team, player_order, tracked_teams
+from pacewire.reports.table import has_heart_rate, one_team, player_order, tracked_teams
 
 HEALTH_CAUTION = ("Figures are estimates from positional data; decisions on injury, return-to-play and "
                   "substitution stay with the club's qualified medical and performance staff.")

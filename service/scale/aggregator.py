@@ -30,13 +30,13 @@ import numpy as np
 import orjson
 from redis.exceptions import RedisError, ResponseError
 
-from service.config import Settings
-from service.live.broadcaster import Group, Subscriber, View, ViewError
-from service.live.ingest import Hooks, MatchRunner
-from service.scale import keys
-from service.scale.settings import ScaleSettings
-from service.wire.cdf import parse_setup
-from service.wire.heart import HrResult
+from pacewire.config import Settings
+from pacewire.live.broadcaster import Group, Subscriber, View, ViewError
+from pacewire.live.ingest import Hooks, MatchRunner
+from pacewire.scale import keys
+from pacewire.scale.settings import ScaleSettings
+from pacewire.wire.cdf import parse_setup
+from pacewire.wire.heart import HrResult
 
 log = logging.getLogger("pacewire.scale.aggregator")
 
@@ -334,7 +334,7 @@ class AggMatch:
                 await self._read_counts()
                 snap = r.broadcaster.snapshot()
                 body = {k: snap[k] for k in ("players", "teams", "health")}
-                from service.wire.messages import envelope
+                from pacewire.wire.messages import envelope
                 msg = envelope("snapshot", self.match_id, 0, snap["match_time_s"], snap["period"], **body)
                 summary = r.summary()
                 summary["aggregator"] = self.agg.owner

@@ -23,15 +23,15 @@ from fastapi.responses import FileResponse, JSONResponse, Response
 from fastapi.staticfiles import StaticFiles
 from redis.exceptions import RedisError
 
-from service.config import Settings
-from service.engine.types import Roster
-from service.live.app import ID, WEB, _error, _same, _token
-from service.live.broadcaster import Subscriber, View, ViewError
-from service.scale import keys
-from service.scale.aggregator import seq_of
-from service.scale.settings import ScaleSettings
-from service.wire.cdf import parse_setup
-from service.wire.messages import envelope
+from pacewire.config import Settings
+from pacewire.engine.types import Roster
+from pacewire.live.app import ID, WEB, _error, _same, _token
+from pacewire.live.broadcaster import Subscriber, View, ViewError
+from pacewire.scale import keys
+from pacewire.scale.aggregator import seq_of
+from pacewire.scale.settings import ScaleSettings
+from pacewire.wire.cdf import parse_setup
+from pacewire.wire.messages import envelope
 
 log = logging.getLogger("pacewire.scale.gateway")
 

@@ -24,16 +24,16 @@ from fastapi import FastAPI, Request, WebSocket, WebSocketDisconnect
 from fastapi.responses import JSONResponse, Response
 from redis.exceptions import RedisError, ResponseError
 
-from service.config import Settings
-from service.engine.match import heart_params
-from service.engine.types import Roster
-from service.live.app import ID, _error, _same, _token
-from service.live.ingest import EventError, IngestOutcome, MatchRunner
-from service.live.matches import MATCH_ID
-from service.scale import keys
-from service.wire.cdf import DecodeResult, FrameDecoder, FrameError, SetupError, parse_message, parse_setup
-from service.wire.heart import HrDecoder, HrGate
-from service.wire.messages import envelope
+from pacewire.config import Settings
+from pacewire.engine.match import heart_params
+from pacewire.engine.types import Roster
+from pacewire.live.app import ID, _error, _same, _token
+from pacewire.live.ingest import EventError, IngestOutcome, MatchRunner
+from pacewire.live.matches import MATCH_ID
+from pacewire.scale import keys
+from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, SetupError, parse_message, parse_setup
+from pacewire.wire.heart import HrDecoder, HrGate
+from pacewire.wire.messages import envelope
 
 log = logging.getLogger("pacewire.scale.ingest")
 
@@ -115,7 +115,7 @@ class StreamIngest:
     async def setup(self, match_id: str, meta: Any, sheet: Any) -> tuple[Roster, bool]:
         """Store the set-up in Redis (every role reads the roster from there). Raises SetupError,
         SetupConflict, StoreUnavailable."""
-        from service.live.matches import SetupConflict
+        from pacewire.live.matches import SetupConflict
 
         roster = parse_setup(meta, sheet, match_id)
         raw = orjson.dumps({"meta": meta, "sheet": sheet})
@@ -384,7 +384,7 @@ def create_ingest_app(redis: Any, settings: Settings, ingest_token: str | None) 
 
     @app.put("/api/matches/{match_id}")
     async def put_match(request: Request, match_id: str = ID) -> Response:
-        from service.live.matches import SetupConflict
+        from pacewire.live.matches import SetupConflict
 
         if not can_write(_token(request.headers, request.query_params)):
             return unauthorised()

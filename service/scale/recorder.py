@@ -19,10 +19,10 @@ from typing import Any
 import orjson
 from redis.exceptions import RedisError
 
-from service.live.matches import MATCH_ID
-from service.live.recorder import write_json_atomic
-from service.scale import keys
-from service.scale.settings import ScaleSettings
+from pacewire.live.matches import MATCH_ID
+from pacewire.live.recorder import write_json_atomic
+from pacewire.scale import keys
+from pacewire.scale.settings import ScaleSettings
 
 log = logging.getLogger("pacewire.scale.recorder")
 

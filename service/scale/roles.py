@@ -48,9 +48,9 @@ def _worker_app(name: str, make: Any) -> Any:
 def run_role(args: argparse.Namespace) -> int:
     import uvicorn
 
-    from service.config import ConfigError, load_settings
-    from service.scale import keys
-    from service.scale.settings import scale_settings
+    from pacewire.config import ConfigError, load_settings
+    from pacewire.scale import keys
+    from pacewire.scale.settings import scale_settings
 
     if not args.redis:
         print(f"pacewire: --role {args.role} needs --redis URL (e.g. redis://127.0.0.1:6379/0)", file=sys.stderr)
@@ -65,16 +65,16 @@ def run_role(args: argparse.Namespace) -> int:
     redis = keys.connect(args.redis, scale.redis_timeout_s, scale.redis_connections)
     data = Path(args.data)
     if args.role == "ingest":
-        from service.scale.ingest import create_ingest_app
+        from pacewire.scale.ingest import create_ingest_app
         app = create_ingest_app(redis, settings, args.ingest_token or None)
     elif args.role == "gateway":
-        from service.scale.gateway import create_gateway_app
+        from pacewire.scale.gateway import create_gateway_app
         app = create_gateway_app(redis, settings, scale, args.ingest_token or None, args.view_token or None)
     elif args.role == "aggregator":
-        from service.scale.aggregator import Aggregator
+        from pacewire.scale.aggregator import Aggregator
         app = _worker_app("aggregator", lambda: Aggregator(redis, settings, scale, data))
     else:
-        from service.scale.recorder import StreamRecorder
+        from pacewire.scale.recorder import StreamRecorder
         app = _worker_app("recorder", lambda: StreamRecorder(redis, scale, data))
     config = uvicorn.Config(app, host=args.host, port=args.port, ws_max_size=settings.server.max_message_bytes,
                             log_level=args.log_level, lifespan="on", ws_ping_interval=20, ws_ping_timeout=20,

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
-from service.config import ConfigError, Settings
+from pacewire.config import ConfigError, Settings
 
 
 class ScaleSettings(BaseModel):

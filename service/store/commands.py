@@ -6,8 +6,8 @@ import sys
 import time
 from pathlib import Path
 
-from service.store import history
-from service.store.record import match_record
+from pacewire.store import history
+from pacewire.store.record import match_record
 
 
 def db_path(data: str | Path, settings) -> Path:  # noqa: ANN001
@@ -15,10 +15,10 @@ def db_path(data: str | Path, settings) -> Path:  # noqa: ANN001
 
 
 def _import(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
-    from replay.recording import RecordingError
-    from service.engine.blocks import block_series
-    from service.reports.offline import run_recording, source_of
-    from service.wire.cdf import SetupError
+    from pacewire.wire.recording import RecordingError
+    from pacewire.engine.blocks import block_series
+    from pacewire.reports.offline import run_recording, source_of
+    from pacewire.wire.cdf import SetupError
 
     try:
         state, rec, _ = run_recording(args.folder, settings, progress=not args.quiet)
@@ -55,7 +55,7 @@ def _list(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
 
 
 def cli_history(args: argparse.Namespace) -> int:
-    from service.config import ConfigError, load_settings
+    from pacewire.config import ConfigError, load_settings
 
     try:
         settings = load_settings(args.config)

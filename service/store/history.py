@@ -14,8 +14,8 @@ from contextlib import closing
 from pathlib import Path
 from typing import Any, Iterable
 
-from service.reports.alerts import Band
-from service.store.record import MatchRecord, robust_band
+from pacewire.reports.alerts import Band
+from pacewire.store.record import MatchRecord, robust_band
 
 BASELINE_SOURCES = ("live", "replay")  # live against live: never post-match figures
 

@@ -3,7 +3,7 @@
 Scopes: ``match``; each period (``first_half``, ...); each block of the
 match clock (``block_0_15`` ... ``block_75_90``, the last block of a period
 holding its stoppage time); each peak window (``peak_5min``, ...).
-Block rates are per minute on the pitch in the block (service.engine.blocks).
+Block rates are per minute on the pitch in the block (pacewire.engine.blocks).
 """
 from __future__ import annotations
 
@@ -12,8 +12,8 @@ from typing import Any
 
 import numpy as np
 
-from service.engine import exertion as ex
-from service.engine.blocks import BlockSeries
+from pacewire.engine import exertion as ex
+from pacewire.engine.blocks import BlockSeries
 
 SOURCES = ("live", "replay", "offline")
 TOTALS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",

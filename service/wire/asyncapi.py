@@ -4,7 +4,7 @@ Two channels: ``/live/{match_id}`` (subscribe to a match's messages) and
 ``/ingest/{match_id}`` (a provider pushes CDF frames and reads errors back).
 The document is written from pacewire's side: it *sends* on the live channel
 and *receives* frames on the ingest channel. Message payloads reference the
-JSON Schemas of :mod:`service.wire.schema` (2020-12) by URL, served beside the
+JSON Schemas of :mod:`pacewire.wire.schema` (2020-12) by URL, served beside the
 document at ``/api/schema/messages/NAME.json``.
 """
 from __future__ import annotations
@@ -14,9 +14,9 @@ import json
 import sys
 from typing import Any
 
-from service.engine.types import PERIODS
-from service.wire.messages import CONTRACT_VERSION
-from service.wire.schema import MESSAGES
+from pacewire.engine.types import PERIODS
+from pacewire.wire.messages import CONTRACT_VERSION
+from pacewire.wire.schema import MESSAGES
 
 ASYNCAPI_VERSION = "3.0.0"
 SCHEMA_FORMAT = "application/schema+json;version=draft-2020-12"
@@ -190,7 +190,7 @@ def asyncapi_document(host: str = "localhost:8000", protocol: str = "ws", schema
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m service.wire.asyncapi", description="Print the AsyncAPI document.")
+    p = argparse.ArgumentParser(prog="python -m pacewire.wire.asyncapi", description="Print the AsyncAPI document.")
     p.add_argument("--host", default="localhost:8000")
     p.add_argument("--schema-base", default=SCHEMA_BASE, help="prefix of the JSON Schema references (e.g. ./)")
     args = p.parse_args(argv)

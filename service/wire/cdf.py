@@ -19,8 +19,8 @@ import numpy as np
 import orjson
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
-from service.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
-from service.wire.gnss import CalibrationError, PitchProjection, check_venue, parse_calibration
+from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
+from pacewire.wire.gnss import CalibrationError, PitchProjection, check_venue, parse_calibration
 
 PeriodName = Literal["first_half", "second_half", "first_half_extratime", "second_half_extratime", "shootout"]
 
@@ -275,14 +275,14 @@ class FrameGate:
     recent_set: set[int] = field(default_factory=set)
 
     def slot_of(self, period: int, t: float) -> int:
-        """Frame slot of a frame within its period; raises _Reject if it does not advance."""
+        """Frame slot of a frame within its period; raises Reject if it does not advance."""
         if period < self.period:
-            raise _Reject("bad_value", f"period {PERIODS[period]} comes after {PERIODS[self.period]}")
+            raise Reject("bad_value", f"period {PERIODS[period]} comes after {PERIODS[self.period]}")
         if period > self.period:
             return 0
         slot = math.floor((t - self.period_t0) * self.fps + 0.5)
         if slot <= self.last_slot:
-            raise _Reject("bad_timestamp", "timestamp is less than one frame period after the previous frame")
+            raise Reject("bad_timestamp", "timestamp is less than one frame period after the previous frame")
         return slot
 
     def checkpoint(self) -> tuple:
@@ -333,7 +333,7 @@ class DecodeResult:
                             sum(r.duplicates for r in results), sum(r.late for r in results))
 
 
-class _Reject(Exception):
+class Reject(Exception):
     def __init__(self, code: str, message: str) -> None:
         self.code, self.message = code, message
 
@@ -345,15 +345,15 @@ _BULK_MIN = 8  # frames in a call before the players of all its frames are check
 _BULK_PAUSE = 8  # calls decoded frame by frame after a batch the bulk check could not take
 
 
-def _timestamp(value: Any) -> float:
+def parse_timestamp(value: Any) -> float:
     if type(value) is not str or len(value) < 20 or value[10] not in "Tt ":
-        raise _Reject("bad_timestamp", f"timestamp {value!r} is not an RFC 3339 date-time")
+        raise Reject("bad_timestamp", f"timestamp {value!r} is not an RFC 3339 date-time")
     try:
         dt = datetime.fromisoformat(value)
     except ValueError:
-        raise _Reject("bad_timestamp", f"timestamp {value!r} is not an RFC 3339 date-time") from None
+        raise Reject("bad_timestamp", f"timestamp {value!r} is not an RFC 3339 date-time") from None
     if dt.tzinfo is None:
-        raise _Reject("bad_timestamp", f"timestamp {value!r} has no UTC offset")
+        raise Reject("bad_timestamp", f"timestamp {value!r} has no UTC offset")
     return dt.timestamp()
 
 
@@ -462,11 +462,11 @@ class FrameDecoder:
             mark = len(s_f)
             try:
                 if type(obj) is not dict:
-                    raise _Reject("bad_type", f"a frame must be a JSON object, got {type(obj).__name__}")
+                    raise Reject("bad_type", f"a frame must be a JSON object, got {type(obj).__name__}")
                 if fid_known is None:
-                    raise _Reject("missing_field" if fid is None else "bad_type", "frame_id must be an integer")
+                    raise Reject("missing_field" if fid is None else "bad_type", "frame_id must be an integer")
                 if fid < 0:
-                    raise _Reject("bad_value", f"frame_id {fid} is negative (CDF frame ids count from 0)")
+                    raise Reject("bad_value", f"frame_id {fid} is negative (CDF frame ids count from 0)")
                 t = self._check_frame(obj)
                 if fid <= gate.last_id:
                     if fid in gate.recent_set:
@@ -477,7 +477,7 @@ class FrameDecoder:
                         errors.append(FrameError("late", f"frame {fid} arrived after frame {gate.last_id}", fid, line))
                     continue
                 if t < gate.last_t:
-                    raise _Reject("bad_timestamp", "timestamp goes back in time")
+                    raise Reject("bad_timestamp", "timestamp goes back in time")
                 period = PERIOD_INDEX[obj["period"]]
                 slot = gate.slot_of(period, t)
                 row = len(fids)
@@ -493,7 +493,7 @@ class FrameDecoder:
                         for side in (0, 1):
                             self._players(obj["teams"][("home", "away")[side]], side, row, [], [], [], [])
                         raise
-            except _Reject as rej:
+            except Reject as rej:
                 del s_f[mark:], s_p[mark:], s_x[mark:], s_y[mark:]
                 res.rejected += 1
                 errors.append(FrameError(rej.code, rej.message, fid_known, line))
@@ -539,28 +539,28 @@ class FrameDecoder:
     def _check_frame(self, obj: dict[str, Any]) -> float:
         for key in ("timestamp", "period", "teams"):
             if key not in obj:
-                raise _Reject("missing_field", f"missing required field {key!r}")
+                raise Reject("missing_field", f"missing required field {key!r}")
         period = obj["period"]
         if type(period) is not str or period not in PERIOD_INDEX:
-            raise _Reject("bad_value", f"period {period!r} is not one of {', '.join(PERIODS)}")
+            raise Reject("bad_value", f"period {period!r} is not one of {', '.join(PERIODS)}")
         match = obj.get("match")
         if match is not None:
             mid = match.get("id") if type(match) is dict else None
             if mid != self.roster.match_id:
-                raise _Reject("wrong_match", f"match.id {mid!r} is not {self.roster.match_id!r}")
+                raise Reject("wrong_match", f"match.id {mid!r} is not {self.roster.match_id!r}")
         teams = obj["teams"]
         if type(teams) is not dict or "home" not in teams or "away" not in teams:
-            raise _Reject("missing_field", "teams must hold 'home' and 'away'")
+            raise Reject("missing_field", "teams must hold 'home' and 'away'")
         for side, tid in zip(("home", "away"), self.roster.team_ids):
             team = teams[side]
             if type(team) is not dict:
-                raise _Reject("bad_type", f"teams.{side} must be an object")
+                raise Reject("bad_type", f"teams.{side} must be an object")
             got = team.get("id", tid)
             if got != tid:
-                raise _Reject("unknown_team", f"teams.{side}.id {got!r} is not {tid!r}")
+                raise Reject("unknown_team", f"teams.{side}.id {got!r} is not {tid!r}")
             if type(team.get("players")) is not list:
-                raise _Reject("missing_field" if "players" not in team else "bad_type", f"teams.{side}.players must be an array")
-        return _timestamp(obj["timestamp"])
+                raise Reject("missing_field" if "players" not in team else "bad_type", f"teams.{side}.players must be an array")
+        return parse_timestamp(obj["timestamp"])
 
     def _players(self, team: dict[str, Any], side: int, row: int,
                  s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> None:
@@ -572,17 +572,17 @@ class FrameDecoder:
         self._players_exact(plist, side, row, s_f, s_p, s_x, s_y)
 
     def _player(self, pl: Any, side: int) -> tuple[int, str]:
-        """(roster index, id) of a player entry of team ``side``; _Reject naming what is wrong."""
+        """(roster index, id) of a player entry of team ``side``; Reject naming what is wrong."""
         if type(pl) is not dict:
-            raise _Reject("bad_type", "a player entry must be an object")
+            raise Reject("bad_type", "a player entry must be an object")
         pid = pl.get("id")
         if type(pid) is not str:
-            raise _Reject("bad_type" if "id" in pl else "missing_field", "a player entry needs a string id")
+            raise Reject("bad_type" if "id" in pl else "missing_field", "a player entry needs a string id")
         i = self.roster.index.get(pid)
         if i is None:
-            raise _Reject("unknown_player", f"player {pid!r} is not in the match sheet")
+            raise Reject("unknown_player", f"player {pid!r} is not in the match sheet")
         if self.roster.players[i].team != side:
-            raise _Reject("unknown_player", f"player {pid!r} is listed under the other team")
+            raise Reject("unknown_player", f"player {pid!r} is listed under the other team")
         return i, pid
 
     def _players_exact(self, plist: list[Any], side: int, row: int,
@@ -595,15 +595,15 @@ class FrameDecoder:
             y = pl.get("y")
             if x is None or y is None:
                 if pl.get("lat") is not None or pl.get("long") is not None:
-                    raise _Reject("no_calibration", f"player {pid!r} has lat/long but no x/y, and the match set-up "
+                    raise Reject("no_calibration", f"player {pid!r} has lat/long but no x/y, and the match set-up "
                                                     "has no GNSS pitch calibration (meta venue.gnss_pitch)")
                 if "x" not in pl or "y" not in pl:
-                    raise _Reject("missing_field", f"player {pid!r} lacks x or y")
+                    raise Reject("missing_field", f"player {pid!r} lacks x or y")
                 continue  # null: not seen this frame (the schema allows it)
             if type(x) not in _NUM or type(y) not in _NUM:
-                raise _Reject("bad_type", f"player {pid!r} x/y must be numbers")
+                raise Reject("bad_type", f"player {pid!r} x/y must be numbers")
             if not (-x_lim <= x <= x_lim and -y_lim <= y <= y_lim):
-                raise _Reject("out_of_pitch", f"player {pid!r} at ({x}, {y}) is far outside the pitch")
+                raise Reject("out_of_pitch", f"player {pid!r} at ({x}, {y}) is far outside the pitch")
             s_f.append(row)
             s_p.append(i)
             s_x.append(x)
@@ -617,16 +617,16 @@ class FrameDecoder:
         plain: list[Any] = []
         for pl in plist:
             if type(pl) is not dict:
-                raise _Reject("bad_type", "a player entry must be an object")
+                raise Reject("bad_type", "a player entry must be an object")
             lat, lon = pl.get("lat"), pl.get("long")
             if lat is None and lon is None:
                 plain.append(pl)
                 continue
             i, pid = self._player(pl, side)
             if type(lat) not in _NUM or type(lon) not in _NUM or not (math.isfinite(lat) and math.isfinite(lon)):
-                raise _Reject("bad_type", f"player {pid!r} lat/long must both be numbers")
+                raise Reject("bad_type", f"player {pid!r} lat/long must both be numbers")
             if not (-90.0 <= lat <= 90.0 and -180.0 <= lon <= 180.0):
-                raise _Reject("bad_value", f"player {pid!r} at lat {lat}, long {lon} is not a WGS 84 position")
+                raise Reject("bad_value", f"player {pid!r} at lat {lat}, long {lon} is not a WGS 84 position")
             gnss.append((i, pid, lat, lon, id(pl)))
         if plain:
             self._players_exact(plain, side, row, s_f, s_p, s_x, s_y)
@@ -640,7 +640,7 @@ class FrameDecoder:
         bad = np.flatnonzero((np.abs(xs) > self.x_lim) | (np.abs(ys) > self.y_lim))
         if bad.size:
             k = int(bad[0])
-            raise _Reject("out_of_pitch", f"player {gnss[k][1]!r} at lat {gnss[k][2]}, long {gnss[k][3]} is "
+            raise Reject("out_of_pitch", f"player {gnss[k][1]!r} at lat {gnss[k][2]}, long {gnss[k][3]} is "
                                           f"{float(xs[k]):.1f}, {float(ys[k]):.1f} m from the centre spot: far outside the pitch")
         s_f.extend([row] * len(gnss))
         s_p.extend(g[0] for g in gnss)
@@ -732,20 +732,20 @@ class FrameDecoder:
         if ball is None:
             return BALL_UNKNOWN, NO_TEAM
         if type(ball) is not dict:
-            raise _Reject("bad_type", "ball must be an object")
+            raise Reject("bad_type", "ball must be an object")
         status = ball.get("status")
         if status is None:
             state = BALL_UNKNOWN
         elif type(status) is bool:
             state = BALL_IN if status else BALL_OUT
         else:
-            raise _Reject("bad_type", "ball.status must be a boolean")
+            raise Reject("bad_type", "ball.status must be a boolean")
         team = NO_TEAM
         tid = ball.get("poss_team_id")
         if tid is not None:
             if type(tid) is not str:
-                raise _Reject("bad_type", "ball.poss_team_id must be a string")
+                raise Reject("bad_type", "ball.poss_team_id must be a string")
             team = self._team_index.get(tid, -2)
             if team == -2:
-                raise _Reject("unknown_team", f"ball.poss_team_id {tid!r} is neither team")
+                raise Reject("unknown_team", f"ball.poss_team_id {tid!r} is neither team")
         return state, team

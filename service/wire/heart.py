@@ -12,9 +12,9 @@ from typing import Any, Iterable, Sequence
 
 import numpy as np
 
-from service.engine.heart import HeartParams
-from service.engine.types import Roster
-from service.wire.cdf import FrameError, _Reject, _timestamp, decode_json_lines, parse_message
+from pacewire.engine.heart import HeartParams
+from pacewire.engine.types import Roster
+from pacewire.wire.cdf import FrameError, Reject, parse_timestamp, decode_json_lines, parse_message
 
 SAMPLE_KEYS = ("player_id", "timestamp", "bpm")
 _KEY_SET = frozenset(SAMPLE_KEYS)
@@ -117,7 +117,7 @@ class HrDecoder:
                     continue
                 if not self.recorded:
                     self._jump(i, t, bpm, obj)
-            except _Reject as rej:
+            except Reject as rej:
                 res.rejected += 1
                 errors.append(FrameError(rej.code, rej.message, None, line))
                 continue
@@ -139,31 +139,31 @@ class HrDecoder:
     def _check(self, obj: Any) -> tuple[int, float, float]:
         """Shape, types, roster and plausibility; returns (roster index, t, bpm)."""
         if type(obj) is not dict:
-            raise _Reject("bad_type", f"a heart-rate sample must be a JSON object, got {type(obj).__name__}")
+            raise Reject("bad_type", f"a heart-rate sample must be a JSON object, got {type(obj).__name__}")
         for key in SAMPLE_KEYS:
             if key not in obj:
-                raise _Reject("missing_field", f"missing required field {key!r}")
+                raise Reject("missing_field", f"missing required field {key!r}")
         extra = [key for key in obj if key not in _KEY_SET]
         if extra:
-            raise _Reject("bad_value", f"unknown field(s) {', '.join(repr(x) for x in extra[:5])}; "
+            raise Reject("bad_value", f"unknown field(s) {', '.join(repr(x) for x in extra[:5])}; "
                                        f"a sample holds only {', '.join(SAMPLE_KEYS)}")
         pid = obj["player_id"]
         if type(pid) is not str:
-            raise _Reject("bad_type", f"player_id must be a string, got {type(pid).__name__}")
+            raise Reject("bad_type", f"player_id must be a string, got {type(pid).__name__}")
         i = self.roster.index.get(pid)
         if i is None:
-            raise _Reject("unknown_player", f"player {pid!r} is not in the match sheet")
+            raise Reject("unknown_player", f"player {pid!r} is not in the match sheet")
         try:
-            t = _timestamp(obj["timestamp"])
+            t = parse_timestamp(obj["timestamp"])
         except (OverflowError, OSError, ValueError):  # a valid date-time outside the epoch range
-            raise _Reject("bad_timestamp", f"timestamp {obj['timestamp']!r} is out of range") from None
+            raise Reject("bad_timestamp", f"timestamp {obj['timestamp']!r} is out of range") from None
         bpm = obj["bpm"]
         if type(bpm) not in (int, float):  # bool is not a number here
-            raise _Reject("bad_type", f"player {pid!r}: bpm must be a number, got {type(bpm).__name__}")
+            raise Reject("bad_type", f"player {pid!r}: bpm must be a number, got {type(bpm).__name__}")
         if type(bpm) is float and not math.isfinite(bpm):
-            raise _Reject("bad_value", f"player {pid!r}: bpm {bpm!r} is not a finite number")
+            raise Reject("bad_value", f"player {pid!r}: bpm {bpm!r} is not a finite number")
         if not self.p.min_bpm <= bpm <= self.p.max_bpm:
-            raise _Reject("implausible_bpm", f"player {pid!r}: bpm {bpm!r} is outside "
+            raise Reject("implausible_bpm", f"player {pid!r}: bpm {bpm!r} is outside "
                                              f"[{self.p.min_bpm:g}, {self.p.max_bpm:g}]")
         return i, t, float(bpm)
 
@@ -179,6 +179,6 @@ class HrDecoder:
         limit = self.p.max_jump_bpm_s * max(dt, 1.0)
         if abs(bpm - last) > limit:
             gate.streak[i] += 1
-            raise _Reject("hr_jump", f"player {obj['player_id']!r}: bpm {obj['bpm']!r} at {obj['timestamp']} differs "
+            raise Reject("hr_jump", f"player {obj['player_id']!r}: bpm {obj['bpm']!r} at {obj['timestamp']} differs "
                                      f"from the last accepted {last:g} by more than {limit:g} "
                                      f"({self.p.max_jump_bpm_s:g} bpm/s over {dt:.3g} s)")

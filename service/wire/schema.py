@@ -4,7 +4,7 @@ The models are the one source of truth for the published schemas: ``docs/schema/
 is written from them (``make schema``), ``GET /api/schema/messages`` serves them,
 and the tests check that both agree with the models and with what a real server
 sends. The models describe; the server builds its messages elsewhere
-(``service.engine.snapshot``, ``service.live``), so a test validates real
+(``pacewire.engine.snapshot``, ``pacewire.live``), so a test validates real
 messages against these schemas.
 
 Units are SI and part of every field name (``_m`` metres, ``_ms`` m/s, ``_s``
@@ -15,7 +15,7 @@ The published schemas are open (unknown fields allowed): within a contract
 version fields are only added. :func:`strict` closes every object, which the
 tests use to catch a field the server sends but the models do not describe.
 
-Run ``python -m service.wire.schema --out docs/schema`` to write the files.
+Run ``python -m pacewire.wire.schema --out docs/schema`` to write the files.
 """
 from __future__ import annotations
 
@@ -30,8 +30,8 @@ from typing import Annotated, Any, Literal, Union
 
 from pydantic import BaseModel, ConfigDict, Field, create_model
 
-from service.engine.types import PERIODS
-from service.wire.messages import CONTRACT_VERSION
+from pacewire.engine.types import PERIODS
+from pacewire.wire.messages import CONTRACT_VERSION
 
 JSON_SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
 
@@ -424,7 +424,7 @@ def write(out: Path) -> list[Path]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="python -m service.wire.schema", description=__doc__.splitlines()[0])
+    p = argparse.ArgumentParser(prog="python -m pacewire.wire.schema", description=__doc__.splitlines()[0])
     p.add_argument("--out", type=Path, help="folder to write NAME.json files into (default: print `message`)")
     args = p.parse_args(argv)
     if args.out is None:

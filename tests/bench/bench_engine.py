@@ -31,11 +31,11 @@ if str(_TESTS) not in sys.path:
     sys.path.insert(0, str(_TESTS))  # cdf_build
 
 import cdf_build as cb  # noqa: E402
-from service.config import Settings, load_settings  # noqa: E402
-from service.engine.exertion import G, minetti_cost  # noqa: E402
-from service.engine.match import MatchState  # noqa: E402
-from service.engine.types import BALL_IN, PERIOD_INDEX, Block  # noqa: E402
-from service.wire.cdf import DecodeResult, FrameDecoder, parse_setup  # noqa: E402
+from pacewire.config import Settings, load_settings  # noqa: E402
+from pacewire.engine.exertion import G, minetti_cost  # noqa: E402
+from pacewire.engine.match import MatchState  # noqa: E402
+from pacewire.engine.types import BALL_IN, PERIOD_INDEX, Block  # noqa: E402
+from pacewire.wire.cdf import DecodeResult, FrameDecoder, parse_setup  # noqa: E402
 
 FPS = 25
 N_SIDE, N_BENCH = 11, 7  # per team: on the pitch, on the bench (never seen)

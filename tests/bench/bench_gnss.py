@@ -33,7 +33,7 @@ _ROOT = Path(__file__).resolve().parents[2]
 if str(_ROOT) not in sys.path:
     sys.path.insert(0, str(_ROOT))
 
-from service.wire.gnss import PitchProjection, rectangle  # noqa: E402
+from pacewire.wire.gnss import PitchProjection, rectangle  # noqa: E402
 
 FPS = 25
 PLAYERS = 22

@@ -83,7 +83,7 @@ def wait_listed(http: str, kind: str, timeout: float = 300.0, every: float = 0.0
 
 
 def snapshot_s(folder: Path, repeats: int = 3) -> float:
-    from service.analyze import analyze_folder
+    from pacewire.analyze import analyze_folder
 
     state = analyze_folder(folder).state
     best = float("inf")

@@ -204,7 +204,7 @@ def get_json(http: httpx.Client, path: str) -> dict:
 
 
 def cli(*args: str, **kw) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "service.cli", *args], cwd=ROOT, **kw)
+    return subprocess.run([sys.executable, "-m", "pacewire", *args], cwd=ROOT, **kw)
 
 
 def _entry(value: float, unit: str, baseline: float | None = None, ratio: float | None = None) -> dict:
@@ -240,7 +240,7 @@ def run(quick: bool) -> dict[str, dict]:
             subs = Subscribers(srv.ws, SUBSCRIBERS)  # all in before the first frame
             t_start = time.monotonic()
             replay_log = open(tmp / "replay.log", "wb")  # its progress lines: a pipe could fill up
-            replay = subprocess.Popen([sys.executable, "-m", "service.cli", "replay", str(folder), "--to",
+            replay = subprocess.Popen([sys.executable, "-m", "pacewire", "replay", str(folder), "--to",
                                        f"{srv.ws}/ingest/{MATCH}", "--speed", str(SPEED)], cwd=ROOT,
                                       stdout=subprocess.DEVNULL, stderr=replay_log)
             next_t = t_start

@@ -35,10 +35,10 @@ for _p in (_HERE, _HERE.parent, _HERE.parents[1]):
 
 import cdf_build as cb  # noqa: E402
 from bench_engine import best_of, synth_match  # noqa: E402
-from service.analyze import new_match  # noqa: E402
-from service.config import load_settings  # noqa: E402
-from service.wire.gnss import PitchProjection, rectangle  # noqa: E402
-from service.wire.heart import HrDecoder  # noqa: E402
+from pacewire.analyze import new_match  # noqa: E402
+from pacewire.config import load_settings  # noqa: E402
+from pacewire.wire.gnss import PitchProjection, rectangle  # noqa: E402
+from pacewire.wire.heart import HrDecoder  # noqa: E402
 
 FPS = 25
 N_TEAM = 11

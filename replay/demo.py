@@ -35,8 +35,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from replay.player import _speed, replay
-    from replay.synth import write_match
+    from pacewire.replay.player import _speed, replay
+    from pacewire.replay.synth import write_match
 
     data = Path(args.data)
     folder = data / "demo_match"
@@ -46,7 +46,7 @@ def run(args: argparse.Namespace) -> int:
         write_match(folder, minutes=args.minutes, seed=args.seed)
         print(f"  done in {time.monotonic() - t0:.0f} s", flush=True)
     host = "127.0.0.1"
-    server = subprocess.Popen([sys.executable, "-m", "service.cli", "serve", "--host", host, "--port", str(args.port),
+    server = subprocess.Popen([sys.executable, "-m", "pacewire", "serve", "--host", host, "--port", str(args.port),
                                "--data", str(data / "server"), "--log-level", "warning"])
     try:
         deadline = time.monotonic() + 60

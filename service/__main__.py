@@ -1,0 +1,6 @@
+"""``python -m pacewire``: the ``pacewire`` command."""
+import sys
+
+from pacewire.cli import main
+
+sys.exit(main())
