@@ -6,9 +6,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
+import numpy as np
+
 from pacewire.wire.recording import Recording, open_recording
 from pacewire.config import Settings, load_settings
-from pacewire.engine.match import MatchState
+from pacewire.engine.match import CLOCK_START_MIN, MatchState
+from pacewire.engine.types import PERIODS
+from pacewire.events import applies_by, apply_event
 from pacewire.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
 from pacewire.wire.heart import HrDecoder
 
@@ -107,3 +111,34 @@ def print_table(snapshot: dict[str, Any], out: Any = sys.stdout) -> None:
           f"jumps {h['jumps']}", file=out)
     print("Figures are estimates from positional data; decisions on injury, return-to-play and "
           "substitution stay with the club's qualified medical and performance staff.", file=out)
+
+
+_CLOCK_S = np.array([CLOCK_START_MIN[p] * 60.0 for p in PERIODS])  # match clock at each period's start, s
+
+
+def figures_at(folder: Path, settings: Settings, match_id: str, at_s: float,
+               events: list[dict[str, Any]]) -> dict[str, Any]:
+    """The snapshot body as it was at match time ``at_s``: the engine over the recorded frames
+    up to then (the tail finalised, as a stalled feed shows it) plus the match events up to then.
+    Blocking: run it in a thread."""
+    rec = open_recording(folder)
+    state, decoder = new_match(rec.meta, rec.sheet, settings, match_id)
+    add_heart_rate(state, rec)  # samples after the cut stay pending: tracking never reaches them
+    fps = state.fps
+    for first, lines in rec.batches():
+        res = decoder.decode_lines(lines, first_line=first)
+        b = res.block
+        if len(b):
+            clock = _CLOCK_S[b.period] + b.slot / fps
+            keep = int(np.searchsorted(clock, at_s + 1e-9, side="right"))  # frames are in match-clock order
+            if keep < len(b):
+                res.block = b.take(slice(0, keep))
+                state.ingest(res)
+                break
+        state.ingest(res)
+    last_fid = state.last_frame_id if state.frames else None
+    for ev in events:
+        if applies_by(ev, last_fid, at_s):
+            apply_event(state, ev)
+    state.freeze()
+    return state.snapshot()

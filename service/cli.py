@@ -33,14 +33,21 @@ def _analyze(args: argparse.Namespace) -> int:
         return 2
     snap = result.snapshot()
     if args.json:
-        from pacewire.wire.messages import envelope
+        from pacewire.wire.messages import snapshot_message
 
-        body = {k: snap[k] for k in ("players", "teams", "health")}
-        msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"], **body)
+        msg = snapshot_message(snap["match_id"], snap)
         sys.stdout.buffer.write(orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
     else:
         print_table(snap)
     return 0
+
+
+def _serve(args: argparse.Namespace) -> int:
+    if args.role == "all":
+        from pacewire.live.server import run
+        return run(args)
+    from pacewire.scale.roles import run_role
+    return run_role(args)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -66,7 +73,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("serve", help="run the live service")
     server.add_arguments(p)
-    p.set_defaults(func=server.run)
+    p.set_defaults(func=_serve)
 
     from pacewire.replay import demo
 

@@ -16,7 +16,12 @@ if TYPE_CHECKING:
 
 
 class PacewireError(Exception):
-    """Base of every exception pacewire raises on purpose."""
+    """Base of every exception pacewire raises on purpose.
+
+    ``code`` is the error's name on the wire (``error`` messages and ``{"error": ...}`` bodies).
+    """
+
+    code = "error"
 
 
 def describe_validation(exc: ValidationError, prefix: str = "", limit: int | None = 10) -> str:
@@ -31,3 +36,9 @@ def describe_validation(exc: ValidationError, prefix: str = "", limit: int | Non
         key = ".".join([*([prefix] if prefix else []), *(str(p) for p in err["loc"])]) or "body"
         parts.append(f"{key}: {err['msg'].removeprefix('Value error, ')}")
     return "; ".join(parts)
+
+
+class NotStored(PacewireError, RuntimeError):
+    """The recording or the store could not keep what was sent: nothing of it counts; send it again."""
+
+    code = "not_stored"

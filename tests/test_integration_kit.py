@@ -27,7 +27,7 @@ import cdf_build as cb
 from live_server import LiveServer
 from pacewire.analyze import analyze_folder
 from pacewire.client import SubscriptionError, run_until, subscribe, subscribe_sync
-from pacewire.live.integrations import FIGURE_COLUMNS
+from pacewire.reports.export import FIGURE_COLUMNS
 from pacewire.wire.schema import json_schemas, strict
 
 ROOT = Path(__file__).resolve().parent.parent

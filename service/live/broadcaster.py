@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any, Awaitable, Callable
 
 from pacewire.wire.messages import changed, dumps, envelope
+from pacewire.wire.view import View
 
 log = logging.getLogger("pacewire.broadcaster")
 
@@ -30,55 +31,6 @@ def _pack(text: str) -> bytes:
 
 def _unpack(entry: str | bytes) -> str:
     return entry if type(entry) is str else zlib.decompress(entry).decode()
-
-
-class ViewError(ValueError):
-    """A subscription asked for a view that does not exist."""
-
-
-@dataclass(frozen=True)
-class View:
-    kind: str  # "all" | "team" | "players"
-    ids: tuple[str, ...] = ()
-
-    @property
-    def key(self) -> str:
-        return self.kind if self.kind == "all" else f"{self.kind}:{','.join(self.ids)}"
-
-    @staticmethod
-    def parse(text: str, team_ids: tuple[str, ...], player_ids: set[str]) -> "View":
-        if text == "all":
-            return View("all")
-        kind, _, rest = text.partition(":")
-        ids = tuple(i for i in rest.split(",") if i)
-        if kind == "team":
-            if len(ids) != 1 or ids[0] not in team_ids:
-                raise ViewError(f"view {text!r}: team must be one of {', '.join(team_ids)}")
-            return View("team", ids)
-        if kind == "players":
-            unknown = [i for i in ids if i not in player_ids]
-            if not ids or unknown:
-                raise ViewError(f"view {text!r}: unknown players {', '.join(unknown) or '(none given)'}")
-            return View("players", tuple(sorted(set(ids))))
-        raise ViewError(f"view {text!r} is not 'all', 'team:ID' or 'players:ID,ID'")
-
-    def body(self, snap: dict[str, Any]) -> dict[str, Any]:
-        """The part of a snapshot this view shows."""
-        if self.kind == "all":
-            return {"players": snap["players"], "teams": snap["teams"], "health": snap["health"]}
-        if self.kind == "team":
-            tid = self.ids[0]
-            players = {k: v for k, v in snap["players"].items() if v["team_id"] == tid}
-            return {"players": players, "teams": {tid: snap["teams"][tid]}, "health": snap["health"]}
-        players = {k: snap["players"][k] for k in self.ids}
-        return {"players": players, "teams": snap["teams"], "health": snap["health"]}
-
-    def shows_player(self, player_id: str | None, team_id: str | None) -> bool:
-        if self.kind == "all" or player_id is None:
-            return True
-        if self.kind == "team":
-            return team_id == self.ids[0]
-        return player_id in self.ids
 
 
 class Subscriber:
@@ -196,11 +148,11 @@ class Broadcaster:
             g = self.groups[key] = Group(view, every)
         return g
 
-    def _message(self, g: Group, kind: str, **body: Any) -> str:
+    def _message(self, g: Group, msg_type: str, /, **body: Any) -> str:
         g.seq += 1
         snap_time, period = g.meta
         period = body.pop("period", period)
-        text = dumps(envelope(kind, self.match_id, g.seq, snap_time, period, **body)).decode()
+        text = dumps(envelope(msg_type, self.match_id, g.seq, snap_time, period, **body)).decode()
         now = time.monotonic()
         g.buffer.append((g.seq, now, text))
         self._trim(g, now)
@@ -235,18 +187,18 @@ class Broadcaster:
         self.dropped += 1
         self._on_drop()
         assert sub.group is not None
-        sub.queue.put_nowait(self._snapshot_text(sub.group, resync=True))
+        sub.queue.put_nowait(self.snapshot_text(sub.group, resync=True))
 
-    def _snapshot_text(self, g: Group, resync: bool = False) -> str:
+    def snapshot_text(self, g: Group, resync: bool = False) -> str:
         if g.state is None:
-            self._refresh_state(g)
+            self.refresh(g)
         snap_time, period = g.meta
         body: dict[str, Any] = dict(g.state or {})
         if resync:
             body["resync"] = True
         return dumps(envelope("snapshot", self.match_id, g.seq, snap_time, period, **body)).decode()
 
-    def _refresh_state(self, g: Group) -> dict[str, Any] | None:
+    def refresh(self, g: Group) -> dict[str, Any] | None:
         """Move the group to the current state; returns the delta body (None if unchanged)."""
         snap = self.snapshot()
         new = g.view.body(snap)
@@ -287,7 +239,7 @@ class Broadcaster:
             if not force and not self._due(g, now, frames):
                 continue
             if g.state is None:
-                self._refresh_state(g)
+                self.refresh(g)
                 self._mark_sent(g, now, frames)
                 continue
             self._advance(g, now, frames)
@@ -296,7 +248,7 @@ class Broadcaster:
     def _advance(self, g: Group, now: float, frames: int | None = None) -> None:
         """Send the stream's delta to the current state, if anything changed."""
         old_meta = g.meta
-        d = self._refresh_state(g)
+        d = self.refresh(g)
         if d is None and g.meta == old_meta:
             return
         self._mark_sent(g, now, frames)
@@ -312,13 +264,15 @@ class Broadcaster:
         if g.state is not None:
             self._advance(g, time.monotonic())
 
-    def publish(self, kind: str, player_id: str | None = None, team_id: str | None = None, **body: Any) -> None:
-        """An event message (health, alert, period, report) to every stream that shows it."""
+    def publish(self, msg_type: str, /, **body: Any) -> None:
+        """An event message (health, alert, period, report) to every stream that shows it: a message
+        about a player (``player_id``, ``team_id`` in its body) goes only to views that show him."""
+        player_id, team_id = body.get("player_id"), body.get("team_id")
         for g in list(self.groups.values()):
             if g.view.shows_player(player_id, team_id):
                 if g.state is None:
-                    self._refresh_state(g)
-                self._fan_out(g, self._message(g, kind, **body))
+                    self.refresh(g)
+                self._fan_out(g, self._message(g, msg_type, **body))
 
     def _expire(self, now: float) -> None:
         """Forget streams nobody follows once their resume buffer has run out, and the longest idle
@@ -351,7 +305,7 @@ class Broadcaster:
                 since == g.seq or (g.buffer and g.buffer[0][0] <= since + 1)):
             first = [_unpack(entry) for seq, _, entry in g.buffer if seq > since]
         else:
-            first = [self._snapshot_text(g, resync=since is not None)]
+            first = [self.snapshot_text(g, resync=since is not None)]
         for text in first:
             sub.queue.put_nowait(text)
         g.subscribers.add(sub)

@@ -2,24 +2,27 @@
 from __future__ import annotations
 
 import logging
-import re
 from pathlib import Path
 from typing import Any
 
 import orjson
 
 from pacewire.config import Settings
-from pacewire.live.ingest import Hooks, MatchRunner
+from pacewire.errors import PacewireError
+from pacewire.live.metrics import Hooks
 from pacewire.live.recorder import write_json_atomic
+from pacewire.live.recovery import recover
+from pacewire.live.runner import MatchRunner
 from pacewire.wire.cdf import gnss_tolerances, parse_setup
+from pacewire.wire.match_id import check_match_id, is_match_id
 
 log = logging.getLogger("pacewire.matches")
 
-MATCH_ID = re.compile(r"^[A-Za-z0-9_.-]{1,64}$")
 
+class SetupConflict(PacewireError, ValueError):
+    """The match exists with a different set-up and already has data."""
 
-class SetupConflict(ValueError):
-    """The match exists with a different set-up and already has frames."""
+    code = "conflict"
 
 
 class Matches:
@@ -34,12 +37,11 @@ class Matches:
         return self.runners.get(match_id)
 
     def folder(self, match_id: str) -> Path:
-        if not MATCH_ID.match(match_id) or match_id in (".", ".."):
-            raise ValueError(f"match id {match_id!r} must match {MATCH_ID.pattern} and not be . or ..")
-        return self.root / match_id
+        return self.root / check_match_id(match_id)
 
     def setup(self, match_id: str, meta: Any, sheet: Any) -> tuple[MatchRunner, bool]:
-        """Create (or confirm) a match; returns (runner, created). Raises SetupError, SetupConflict."""
+        """Create (or confirm) a match; returns (runner, created). Raises SetupError, SetupConflict,
+        BadMatchId, OSError."""
         folder = self.folder(match_id)
         roster = parse_setup(meta, sheet, match_id, gnss_tolerances(self.settings))
         existing = self.runners.get(match_id)
@@ -61,11 +63,11 @@ class Matches:
 
     def recover_all(self) -> list[str]:
         """Rebuild every match folder found in the data folder (start-up)."""
-        done = []
+        done: list[str] = []
         if not self.root.is_dir():
             return done
         for folder in sorted(self.root.iterdir()):
-            if not folder.is_dir() or not MATCH_ID.match(folder.name):
+            if not folder.is_dir() or not is_match_id(folder.name):
                 continue
             try:
                 meta = orjson.loads((folder / "meta.json").read_bytes())
@@ -75,7 +77,7 @@ class Matches:
                 log.warning("skipping %s: %s", folder, exc)
                 continue
             runner = MatchRunner(roster, self.settings, folder, self.hooks)
-            n = runner.recover()
+            n = recover(runner)
             log.info("recovered %s: %d frames", folder.name, n)
             self.runners[folder.name] = runner
             runner.start()

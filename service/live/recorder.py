@@ -16,9 +16,13 @@ from typing import Any, Awaitable, Callable
 
 import orjson
 
+from pacewire.errors import PacewireError
 
-class RecorderError(OSError):
+
+class RecorderError(PacewireError, OSError):
     """The recording cannot be written; nothing of the batch was kept."""
+
+    code = "not_stored"
 
 
 @dataclass

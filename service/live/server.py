@@ -6,6 +6,9 @@ import logging
 import os
 import sys
 from pathlib import Path
+from typing import Any
+
+from pacewire.config import ConfigError, Settings, load_settings
 
 DEFAULT_PORT = 8750
 
@@ -25,29 +28,41 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--redis", default=os.environ.get("PACEWIRE_REDIS"), help="Redis URL for the scaled roles")
 
 
-def run(args: argparse.Namespace) -> int:
-    if getattr(args, "role", "all") != "all":
-        from pacewire.scale.roles import run_role
-        return run_role(args)
-    import uvicorn
-
-    from pacewire.config import ConfigError, load_settings
-    from pacewire.live.app import ServerOptions, create_app
-
+def load(args: argparse.Namespace) -> Settings | None:
+    """The settings of ``--config`` (None after printing why they cannot be read), and logging set up."""
     try:
         settings = load_settings(args.config)
     except ConfigError as exc:
         print(f"pacewire: {exc}", file=sys.stderr)
-        return 2
+        return None
     logging.basicConfig(level=args.log_level.upper(), format="%(asctime)s %(name)s %(levelname)s %(message)s")
-    opts = ServerOptions(Path(args.data), settings, args.ingest_token or None, args.view_token or None)
-    app = create_app(opts)
+    return settings
+
+
+def serve(app: Any, args: argparse.Namespace, settings: Settings, banner: str) -> int:
+    """Run ``app`` on uvicorn until it is stopped (Ctrl-C or a signal: a graceful shutdown)."""
+    import uvicorn
+
     config = uvicorn.Config(app, host=args.host, port=args.port, ws_max_size=settings.server.max_message_bytes,
                             log_level=args.log_level, lifespan="on", ws_ping_interval=20, ws_ping_timeout=20,
                             # compressing every message once per socket cost most of the fan-out
                             # time (measured, tests/bench/bench_live.py); deltas are small anyway
                             ws_per_message_deflate=False)
-    server = uvicorn.Server(config)
-    print(f"pacewire serving on http://{args.host}:{args.port}/ (data in {opts.data_dir.resolve()})", flush=True)
-    server.run()
+    print(banner, flush=True)
+    try:
+        uvicorn.Server(config).run()
+    except KeyboardInterrupt:  # the signal uvicorn re-raises after its graceful shutdown
+        pass
     return 0
+
+
+def run(args: argparse.Namespace) -> int:
+    """The single process (``--role all``); the other roles run from :mod:`pacewire.scale.roles`."""
+    from pacewire.live.app import ServerOptions, create_app
+
+    settings = load(args)
+    if settings is None:
+        return 2
+    opts = ServerOptions(Path(args.data), settings, args.ingest_token or None, args.view_token or None)
+    return serve(create_app(opts), args, settings,
+                 f"pacewire serving on http://{args.host}:{args.port}/ (data in {opts.data_dir.resolve()})")

@@ -31,12 +31,15 @@ import orjson
 from redis.exceptions import RedisError, ResponseError
 
 from pacewire.config import Settings
-from pacewire.live.broadcaster import Group, Subscriber, View, ViewError
-from pacewire.live.ingest import Hooks, MatchRunner
+from pacewire.live.broadcaster import Group, Subscriber
+from pacewire.live.metrics import Hooks
+from pacewire.live.runner import MatchRunner
 from pacewire.scale import keys
 from pacewire.scale.settings import ScaleSettings
 from pacewire.wire.cdf import parse_setup
 from pacewire.wire.heart import HrResult
+from pacewire.wire.messages import snapshot_message
+from pacewire.wire.view import View, ViewError
 
 log = logging.getLogger("pacewire.scale.aggregator")
 
@@ -79,12 +82,6 @@ for g = 1, (#KEYS - 1) / 2 do
 end
 return 1
 """ % SNAP_TTL_S
-
-
-def seq_of(text: str) -> int:
-    """The seq of a message text (the envelope puts it third, after two plain strings)."""
-    i = text.index('"seq":') + 6
-    return int(text[i:text.index(",", i)])
 
 
 class _SinkQueue:
@@ -162,14 +159,7 @@ class AggMatch:
                 n += len(batch)
                 start = batch[-1][0]
         await self._read_counts()
-        h = r.state.health
-        h.first_arrival = h.last_arrival = None  # as after a restart: health starts afresh
-        r._period_seen = r.state.period_name()
-        for per in r.state.periods:
-            r._period_told.add(("start", per.name))
-            if per.ended:
-                r._period_told.add(("end", per.name))
-        r.broadcaster.invalidate()
+        r.rebuilt()  # as after a restart: health starts afresh
         # the consumer groups: made if missing, then moved to what was rebuilt; old consumers go
         for key, last in ((self.key, self.last_id), (self.hr_key, self.hr_last_id)):
             try:
@@ -187,12 +177,12 @@ class AggMatch:
     def _checkpoint_state(self) -> dict[str, Any]:
         r = self.runner
         return {"state": r.state, "gate": r.decoder.gate, "score": r.score, "events": r.events,
-                "told": r._period_told, "last_id": self.last_id, "hr_last_id": self.hr_last_id}
+                "told": r.periods.told, "last_id": self.last_id, "hr_last_id": self.hr_last_id}
 
     def _restore(self, cp: dict[str, Any]) -> None:
         r = self.runner
         r.state, r.decoder.gate, r.score, r.events = cp["state"], cp["gate"], cp["score"], cp["events"]
-        r._period_told = set(cp["told"])
+        r.periods.told = set(cp["told"])
         self.last_id = cp["last_id"]
         self.hr_last_id = cp.get("hr_last_id", b"0-0")  # a checkpoint from before the heart-rate stream
 
@@ -211,16 +201,9 @@ class AggMatch:
 
         def flush() -> None:
             nonlocal frames
-            if not lines:
-                return
-            res = r.decoder.decode_lines(lines)
-            res.rejected = res.duplicates = res.late = 0  # counted at ingest (keys.counts)
-            try:
-                r.state.ingest(res, now=now)
-            except Exception:  # the engine must never take the match down
-                log.exception("%s: engine failed on a block; block skipped", self.match_id)
-            frames += len(res.block)
-            lines.clear()
+            if lines:
+                frames += r.apply_lines(lines, now=now)  # drops were counted at ingest (keys.counts)
+                lines.clear()
 
         for eid, fields in entries:
             line = fields.get(b"f")
@@ -231,10 +214,7 @@ class AggMatch:
             elif b"e" in fields:
                 flush()
                 try:
-                    ev = orjson.loads(fields[b"e"])
-                    r._apply_event(ev)
-                    if now is not None:
-                        r.event_message(ev)
+                    r.apply_event(orjson.loads(fields[b"e"]), announce=now is not None)
                 except Exception:
                     log.warning("%s: skipped an unreadable event entry %s", self.match_id, eid)
             self.last_id = eid
@@ -260,13 +240,9 @@ class AggMatch:
                 bpm.append(bi)
             self.hr_last_id = eid
         if player:
-            got = HrResult(np.asarray(player, np.int64), np.asarray(t, np.float64), np.asarray(bpm, np.float64), [])
-            try:
-                r.state.ingest_heart(got)  # drops were counted at ingest (keys.counts)
-                if r._stall_view is not None:  # the stalled feed's finalised copy shows them too
-                    r._stall_view.add_heart(got.player, got.t, got.bpm)
-            except Exception:
-                log.exception("%s: engine failed on heart-rate samples; skipped", self.match_id)
+            # drops were counted at ingest (keys.counts)
+            r.add_heart(HrResult(np.asarray(player, np.int64), np.asarray(t, np.float64),
+                                 np.asarray(bpm, np.float64), []))
         return len(player)
 
     async def _read_loop(self) -> None:
@@ -293,10 +269,7 @@ class AggMatch:
             t0 = time.perf_counter()
             n = self._apply(entries, now=time.time()) if entries else 0
             if n:
-                r.applied_frames += n
-                r._stall_view = None
-                r._after_apply()
-                r.hooks.processing(time.perf_counter() - t0)
+                r.after_block(n, t0)
                 r.hooks.frames_in(n)
             try:
                 async with self.redis.pipeline(transaction=False) as p:
@@ -320,7 +293,7 @@ class AggMatch:
         h.duplicates = int(c.get(b"duplicates", 0))
         h.late = int(c.get(b"late", 0))
         hr = tuple(int(c.get(k, 0)) for k in (b"hr_rejected", b"hr_duplicates", b"hr_late"))
-        for st in (r.state, r._stall_view):  # a stalled feed's copy holds its own heart-rate counters
+        for st in (r.state, r.feed.stall_view):  # a stalled feed's copy holds its own heart-rate counters
             if st is not None and (st.hr_rejected, st.hr_duplicates, st.hr_late) != hr:
                 st.hr_rejected, st.hr_duplicates, st.hr_late = hr
                 r.broadcaster.invalidate()
@@ -332,10 +305,7 @@ class AggMatch:
             await asyncio.sleep(1.0)
             try:
                 await self._read_counts()
-                snap = r.broadcaster.snapshot()
-                body = {k: snap[k] for k in ("players", "teams", "health")}
-                from pacewire.wire.messages import envelope
-                msg = envelope("snapshot", self.match_id, 0, snap["match_time_s"], snap["period"], **body)
+                msg = snapshot_message(self.match_id, r.broadcaster.snapshot())
                 summary = r.summary()
                 summary["aggregator"] = self.agg.owner
                 async with self.redis.pipeline(transaction=False) as p:
@@ -383,7 +353,7 @@ class AggMatch:
                 _restore_group(g, orjson.loads(prev))  # the seq carries on from the last owner
             else:
                 await self.redis.delete(sink.buffer_key)  # a new stream starts its buffer afresh
-                b._refresh_state(g)
+                b.refresh(g)
         g.subscribers.add(sink)
         g.idle_since = None
         self.out.put_nowait((sink, None))  # store its snapshot now: gateways open with it
@@ -413,9 +383,9 @@ class AggMatch:
             for sink, texts in streams.values():
                 assert sink.group is not None
                 k += [sink.buffer_key, sink.snapshot_key]
-                a += [sink.channel, b._snapshot_text(sink.group), sink.maxlen, len(texts)]
+                a += [sink.channel, b.snapshot_text(sink.group), sink.maxlen, len(texts)]
                 for t in texts:
-                    a += [seq_of(t), t]
+                    a += [keys.seq_of(t), t]
             ok = False
             for attempt in range(1_000_000):
                 if self.stopped:
@@ -437,7 +407,7 @@ class AggMatch:
         r = self.runner
         self.tasks = [asyncio.create_task(self._read_loop(), name=f"agg-read:{self.match_id}"),
                       asyncio.create_task(self._publish_loop(), name=f"agg-publish:{self.match_id}"),
-                      asyncio.create_task(r._health_loop(), name=f"agg-health:{self.match_id}"),
+                      asyncio.create_task(r.feed.run(), name=f"agg-health:{self.match_id}"),
                       asyncio.create_task(self._status_loop(), name=f"agg-status:{self.match_id}")]
 
     async def stop(self) -> None:

@@ -18,20 +18,17 @@ from collections import deque
 from typing import Any
 
 import orjson
-from fastapi import FastAPI, Request, WebSocket, WebSocketDisconnect
-from fastapi.responses import FileResponse, JSONResponse, Response
-from fastapi.staticfiles import StaticFiles
 from redis.exceptions import RedisError
 
+from pacewire.api.backend import Send
+from pacewire.api.errors import ApiError
+from pacewire.api.requests import StreamParams
 from pacewire.config import Settings
 from pacewire.engine.types import Roster
-from pacewire.live.app import ID, WEB, _error, _same, _token
-from pacewire.live.broadcaster import Subscriber, View, ViewError
+from pacewire.live.broadcaster import Subscriber
 from pacewire.scale import keys
-from pacewire.scale.aggregator import seq_of
 from pacewire.scale.settings import ScaleSettings
 from pacewire.wire.cdf import parse_setup
-from pacewire.wire.messages import envelope
 
 log = logging.getLogger("pacewire.scale.gateway")
 
@@ -93,10 +90,10 @@ class Feed:
             w = float(f.get(b"w", now_wall))
             if w >= horizon:
                 self.buffer.append((keys_seq(eid), now_mono - (now_wall - w), f[b"t"].decode()))
-        self.seq = seq_of(text)
+        self.seq = keys.seq_of(text)
         if self.buffer and self.buffer[-1][0] > self.seq:
             self.seq = self.buffer[-1][0]
-        self.snap = (seq_of(text), text)
+        self.snap = (keys.seq_of(text), text)
         self.ready.set()
         pending, self.pending = self.pending, []
         for t in pending:
@@ -107,7 +104,7 @@ class Feed:
         if not self.ready.is_set() or self.repairing:
             self.pending.append(text)
             return
-        s = seq_of(text)
+        s = keys.seq_of(text)
         if s <= self.seq:
             return
         if s > self.seq + 1:
@@ -147,9 +144,9 @@ class Feed:
                     s = keys_seq(eid)
                     if s == self.seq + 1:
                         self._accept(s, f[b"t"].decode())
-            elif snap is not None and seq_of(snap.decode()) > self.seq:
+            elif snap is not None and keys.seq_of(snap.decode()) > self.seq:
                 text = snap.decode()
-                self.seq = seq_of(text)
+                self.seq = keys.seq_of(text)
                 self.snap = (self.seq, text)
                 self.buffer.clear()
                 for c in list(self.subscribers):
@@ -165,7 +162,7 @@ class Feed:
         if not self.ready.is_set() or self.repairing:
             return
         snap = await self.gw.redis.get(self.snapshot_key)
-        if snap is not None and seq_of(snap.decode()) > self.seq:
+        if snap is not None and keys.seq_of(snap.decode()) > self.seq:
             self.repairing = True
             await self.repair()
 
@@ -175,7 +172,7 @@ class Feed:
         raw = await self.gw.redis.get(self.snapshot_key)
         if raw is not None:
             text = raw.decode()
-            s = seq_of(text)
+            s = keys.seq_of(text)
             if self.snap is None or s >= self.snap[0]:
                 self.snap = (s, text)
         assert self.snap is not None
@@ -360,144 +357,78 @@ class Gateway:
         return sum(len(f.subscribers) for (mid, _), f in self.feeds.items() if mid == match_id)
 
 
-def create_gateway_app(redis: Any, settings: Settings, scale: ScaleSettings,
-                       ingest_token: str | None, view_token: str | None) -> FastAPI:
-    from contextlib import asynccontextmanager
+def unavailable(exc: Exception) -> ApiError:
+    return ApiError(503, "unavailable", f"Redis unavailable: {exc}")
 
-    srv = settings.server
-    gw = Gateway(redis, settings, scale)
 
-    @asynccontextmanager
-    async def lifespan(app: FastAPI):  # noqa: ANN202
-        await gw.start()
-        yield
-        await gw.stop()
+class GatewaySubscription:
+    def __init__(self, gw: Gateway, feed: Feed, client: Client) -> None:
+        self.gw, self.feed, self.client = gw, feed, client
 
-    app = FastAPI(title="pacewire gateway", lifespan=lifespan, docs_url=None, redoc_url=None)
-    app.state.gateway = gw
+    async def pump(self) -> None:
+        await self.gw.pump(self.client)
 
-    def can_read(token: str | None) -> bool:
-        if view_token is None:
-            return True
-        return _same(token, view_token) or (ingest_token is not None and _same(token, ingest_token))
+    def close(self) -> None:
+        self.feed.detach(self.client)
 
-    def unauthorised() -> JSONResponse:
-        return _error(401, "unauthorised", "a valid token is needed (Authorization: Bearer ... or ?token=)")
 
-    def unknown(match_id: str) -> JSONResponse:
-        return _error(404, "unknown_match", f"no match {match_id!r}: set it up with PUT /api/matches/{match_id}")
+class RedisReads:
+    """The gateway role's backend (:class:`~pacewire.api.backend.ReadBackend`): what the aggregators
+    published in Redis."""
 
-    def unavailable(exc: Exception) -> JSONResponse:
-        return _error(503, "unavailable", f"Redis unavailable: {exc}")
+    def __init__(self, gw: Gateway) -> None:
+        self.gw = gw
+        self.redis = gw.redis
 
-    @app.get("/api/matches")
-    async def list_matches(request: Request) -> Response:
-        if not can_read(_token(request.headers, request.query_params)):
-            return unauthorised()
+    async def list_matches(self) -> list[dict[str, Any]]:
         try:
-            ids = sorted(m.decode() for m in await redis.smembers(keys.MATCHES))
-            raws = await redis.mget([keys.summary(m) for m in ids]) if ids else []
+            ids = sorted(m.decode() for m in await self.redis.smembers(keys.MATCHES))
+            raws = await self.redis.mget([keys.summary(m) for m in ids]) if ids else []
         except RedisError as exc:
-            return unavailable(exc)
+            raise unavailable(exc) from None
         out = []
         for mid, raw in zip(ids, raws):
             s = orjson.loads(raw) if raw is not None else {"match_id": mid, "health": "stalled", "frames": 0}
-            s["subscribers"] = gw.subscriber_count(mid)  # on this gateway
+            s["subscribers"] = self.gw.subscriber_count(mid)  # on this gateway
             out.append(s)
-        return JSONResponse({"matches": out})
+        return out
 
-    @app.get("/api/matches/{match_id}/snapshot")
-    async def get_snapshot(request: Request, match_id: str = ID) -> Response:
-        if not can_read(_token(request.headers, request.query_params)):
-            return unauthorised()
+    async def snapshot(self, match_id: str) -> bytes | None:
         try:
-            raw = await redis.get(keys.snapshot(match_id))
+            raw = await self.redis.get(keys.snapshot(match_id))
             if raw is None:
-                if await redis.get(keys.setup(match_id)) is None:
-                    return unknown(match_id)
-                return _error(503, "not_ready", "no aggregator has published this match yet")
+                if await self.redis.get(keys.setup(match_id)) is None:
+                    return None
+                raise ApiError(503, "not_ready", "no aggregator has published this match yet")
         except RedisError as exc:
-            return unavailable(exc)
-        return Response(raw, media_type="application/json")
+            raise unavailable(exc) from None
+        return bytes(raw)
 
-    @app.get("/api/matches/{match_id}/reports")
-    async def get_reports(request: Request, match_id: str = ID) -> Response:
-        if not can_read(_token(request.headers, request.query_params)):
-            return unauthorised()
+    async def report_listing(self, match_id: str) -> list[dict[str, Any]] | None:
         try:
-            if await redis.get(keys.setup(match_id)) is None:
-                return unknown(match_id)
+            if await self.redis.get(keys.setup(match_id)) is None:
+                return None
         except RedisError as exc:
-            return unavailable(exc)
-        return JSONResponse({"match_id": match_id, "reports": []})
+            raise unavailable(exc) from None
+        return []  # reports are written where the recorder role keeps the folders
 
-    @app.websocket("/live/{match_id}")
-    async def ws_live(ws: WebSocket, match_id: str = ID) -> None:
-        await ws.accept()
-        if not can_read(_token(ws.headers, ws.query_params)):
-            await ws.close(code=1008, reason="unauthorised")
-            return
-
-        async def refuse(code: str, message: str) -> None:
-            await ws.send_text(orjson.dumps(envelope("error", match_id, 0, 0.0, None, code=code, message=message)).decode())
-            await ws.close(code=1008)
-
+    async def roster(self, match_id: str) -> Roster | None:
         try:
-            roster = await gw.roster(match_id)
+            return await self.gw.roster(match_id)
         except RedisError as exc:
-            return await refuse("unavailable", f"Redis unavailable: {exc}")
-        if roster is None:
-            return await refuse("unknown_match", f"no match {match_id!r}")
-        q = ws.query_params
-        try:
-            every = float(q.get("every", srv.default_every_s))
-            if not (every == every) or every < 1.0 / roster.fps - 1e-9 or every > srv.max_every_s:
-                raise ValueError
-        except ValueError:
-            return await refuse("bad_request", f"every must be a number of seconds from {1 / roster.fps:g} to {srv.max_every_s:g}")
-        since: int | None = None
-        if "since" in q:
-            try:
-                since = int(q["since"])
-                if since < 0:
-                    raise ValueError
-            except ValueError:
-                return await refuse("bad_request", "since must be a whole number >= 0")
-        try:
-            view = View.parse(q.get("view", "all"), roster.team_ids, set(roster.index))
-        except ViewError as exc:
-            return await refuse("bad_request", str(exc))
-        if gw.subscriber_count(match_id) >= srv.max_subscribers:
-            return await refuse("too_many_subscribers", f"this match already has {srv.max_subscribers} subscribers here")
-        feed = await gw.feed(match_id, keys.stream_key(view.key, every))
-        c = Client(ws.send_text, srv.subscriber_queue)
-        await feed.attach(c, since)
-        pump = asyncio.create_task(gw.pump(c))
-        try:
-            while True:
-                msg = await ws.receive()
-                if msg["type"] == "websocket.disconnect":
-                    break
-        except (WebSocketDisconnect, RuntimeError):
-            pass
-        finally:
-            feed.detach(c)
-            pump.cancel()
-            try:
-                await pump
-            except (asyncio.CancelledError, Exception):
-                pass
+            raise unavailable(exc) from None
 
-    @app.get("/healthz")
-    async def healthz() -> Response:
-        return JSONResponse({"status": "ok", "role": "gateway", "feeds": len(gw.feeds),
-                             "subscribers": sum(len(f.subscribers) for f in gw.feeds.values()),
-                             "messages_out": gw.messages_out, "dropped": gw.dropped, "time": time.time()})
+    async def subscribe(self, match_id: str, params: StreamParams, send: Send) -> GatewaySubscription:
+        limit = self.gw.settings.server.max_subscribers
+        if self.gw.subscriber_count(match_id) >= limit:
+            raise ApiError(429, "too_many_subscribers", f"this match already has {limit} subscribers here")
+        feed = await self.gw.feed(match_id, keys.stream_key(params.view.key, params.every))
+        c = Client(send, self.gw.settings.server.subscriber_queue)
+        await feed.attach(c, params.since)
+        return GatewaySubscription(self.gw, feed, c)
 
-    app.mount("/static", StaticFiles(directory=WEB), name="static")
-
-    @app.get("/")
-    async def index() -> Response:
-        return FileResponse(WEB / "index.html", headers={"Cache-Control": "no-cache"})
-
-    return app
+    async def health(self) -> dict[str, Any]:
+        gw = self.gw
+        return {"status": "ok", "role": "gateway", "feeds": len(gw.feeds),
+                "subscribers": sum(len(f.subscribers) for f in gw.feeds.values()),
+                "messages_out": gw.messages_out, "dropped": gw.dropped, "time": time.time()}

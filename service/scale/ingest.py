@@ -20,20 +20,18 @@ from typing import Any
 
 import numpy as np
 import orjson
-from fastapi import FastAPI, Request, WebSocket, WebSocketDisconnect
-from fastapi.responses import JSONResponse, Response
 from redis.exceptions import RedisError, ResponseError
 
 from pacewire.config import Settings
 from pacewire.engine.match import heart_params
 from pacewire.engine.types import Roster
-from pacewire.live.app import ID, _error, _same, _token
-from pacewire.live.ingest import EventError, IngestOutcome, MatchRunner
-from pacewire.live.matches import MATCH_ID
+from pacewire.errors import NotStored
+from pacewire.events import check_event
+from pacewire.live.matches import SetupConflict
 from pacewire.scale import keys
-from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, SetupError, parse_message, parse_setup
+from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message, parse_setup
 from pacewire.wire.heart import HrDecoder, HrGate
-from pacewire.wire.messages import envelope
+from pacewire.wire.outcome import IngestOutcome
 
 log = logging.getLogger("pacewire.scale.ingest")
 
@@ -66,7 +64,7 @@ return {1, nv}
 HR_ATTEMPTS = 20  # compare-and-set rounds before a batch is answered not_stored (nodes racing on one match)
 
 
-class StoreUnavailable(RuntimeError):
+class StoreUnavailable(NotStored):
     """Redis could not be reached: nothing was kept."""
 
 
@@ -115,8 +113,6 @@ class StreamIngest:
     async def setup(self, match_id: str, meta: Any, sheet: Any) -> tuple[Roster, bool]:
         """Store the set-up in Redis (every role reads the roster from there). Raises SetupError,
         SetupConflict, StoreUnavailable."""
-        from pacewire.live.matches import SetupConflict
-
         roster = parse_setup(meta, sheet, match_id)
         raw = orjson.dumps({"meta": meta, "sheet": sheet})
         try:
@@ -216,7 +212,7 @@ class StreamIngest:
     def _unstored(self, match_id: str, exc: Exception) -> IngestOutcome:
         self.error = f"Redis unavailable: {exc}"
         log.warning("%s: not stored: %s", match_id, exc)
-        return IngestOutcome(0, 0, 0, 0, [], stored=False)
+        return IngestOutcome.unstored()
 
     async def _append(self, match_id: str, m: IngestMatch, res: DecodeResult, raw: list[bytes],
                       cp: tuple) -> IngestOutcome:
@@ -323,16 +319,14 @@ class StreamIngest:
                 # another node moved the gate on since this one last stored it: take it and check again
                 load_gate(dec.gate, ans[2])
                 m.hr_version = ans[1].decode()
-        out = IngestOutcome(0, 0, 0, 0, [], stored=False)
+        out = IngestOutcome.unstored()
         self.error = f"heart-rate gate of match {match_id} changed {HR_ATTEMPTS} times during one batch; send it again"
         return out
 
     # -- events -----------------------------------------------------------------------------------
     async def add_event(self, match_id: str, m: IngestMatch, event: Any) -> dict[str, Any]:
-        """Validate (the single process's rules) and append one match event after the latest frame."""
-        checker = MatchRunner.__new__(MatchRunner)  # only the roster is needed for the checks
-        checker.roster = m.roster
-        ev = MatchRunner._check_event(checker, event)
+        """Check (as the single process does) and append one match event after the latest frame."""
+        ev = check_event(m.roster, event)
         try:
             await self._add_event(keys=[keys.frames(match_id)], args=[orjson.dumps(ev)])
         except RedisError as exc:
@@ -340,187 +334,49 @@ class StreamIngest:
         return ev
 
 
-def create_ingest_app(redis: Any, settings: Settings, ingest_token: str | None) -> FastAPI:
-    srv = settings.server
-    store = StreamIngest(redis, settings)
-    app = FastAPI(title="pacewire ingest", docs_url=None, redoc_url=None)
-    app.state.store = store
+class RedisWriter:
+    """A match's write side in the ingest role (:class:`~pacewire.api.backend.MatchWriter`)."""
 
-    def can_write(token: str | None) -> bool:
-        return ingest_token is None or _same(token, ingest_token)
+    def __init__(self, store: StreamIngest, match_id: str, m: IngestMatch) -> None:
+        self.store, self.match_id, self.m = store, match_id, m
 
-    def unauthorised() -> JSONResponse:
-        return _error(401, "unauthorised", "a valid token is needed (Authorization: Bearer ... or ?token=)")
+    async def frames_lines(self, lines: list[bytes]) -> IngestOutcome:
+        return await self.store.ingest_lines(self.match_id, self.m, lines)
 
-    def unknown(match_id: str) -> JSONResponse:
-        return _error(404, "unknown_match", f"no match {match_id!r}: set it up with PUT /api/matches/{match_id}")
+    async def frames_message(self, data: str | bytes) -> IngestOutcome:
+        return await self.store.ingest_message(self.match_id, self.m, data)
 
-    def unavailable(exc: Exception) -> JSONResponse:
-        return _error(503, "not_stored", str(exc))
+    async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
+        return await self.store.ingest_hr(self.match_id, self.m, data)  # stored once Redis answers
 
-    async def read_body(request: Request) -> bytes | JSONResponse:
-        chunks, total = [], 0
-        async for chunk in request.stream():
-            total += len(chunk)
-            if total > srv.max_message_bytes:
-                return _error(413, "too_large", f"body over {srv.max_message_bytes} bytes")
-            chunks.append(chunk)
-        return b"".join(chunks)
+    async def add_event(self, event: Any) -> None:
+        await self.store.add_event(self.match_id, self.m, event)
 
-    async def writing(request: Request, match_id: str) -> tuple[IngestMatch, bytes] | Response:
-        """A write request's match and body, or the answer refusing it (token, match, size)."""
-        if not can_write(_token(request.headers, request.query_params)):
-            return unauthorised()
+    def store_error(self) -> str:
+        return self.store.error or "Redis unavailable"
+
+    def clock(self) -> tuple[float, str | None]:
+        return 0.0, None  # the ingest role does not run the engine
+
+
+class RedisIngest:
+    """The ingest role's backend (:class:`~pacewire.api.backend.IngestBackend`)."""
+
+    def __init__(self, redis: Any, settings: Settings) -> None:
+        self.redis = redis
+        self.store = StreamIngest(redis, settings)
+
+    async def setup(self, match_id: str, meta: Any, sheet: Any) -> tuple[Roster, bool]:
+        return await self.store.setup(match_id, meta, sheet)
+
+    async def writer(self, match_id: str) -> RedisWriter | None:
+        m = await self.store.get(match_id)
+        return None if m is None else RedisWriter(self.store, match_id, m)
+
+    async def health(self) -> dict[str, Any]:
         try:
-            m = await store.get(match_id)
-        except StoreUnavailable as exc:
-            return unavailable(exc)
-        if m is None:
-            return unknown(match_id)
-        body = await read_body(request)
-        if isinstance(body, Response):
-            return body
-        return m, body
-
-    @app.put("/api/matches/{match_id}")
-    async def put_match(request: Request, match_id: str = ID) -> Response:
-        from pacewire.live.matches import SetupConflict
-
-        if not can_write(_token(request.headers, request.query_params)):
-            return unauthorised()
-        body = await read_body(request)
-        if isinstance(body, Response):
-            return body
-        try:
-            data = orjson.loads(body)
-        except orjson.JSONDecodeError as exc:
-            return _error(400, "bad_json", f"body is not valid JSON: {exc}")
-        if not isinstance(data, dict) or set(data) != {"meta", "sheet"}:
-            return _error(422, "bad_setup", 'body must be {"meta": CDF meta, "sheet": CDF match sheet}')
-        if not MATCH_ID.match(match_id) or match_id in (".", ".."):
-            return _error(422, "bad_setup", f"match id {match_id!r} must match {MATCH_ID.pattern}")
-        try:
-            roster, created = await store.setup(match_id, data["meta"], data["sheet"])
-        except SetupError as exc:
-            return _error(422, "bad_setup", str(exc))
-        except SetupConflict as exc:
-            return _error(409, "conflict", str(exc))
-        except StoreUnavailable as exc:
-            return unavailable(exc)
-        return JSONResponse({"match_id": match_id, "created": created, "players": roster.n, "fps": roster.fps},
-                            status_code=201 if created else 200)
-
-    @app.post("/api/matches/{match_id}/frames")
-    async def post_frames(request: Request, match_id: str = ID) -> Response:
-        got = await writing(request, match_id)
-        if isinstance(got, Response):
-            return got
-        m, body = got
-        lines = body.split(b"\n")
-        if len(lines) > srv.max_batch_frames + 1:
-            return _error(413, "too_many_frames", f"more than {srv.max_batch_frames} frames in one batch")
-        out = await store.ingest_lines(match_id, m, lines)
-        if not out.stored:
-            return _error(503, "not_stored", store.error or "Redis unavailable", **out.as_dict())
-        return JSONResponse(out.as_dict())
-
-    @app.post("/api/matches/{match_id}/events")
-    async def post_events(request: Request, match_id: str = ID) -> Response:
-        got = await writing(request, match_id)
-        if isinstance(got, Response):
-            return got
-        m, body = got
-        try:
-            data = orjson.loads(body)
-        except orjson.JSONDecodeError as exc:
-            return _error(400, "bad_json", f"body is not valid JSON: {exc}")
-        events = data if isinstance(data, list) else [data]
-        done = 0
-        for i, ev in enumerate(events):
-            try:
-                await store.add_event(match_id, m, ev)
-            except EventError as exc:
-                return _error(422, "bad_event", f"event {i}: {exc}", applied=done)
-            except StoreUnavailable as exc:
-                return _error(503, "not_stored", str(exc), applied=done)
-            done += 1
-        return JSONResponse({"applied": done})
-
-    @app.post("/api/matches/{match_id}/hr")
-    async def post_hr(request: Request, match_id: str = ID) -> Response:
-        """Heart-rate samples (docs/wearables.md): JSON Lines, or one JSON array."""
-        got = await writing(request, match_id)
-        if isinstance(got, Response):
-            return got
-        m, body = got
-        data: bytes | list[bytes] = body if body.lstrip()[:1] == b"[" else body.split(b"\n")
-        if isinstance(data, list) and len(data) > srv.max_batch_frames + 1:
-            return _error(413, "too_many_samples", f"more than {srv.max_batch_frames} samples in one batch")
-        out = await store.ingest_hr(match_id, m, data)
-        if not out.stored:
-            return _error(503, "not_stored", store.error or "Redis unavailable", **out.as_dict())
-        return JSONResponse(out.as_dict())
-
-    async def ingest_socket(ws: WebSocket, match_id: str, hr: bool) -> None:
-        """A provider's socket: frames (or heart-rate samples) in, an ``error`` message per refusal out."""
-        await ws.accept()
-        if not can_write(_token(ws.headers, ws.query_params)):
-            await ws.close(code=1008, reason="unauthorised")
-            return
-
-        async def say(code: str, message: str) -> None:
-            await ws.send_text(orjson.dumps(envelope("error", match_id, 0, 0.0, None, code=code,
-                                                     message=message)).decode())
-        try:
-            m = await store.get(match_id)
-        except StoreUnavailable as exc:
-            await say("not_stored", str(exc))
-            await ws.close(code=1013)
-            return
-        if m is None:
-            await say("unknown_match", f"no match {match_id!r}")
-            await ws.close(code=1008)
-            return
-        can_reply = True
-        try:
-            while True:
-                msg = await ws.receive()
-                if msg["type"] == "websocket.disconnect":
-                    return
-                data = msg.get("text")
-                if data is None:
-                    data = msg.get("bytes")
-                if data is None:
-                    continue
-                out = await (store.ingest_hr(match_id, m, data) if hr else store.ingest_message(match_id, m, data))
-                errs = [e.as_dict() for e in out.errors]
-                if not out.stored:
-                    errs.append({"code": "not_stored", "message": store.error or "Redis unavailable"})
-                for e in errs if can_reply else ():
-                    try:
-                        await ws.send_text(orjson.dumps(envelope("error", match_id, 0, 0.0, None, **e)).decode())
-                    except Exception:  # the provider closed its side: still read what it sent before closing
-                        can_reply = False
-                        break
-        except WebSocketDisconnect:
-            return
-
-    @app.websocket("/ingest/{match_id}")
-    async def ws_ingest(ws: WebSocket, match_id: str = ID) -> None:
-        await ingest_socket(ws, match_id, hr=False)
-
-    @app.websocket("/ingest/{match_id}/hr")
-    async def ws_ingest_hr(ws: WebSocket, match_id: str = ID) -> None:
-        await ingest_socket(ws, match_id, hr=True)
-
-    @app.get("/healthz")
-    async def healthz() -> Response:
-        try:
-            await redis.ping()
+            await self.redis.ping()
             ok = True
         except RedisError:
             ok = False
-        return JSONResponse({"status": "ok" if ok else "degraded", "role": "ingest", "redis": ok,
-                             "time": time.time()})
-
-    return app
+        return {"status": "ok" if ok else "degraded", "role": "ingest", "redis": ok, "time": time.time()}

@@ -82,6 +82,12 @@ def frame_entry_id(frame_id: int) -> str:
     return f"{frame_id + 1}-0"
 
 
+def seq_of(text: str) -> int:
+    """The seq of a message text (the envelope puts it third, after two plain strings)."""
+    i = text.index('"seq":') + 6
+    return int(text[i:text.index(",", i)])
+
+
 def connect(url: str, timeout_s: float = 2.0, max_connections: int = 1000) -> Any:
     """An asyncio Redis client; errors say how to install redis-py if missing.
 

@@ -19,10 +19,10 @@ from typing import Any
 import orjson
 from redis.exceptions import RedisError
 
-from pacewire.live.matches import MATCH_ID
 from pacewire.live.recorder import write_json_atomic
 from pacewire.scale import keys
 from pacewire.scale.settings import ScaleSettings
+from pacewire.wire.match_id import is_match_id
 
 log = logging.getLogger("pacewire.scale.recorder")
 
@@ -81,7 +81,7 @@ class StreamRecorder:
         self.matches: dict[str, MatchFolder] = {}
 
     async def _open(self, mid: str) -> MatchFolder | None:
-        if not MATCH_ID.match(mid) or mid in (".", ".."):
+        if not is_match_id(mid):
             return None
         raw = await self.redis.get(keys.setup(mid))
         if raw is None:

@@ -19,6 +19,7 @@ import numpy as np
 import orjson
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
+from pacewire.errors import PacewireError
 from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
 from pacewire.wire.gnss import CalibrationError, PitchProjection, check_venue, parse_calibration
 
@@ -138,8 +139,10 @@ class MatchSetup(BaseModel):
         return sheet
 
 
-class SetupError(ValueError):
+class SetupError(PacewireError, ValueError):
     """Meta and sheet do not describe one match."""
+
+    code = "bad_setup"
 
 
 def roster_from_setup(setup: MatchSetup, match_id: str | None = None,

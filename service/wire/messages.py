@@ -9,10 +9,17 @@ CONTRACT_VERSION = 1
 _MISSING = object()
 
 
-def envelope(kind: str, match_id: str, seq: int, match_time_s: float, period: str | None, **body: Any) -> dict[str, Any]:
+def envelope(kind: str, match_id: str, seq: int, match_time_s: float, period: str | None, /,
+             **body: Any) -> dict[str, Any]:
     """Every message: type, match_id, seq, match_time_s, period, v; body fields beside them."""
     return {"type": kind, "match_id": match_id, "seq": seq, "match_time_s": match_time_s, "period": period,
             "v": CONTRACT_VERSION, **body}
+
+
+def snapshot_message(match_id: str, snap: dict[str, Any]) -> dict[str, Any]:
+    """The ``snapshot`` message of a snapshot body, outside any stream (REST reads, ``analyze --json``)."""
+    body = {k: snap[k] for k in ("players", "teams", "health")}
+    return envelope("snapshot", match_id, 0, snap["match_time_s"], snap["period"], **body)
 
 
 def diff(old: Any, new: Any) -> Any:

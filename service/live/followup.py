@@ -19,33 +19,42 @@ import logging
 import time
 from dataclasses import replace
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Callable
+from typing import Any, Protocol
 
 import orjson
-from fastapi import FastAPI, Request
-from fastapi.responses import FileResponse, JSONResponse, Response
 
 from pacewire.engine.blocks import block_series, clock_block, window_coverage
 from pacewire.live.recorder import write_json_atomic
 from pacewire.reports.alerts import Alerter, Budgets, DropOffBaseline, RulesError, load_budgets, parse_budgets, \
     rules_from_settings
-from pacewire.reports.builder import FILES, KINDS, ReportInput, build_report, list_reports, report_kind
+from pacewire.reports.builder import ReportInput, build_report, list_reports, report_kind
 from pacewire.reports.offline import report_input, state_until
 from pacewire.store import history
 from pacewire.store.record import match_record
-from pacewire.wire.messages import CONTRACT_VERSION, dumps
+from pacewire.config import Settings
+from pacewire.engine.match import MatchState
+from pacewire.engine.types import Roster
+from pacewire.live.broadcaster import Broadcaster
 
-if TYPE_CHECKING:
-    from pacewire.live.ingest import MatchRunner
-    from pacewire.live.matches import Matches
+log = logging.getLogger("pacewire.followup")
 
-log = logging.getLogger("pacewire.reporting")
-MEDIA = {"report.html": "text/html; charset=utf-8", "report.csv": "text/csv; charset=utf-8",
-         "snapshot.json": "application/json"}
+
+class Followed(Protocol):
+    """The match a follow-up looks after (its runner)."""
+
+    match_id: str
+    settings: Settings
+    folder: Path
+    roster: Roster
+    state: MatchState
+    broadcaster: Broadcaster
+    score: list[int]
+
+    def extra_reasons(self) -> list[dict[str, str]]: ...
 
 
 class Followup:
-    def __init__(self, runner: "MatchRunner") -> None:
+    def __init__(self, runner: Followed) -> None:
         self.runner = runner
         s = self.settings = runner.settings
         self.root = runner.folder / "reports"
@@ -130,7 +139,7 @@ class Followup:
         block = clock_block(period, state.match_time_s(), self.settings.history.block_min, length)
         for alert in self.alerter.evaluate(snap, cov, block):
             body = alert.body()
-            publish_event(self.runner, "alert", body.pop("player_id"), body.pop("team_id"), **body)
+            self.runner.broadcaster.publish("alert", **body)
 
     def period_ended(self, period: str) -> None:
         """The runner announced the end of ``period`` (an event, or the frames moved on)."""
@@ -220,7 +229,7 @@ class Followup:
         entry = await asyncio.to_thread(build_report, inp, self.root, self.settings.reports.low_coverage,
                                         {"basis": list(key)})
         self._built[kind] = key
-        publish_event(r, "report", kind=kind, url=self.url(kind, "report.html"))
+        r.broadcaster.publish("report", kind=kind, url=self.url(kind, "report.html"))
         log.info("%s: %s report ready in %.2f s", r.match_id, kind, time.time() - now)
         if blocks is not None:
             await asyncio.to_thread(self._store, inp, blocks, kickoff)
@@ -238,83 +247,3 @@ class Followup:
     def listing(self) -> list[dict[str, Any]]:
         return [{**e, "url": self.url(e["kind"], "report.html"), "csv": self.url(e["kind"], "report.csv"),
                  "json": self.url(e["kind"], "snapshot.json")} for e in list_reports(self.root)]
-
-
-def publish_event(runner: "MatchRunner", type_: str, player_id: str | None = None, team_id: str | None = None,
-                  **body: Any) -> None:
-    """An event message to every stream that shows it, with ``player_id``/``team_id`` in the body
-    when given. Made here the way ``Broadcaster._message`` makes it, because
-    ``Broadcaster.publish(kind, ...)`` can carry neither a body field named ``kind`` (report and
-    alert messages have one) nor the player id; to go once publish/envelope take ``kind``
-    positional-only and put the player id in the body."""
-    b = runner.broadcaster
-    about = {k: v for k, v in (("player_id", player_id), ("team_id", team_id)) if v is not None}
-    for g in list(b.groups.values()):
-        if not g.view.shows_player(player_id, team_id):
-            continue
-        if g.state is None:
-            b._refresh_state(g)
-        g.seq += 1
-        snap_time, period = g.meta
-        text = dumps({"type": type_, "match_id": b.match_id, "seq": g.seq, "match_time_s": snap_time,
-                      "period": period, "v": CONTRACT_VERSION, **about, **body}).decode()
-        now = time.monotonic()
-        g.buffer.append((g.seq, now, text))
-        while g.buffer and (g.buffer[0][1] < now - b.buffer_s or len(g.buffer) > b.buffer_max):
-            g.buffer.popleft()
-        b._fan_out(g, text)
-
-
-def add_routes(app: FastAPI, matches: "Matches", can_read: Callable[[Any], bool], can_write: Callable[[Any], bool],
-               token: Callable[[Any, Any], str | None], error: Callable[..., JSONResponse]) -> None:
-    """Report files and budgets: ``GET /api/matches/{id}/reports/{kind}/{file}``,
-    ``GET``/``PUT /api/matches/{id}/budgets``."""
-    from pacewire.live.matches import MATCH_ID
-
-    def find(request: Request, match_id: str, write: bool) -> Any:
-        allowed = can_write if write else can_read
-        if not allowed(token(request.headers, request.query_params)):
-            return error(401, "unauthorised", "a valid token is needed (Authorization: Bearer ... or ?token=)")
-        runner = matches.get(match_id) if MATCH_ID.match(match_id) else None
-        if runner is None:
-            return error(404, "unknown_match", f"no match {match_id!r}: set it up with PUT /api/matches/{match_id}")
-        return runner
-
-    @app.get("/api/matches/{match_id}/reports/{kind}/{name}")
-    async def get_report_file(request: Request, match_id: str, kind: str, name: str) -> Response:
-        runner = find(request, match_id, write=False)
-        if isinstance(runner, Response):
-            return runner
-        if kind not in KINDS or name not in FILES:
-            return error(404, "unknown_report", f"reports are {', '.join(KINDS)}; files are {', '.join(FILES)}")
-        path = runner.followup.root / kind / name
-        if not path.is_file():
-            return error(404, "no_report", f"no {kind} report yet")
-        return FileResponse(path, media_type=MEDIA[name], headers={"Cache-Control": "no-cache"})
-
-    @app.get("/api/matches/{match_id}/budgets")
-    async def get_budgets(request: Request, match_id: str) -> Response:
-        runner = find(request, match_id, write=False)
-        if isinstance(runner, Response):
-            return runner
-        return JSONResponse({"match_id": match_id, **runner.followup.budgets_body()})
-
-    @app.put("/api/matches/{match_id}/budgets")
-    async def put_budgets(request: Request, match_id: str) -> Response:
-        runner = find(request, match_id, write=True)
-        if isinstance(runner, Response):
-            return runner
-        body = await request.body()
-        if len(body) > runner.settings.server.max_message_bytes:
-            return error(413, "too_large", f"body over {runner.settings.server.max_message_bytes} bytes")
-        try:
-            data = orjson.loads(body)
-        except orjson.JSONDecodeError as exc:
-            return error(400, "bad_json", f"body is not valid JSON: {exc}")
-        try:
-            out = runner.followup.set_budgets(data)
-        except RulesError as exc:
-            return error(422, "bad_budgets", str(exc))
-        except OSError as exc:
-            return error(503, "storage", f"cannot store the budgets: {exc.strerror or exc}")
-        return JSONResponse({"match_id": match_id, **out})

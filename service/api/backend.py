@@ -1,0 +1,96 @@
+"""What the routes need from whatever holds the matches: one interface per group of routes.
+
+Two implementations: the single process (:mod:`pacewire.live.backend`, every
+interface) and Redis (:mod:`pacewire.scale.ingest` for :class:`IngestBackend`,
+:mod:`pacewire.scale.gateway` for :class:`ReadBackend`). A role mounts the
+routers of the interfaces it implements (:mod:`pacewire.api.app`).
+
+Errors: methods raise :class:`~pacewire.errors.PacewireError` subclasses whose
+``code`` names them on the wire (``bad_setup``, ``conflict``, ``not_stored``,
+``bad_event`` ...) or an :class:`~pacewire.api.errors.ApiError`.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any, Awaitable, Callable, Protocol
+
+from pacewire.api.requests import StreamParams
+from pacewire.engine.types import Roster
+from pacewire.wire.outcome import IngestOutcome
+
+Send = Callable[[str], Awaitable[None]]
+
+
+class MatchWriter(Protocol):
+    """The write side of one match."""
+
+    async def frames_lines(self, lines: list[bytes]) -> IngestOutcome:
+        """A JSON Lines batch (HTTP): answered once the accepted frames are stored."""
+
+    async def frames_message(self, data: str | bytes) -> IngestOutcome:
+        """One websocket message: a frame or a JSON array of frames."""
+
+    async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
+        """Heart-rate samples: JSON Lines (a list of lines) or one message (an object or an array)."""
+
+    async def add_event(self, event: Any) -> None:
+        """Check, store and apply one match event."""
+
+    def store_error(self) -> str:
+        """Why the last batch was not stored."""
+
+    def clock(self) -> tuple[float, str | None]:
+        """Match time (s) and period, for the envelope of an error message."""
+
+
+class IngestBackend(Protocol):
+    async def setup(self, match_id: str, meta: Any, sheet: Any) -> tuple[Roster, bool]:
+        """Create or confirm a match; (roster, created)."""
+
+    async def writer(self, match_id: str) -> MatchWriter | None:
+        """The match's write side; None if it was never set up."""
+
+    async def health(self) -> dict[str, Any]: ...
+
+
+class Subscription(Protocol):
+    """One subscriber of ``WS /live/{id}``: its messages are queued from the moment it exists."""
+
+    async def pump(self) -> None:
+        """Send the queued messages until closed."""
+
+    def close(self) -> None: ...
+
+
+class ReadBackend(Protocol):
+    async def list_matches(self) -> list[dict[str, Any]]: ...
+
+    async def snapshot(self, match_id: str) -> bytes | None:
+        """The snapshot message (JSON), None for an unknown match."""
+
+    async def report_listing(self, match_id: str) -> list[dict[str, Any]] | None: ...
+
+    async def roster(self, match_id: str) -> Roster | None: ...
+
+    async def subscribe(self, match_id: str, params: StreamParams, send: Send) -> Subscription:
+        """Attach a subscriber (its opening messages queued); ApiError when the match is full."""
+
+    async def health(self) -> dict[str, Any]: ...
+
+
+class FilesBackend(Protocol):
+    """What only the process that holds a match's folder has: reports, budgets, exports."""
+
+    def report_file(self, match_id: str, kind: str, name: str) -> Path: ...
+
+    def budgets(self, match_id: str) -> dict[str, Any]: ...
+
+    def set_budgets(self, match_id: str, data: Any) -> dict[str, Any]: ...
+
+    async def figures(self, match_id: str, at_s: float | None) -> dict[str, Any]:
+        """The snapshot body now, or as it was at match time ``at_s``."""
+
+
+class MetricsSource(Protocol):
+    def metrics_text(self) -> tuple[bytes, str]:
+        """Prometheus text and its content type."""

@@ -1,0 +1,89 @@
+"""A match's files: half-/full-time reports, per-player load budgets, per-player exports.
+
+* ``GET /api/matches/{id}/reports/{kind}/{file}``: ``report.html``, ``report.csv``, ``snapshot.json``
+* ``GET``/``PUT /api/matches/{id}/budgets``: caps per player (validated; kept with the match)
+* ``GET /api/matches/{id}/export.json`` and ``export.csv``: one row of figures per player, now,
+  or with ``?at=MATCH_TIME_S`` as they were at that match time (the engine re-runs over the
+  recording up to then, in a worker thread)
+"""
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import orjson
+from fastapi import APIRouter, Request
+from fastapi.responses import FileResponse, JSONResponse, Response
+
+from pacewire.api.auth import Tokens
+from pacewire.api.backend import FilesBackend
+from pacewire.api.errors import ApiError
+from pacewire.api.requests import MatchIdParam, match_id_or_404, parse_json, read_body
+from pacewire.config import Server
+from pacewire.reports.builder import FILES, KINDS
+from pacewire.reports.export import export_csv, export_table
+from pacewire.wire.messages import CONTRACT_VERSION
+
+MEDIA = {"report.html": "text/html; charset=utf-8", "report.csv": "text/csv; charset=utf-8",
+         "snapshot.json": "application/json"}
+
+
+def file_routes(backend: FilesBackend, tokens: Tokens, limits: Server) -> APIRouter:
+    router = APIRouter()
+
+    @router.get("/api/matches/{match_id}/reports/{kind}/{name}")
+    async def get_report_file(request: Request, match_id: str, kind: str, name: str) -> FileResponse:
+        tokens.check(request, write=False)
+        match_id_or_404(match_id)
+        if kind not in KINDS or name not in FILES:
+            raise ApiError(404, "unknown_report", f"reports are {', '.join(KINDS)}; files are {', '.join(FILES)}")
+        path = backend.report_file(match_id, kind, name)
+        return FileResponse(path, media_type=MEDIA[name], headers={"Cache-Control": "no-cache"})
+
+    @router.get("/api/matches/{match_id}/budgets")
+    async def get_budgets(request: Request, match_id: str) -> JSONResponse:
+        tokens.check(request, write=False)
+        return JSONResponse({"match_id": match_id, **backend.budgets(match_id_or_404(match_id))})
+
+    @router.put("/api/matches/{match_id}/budgets")
+    async def put_budgets(request: Request, match_id: str) -> JSONResponse:
+        tokens.check(request, write=True)
+        match_id_or_404(match_id)
+        backend.budgets(match_id)  # an unknown match is refused before its body is read
+        data = parse_json(await read_body(request, limits.max_message_bytes))
+        return JSONResponse({"match_id": match_id, **backend.set_budgets(match_id, data)})
+
+    async def table(request: Request, match_id: str) -> tuple[dict[str, Any], list[str], list[dict[str, Any]]]:
+        tokens.check(request, write=False)
+        at = _match_time(request.query_params.get("at"))
+        snap = await backend.figures(match_id, at)
+        columns, rows = export_table(snap)
+        head = {"v": CONTRACT_VERSION, "match_id": match_id, "match_time_s": snap["match_time_s"],
+                "period": snap["period"], "at": at}
+        return head, columns, rows
+
+    @router.get("/api/matches/{match_id}/export.json")
+    async def export_json(request: Request, match_id: str = MatchIdParam) -> Response:
+        head, columns, rows = await table(request, match_id)
+        return Response(orjson.dumps({**head, "columns": columns, "players": rows}), media_type="application/json")
+
+    @router.get("/api/matches/{match_id}/export.csv")
+    async def export_csv_route(request: Request, match_id: str = MatchIdParam) -> Response:
+        head, columns, rows = await table(request, match_id)
+        headers = {"Content-Disposition": f'inline; filename="{match_id}.csv"',
+                   "X-Pacewire-Match-Time-S": str(head["match_time_s"])}
+        return Response(export_csv(columns, rows), media_type="text/csv; charset=utf-8", headers=headers)
+
+    return router
+
+
+def _match_time(text: str | None) -> float | None:
+    if text is None:
+        return None
+    try:
+        at = float(text)
+        if not math.isfinite(at) or at < 0:
+            raise ValueError
+    except ValueError:
+        raise ApiError(422, "bad_request", "at must be a match time in seconds, >= 0") from None
+    return at

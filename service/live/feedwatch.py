@@ -1,0 +1,89 @@
+"""The feed over time: health messages when its state changes, and the figures a stalled feed shows.
+
+Once no frame has come for ``health.stall_s``, subscribers are shown a copy of
+the state whose tail is finalised (nothing waits uncounted for frames that may
+never come); the next applied frame or match event drops the copy.
+"""
+from __future__ import annotations
+
+import asyncio
+import logging
+import time
+from typing import Any, Protocol
+
+from pacewire.engine.health import STALLED
+from pacewire.engine.match import MatchState
+from pacewire.engine.snapshot import build_health
+from pacewire.live.broadcaster import Broadcaster
+
+log = logging.getLogger("pacewire.feedwatch")
+SAVE_EVERY_S = 5.0  # drop counters written beside the recording at most this often
+
+
+class Watched(Protocol):
+    """The match a watch looks after (its runner)."""
+
+    match_id: str
+    state: MatchState
+    broadcaster: Broadcaster
+
+    def extra_reasons(self) -> list[dict[str, str]]: ...
+
+    def save_counters(self) -> None: ...
+
+
+class FeedWatch:
+    def __init__(self, match: Watched, stall_s: float, check_s: float) -> None:
+        self.match = match
+        self.stall_s = stall_s
+        self.check_s = check_s
+        self.state = STALLED  # the health state subscribers were last told
+        self.reasons: list[str] = ["no_frames"]  # ... and its reason codes
+        self.stall_view: MatchState | None = None  # figures shown while the feed is stalled
+        self._stall_told = False  # subscribers were sent the stalled view's figures
+
+    def moved_on(self) -> None:
+        """Frames or an event changed the state: a stalled view predates them."""
+        self.stall_view = None
+
+    def shown(self, now: float) -> MatchState:
+        """The state to show now: once the feed counts as stalled, a copy with its tail finalised."""
+        h = self.match.state.health
+        if self.stall_view is None and h.last_arrival is not None and now - h.last_arrival > self.stall_s:
+            self.stall_view = self.match.state.provisional()
+            self._stall_told = False
+        return self.stall_view or self.match.state
+
+    def health_body(self) -> dict[str, Any]:
+        """The snapshot's ``health`` now, without building the figures."""
+        now = time.time()
+        return build_health(self.shown(now), now, self.match.extra_reasons())
+
+    def check(self) -> None:
+        """Push a health message when the state or the kinds of reasons change."""
+        self.match.broadcaster.invalidate()
+        health = self.health_body()
+        codes = sorted(r["code"] for r in health["reasons"])
+        if health["state"] != self.state or codes != self.reasons:
+            self.state, self.reasons = health["state"], codes
+            self.match.broadcaster.publish("health", health=health)
+
+    async def run(self) -> None:
+        """Every ``check_s``: a feed that just stalled shows its final figures at once; health
+        follows the clock; the drop counters are saved now and then."""
+        b = self.match.broadcaster
+        last_save = time.monotonic()
+        while True:
+            await asyncio.sleep(self.check_s)
+            try:
+                self.shown(time.time())
+                if self.stall_view is not None and not self._stall_told:
+                    self._stall_told = True
+                    b.invalidate()
+                    b.tick(force=True)
+                self.check()  # health moves with the clock: the next read builds afresh
+                if time.monotonic() - last_save > SAVE_EVERY_S:
+                    last_save = time.monotonic()
+                    await asyncio.to_thread(self.match.save_counters)
+            except Exception:
+                log.exception("%s: health check failed", self.match.match_id)

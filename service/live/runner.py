@@ -1,0 +1,222 @@
+"""One live match: its engine state, intake, subscribers, feed watch and follow-up.
+
+One coroutine per match drains whatever the intake has queued into one block
+and steps the engine, so live it is usually one frame and in a fast replay
+hundreds. The Redis aggregator drives the same runner from a stream instead
+of the intake, through the same public methods (``apply_lines``,
+``apply_event``, ``add_heart``, ``after_block``).
+"""
+from __future__ import annotations
+
+import asyncio
+import logging
+import time
+from pathlib import Path
+from typing import Any
+
+from pacewire.config import Settings
+from pacewire.engine.match import MatchState
+from pacewire.engine.types import Roster
+from pacewire.events import apply_event, check_event
+from pacewire.live.broadcaster import Broadcaster
+from pacewire.live.feedwatch import FeedWatch
+from pacewire.live.followup import Followup
+from pacewire.live.intake import Intake, Queued
+from pacewire.live.metrics import Hooks
+from pacewire.live.periods import PeriodAnnouncer
+from pacewire.live.recorder import Recorder, write_json_atomic
+from pacewire.wire.cdf import DecodeResult, FrameDecoder
+from pacewire.wire.heart import HrDecoder, HrResult
+
+log = logging.getLogger("pacewire.runner")
+
+
+class MatchRunner:
+    def __init__(self, roster: Roster, settings: Settings, folder: Path, hooks: Hooks | None = None) -> None:
+        self.roster = roster
+        self.match_id = roster.match_id
+        self.settings = settings
+        self.folder = folder
+        self.hooks = hooks or Hooks()
+        self.state = MatchState(roster, settings)
+        self.decoder = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
+        srv = settings.server
+        self.recorder = Recorder(folder, srv.fsync_interval_s)
+        self.hr_recorder = Recorder(folder, srv.fsync_interval_s, "hr.jsonl")
+        self.intake = Intake(roster, self.decoder, HrDecoder(roster, self.state.heart_params), self.recorder,
+                             self.hr_recorder, self)
+        self.broadcaster = Broadcaster(self.match_id, self.snapshot_body, srv.resume_buffer_s, srv.subscriber_queue,
+                                       srv.max_subscribers, on_message=self.hooks.messages_out,
+                                       on_drop=self.hooks.dropped, fps=roster.fps)
+        self.feed = FeedWatch(self, settings.health.stall_s, srv.health_check_s)
+        self._queue: asyncio.Queue[Queued] = asyncio.Queue()
+        self._tasks: list[asyncio.Task[None]] = []
+        self.score = [0, 0]
+        self.events: list[dict[str, Any]] = []
+        self.applied_frames = 0
+        self.last_applied_wall = 0.0
+        self.last_frame_arrival: dict[int, float] = {}  # frame id -> arrival, for the latency benchmark
+        self.followup = Followup(self)  # reports at period ends, alerts, history
+        self.periods = PeriodAnnouncer(self.broadcaster, self.followup.period_ended)
+
+    # -- life cycle ------------------------------------------------------------------
+    def start(self) -> None:
+        self.recorder.start()
+        self.hr_recorder.start()
+        self._tasks = [asyncio.create_task(self._apply_loop(), name=f"apply:{self.match_id}"),
+                       asyncio.create_task(self.feed.run(), name=f"health:{self.match_id}"),
+                       asyncio.create_task(self.followup.watch(), name=f"followup:{self.match_id}")]
+
+    async def stop(self) -> None:
+        for t in self._tasks:
+            t.cancel()
+        for t in self._tasks:
+            try:
+                await t
+            except (asyncio.CancelledError, Exception):
+                pass
+        await self.recorder.stop()
+        await self.hr_recorder.stop()
+
+    # -- what the intake stores (IntakeSink) ----------------------------------------------
+    def enqueue(self, item: Queued) -> None:
+        self._queue.put_nowait(item)
+
+    def count_frames(self, res: DecodeResult) -> None:
+        h = self.state.health
+        h.rejected += res.rejected
+        h.duplicates += res.duplicates
+        h.late += res.late
+        if res.rejected:
+            self.hooks.rejected(res.rejected)
+
+    def count_heart(self, rejected: int, duplicates: int, late: int) -> None:
+        for st in (self.state, self.feed.stall_view):  # a stalled feed's copy shows the counts too
+            if st is not None:
+                st.hr_rejected += rejected
+                st.hr_duplicates += duplicates
+                st.hr_late += late
+        if rejected or duplicates or late:
+            self.broadcaster.invalidate()
+
+    def recorded(self, frames: int) -> None:
+        self.hooks.frames_in(frames)
+
+    def unstored(self) -> None:
+        self.feed.check()
+
+    # -- applying ----------------------------------------------------------------------
+    async def _apply_loop(self) -> None:
+        while True:
+            items = [await self._queue.get()]
+            while not self._queue.empty():
+                items.append(self._queue.get_nowait())
+            hr = [r for r, _ in items if isinstance(r, HrResult)]
+            frames = [(r, t) for r, t in items if isinstance(r, DecodeResult)]
+            if hr:
+                self.add_heart(HrResult.merge(hr))  # figures depend on timestamps only, not on order
+                if not frames:
+                    self.broadcaster.invalidate()
+                    self.broadcaster.tick()
+                    continue
+            merged = DecodeResult.merge([r for r, _ in frames])
+            merged.rejected = merged.duplicates = merged.late = 0  # counted at decode time
+            t0 = time.perf_counter()
+            try:
+                self.state.ingest(merged, now=time.time())
+            except Exception:  # the engine must never take the match down
+                log.exception("%s: engine failed on a block; block skipped", self.match_id)
+                continue
+            self.last_frame_arrival = {int(merged.block.frame_id[-1]): frames[-1][1]}
+            self.after_block(len(merged.block), t0)
+
+    def apply_lines(self, lines: list[bytes], now: float | None = None) -> int:
+        """Recorded frame lines (a recording, a stream) into the engine; their drops were counted
+        when they arrived. Returns the frames applied."""
+        res = self.decoder.decode_lines(lines)
+        res.rejected = res.duplicates = res.late = 0
+        try:
+            self.state.ingest(res, now=now)
+        except Exception:  # the engine must never take the match down
+            log.exception("%s: engine failed on a block; block skipped", self.match_id)
+        return len(res.block)
+
+    def add_heart(self, res: HrResult) -> None:
+        """Accepted heart-rate samples into the engine (and into a stalled feed's copy)."""
+        try:
+            self.state.ingest_heart(res)
+            if self.feed.stall_view is not None:
+                self.feed.stall_view.add_heart(res.player, res.t, res.bpm)
+        except Exception:
+            log.exception("%s: engine failed on heart-rate samples; skipped", self.match_id)
+
+    def after_block(self, frames: int, started: float) -> None:
+        """After a block of ``frames`` was applied (``started``: perf_counter before it): periods,
+        deltas to subscribers, reports and alerts."""
+        self.applied_frames += frames
+        self.feed.moved_on()
+        self.periods.observe(self.state)
+        self.broadcaster.invalidate()
+        self.broadcaster.tick(frames=self.state.frames)
+        self.followup.after_apply()
+        self.last_applied_wall = time.time()
+        self.hooks.processing(time.perf_counter() - started)
+
+    def rebuilt(self) -> None:
+        """The state was rebuilt (recording, checkpoint): health starts afresh with the next frame."""
+        h = self.state.health
+        h.first_arrival = h.last_arrival = None  # rebuilt frames carry no arrival time
+        self.periods.rebuilt(self.state)
+        self.broadcaster.invalidate()
+
+    # -- match events -------------------------------------------------------------------
+    def add_event(self, event: Any) -> dict[str, Any]:
+        """Check, record and apply one match event, and tell subscribers; raises EventError, OSError."""
+        ev = check_event(self.roster, event)
+        self.recorder.append_event(ev)
+        self.apply_event(ev, announce=True)
+        return ev
+
+    def apply_event(self, ev: dict[str, Any], announce: bool) -> None:
+        """A checked event into the figures and the score; ``announce``: tell subscribers now."""
+        self.events.append(ev)
+        apply_event(self.state, ev)
+        if ev["type"] == "goal":
+            self.score[self.roster.team_ids.index(ev["team_id"])] += 1
+        self.feed.moved_on()  # a stalled feed's copy predates the event: the next read copies anew
+        self.broadcaster.invalidate()
+        if announce:
+            if ev["type"] in ("period_start", "period_end"):
+                self.periods.announce(ev["type"].split("_")[1], ev["period"], ev.get("frame_id"))
+            self.broadcaster.tick(force=True)
+
+    # -- what is shown ---------------------------------------------------------------------
+    def extra_reasons(self) -> list[dict[str, str]]:
+        return [{"code": "recorder", "message": rec.error} for rec in (self.recorder, self.hr_recorder) if rec.error]
+
+    def snapshot_body(self) -> dict[str, Any]:
+        now = time.time()
+        snap = self.feed.shown(now).snapshot(now=now, extra_reasons=self.extra_reasons())
+        for k, tid in enumerate(self.roster.team_ids):
+            snap["teams"][tid]["score"] = self.score[k]
+        return snap
+
+    def summary(self) -> dict[str, Any]:
+        r = self.roster
+        return {"match_id": self.match_id,
+                "teams": {tid: {"name": r.team_names[k], "side": ("home", "away")[k], "score": self.score[k]}
+                          for k, tid in enumerate(r.team_ids)},
+                "period": self.state.period_name(), "match_time_s": round(self.state.match_time_s(), 2),
+                "frames": self.state.frames, "health": self.feed.state,
+                "subscribers": self.broadcaster.subscriber_count, "last_frame_at": self.state.health.last_arrival}
+
+    def save_counters(self) -> None:
+        """The drop counts beside the recording (recovered frames carry none)."""
+        h, st = self.state.health, self.state
+        try:
+            write_json_atomic(self.folder / "counters.json",
+                              {"rejected": h.rejected, "duplicates": h.duplicates, "late": h.late,
+                               "hr_rejected": st.hr_rejected, "hr_duplicates": st.hr_duplicates,
+                               "hr_late": st.hr_late})
+        except OSError:
+            pass
