@@ -24,11 +24,10 @@ Send = Callable[[str], Awaitable[None]]
 class MatchWriter(Protocol):
     """The write side of one match."""
 
-    async def frames_lines(self, lines: list[bytes]) -> IngestOutcome:
-        """A JSON Lines batch (HTTP): answered once the accepted frames are stored."""
-
-    async def frames_message(self, data: str | bytes) -> IngestOutcome:
-        """One websocket message: a frame or a JSON array of frames."""
+    async def frames(self, data: list[bytes] | bytes | str, durable: bool) -> IngestOutcome:
+        """JSON Lines (HTTP, a list of lines) or one websocket message (a frame or a JSON array of
+        frames): answered once the accepted frames are stored (``durable``: on disk, not only
+        handed to the OS)."""
 
     async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
         """Heart-rate samples: JSON Lines (a list of lines) or one message (an object or an array)."""

@@ -8,7 +8,7 @@ websocket the same error becomes an ``error`` message and a close
 """
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, TypeVar
 
 import orjson
 from fastapi import FastAPI, Request
@@ -64,6 +64,16 @@ async def refuse(ws: Any, match_id: str, err: ApiError) -> None:
     """Refuse a websocket after accepting it: the error message, then a close the client can read."""
     await ws.send_text(error_text(match_id, (0.0, None), code=err.code, message=err.message))
     await ws.close(code=close_code(err))
+
+
+T = TypeVar("T")
+
+
+def known(found: T | None, match_id: str) -> T:
+    """What a backend found for ``match_id``; None means the match was never set up (404)."""
+    if found is None:
+        raise unknown_match(match_id)
+    return found
 
 
 def close_code(err: ApiError) -> int:

@@ -11,7 +11,7 @@ from fastapi.responses import JSONResponse
 
 from pacewire.api.auth import Tokens, accept
 from pacewire.api.backend import IngestBackend, MatchWriter
-from pacewire.api.errors import ApiError, error_text, refuse, unknown_match
+from pacewire.api.errors import ApiError, error_text, known, refuse
 from pacewire.api.requests import MatchIdParam, json_lines, parse_json, read_body
 from pacewire.config import Server
 from pacewire.errors import PacewireError
@@ -25,9 +25,7 @@ def ingest_routes(backend: IngestBackend, tokens: Tokens, limits: Server) -> API
     async def writing(request: Request, match_id: str) -> tuple[MatchWriter, bytes]:
         """The opening of every provider POST: token, match, body."""
         tokens.check(request, write=True)
-        writer = await backend.writer(match_id)
-        if writer is None:
-            raise unknown_match(match_id)
+        writer = known(await backend.writer(match_id), match_id)
         return writer, await read_body(request, limits.max_message_bytes)
 
     @router.put("/api/matches/{match_id}")
@@ -43,7 +41,7 @@ def ingest_routes(backend: IngestBackend, tokens: Tokens, limits: Server) -> API
     @router.post("/api/matches/{match_id}/frames")
     async def post_frames(request: Request, match_id: str = MatchIdParam) -> JSONResponse:
         writer, body = await writing(request, match_id)
-        out = await writer.frames_lines(json_lines(body, limits.max_batch_frames, "frames"))
+        out = await writer.frames(json_lines(body, limits.max_batch_frames, "frames"), durable=True)
         if not out.stored:
             raise ApiError(503, "not_stored", writer.store_error(), **out.as_dict())
         return JSONResponse(out.as_dict())
@@ -76,9 +74,7 @@ def ingest_routes(backend: IngestBackend, tokens: Tokens, limits: Server) -> API
         if not await accept(ws, tokens, write=True):
             return
         try:
-            writer = await backend.writer(match_id)
-            if writer is None:
-                raise ApiError(404, "unknown_match", f"no match {match_id!r}")
+            writer = known(await backend.writer(match_id), match_id)
         except PacewireError as exc:
             await refuse(ws, match_id, ApiError.of(exc))
             return
@@ -109,7 +105,7 @@ async def _read_socket(ws: WebSocket, writer: MatchWriter, match_id: str, hr: bo
             data = msg.get("bytes")
         if data is None:
             continue
-        out = await (writer.heart_rate(data, durable=False) if hr else writer.frames_message(data))
+        out = await (writer.heart_rate if hr else writer.frames)(data, durable=False)
         errs = [e.as_dict() for e in out.errors]
         if not out.stored:
             errs.append({"code": "not_stored", "message": writer.store_error()})

@@ -8,10 +8,11 @@ from fastapi.responses import JSONResponse, Response
 
 from pacewire.api.auth import Tokens, accept
 from pacewire.api.backend import ReadBackend, Subscription
-from pacewire.api.errors import ApiError, refuse, unknown_match
+from pacewire.api.errors import ApiError, known, refuse
 from pacewire.api.requests import MatchIdParam, StreamParams
 from pacewire.config import Server
 from pacewire.errors import PacewireError
+from pacewire.tasks import cancel
 
 
 def read_routes(backend: ReadBackend, tokens: Tokens, limits: Server) -> APIRouter:
@@ -25,27 +26,19 @@ def read_routes(backend: ReadBackend, tokens: Tokens, limits: Server) -> APIRout
     @router.get("/api/matches/{match_id}/snapshot")
     async def get_snapshot(request: Request, match_id: str = MatchIdParam) -> Response:
         tokens.check(request, write=False)
-        body = await backend.snapshot(match_id)
-        if body is None:
-            raise unknown_match(match_id)
-        return Response(body, media_type="application/json")
+        return Response(known(await backend.snapshot(match_id), match_id), media_type="application/json")
 
     @router.get("/api/matches/{match_id}/reports")
     async def get_reports(request: Request, match_id: str = MatchIdParam) -> JSONResponse:
         tokens.check(request, write=False)
-        listing = await backend.report_listing(match_id)
-        if listing is None:
-            raise unknown_match(match_id)
-        return JSONResponse({"match_id": match_id, "reports": listing})
+        return JSONResponse({"match_id": match_id, "reports": known(await backend.report_listing(match_id), match_id)})
 
     @router.websocket("/live/{match_id}")
     async def ws_live(ws: WebSocket, match_id: str = MatchIdParam) -> None:
         if not await accept(ws, tokens, write=False):
             return
         try:
-            roster = await backend.roster(match_id)
-            if roster is None:
-                raise ApiError(404, "unknown_match", f"no match {match_id!r}")
+            roster = known(await backend.roster(match_id), match_id)
             params = StreamParams.parse(ws.query_params, roster, limits.default_every_s, limits.max_every_s)
             sub = await backend.subscribe(match_id, params, ws.send_text)
         except PacewireError as exc:
@@ -68,8 +61,4 @@ async def _follow(ws: WebSocket, sub: Subscription) -> None:
         pass
     finally:
         sub.close()
-        pump.cancel()
-        try:
-            await pump
-        except (asyncio.CancelledError, Exception):
-            pass
+        await cancel([pump])

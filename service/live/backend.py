@@ -27,11 +27,8 @@ class LocalWriter:
     def __init__(self, runner: MatchRunner) -> None:
         self.runner = runner
 
-    async def frames_lines(self, lines: list[bytes]) -> IngestOutcome:
-        return await self.runner.intake.frames_lines(lines, durable=True)
-
-    async def frames_message(self, data: str | bytes) -> IngestOutcome:
-        return await self.runner.intake.frames_message(data)
+    async def frames(self, data: list[bytes] | bytes | str, durable: bool) -> IngestOutcome:
+        return await self.runner.intake.frames(data, durable)
 
     async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
         return await self.runner.intake.heart_rate(data, durable)

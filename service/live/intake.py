@@ -13,7 +13,7 @@ from typing import Protocol
 
 import orjson
 
-from pacewire.engine.types import Block, Roster
+from pacewire.engine.types import Roster
 from pacewire.live.recorder import Recorder, RecorderError
 from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message
 from pacewire.wire.heart import HrDecoder, HrResult
@@ -48,33 +48,12 @@ class Intake:
         self.hr_recorder = hr_recorder
         self.sink = sink
 
-    async def frames_lines(self, lines: list[bytes], durable: bool) -> IngestOutcome:
-        """JSON Lines (HTTP): answered once the accepted lines are recorded."""
+    async def frames(self, data: list[bytes] | bytes | str, durable: bool) -> IngestOutcome:
+        """JSON Lines (HTTP, a list of lines) or one websocket message (a frame or a JSON array of
+        frames): answered once the accepted frames are recorded."""
         arrival = time.time()
         cp = self.decoder.gate.checkpoint()
-        res = self.decoder.decode_lines(lines)
-        raw = [lines[i].rstrip(b"\r\n") for i in res.accepted]
-        return await self._record(res, raw, cp, arrival, durable)
-
-    async def frames_message(self, data: str | bytes) -> IngestOutcome:
-        """One websocket message: a frame or a JSON array of frames."""
-        arrival = time.time()
-        cp = self.decoder.gate.checkpoint()
-        try:
-            obj = orjson.loads(data)
-        except orjson.JSONDecodeError as exc:
-            self.sink.count_frames(DecodeResult(Block.empty(self.roster.n), [], rejected=1))
-            return IngestOutcome(0, 1, 0, 0, [FrameError("bad_json", f"not valid JSON: {exc}")])
-        objs = obj if isinstance(obj, list) else [obj]
-        res = self.decoder.decode_objects(objs)
-        if not isinstance(obj, list) and res.accepted:
-            raw = [data.encode() if isinstance(data, str) else bytes(data)]
-        else:
-            raw = [orjson.dumps(objs[i]) for i in res.accepted]
-        return await self._record(res, raw, cp, arrival, durable=False)
-
-    async def _record(self, res: DecodeResult, raw: list[bytes], cp: tuple, arrival: float,
-                      durable: bool) -> IngestOutcome:
+        res, raw = self.decoder.decode_for_record(data)
         out = IngestOutcome(len(res.block), res.rejected, res.duplicates, res.late, res.errors)
         self.sink.count_frames(res)
         if not raw:

@@ -17,6 +17,7 @@ from typing import Any, Awaitable, Callable
 import orjson
 
 from pacewire.errors import PacewireError
+from pacewire.tasks import cancel
 
 
 class RecorderError(PacewireError, OSError):
@@ -64,13 +65,7 @@ class Recorder:
         self._sync_task = asyncio.create_task(self._sync_loop(), name=f"recorder-sync:{self.folder.name}")
 
     async def stop(self) -> None:
-        for task in (self._task, self._sync_task):
-            if task is not None:
-                task.cancel()
-                try:
-                    await task
-                except (asyncio.CancelledError, Exception):
-                    pass
+        await cancel((self._task, self._sync_task))
         if self._fd is not None:
             try:
                 if self._dirty:

@@ -27,6 +27,7 @@ from pacewire.live.periods import PeriodAnnouncer
 from pacewire.live.recorder import Recorder, write_json_atomic
 from pacewire.wire.cdf import DecodeResult, FrameDecoder
 from pacewire.wire.heart import HrDecoder, HrResult
+from pacewire.tasks import cancel
 
 log = logging.getLogger("pacewire.runner")
 
@@ -68,13 +69,7 @@ class MatchRunner:
                        asyncio.create_task(self.followup.watch(), name=f"followup:{self.match_id}")]
 
     async def stop(self) -> None:
-        for t in self._tasks:
-            t.cancel()
-        for t in self._tasks:
-            try:
-                await t
-            except (asyncio.CancelledError, Exception):
-                pass
+        await cancel(self._tasks)
         await self.recorder.stop()
         await self.hr_recorder.stop()
 

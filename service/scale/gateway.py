@@ -29,6 +29,7 @@ from pacewire.live.broadcaster import Subscriber
 from pacewire.scale import keys
 from pacewire.scale.settings import ScaleSettings
 from pacewire.wire.cdf import parse_setup
+from pacewire.tasks import cancel
 
 log = logging.getLogger("pacewire.scale.gateway")
 
@@ -234,13 +235,7 @@ class Gateway:
                        asyncio.create_task(self._upkeep(), name="gw-upkeep")]
 
     async def stop(self) -> None:
-        for t in self._tasks:
-            t.cancel()
-        for t in self._tasks:
-            try:
-                await t
-            except (asyncio.CancelledError, Exception):
-                pass
+        await cancel(self._tasks)
         try:
             await self.pubsub.aclose()
         except Exception:

@@ -162,7 +162,8 @@ class StreamIngest:
         m.primed = True
 
     # -- frames -----------------------------------------------------------------------------
-    async def ingest_lines(self, match_id: str, m: IngestMatch, lines: list[bytes]) -> IngestOutcome:
+    async def ingest_frames(self, match_id: str, m: IngestMatch, data: list[bytes] | bytes | str) -> IngestOutcome:
+        """JSON Lines (a list of lines) or one websocket message, appended once decoded."""
         async with m.lock:
             try:
                 if not m.primed:
@@ -170,30 +171,10 @@ class StreamIngest:
             except RedisError as exc:
                 return self._unstored(match_id, exc)
             cp = m.decoder.gate.checkpoint()
-            res = m.decoder.decode_lines(lines)
-            raw = [lines[i].rstrip(b"\r\n") for i in res.accepted]
-            return await self._append(match_id, m, res, raw, cp)
-
-    async def ingest_message(self, match_id: str, m: IngestMatch, data: str | bytes) -> IngestOutcome:
-        async with m.lock:
-            try:
-                if not m.primed:
-                    await self._prime(match_id, m)
-            except RedisError as exc:
-                return self._unstored(match_id, exc)
-            cp = m.decoder.gate.checkpoint()
-            try:
-                obj = orjson.loads(data)
-            except orjson.JSONDecodeError as exc:
-                res = DecodeResult(m.decoder.decode_objects([]).block, [], rejected=1)
+            res, raw = m.decoder.decode_for_record(data)
+            if not raw:
                 await self._count(match_id, res)
-                return IngestOutcome(0, 1, 0, 0, [FrameError("bad_json", f"not valid JSON: {exc}")])
-            objs = obj if isinstance(obj, list) else [obj]
-            res = m.decoder.decode_objects(objs)
-            if not isinstance(obj, list) and res.accepted:
-                raw = [data.encode() if isinstance(data, str) else bytes(data)]
-            else:
-                raw = [orjson.dumps(objs[i]) for i in res.accepted]
+                return IngestOutcome(0, res.rejected, res.duplicates, res.late, list(res.errors))
             return await self._append(match_id, m, res, raw, cp)
 
     async def _count(self, match_id: str, res: DecodeResult) -> None:
@@ -340,14 +321,11 @@ class RedisWriter:
     def __init__(self, store: StreamIngest, match_id: str, m: IngestMatch) -> None:
         self.store, self.match_id, self.m = store, match_id, m
 
-    async def frames_lines(self, lines: list[bytes]) -> IngestOutcome:
-        return await self.store.ingest_lines(self.match_id, self.m, lines)
-
-    async def frames_message(self, data: str | bytes) -> IngestOutcome:
-        return await self.store.ingest_message(self.match_id, self.m, data)
+    async def frames(self, data: list[bytes] | bytes | str, durable: bool) -> IngestOutcome:
+        return await self.store.ingest_frames(self.match_id, self.m, data)  # stored once Redis answers
 
     async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
-        return await self.store.ingest_hr(self.match_id, self.m, data)  # stored once Redis answers
+        return await self.store.ingest_hr(self.match_id, self.m, data)
 
     async def add_event(self, event: Any) -> None:
         await self.store.add_event(self.match_id, self.m, event)

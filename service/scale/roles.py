@@ -24,6 +24,7 @@ from pacewire.api.site import ops_routes
 from pacewire.config import ConfigError, Settings
 from pacewire.live.server import load, serve
 from pacewire.scale.settings import ScaleSettings
+from pacewire.tasks import cancel
 
 ROLES = ("all", "ingest", "aggregator", "gateway", "recorder")
 
@@ -37,11 +38,7 @@ def _worker_app(name: str, make: Callable[[], Any]) -> FastAPI:
         worker = state["worker"] = make()
         task = asyncio.create_task(worker.run(), name=name)
         yield
-        task.cancel()
-        try:
-            await task
-        except (asyncio.CancelledError, Exception):
-            pass
+        await cancel([task])
 
     async def health() -> dict[str, Any]:
         w = state.get("worker")

@@ -419,6 +419,24 @@ class FrameDecoder:
             return DecodeResult(Block.empty(self.roster.n), [objs], rejected=1)
         return self.decode_objects(objs)
 
+    def decode_for_record(self, data: list[bytes] | bytes | str) -> tuple[DecodeResult, list[bytes]]:
+        """A batch decoded, and its accepted frames as the lines to record: JSON Lines (a list of
+        lines) as they came; one websocket message as it came when it is one accepted frame, else
+        each accepted frame of its array written anew."""
+        if isinstance(data, list):
+            res = self.decode_lines(data)
+            return res, [data[i].rstrip(b"\r\n") for i in res.accepted]
+        try:
+            obj = orjson.loads(data)
+        except orjson.JSONDecodeError as exc:
+            return DecodeResult(Block.empty(self.roster.n), [FrameError("bad_json", f"not valid JSON: {exc}")],
+                                rejected=1), []
+        objs = obj if isinstance(obj, list) else [obj]
+        res = self.decode_objects(objs)
+        if not isinstance(obj, list) and res.accepted:
+            return res, [data.encode() if isinstance(data, str) else bytes(data)]
+        return res, [orjson.dumps(objs[i]) for i in res.accepted]
+
     def decode_objects(self, objs: Sequence[Any], lines: Sequence[int] | None = None) -> DecodeResult:
         if self.projection is not None and len(objs) > 1:
             self._projected = self._project_batch(objs)
