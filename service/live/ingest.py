@@ -22,11 +22,12 @@ import orjson
 from pacewire.config import Settings
 from pacewire.engine.health import STALLED
 from pacewire.engine.match import MatchState
-from pacewire.engine.snapshot import build_health
+from pacewire.engine.snapshot import build_health, build_snapshot
 from pacewire.engine.types import PERIODS, Block, Roster
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.recorder import Recorder, RecorderError, write_json_atomic
 from pacewire.live.reporting import Followup
+from pacewire.params import match_params
 from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message
 from pacewire.wire.heart import HrDecoder, HrResult
 
@@ -74,11 +75,11 @@ class MatchRunner:
         self.settings = settings
         self.folder = folder
         self.hooks = hooks or Hooks()
-        self.state = MatchState(roster, settings)
+        self.state = MatchState(roster, match_params(settings, roster))
         self.decoder = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
         self.recorder = Recorder(folder, settings.server.fsync_interval_s)
         # heart-rate channel (docs/wearables.md): its own decoder and file, the same engine queue
-        self.hr_decoder = HrDecoder(roster, self.state.heart_params)
+        self.hr_decoder = HrDecoder(roster, self.state.params.heart)
         self.hr_recorder = Recorder(folder, settings.server.fsync_interval_s, "hr.jsonl")
         srv = settings.server
         self.broadcaster = Broadcaster(self.match_id, self.snapshot_body, srv.resume_buffer_s, srv.subscriber_queue,
@@ -136,7 +137,7 @@ class MatchRunner:
         hr = self.folder / "hr.jsonl"
         if hr.exists():
             with open(hr, "rb") as fh:
-                res = HrDecoder(self.roster, self.state.heart_params, recorded=True).decode_lines(fh)
+                res = HrDecoder(self.roster, self.state.params.heart, recorded=True).decode_lines(fh)
             # the live gate continues from the recorded samples (the last one per player)
             gate = self.hr_decoder.gate
             for i in set(res.player.tolist()):
@@ -383,7 +384,7 @@ class MatchRunner:
         now = time.time()
         self._stalled_view(now)  # a read between the stall and the next health check sees final figures too
         shown = self._stall_view or self.state
-        snap = shown.snapshot(now=now, extra_reasons=self.extra_reasons())
+        snap = build_snapshot(shown, now=now, extra_reasons=self.extra_reasons())
         for k, tid in enumerate(self.roster.team_ids):
             snap["teams"][tid]["score"] = self.score[k]
         return snap

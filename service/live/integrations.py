@@ -28,6 +28,7 @@ from pacewire.wire.recording import open_recording
 from pacewire.analyze import add_heart_rate, new_match
 from pacewire.config import Settings
 from pacewire.engine.match import CLOCK_START_MIN, MatchState
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import PERIODS
 from pacewire.live.matches import MATCH_ID, Matches
 from pacewire.wire.asyncapi import asyncapi_document
@@ -124,7 +125,7 @@ def figures_at(folder: Path, settings: Settings, match_id: str, at_s: float,
         if _event_applies(ev, last_fid, at_s):
             _replay_event(state, ev)
     state.freeze()
-    return state.snapshot()
+    return build_snapshot(state)
 
 
 def make_router(matches: Matches, can_read: Callable[[str | None], bool]) -> APIRouter:

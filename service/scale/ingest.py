@@ -25,11 +25,11 @@ from fastapi.responses import JSONResponse, Response
 from redis.exceptions import RedisError, ResponseError
 
 from pacewire.config import Settings
-from pacewire.engine.match import heart_params
 from pacewire.engine.types import Roster
 from pacewire.live.app import ID, _error, _same, _token
 from pacewire.live.ingest import EventError, IngestOutcome, MatchRunner
 from pacewire.live.matches import MATCH_ID
+from pacewire.params import heart_params
 from pacewire.scale import keys
 from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, SetupError, parse_message, parse_setup
 from pacewire.wire.heart import HrDecoder, HrGate
