@@ -11,8 +11,10 @@ import numpy as np
 from pacewire.wire.recording import Recording, open_recording
 from pacewire.config import Settings, load_settings
 from pacewire.engine.match import CLOCK_START_MIN, MatchState
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import PERIODS
 from pacewire.events import applies_by, apply_event
+from pacewire.params import match_params
 from pacewire.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
 from pacewire.wire.heart import HrDecoder
 
@@ -24,7 +26,7 @@ class AnalyzeResult:
     error_count: int = 0
 
     def snapshot(self) -> dict[str, Any]:
-        return self.state.snapshot()
+        return build_snapshot(self.state)
 
 
 class StrictError(ValueError):
@@ -38,7 +40,7 @@ def new_match(meta: dict[str, Any], sheet: dict[str, Any], settings: Settings,
     """Engine state and decoder for a match set up from CDF meta + sheet."""
     roster = parse_setup(meta, sheet, match_id, gnss_tolerances(settings))
     decoder = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
-    return MatchState(roster, settings), decoder
+    return MatchState(roster, match_params(settings, roster)), decoder
 
 
 def add_heart_rate(state: MatchState, rec: Recording) -> list[FrameError]:
@@ -47,7 +49,7 @@ def add_heart_rate(state: MatchState, rec: Recording) -> list[FrameError]:
     the lines refused."""
     if rec.hr is None:
         return []
-    res = HrDecoder(state.roster, state.heart_params, recorded=True).decode_lines(rec.hr_lines())
+    res = HrDecoder(state.roster, state.params.heart, recorded=True).decode_lines(rec.hr_lines())
     state.ingest_heart(res)
     return res.errors
 
@@ -141,4 +143,4 @@ def figures_at(folder: Path, settings: Settings, match_id: str, at_s: float,
         if applies_by(ev, last_fid, at_s):
             apply_event(state, ev)
     state.freeze()
-    return state.snapshot()
+    return build_snapshot(state)

@@ -17,11 +17,13 @@ from live_server import LiveServer
 from pacewire.config import ConfigError, load_settings
 from pacewire.engine.blocks import clock_block, window_coverage
 from pacewire.engine.match import MatchState
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import BALL_IN, PERIOD_INDEX, Block
 from pacewire.reports.alerts import (Alerter, Band, Caps, DropOffBaseline, DropOffPeak, LoadBudget, RulesError,
                                     check_rules, load_rules, parse_budgets)
 from pacewire.store import history
 from pacewire.store.record import MatchRecord
+from pacewire.params import match_params
 from pacewire.wire.cdf import parse_setup
 
 FPS = 25
@@ -41,7 +43,8 @@ def run(paths: dict[int, np.ndarray], seen: dict[int, np.ndarray] | None = None,
     """Feed one period of frames to a MatchState in EVERY_S-second blocks (figures do not depend
     on the blocking); after each, record (snapshot, coverage per window, current 15-minute block)."""
     settings = settings or load_settings()
-    state = MatchState(parse_setup(cb.meta("m_al"), cb.sheet(N_HOME, N_AWAY)), settings)
+    roster = parse_setup(cb.meta("m_al"), cb.sheet(N_HOME, N_AWAY))
+    state = MatchState(roster, match_params(settings, roster))
     T = max(p.shape[0] for p in paths.values())
     xy = np.full((T, len(IDS), 2), np.nan)
     for j, p in paths.items():
@@ -56,7 +59,7 @@ def run(paths: dict[int, np.ndarray], seen: dict[int, np.ndarray] | None = None,
         n = slot.size
         state.step(Block(frame_id=slot.copy(), t=t0 + slot / FPS, period=np.full(n, PERIOD_INDEX["first_half"], np.int8),
                          slot=slot, xy=xy[slot], ball=np.full(n, BALL_IN, np.int8), poss=np.zeros(n, np.int8)))
-        snap = state.snapshot()
+        snap = build_snapshot(state)
         cov = {w: window_coverage(state, w) for w in settings.windows.last_min}
         out.append((snap, cov, clock_block("first_half", snap["match_time_s"], 15, 45)))
     return out

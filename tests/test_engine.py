@@ -8,6 +8,7 @@ from hypothesis import HealthCheck, given, settings as hsettings, strategies as 
 import cdf_build as cb
 from pacewire.analyze import new_match
 from pacewire.config import load_settings
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import Block
 
 FPS = 25
@@ -28,7 +29,7 @@ def run(xy: np.ndarray, n_home: int | None = None, gk: tuple[str, ...] = (), ove
         i += c
     assert i == len(lines)
     state.finish()
-    return state.snapshot()
+    return build_snapshot(state)
 
 
 R_TRACK = 30.0  # runs follow a circle of this radius (m) so they stay on the pitch
@@ -187,7 +188,7 @@ def test_periods_and_blocks():
     f2 = cb.frames(xy2, ids, 1, period="second_half", t0=T / FPS + 900, frame0=T)
     state.ingest(dec.decode_lines(cb.lines(f1 + f2)))
     state.finish()
-    p = state.snapshot()["players"]["h1"]
+    p = build_snapshot(state)["players"]["h1"]
     assert set(p["periods"]) == {"first_half", "second_half"}
     assert p["periods"]["first_half"]["distance_m"] == pytest.approx(3600, rel=0.005)
     assert p["periods"]["second_half"]["distance_m"] == pytest.approx(240, rel=0.01)
@@ -257,11 +258,11 @@ def test_stall_flush_then_resume_keeps_every_frame():
     lines = cb.lines(cb.frames(xy, ids, 1))
     state.ingest(dec.decode_lines(lines[:400]))
     state.flush()  # the feed stalled: the tail is finalised at once
-    flushed = state.snapshot()["players"]["h1"]["distance_m"]
+    flushed = build_snapshot(state)["players"]["h1"]["distance_m"]
     assert flushed == pytest.approx(4.0 * 399 / FPS, abs=0.5)
     state.ingest(dec.decode_lines(lines[400:]))
     state.finish()
-    assert state.snapshot()["players"]["h1"]["distance_m"] == pytest.approx(4.0 * (len(x) - 1) / FPS, abs=1.0)
+    assert build_snapshot(state)["players"]["h1"]["distance_m"] == pytest.approx(4.0 * (len(x) - 1) / FPS, abs=1.0)
 
 
 def test_block_take_and_concat_round_trip():

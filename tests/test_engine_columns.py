@@ -10,6 +10,7 @@ import pytest
 import cdf_build as cb
 from pacewire.analyze import new_match
 from pacewire.config import load_settings
+from pacewire.engine.snapshot import build_snapshot
 
 FPS = 25
 N_HOME, N_AWAY = 3, 2
@@ -45,7 +46,7 @@ def figures(xy: np.ndarray, block: int, unseen_home: int = 0) -> dict:
     for i in range(0, len(lines), block):
         state.ingest(dec.decode_lines(lines[i:i + block]))
     state.finish()
-    snap = state.snapshot()
+    snap = build_snapshot(state)
     return {pid: {k: v for k, v in snap["players"][pid].items() if k != "on_pitch"} for pid in ids}
 
 

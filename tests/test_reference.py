@@ -35,6 +35,7 @@ from pacewire.analyze import new_match
 from pacewire.config import load_settings
 from pacewire.engine.exertion import metabolic_power, minetti_cost
 from pacewire.engine.kinematics import Track
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.wire.cdf import SetupError
 
 FPS = 25
@@ -52,12 +53,12 @@ def analyse(xy: np.ndarray, overrides: dict | None = None, fps: int = FPS) -> tu
     assert res.rejected == 0, res.errors[:3]
     state.ingest(res)
     state.finish()
-    return state.snapshot(), state
+    return build_snapshot(state), state
 
 
 def track_kinematics(xy: np.ndarray, state) -> tuple[np.ndarray, np.ndarray]:
     """The engine's own per-sample speed and tangential acceleration for positions (T, P, 2)."""
-    tr = Track(state.kin, xy.shape[1])
+    tr = Track(state.params.kinematics, xy.shape[1])
     fins = tr.feed(np.arange(xy.shape[0]), xy) + tr.close()
     return np.concatenate([f.speed for f in fins]), np.concatenate([f.accel for f in fins])
 
@@ -127,7 +128,7 @@ def test_constant_5ms_osgnach2010():
     assert p["m_per_min"] == pytest.approx(300.0, rel=0.005)
     assert p["distance_m"] == pytest.approx(900.0, rel=0.005)
     # Osgnach et al. 2010: P = C v = 4.644 J/kg/m x 5 m/s = 23.22 W/kg
-    assert float(metabolic_power(np.array(5.0), np.array(0.0), state.exp)) == pytest.approx(23.22, abs=0.05)
+    assert float(metabolic_power(np.array(5.0), np.array(0.0), state.params.exertion)) == pytest.approx(23.22, abs=0.05)
     assert p["metabolic_power_wkg"] == pytest.approx(23.22, abs=0.05)
     # Osgnach et al. 2010: energy = C x distance = 4.644 x 900 = 4179.6 J/kg
     assert p["energy_jkg"] == pytest.approx(4.644 * 900.0, rel=0.005)
@@ -141,14 +142,14 @@ def test_constant_5ms_diprampero2018_and_floodlight():
     xy = circle_run(120.0)
     snap, state = analyse(xy, DIPRAMPERO)
     # di Prampero & Osgnach 2018 with the Minetti & Pavei 2018 cost: 19.197 W/kg at 5 m/s on the flat
-    assert float(metabolic_power(np.array(5.0), np.array(0.0), state.exp)) == pytest.approx(19.197, abs=0.001)
+    assert float(metabolic_power(np.array(5.0), np.array(0.0), state.params.exertion)) == pytest.approx(19.197, abs=0.001)
     assert snap["players"]["h1"]["metabolic_power_wkg"] == pytest.approx(19.197, abs=0.05)
     # floodlight 1.2.0 MetabolicPowerModel on the same trajectory: 19.19727 W/kg (NOTES.md);
     # interior samples only (its first and last samples are one-sided differences)
     fl = floodlight_power(xy)[2:-2, 0]
     assert fl.mean() == pytest.approx(19.19727, abs=0.001)
     speed, accel = track_kinematics(xy, state)
-    ours = metabolic_power(speed, accel, state.exp)[2:-2, 0]
+    ours = metabolic_power(speed, accel, state.params.exertion)[2:-2, 0]
     # the two implementations differ only in g (9.81 here, scipy's 9.80665 there): < 0.005 W/kg
     assert ours.mean() == pytest.approx(fl.mean(), abs=0.005)
 
@@ -171,7 +172,7 @@ def test_varied_run_per_sample_against_floodlight():
     am.fit(fxy, difference="central")
     fl_v, fl_a = vm.velocity().property[:, 0], am.acceleration().property[:, 0]
     fl_p = floodlight_power(xy[:, None, :])[:, 0]
-    ours_p = metabolic_power(speed, accel, state.exp)
+    ours_p = metabolic_power(speed, accel, state.params.exertion)
     inner = slice(FPS, -FPS)  # one window from each end: both sides use one-sided estimates there
 
     # 1. Same formula: floodlight's power function on pacewire's own speed and acceleration.
@@ -411,7 +412,7 @@ def hawkeye():
     res = dec.decode_lines([orjson.dumps(f) for f in frames])
     state.ingest(res)
     state.finish()
-    return {"meta": meta, "frames": frames, "decode": res, "snapshot": state.snapshot(),
+    return {"meta": meta, "frames": frames, "decode": res, "snapshot": build_snapshot(state),
             "provider": kc.provider_figures(metric), "centroids": centroids, "n_frames": len(dataset.frames)}
 
 

@@ -21,6 +21,7 @@ import cdf_build as cb
 from live_server import LiveServer
 from pacewire.analyze import analyze_folder
 from pacewire.config import load_settings
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.reports.builder import FILES
 from pacewire.reports.offline import build_offline
 from pacewire.reports.page import HEALTH_CAUTION, LIVE_CAVEAT
@@ -229,7 +230,7 @@ def test_html_report_is_valid_self_contained_and_names_every_player(live):
 def test_report_table_holds_every_contract_figure():
     """The CSV's columns: every player figure named in DESIGN §3, its windows, periods and zones."""
     state = _tiny_state()
-    snap = state.snapshot()
+    snap = build_snapshot(state)
     header = to_csv(snap).splitlines()[0].split(",")
     contract = ["distance_m", "speed_ms", "max_speed_ms", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels",
                 "decels", "metabolic_power_wkg", "energy_jkg", "high_power_m", "minutes", "m_per_min", "coverage"]
@@ -243,11 +244,12 @@ def test_report_table_holds_every_contract_figure():
 
 def _tiny_state():
     from pacewire.engine.match import MatchState
+    from pacewire.params import match_params
     from pacewire.wire.cdf import FrameDecoder, parse_setup
 
     settings = load_settings()
     roster = parse_setup(cb.meta("m_t"), cb.sheet(N_HOME, N_AWAY))
-    state = MatchState(roster, settings)
+    state = MatchState(roster, match_params(settings, roster))
     dec = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
     state.ingest(dec.decode_lines(cb.lines(cb.frames(trajectory(90, 5), IDS, N_HOME, match_id="m_t"))))
     state.finish()
@@ -269,7 +271,7 @@ def test_synthetic_match_report(tmp_path):
 
     folder = write_match(tmp_path / "synth", minutes=2, fps=25, seed=11, faults=False)
     state = analyze_folder(folder).state
-    snap = state.snapshot()
+    snap = build_snapshot(state)
     build_report(ReportInput("full_time", snap, block_series(state, 1, "split"), "replay", time.time()), tmp_path / "r")
     text = (tmp_path / "r" / "full_time" / "report.html").read_text()
     parse_strict(text)

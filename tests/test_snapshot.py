@@ -13,7 +13,7 @@ import pytest
 from pacewire.replay import synth
 from pacewire.analyze import new_match
 from pacewire.config import load_settings
-from pacewire.engine.snapshot import build_health
+from pacewire.engine.snapshot import build_health, build_snapshot
 from pacewire.wire.heart import HrDecoder
 
 NOW = 1.9e9  # a wall clock for health (any fixed value: both builds see the same)
@@ -40,7 +40,7 @@ def test_incremental_snapshot_equals_a_fresh_build(recording):
     frames = (recording / "tracking.jsonl").read_bytes().splitlines()
     hr_path = recording / "hr.jsonl"
     hr = hr_path.read_bytes().splitlines() if hr_path.exists() else []
-    hr_dec = HrDecoder(state.roster, state.heart_params)
+    hr_dec = HrDecoder(state.roster, state.params.heart)
     rng = random.Random(5)
     i = j = checked = reused = 0
     prev = None
@@ -63,8 +63,8 @@ def test_incremental_snapshot_equals_a_fresh_build(recording):
         if rng.random() < 0.02:
             views.append(state.provisional())  # a stalled feed's finalised copy, as ingest shows it
         for view in views:
-            got = view.snapshot(now=NOW)
-            want = _fresh(view).snapshot(now=NOW)
+            got = build_snapshot(view, now=NOW)
+            want = build_snapshot(_fresh(view), now=NOW)
             assert orjson.dumps(got) == orjson.dumps(want), f"after {i} frames"
             assert build_health(view, NOW, None) == got["health"]
             checked += 1
@@ -72,7 +72,7 @@ def test_incremental_snapshot_equals_a_fresh_build(recording):
             reused += sum(got_p is prev_p for got_p, prev_p in zip(got["players"].values(), prev["players"].values()))
         prev = got
     state.finish()
-    assert orjson.dumps(state.snapshot(now=NOW)) == orjson.dumps(_fresh(state).snapshot(now=NOW))
+    assert orjson.dumps(build_snapshot(state, now=NOW)) == orjson.dumps(build_snapshot(_fresh(state), now=NOW))
     assert checked > 100
     if state.heart is None:
         # substitutes not yet on keep their player object from one snapshot to the next (diffs skip them)
@@ -107,8 +107,8 @@ def test_players_who_stop_or_leave_the_feed_show_it_at_once():
     seen_null = seen_off = False
     for k, line in enumerate(lines):
         state.ingest(dec.decode_lines([line]), now=NOW + k / fps)
-        got = state.snapshot(now=NOW + k / fps)
-        assert orjson.dumps(got) == orjson.dumps(_fresh(state).snapshot(now=NOW + k / fps)), f"frame {k}"
+        got = build_snapshot(state, now=NOW + k / fps)
+        assert orjson.dumps(got) == orjson.dumps(build_snapshot(_fresh(state), now=NOW + k / fps)), f"frame {k}"
         seen_null |= k > T // 2 and got["players"]["h2"]["speed_ms"] is None
         seen_off |= k > T // 2 and got["players"]["h2"]["on_pitch"] is False
     assert seen_null and seen_off

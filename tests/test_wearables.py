@@ -20,6 +20,7 @@ import cdf_build as cb
 from live_server import LiveServer
 from pacewire.analyze import analyze_folder, new_match
 from pacewire.config import load_settings
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.wire.cdf import SetupError, parse_setup
 from pacewire.wire.gnss import PitchProjection, rectangle
 from pacewire.wire.heart import HrDecoder
@@ -87,7 +88,7 @@ def touchline_run(seconds: float) -> np.ndarray:
 def analyse(frames: list[dict], hr: list[dict] | None = None, n_home: int = 1, gnss: bool = True,
             chunks: list[int] | None = None, hr_first: bool = True) -> dict:
     state, dec = new_match(wearable_meta(gnss=gnss), wearable_sheet(n_home), load_settings())
-    hdec = HrDecoder(state.roster, state.heart_params)
+    hdec = HrDecoder(state.roster, state.params.heart)
     lines = cb.lines(frames)
     if hr and hr_first:
         state.ingest_heart(hdec.decode_lines(cb.lines(hr)))
@@ -101,7 +102,7 @@ def analyse(frames: list[dict], hr: list[dict] | None = None, n_home: int = 1, g
     if hr and not hr_first:
         state.ingest_heart(hdec.decode_lines(cb.lines(hr)))
     state.finish()
-    return state.snapshot()
+    return build_snapshot(state)
 
 
 # -- GNSS ------------------------------------------------------------------------------------
@@ -358,7 +359,7 @@ def test_samples_let_in_by_the_jump_reset_count_again_when_read_back_from_the_re
     # docs/wearables.md: after 3 hr_jump rejections in a row the next sample is accepted; a recording
     # holds only accepted samples, so reading it back must not apply the jump rule again
     roster = parse_setup(wearable_meta(), wearable_sheet(1))
-    params = new_match(wearable_meta(), wearable_sheet(1), load_settings())[0].heart_params
+    params = new_match(wearable_meta(), wearable_sheet(1), load_settings())[0].params.heart
     bpm = [100, 101, 225, 225, 225, 225, 226, 227]  # 4 Hz: the 225s jump > 40 bpm/s from 101
     lines = cb.lines([{"player_id": "h1", "timestamp": cb.stamp(k / 4), "bpm": b} for k, b in enumerate(bpm)])
     live = HrDecoder(roster, params).decode_lines(lines)

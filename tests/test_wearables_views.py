@@ -33,6 +33,7 @@ import page_conftest as pc
 from live_server import LiveServer
 from pacewire.config import load_settings
 from pacewire.engine.blocks import block_series
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.reports.builder import ReportInput, build_report
 from pacewire.reports.offline import build_offline
 from pacewire.reports.page import HEALTH_CAUTION, HR_CAVEAT, OMITTED_MARK
@@ -115,14 +116,15 @@ def match_hr() -> list[dict[str, Any]]:
 # -- reports from the engine directly -------------------------------------------------------------
 def engine_state(match_id: str, with_hr: bool):
     from pacewire.engine.match import MatchState
+    from pacewire.params import match_params
     from pacewire.wire.cdf import FrameDecoder, parse_setup
     from pacewire.wire.heart import HrDecoder
 
     settings = load_settings()
     roster = parse_setup(cb.meta(match_id, fps=FPS), sheet())
-    state = MatchState(roster, settings)
+    state = MatchState(roster, match_params(settings, roster))
     if with_hr:
-        res = HrDecoder(roster, state.heart_params).decode_lines(cb.lines(match_hr()))
+        res = HrDecoder(roster, state.params.heart).decode_lines(cb.lines(match_hr()))
         assert not res.errors, res.errors[:3]
         state.ingest_heart(res)
     dec = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
@@ -134,7 +136,7 @@ def engine_state(match_id: str, with_hr: bool):
 
 
 def write_report(state, folder: Path) -> tuple[str, dict[str, Any], str]:
-    snap = state.snapshot()
+    snap = build_snapshot(state)
     build_report(ReportInput("full_time", snap, block_series(state, 1, "split"), "replay", time.time()), folder)
     return (folder / "full_time" / "report.html").read_text(), snap, (folder / "full_time" / "report.csv").read_text()
 

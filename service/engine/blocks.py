@@ -12,15 +12,12 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Literal
+from typing import Literal
 
 import numpy as np
 
 from pacewire.engine import exertion as ex
-from pacewire.engine.match import CLOCK_START_MIN
-
-if TYPE_CHECKING:
-    from pacewire.engine.match import MatchState
+from pacewire.engine.match import CLOCK_START_MIN, MatchState
 
 _U = 1e-6  # micro-units to units
 
@@ -78,7 +75,7 @@ def _period_blocks(period: str, length_min: int, block_min: int, done_s: int, st
     return [o for o in out if o[0] < done_s]
 
 
-def block_series(state: "MatchState", block_min: int, stoppage: Literal["merge", "split"] = "merge") -> BlockSeries:
+def block_series(state: MatchState, block_min: int, stoppage: Literal["merge", "split"] = "merge") -> BlockSeries:
     """Figures of every ``block_min``-minute block of the match clock so far.
 
     ``stoppage="merge"``: the last block of a period takes its stoppage time
@@ -90,7 +87,7 @@ def block_series(state: "MatchState", block_min: int, stoppage: Literal["merge",
     n = state.n
     keys, periods, starts, stops, sums, onp = [], [], [], [], [], []
     for per in state.periods:
-        length = int(getattr(state.settings.periods, per.name))
+        length = state.params.period_min[per.index]
         bins = per.bins
         if length <= 0 or bins.complete == 0:
             continue
@@ -117,7 +114,7 @@ def block_series(state: "MatchState", block_min: int, stoppage: Literal["merge",
     )
 
 
-def window_coverage(state: "MatchState", minutes: int) -> np.ndarray:
+def window_coverage(state: MatchState, minutes: int) -> np.ndarray:
     """(P,) credited samples ÷ on-pitch samples over the last ``minutes`` of complete
     seconds of the current period (the coverage of a "last N min" window); 0 where
     the player was not on the pitch in it."""

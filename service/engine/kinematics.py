@@ -281,10 +281,32 @@ class Track:
         lo = max(self.cut - self.base, 0)
         if lo:
             seen[:lo] = False
+        prev_s, jprev, spike, split = self._jumps(buf, seen, rows)
+        kept = seen & ~spike
+        valid1, xyb = self._bridge(buf, kept, split, rows)
+
+        # runs: bounded by invalid slots and by splits
+        run_s = np.maximum(_prev_true(~valid1) + 1, _prev_true(split))
+        nsplit = _shift_up(_next_true(split), _BIG)
+        run_e = np.minimum(_next_true(~valid1) - 1, nsplit - 1)
+        run_e = np.minimum(run_e, n_rows - 1)
+
+        doubt = np.full(self.n, n_rows, np.int64) if closed else self._doubt(seen, prev_s, jprev, valid1, run_s)
+        # a run's length counts only its decided part
+        run_e_dec = np.minimum(run_e, doubt[None, :] - 1)
+        valid = valid1 & (run_e_dec - run_s + 1 >= p.window) & (rows < doubt[None, :])
+        jumps = spike | split
+        return valid, kept, run_s, run_e, xyb, doubt, jumps
+
+    def _jumps(self, buf: np.ndarray, seen: np.ndarray, rows: np.ndarray
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Per slot: the previous seen slot (-1 none), whether the step into it is a jump, isolated
+        outliers (``spike``: removed) and the other jumps (``split``: the track splits there)."""
+        p = self.p
+        n_rows = buf.shape[0]
         reach = p.bridge + 1
         vmax_step = p.max_step_speed_ms * self.dt
         tol = p.jump_tolerance_m
-
         prev_s = _shift_down(_prev_true(seen), -1)  # previous seen, strictly before
         next_s = _shift_up(_next_true(seen), _BIG)  # next seen, strictly after
         has_prev = seen & (prev_s >= 0) & (rows - prev_s <= reach)
@@ -300,14 +322,17 @@ class Track:
         jskip = skip > vmax_step * (next_c - prev_c) + tol
         spike = jprev & jnext & ~jskip
         split = jprev & ~spike & ~_take(spike, prev_f)
-        kept = seen & ~spike
+        return prev_s, jprev, spike, split
 
-        # bridging gaps of up to p.bridge slots between kept samples
+    def _bridge(self, buf: np.ndarray, kept: np.ndarray, split: np.ndarray, rows: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray]:
+        """Bridging gaps of up to ``bridge`` slots between kept samples: the mask of kept or
+        bridged slots, and the positions with bridged slots interpolated linearly."""
+        n_rows = buf.shape[0]
         pk = _prev_true(kept)
         nk = _next_true(kept)
         nk_c = np.clip(nk, 0, n_rows - 1)
-        bridged = ~kept & (pk >= 0) & (nk < _BIG) & (nk - pk - 1 <= p.bridge) & ~_gather(split, nk_c)
-        valid1 = kept | bridged
+        bridged = ~kept & (pk >= 0) & (nk < _BIG) & (nk - pk - 1 <= self.p.bridge) & ~_gather(split, nk_c)
         xyb = buf.copy()
         if bridged.any():
             pk_c = np.clip(pk, 0, n_rows - 1)
@@ -315,40 +340,36 @@ class Track:
             a = _gather(buf, pk_c)
             b = _gather(buf, nk_c)
             xyb = np.where(bridged[..., None], a + (b - a) * frac, xyb)
+        return kept | bridged, xyb
 
-        # runs: bounded by invalid slots and by splits
-        run_s = np.maximum(_prev_true(~valid1) + 1, _prev_true(split))
-        nsplit = _shift_up(_next_true(split), _BIG)
-        run_e = np.minimum(_next_true(~valid1) - 1, nsplit - 1)
-        run_e = np.minimum(run_e, n_rows - 1)
-
-        # doubt: first slot whose status future samples may still change
+    def _doubt(self, seen: np.ndarray, prev_s: np.ndarray, jprev: np.ndarray, valid1: np.ndarray,
+               run_s: np.ndarray) -> np.ndarray:
+        """Per player, the first slot whose status future samples may still change (the slot count
+        when none): a trailing jump awaiting its successor, a trailing gap that may yet be bridged,
+        or a run too short so far."""
+        p = self.p
+        n_rows = seen.shape[0]
+        reach = p.bridge + 1
         doubt = np.full(self.n, n_rows, np.int64)
-        if not closed:
-            last_seen = _prev_true(seen)[-1]  # per player, -1 if none
-            e = n_rows - 1
-            have = last_seen >= 0
-            ls = np.clip(last_seen, 0, e)
-            cols = np.arange(self.n)
-            trailing = e - ls
-            # last seen sample is a jump still awaiting its successor
-            j_open = have & jprev[ls, cols] & (trailing < reach)
-            prev_of_ls = np.clip(prev_s[ls, cols], 0, e)
-            doubt = np.where(j_open, prev_of_ls + 1, doubt)
-            # a short trailing gap may yet be bridged
-            gap_open = have & ~j_open & (trailing > 0) & (trailing <= p.bridge)
-            doubt = np.where(gap_open, ls + 1, doubt)
-            # the run that reaches the doubt slot must already be long enough
-            last_row = np.clip(doubt - 1, 0, e)
-            in_run = valid1[last_row, cols] & (doubt > 0)
-            rs = run_s[last_row, cols]
-            short = in_run & (last_row - rs + 1 < p.window)
-            doubt = np.where(short, rs, doubt)
-        # a run's length counts only its decided part
-        run_e_dec = np.minimum(run_e, doubt[None, :] - 1)
-        valid = valid1 & (run_e_dec - run_s + 1 >= p.window) & (rows < doubt[None, :])
-        jumps = spike | split
-        return valid, kept, run_s, run_e, xyb, doubt, jumps
+        last_seen = _prev_true(seen)[-1]  # per player, -1 if none
+        e = n_rows - 1
+        have = last_seen >= 0
+        ls = np.clip(last_seen, 0, e)
+        cols = np.arange(self.n)
+        trailing = e - ls
+        # last seen sample is a jump still awaiting its successor
+        j_open = have & jprev[ls, cols] & (trailing < reach)
+        prev_of_ls = np.clip(prev_s[ls, cols], 0, e)
+        doubt = np.where(j_open, prev_of_ls + 1, doubt)
+        # a short trailing gap may yet be bridged
+        gap_open = have & ~j_open & (trailing > 0) & (trailing <= p.bridge)
+        doubt = np.where(gap_open, ls + 1, doubt)
+        # the run that reaches the doubt slot must already be long enough
+        last_row = np.clip(doubt - 1, 0, e)
+        in_run = valid1[last_row, cols] & (doubt > 0)
+        rs = run_s[last_row, cols]
+        short = in_run & (last_row - rs + 1 < p.window)
+        return np.where(short, rs, doubt)
 
     # -- output --------------------------------------------------------------------
     def advance(self, closed: bool = False) -> Final | None:

@@ -1,31 +1,33 @@
 """MatchState: a match's roster, periods, players and team totals.
 
 ``step(block)`` applies frames; the figures depend only on the frames, never
-on how they were split into blocks. ``snapshot()`` returns the contract's
-snapshot body (DESIGN §3): ``players``, ``teams``, ``health``.
+on how they were split into blocks. :func:`pacewire.engine.snapshot.build_snapshot`
+turns a state into the snapshot body the service publishes: ``players``,
+``teams``, ``health``.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import copy
 from functools import partial
 from typing import Any
 
 import numpy as np
 
-from pacewire.config import Settings
 from pacewire.engine import exertion as ex
-from pacewire.engine.exertion import Exertion, ExertionParams
-from pacewire.engine.health import FeedHealth, HealthParams
-from pacewire.engine.heart import HeartParams, HeartProfile, HeartRate
-from pacewire.engine.kinematics import Final, KinematicParams, Track
-from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIODS, Block, Roster
+from pacewire.engine.exertion import Exertion
+from pacewire.engine.health import FeedHealth
+from pacewire.engine.heart import HeartRate
+from pacewire.engine.kinematics import Final, Track
+from pacewire.engine.params import MatchParams
+from pacewire.engine.period import Period
+from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, Block, Roster
 from pacewire.engine.windows import SecondBins
 
 # Football clock: minute at which each period starts (Laws of the Game).
 CLOCK_START_MIN = {"first_half": 0, "second_half": 45, "first_half_extratime": 90,
                    "second_half_extratime": 105, "shootout": 120}
+# Ball contexts of a team, in the snapshot's order (see MatchState._context).
 CONTEXTS = ("in_possession", "out_of_possession", "out_of_play")
-_U = 1e-6  # micro-units to units
 _DIST_HSR = slice(ex.DIST, ex.HSR + 1)  # distance and HSR rows of the figure sums
 # In the per-block path, reductions and gathers call the ufunc or method directly: the
 # ndarray.all()/max() and np.take()/np.searchsorted() wrappers cost about a microsecond of Python each.
@@ -39,152 +41,37 @@ def _widen(a: np.ndarray, k: int, fill: Any, axis: int = 0) -> np.ndarray:
     return np.concatenate([a, np.full(shape, fill, a.dtype)], axis=axis)
 
 
-@dataclass
-class _Period:
-    """One period's running state.
-
-    The engine works only on the players seen in the period so far: the columns
-    ``cols`` (roster indices, in order of appearance), grown when a player first
-    appears (a player never seen has all-zero figures). The properties below give
-    the per-player arrays roster-wide (P = roster size)."""
-
-    index: int
-    t0: float  # timestamp of slot 0, s
-    n: int  # roster size
-    track: Track
-    exertion: Exertion
-    bins: SecondBins
-    ball_poss: np.ndarray  # (slots, 2) int8: ball state, team in possession
-    cols: np.ndarray  # (C,) roster index of each column
-    unseen: np.ndarray  # roster indices not seen so far
-    team: np.ndarray  # (C,) int8
-    c_sums: np.ndarray  # (N_FIG, C) int64
-    c_zones: np.ndarray  # (C, Z) int64 µm
-    c_poss: np.ndarray  # (C, 4, 2) int64 µm: context (the contract's three, then unknown) × (distance, hsr)
-    poss_pend: np.ndarray  # (2, C) int64 µm: distance, hsr since the ball context last changed
-    c_max_speed: np.ndarray  # (C,) m/s
-    c_first_seen: np.ndarray  # (C,) slot, -1 never
-    c_last_seen: np.ndarray  # (C,) slot, -1 never
-    c_off_slots: np.ndarray  # (C,) slots in gaps long enough to mean "off the pitch"
-    c_last_valid: np.ndarray  # (C,) slot of the latest credited sample, -1 never
-    c_last_speed: np.ndarray  # (C,) m/s at last_valid
-    last_slot: int = -1  # latest slot received
-    ended: bool = False
-    full_upto: int = -1  # end slot of the latest final samples if every column was seen in all of them
-    in_order: bool = False  # the columns are the whole roster in roster order
-    order: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))  # cols, then unseen
-    poss_code: int | None = None  # ball state and possession (int16 view) of the blocks in poss_pend
-    poss_ctx: tuple[int, int] | None = None  # context of each team for poss_pend
-    zone_bin: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))  # (C,) first bincount bin of each column
-
-    @property
-    def name(self) -> str:
-        return PERIODS[self.index]
-
-    def _roster(self, a: np.ndarray, fill: Any) -> np.ndarray:
-        out = np.full((self.n, *a.shape[1:]), fill, a.dtype)
-        out[self.cols] = a
-        return out
-
-    @property
-    def sums(self) -> np.ndarray:
-        """(P, N_FIG) int64."""
-        return self._roster(self.c_sums.T, 0)
-
-    @property
-    def zones(self) -> np.ndarray:
-        """(P, Z) int64 µm."""
-        return self._roster(self.c_zones, 0)
-
-    @property
-    def poss(self) -> np.ndarray:
-        """(P, 3, 2) int64 µm: context × (distance, hsr)."""
-        c = self.c_poss
-        if self.poss_ctx is not None:
-            c = c.copy()
-            self.add_pending(c)
-        return self._roster(c[:, :3], 0)
-
-    def add_pending(self, c_poss: np.ndarray) -> None:
-        """Add the sums held since the ball context last changed to ``c_poss``."""
-        ctx = np.array(self.poss_ctx)[self.team]
-        c_poss[np.arange(len(ctx)), ctx] += self.poss_pend.T
-
-    @property
-    def max_speed(self) -> np.ndarray:
-        return self._roster(self.c_max_speed, 0.0)
-
-    @property
-    def first_seen(self) -> np.ndarray:
-        return self._roster(self.c_first_seen, -1)
-
-    @property
-    def last_seen(self) -> np.ndarray:
-        return self._roster(self.c_last_seen, -1)
-
-    @property
-    def off_slots(self) -> np.ndarray:
-        return self._roster(self.c_off_slots, 0)
-
-    @property
-    def last_valid(self) -> np.ndarray:
-        return self._roster(self.c_last_valid, -1)
-
-    @property
-    def last_speed(self) -> np.ndarray:
-        return self._roster(self.c_last_speed, 0.0)
-
-    def onpitch_slots(self) -> np.ndarray:
-        first, last = self.c_first_seen, self.c_last_seen
-        return self._roster(np.where(first >= 0, last - first + 1 - self.c_off_slots, 0), 0)
-
-
 class MatchState:
     """All figures of one match, from its frames."""
 
-    def __init__(self, roster: Roster, settings: Settings) -> None:
+    def __init__(self, roster: Roster, params: MatchParams) -> None:
+        if not params.fits(roster.n, roster.fps):
+            raise ValueError(f"parameters built for another roster than {roster.match_id!r}")
         self.roster = roster
-        self.settings = settings
-        s = settings
+        self.params = params
         fps = roster.fps
         self.fps = fps
-        self.kin = KinematicParams.make(fps, s.kinematics.smooth_window_s, s.kinematics.smooth_order,
-                                        s.kinematics.bridge_gap_s, s.kinematics.max_step_speed_ms,
-                                        s.kinematics.jump_tolerance_m, s.kinematics.still_speed_ms)
-        self.exp = ExertionParams(
-            fps=fps, hsr_ms=s.speed.hsr_ms, sprint_ms=s.speed.sprint_ms,
-            speed_min_n=int(round(s.efforts.speed_min_s * fps)), accel_min_n=int(round(s.efforts.accel_min_s * fps)),
-            accel_ms2=s.efforts.accel_ms2, decel_ms2=s.efforts.decel_ms2, model=s.metabolic.model,
-            kt=s.metabolic.kt, air_k=s.metabolic.air_k, flat_cost=s.metabolic.flat_cost_jkgm,
-            high_power_wkg=s.metabolic.high_power_wkg,
-        )
         self.n = roster.n
         self.team = roster.team_of()
         self.gk = roster.goalkeepers()
-        self.zone_edges, self.zone_scale, self.zone_names = _zone_edges(roster, settings)
-        self.peak_s = [m * 60 for m in s.windows.peak_min]
-        self.timeout_slots = int(round(s.health.on_pitch_timeout_s * fps))
-        self.periods: list[_Period] = []
+        self.peak_s = [m * 60 for m in params.windows.peak_min]
+        self.timeout_slots = int(round(params.on_pitch_timeout_s * fps))
+        self.periods: list[Period] = []
         self.has_ball = False
         self.frames = 0
         self.last_frame_id: int | None = None
         self.last_t: float | None = None
-        self.health = FeedHealth(
-            HealthParams(s.health.rate_window_s, s.health.min_rate_share, s.health.max_dropout,
-                         s.health.max_lag_s, s.health.stall_s),
-            fps_nominal=fps,
-        )
+        self.health = FeedHealth(params.health, fps_nominal=fps)
         # on-pitch state set by match events (substitutions, red cards) over what frames suggest
         self.forced_off = np.zeros(self.n, bool)
         self.forced_on = np.zeros(self.n, bool)
         # heart rate (docs/wearables.md): made with the first accepted sample
-        self.heart_params = heart_params(settings)
         self.heart: HeartRate | None = None
         self.hr_rejected = self.hr_duplicates = self.hr_late = 0
 
     # -- input ---------------------------------------------------------------------
     @property
-    def current(self) -> _Period | None:
+    def current(self) -> Period | None:
         return self.periods[-1] if self.periods else None
 
     def ingest(self, result: Any, now: float | None = None) -> None:
@@ -235,7 +122,7 @@ class MatchState:
         """Accepted heart-rate samples (roster index, UTC s, bpm); they count in a
         period once tracking has reached their time."""
         if self.heart is None:
-            self.heart = HeartRate(self.heart_params, heart_profiles(self.roster, self.settings))
+            self.heart = HeartRate(self.params.heart, self.params.heart_profiles)
         self.heart.add(player, t, bpm)
         self._settle_heart()
 
@@ -274,13 +161,15 @@ class MatchState:
         for fin in cur.track.feed(slots, xy):
             self._apply(cur, fin)
 
-    def _start(self, idx: int, t0: float) -> _Period:
-        per = _Period(
-            index=idx, t0=t0, n=self.n, track=Track(self.kin, 0),
-            exertion=Exertion(self.exp, 0, self.zone_edges, self.zone_scale[:0]), bins=SecondBins(self.fps, self.n, self.peak_s),
+    def _start(self, idx: int, t0: float) -> Period:
+        zones = self.params.zones
+        per = Period(
+            index=idx, t0=t0, n=self.n, track=Track(self.params.kinematics, 0),
+            exertion=Exertion(self.params.exertion, 0, zones.edges, zones.scale[:0]),
+            bins=SecondBins(self.fps, self.n, self.peak_s),
             ball_poss=np.full((1024, 2), (BALL_UNKNOWN, NO_TEAM), np.int8),
             cols=np.zeros(0, np.int64), unseen=np.arange(self.n), order=np.arange(self.n), team=self.team[:0],
-            c_sums=np.zeros((ex.N_FIG, 0), np.int64), c_zones=np.zeros((0, self.zone_edges.shape[0] + 1), np.int64),
+            c_sums=np.zeros((ex.N_FIG, 0), np.int64), c_zones=np.zeros((0, zones.edges.shape[0] + 1), np.int64),
             c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64), c_max_speed=np.zeros(0), c_first_seen=np.zeros(0, np.int64),
             c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64), c_last_valid=np.zeros(0, np.int64),
             c_last_speed=np.zeros(0),
@@ -288,14 +177,14 @@ class MatchState:
         self.periods.append(per)
         return per
 
-    def _grow(self, per: _Period, new: np.ndarray) -> None:
+    def _grow(self, per: Period, new: np.ndarray) -> None:
         """Columns for players seen for the first time in the period (``new``: roster indices)."""
         k = len(new)
         per.cols = np.concatenate([per.cols, new])
         per.unseen = per.unseen[~np.isin(per.unseen, new)]
         per.team = self.team[per.cols]
         per.track.grow(k)
-        per.exertion.grow(self.zone_scale[new])
+        per.exertion.grow(self.params.zones.scale[new])
         per.bins.grow(new)
         per.c_sums = _widen(per.c_sums, k, 0, axis=1)
         per.c_zones = _widen(per.c_zones, k, 0)
@@ -312,7 +201,7 @@ class MatchState:
         per.zone_bin = np.arange(len(per.cols)) * per.c_zones.shape[1]
         per.in_order = len(per.cols) == self.n and bool((per.cols == np.arange(self.n)).all())
 
-    def _end(self, per: _Period) -> None:
+    def _end(self, per: Period) -> None:
         for fin in per.track.close():
             self._apply(per, fin)
         per.bins.finish()
@@ -342,8 +231,6 @@ class MatchState:
         feed's figures in full; this state itself is untouched, so frames that
         come later give exactly the figures an offline pass gives. The copy
         shares this state's feed-health bookkeeping."""
-        import copy
-
         health = self.health
         self.health = None  # type: ignore[assignment]
         try:
@@ -364,7 +251,7 @@ class MatchState:
             cur.bins.finish()
 
     # -- accumulation ----------------------------------------------------------------
-    def _apply(self, per: _Period, fin: Final) -> None:
+    def _apply(self, per: Period, fin: Final) -> None:
         n = len(fin)
         end = fin.slot0 + n
         full = fin.full
@@ -395,7 +282,7 @@ class MatchState:
         if self.has_ball:
             self._possession(per, fin, fig, total)
 
-    def _onpitch(self, per: _Period, seen: np.ndarray, slot0: int) -> None:
+    def _onpitch(self, per: Period, seen: np.ndarray, slot0: int) -> None:
         """On the pitch from first to last seen sample; gaps longer than the
         on-pitch timeout count as off the pitch (substituted, sent off)."""
         n = seen.shape[0]
@@ -428,13 +315,13 @@ class MatchState:
         return 0 if poss == team else 1
 
     @staticmethod
-    def _settle_possession(per: _Period) -> None:
+    def _settle_possession(per: Period) -> None:
         if per.poss_ctx is not None:
             per.add_pending(per.c_poss)
             per.poss_ctx = per.poss_code = None
             per.poss_pend[:] = 0
 
-    def _possession(self, per: _Period, fin: Final, fig: np.ndarray, total: np.ndarray) -> None:
+    def _possession(self, per: Period, fin: Final, fig: np.ndarray, total: np.ndarray) -> None:
         """Distance and HSR split by ball context: in possession, out of possession, out of play.
         ``total``: the block's sums (N_FIG, C)."""
         bp = per.ball_poss[fin.slot0: fin.slot0 + len(fin)]
@@ -511,7 +398,7 @@ class MatchState:
         on = self.on_pitch()
         if not on.any():
             return 0.0
-        w = max(int(self.settings.health.rate_window_s), 1)
+        w = max(int(self.params.health.rate_window_s), 1)
         stop = cur.bins.complete
         start = max(stop - w, 0)
         seen = cur.bins.span(start, stop)[:, ex.SEEN]
@@ -520,50 +407,3 @@ class MatchState:
         if expected <= 0:
             return 0.0
         return float(max(0.0, 1.0 - seen[on].sum() / expected))
-
-    def snapshot(self, now: float | None = None, extra_reasons: list[dict[str, str]] | None = None) -> dict[str, Any]:
-        """The snapshot body plus ``match_time_s`` and ``period`` (envelope fields).
-
-        ``now``: wall-clock seconds for health (live); None evaluates at the last
-        frame's time (offline: no arrival lag is known).
-        """
-        from pacewire.engine.snapshot import build_snapshot  # keeps this module small
-
-        return build_snapshot(self, now, extra_reasons)
-
-
-def heart_params(s: Settings) -> HeartParams:
-    h = s.heart_rate
-    return HeartParams(min_bpm=h.min_bpm, max_bpm=h.max_bpm, max_jump_bpm_s=h.max_jump_bpm_s, jump_reset=h.jump_reset,
-                       max_gap_s=h.max_gap_s, expected_hz=h.expected_hz, zone_edges_pct=tuple(h.zone_edges_pct),
-                       edwards_weights=tuple(h.edwards_weights), banister_male=tuple(h.banister_male),
-                       banister_female=tuple(h.banister_female), stale_s=h.stale_s)
-
-
-def heart_profiles(roster: Roster, s: Settings) -> list[HeartProfile]:
-    """Each player's profile: the match sheet's fields, else the profiles file's."""
-    files = s.heart_rate.profiles
-    out = []
-    for p in roster.players:
-        f = files.get(p.id)
-        hr_max = p.hr_max_bpm if p.hr_max_bpm is not None else (f.hr_max_bpm if f else None)
-        hr_rest = p.hr_rest_bpm if p.hr_rest_bpm is not None else (f.hr_rest_bpm if f else None)
-        sex = p.sex if p.sex is not None else (f.sex if f else None)
-        if hr_max is not None and hr_rest is not None and hr_rest >= hr_max:
-            hr_rest = None  # sheet and file disagree: a resting rate above the maximum is not used
-        out.append(HeartProfile(hr_max_bpm=hr_max, hr_rest_bpm=hr_rest, sex=sex))  # type: ignore[arg-type]
-    return out
-
-
-def _zone_edges(roster: Roster, s: Settings) -> tuple[np.ndarray, np.ndarray, list[str]]:
-    """Speed band edges, per-player scale (a sample's band is searchsorted(edges,
-    speed / scale)) and band names."""
-    z = s.zones
-    if z.mode == "absolute":
-        edges = np.array(z.edges_ms, float)
-        names = [f"{a:.1f}-{b:.1f}" for a, b in zip([0.0, *edges[:-1]], edges)] + [f"{edges[-1]:.1f}+"]
-        return edges, np.ones(roster.n), names
-    pct = np.array(z.edges_pct, float)
-    vmax = np.array([z.max_speed_ms.get(p.id) or p.max_speed_ms or z.default_max_speed_ms for p in roster.players])
-    names = [f"{a:g}-{b:g}%" for a, b in zip([0.0, *pct[:-1]], pct)] + [f"{pct[-1]:g}%+"]
-    return pct, vmax / 100.0, names

@@ -1,4 +1,4 @@
-"""The snapshot body (DESIGN §3): players, teams and health, from a MatchState.
+"""The snapshot body the service publishes (players, teams, health), from a MatchState.
 
 Built vectorised over players. Parts that change only when a second of data
 completes (windows) or never again (ended periods) are cached on the state
@@ -11,15 +11,14 @@ cost nothing per frame.
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING, Any, Callable
+from typing import Any, Callable
 
 import numpy as np
 
 from pacewire.engine import exertion as ex
-from pacewire.engine.match import CLOCK_START_MIN, CONTEXTS
-
-if TYPE_CHECKING:
-    from pacewire.engine.match import MatchState, _Period
+from pacewire.engine.heart import HR_N
+from pacewire.engine.match import CLOCK_START_MIN, CONTEXTS, MatchState
+from pacewire.engine.period import Period
 
 _U = 1e-6
 _WINDOW_KEYS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",
@@ -27,6 +26,8 @@ _WINDOW_KEYS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "ac
 _COUNTS = [ex.N_HSR, ex.N_SPR, ex.N_ACC, ex.N_DEC]
 _WINDOW_ND = (1, 1, 1, 1, 1, 1, 2)  # decimals: distance, hsr, sprint, energy, high power, m/min, W/kg
 _SCALES: dict[tuple[int, ...], np.ndarray] = {}
+_Rows = list[dict[str, Any]]  # one object per player, roster order
+_PeriodRows = list[tuple[str, _Rows]]  # (period name, its rows) per period
 
 
 def _rounded(cols: list[np.ndarray], nd: tuple[int, ...]) -> list[list[float]]:
@@ -69,7 +70,7 @@ def _windows(sums: np.ndarray, span_s: np.ndarray, extra: tuple[tuple[str, np.nd
     return _window_rows(sums, span_s, (("span_s", span_s, 1), *extra))
 
 
-def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: list[str], onpitch_s: np.ndarray,
+def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: tuple[str, ...], onpitch_s: np.ndarray,
              max_speed: np.ndarray, coverage: np.ndarray) -> list[dict[str, Any]]:
     """Scalar figures + zones per player over one stretch (match or period)."""
     rows = _window_rows(sums, onpitch_s, (("minutes", onpitch_s / 60.0, 2), ("max_speed_ms", max_speed, 2),
@@ -110,7 +111,7 @@ def _stack(*cols: np.ndarray) -> np.ndarray:
     return np.column_stack([c.reshape(c.shape[0], -1) for c in cols]).astype(float, copy=False)
 
 
-def _cached_figures(cache: dict[Any, Any], name: Any, state: "MatchState", sums: np.ndarray, zones: np.ndarray,
+def _cached_figures(cache: dict[Any, Any], name: Any, state: MatchState, sums: np.ndarray, zones: np.ndarray,
                     onpitch_s: np.ndarray, max_speed: np.ndarray, coverage: np.ndarray,
                     same_as: Any = None) -> list[dict[str, Any]]:
     """Figure rows (see _reuse); the rows cached under ``same_as`` when their inputs are these (a match
@@ -120,8 +121,9 @@ def _cached_figures(cache: dict[Any, Any], name: Any, state: "MatchState", sums:
     if hit is not None and hit[0].shape == inputs.shape and np.array_equal(hit[0], inputs):
         cache[name] = hit
         return hit[1]
+    names = state.params.zones.names
     return _reuse(cache, name, inputs,
-                  lambda r: _figures(sums[r], zones[r], state.zone_names, onpitch_s[r], max_speed[r], coverage[r]))
+                  lambda r: _figures(sums[r], zones[r], names, onpitch_s[r], max_speed[r], coverage[r]))
 
 
 def _rows(cols: dict[str, list], n: int) -> list[dict[str, Any]]:
@@ -130,10 +132,10 @@ def _rows(cols: dict[str, list], n: int) -> list[dict[str, Any]]:
     return [dict(zip(keys, [v[i] for v in vals])) for i in range(n)]
 
 
-def _blocks(state: "MatchState", per: "_Period") -> list[tuple[str, int, int]]:
+def _blocks(state: MatchState, per: Period) -> list[tuple[str, int, int]]:
     """Fixed blocks of a period: (key, first second, stop second); the last takes stoppage time."""
-    length_min = getattr(state.settings.periods, per.name)
-    block_min = state.settings.windows.block_min
+    length_min = state.params.period_min[per.index]
+    block_min = state.params.windows.block_min
     if length_min <= 0:
         return []
     n_blocks = max(math.ceil(length_min / block_min), 1)
@@ -147,28 +149,49 @@ def _blocks(state: "MatchState", per: "_Period") -> list[tuple[str, int, int]]:
     return out
 
 
-def _cache(state: "MatchState") -> dict[Any, Any]:
+def _cache(state: MatchState) -> dict[Any, Any]:
     c = getattr(state, "_snapshot_cache", None)
     if c is None:
         c = state._snapshot_cache = {}  # type: ignore[attr-defined]
     return c
 
 
-def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int, np.ndarray]]:
+def _player_windows(state: MatchState) -> tuple[list[dict[str, Any]], dict[int, np.ndarray]]:
     """windows per player, and the last-N sums of the current period; cached per completed second.
     A player's windows object, and each window in it, stays the same object while unchanged. The
     last-N and block windows of every player are one row set (one pass when a second completes), the
     peak windows another."""
-    periods = state.periods
     cur = state.current
     seen_players = int((cur.first_seen >= 0).sum()) if cur is not None else 0
     key = ("windows", seen_players,
-           tuple((p.index, p.bins.complete, p.bins.end_slot if p.ended else -1) for p in periods))
+           tuple((p.index, p.bins.complete, p.bins.end_slot if p.ended else -1) for p in state.periods))
     cache = _cache(state)
     hit = cache.get("windows")
     if hit is not None and hit[0] == key:
         return hit[1], hit[2]
+    names, sums, spans, team_last = _window_sums(state)
+    rebuilt: list[np.ndarray] = []
+    rows: list[Any] = []
+    if names:
+        all_sums, all_spans = np.concatenate(sums), np.concatenate(spans)
+        rows = _reuse(cache, ("windows", tuple(names)), _stack(all_sums, all_spans),
+                      lambda r: _windows(all_sums[r], all_spans[r]), rebuilt)
+    peak_names, peak_rows = _peak_rows(state, cache, rebuilt)
+    n_last = len(team_last)
+    # the contract's order: last-N, peaks, blocks
+    named_rows = ([(name, rows, k) for k, name in enumerate(names[:n_last])]
+                  + [(name, peak_rows, k) for k, name in enumerate(peak_names)]
+                  + [(name, rows, k) for k, name in enumerate(names[n_last:], n_last)])
+    per_player = _per_player(cache, state.n, named_rows, rebuilt)
+    cache["windows"] = (key, per_player, team_last)
+    return per_player, team_last
+
+
+def _window_sums(state: MatchState) -> tuple[list[str], list[np.ndarray], list[np.ndarray], dict[int, np.ndarray]]:
+    """Names, sums (P, N_FIG) and spans (P,) s of the last-N windows of the current period, then of
+    the fixed blocks of every period that hold data; and the last-N sums by minutes."""
     n, fps = state.n, state.fps
+    cur = state.current
     names: list[str] = []  # last-N, then blocks: rows k * n .. k * n + n - 1 of the row set
     sums: list[np.ndarray] = []
     spans: list[np.ndarray] = []
@@ -177,7 +200,7 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
         b = cur.bins
         stop = b.complete
         first_sec = np.where(cur.first_seen >= 0, cur.first_seen // fps, stop)
-        for m in state.settings.windows.last_min:
+        for m in state.params.windows.last_min:
             start = max(stop - m * 60, 0)
             last = b.span(start, stop)
             covered = b.covered_s(start, stop)
@@ -185,7 +208,7 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
             names.append(f"last_{m}min")
             sums.append(last)
             spans.append(np.clip(covered - np.clip(first_sec - start, 0, None), 0, None).astype(float))
-    for per in periods:
+    for per in state.periods:
         bins = per.bins
         for k, s0, s1 in _blocks(state, per):
             if s0 >= bins.complete:
@@ -193,52 +216,56 @@ def _player_windows(state: "MatchState") -> tuple[list[dict[str, Any]], dict[int
             names.append(k)
             sums.append(bins.span(s0, s1))
             spans.append(np.full(n, bins.covered_s(s0, s1)))
-    rebuilt: list[np.ndarray] = []
-    rows: list[Any] = []
-    if names:
-        all_sums, all_spans = np.concatenate(sums), np.concatenate(spans)
-        rows = _reuse(cache, ("windows", tuple(names)), _stack(all_sums, all_spans),
-                      lambda r: _windows(all_sums[r], all_spans[r]), rebuilt)
+    return names, sums, spans, team_last
+
+
+def _peak_rows(state: MatchState, cache: dict[Any, Any], rebuilt: list[np.ndarray]) -> tuple[list[str], list[Any]]:
+    """Names and rows (window k of player i at k * P + i; None before the window was reached) of the
+    peak windows: the best of every period, its start on the match clock."""
+    n = state.n
+    periods = state.periods
     peak_names = [f"peak_{w_s // 60}min" for w_s in state.peak_s]
-    peak_rows: list[Any] = []
-    if peak_names:
-        best = np.full((len(peak_names), n, ex.N_FIG), -1, np.int64)
-        start_clock = np.full((len(peak_names), n), -1.0)
-        for per in periods:
-            clock_s, peak, peak_start = CLOCK_START_MIN[per.name] * 60, per.bins.peak, per.bins.peak_start
-            for j, w_s in enumerate(state.peak_s):
-                pk = peak[w_s]
-                better = pk[:, ex.DIST] > best[j, :, ex.DIST]
-                start_clock[j] = np.where(better, clock_s + peak_start[w_s], start_clock[j])
-                best[j] = np.maximum(best[j], pk)
-        best, start_clock = best.reshape(-1, ex.N_FIG), start_clock.reshape(-1)
-        span = np.repeat(np.array([float(w_s) for w_s in state.peak_s]), n)
+    if not peak_names:
+        return peak_names, []
+    best = np.full((len(peak_names), n, ex.N_FIG), -1, np.int64)
+    start_clock = np.full((len(peak_names), n), -1.0)
+    for per in periods:
+        clock_s, peak, peak_start = CLOCK_START_MIN[per.name] * 60, per.bins.peak, per.bins.peak_start
+        for j, w_s in enumerate(state.peak_s):
+            pk = peak[w_s]
+            better = pk[:, ex.DIST] > best[j, :, ex.DIST]
+            start_clock[j] = np.where(better, clock_s + peak_start[w_s], start_clock[j])
+            best[j] = np.maximum(best[j], pk)
+    best, start_clock = best.reshape(-1, ex.N_FIG), start_clock.reshape(-1)
+    span = np.repeat(np.array([float(w_s) for w_s in state.peak_s]), n)
 
-        def build_peaks(r: Any) -> list:
-            made = _windows(np.maximum(best[r], 0), span[r], (("start_s", start_clock[r], 1),))
-            return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist())]
+    def build_peaks(r: Any) -> list:
+        made = _windows(np.maximum(best[r], 0), span[r], (("start_s", start_clock[r], 1),))
+        return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist())]
 
-        peak_rows = _reuse(cache, ("peaks", tuple(peak_names)), _stack(best, start_clock), build_peaks, rebuilt)
+    return peak_names, _reuse(cache, ("peaks", tuple(peak_names)), _stack(best, start_clock), build_peaks, rebuilt)
+
+
+def _per_player(cache: dict[Any, Any], n: int, named_rows: list[tuple[str, list[Any], int]],
+                rebuilt: list[np.ndarray]) -> list[dict[str, Any]]:
+    """Each player's windows object: ``{name: rows[k * n + i]}`` over ``named_rows`` (name, rows, k).
+    Only players with a row in ``rebuilt`` get a new object, unless the names changed."""
     prev = cache.get("windows_players")
-    all_names = names[:len(team_last)] + peak_names + names[len(team_last):]  # the contract's order
+    all_names = [name for name, _, _ in named_rows]
     if prev is None or len(prev) != n or cache.get("windows_names") != all_names:
         touched = range(n)
         per_player: list[dict[str, Any]] = [{} for _ in range(n)]
     else:
         touched = np.unique(np.concatenate([r % n for r in rebuilt])).tolist() if rebuilt else []
         per_player = list(prev)
-    n_last = len(team_last)
     for i in touched:
-        values = [rows[k * n + i] for k in range(n_last)] + [peak_rows[k * n + i] for k in range(len(peak_names))] + \
-                 [rows[k * n + i] for k in range(n_last, len(names))]
-        per_player[i] = dict(zip(all_names, values))
+        per_player[i] = dict(zip(all_names, [rows[k * n + i] for _, rows, k in named_rows]))
     cache["windows_players"] = per_player
     cache["windows_names"] = all_names
-    cache["windows"] = (key, per_player, team_last)
-    return per_player, team_last
+    return per_player
 
 
-def _period_figures(state: "MatchState", per: "_Period") -> list[dict[str, Any]]:
+def _period_figures(state: MatchState, per: Period) -> list[dict[str, Any]]:
     """Per-player figures of one period; cached for good once the period ended."""
     cache = _cache(state)
     key = ("period", per.index)
@@ -256,14 +283,14 @@ def _period_figures(state: "MatchState", per: "_Period") -> list[dict[str, Any]]
 _HR_WINDOW_KEYS = ("hr_mean_bpm", "trimp_edwards", "trimp_banister")
 
 
-def _hr_cols(state: "MatchState", sums: np.ndarray, onpitch_s: np.ndarray, keys: tuple[str, ...] | None = None) -> list[dict[str, Any]]:
+def _hr_cols(state: MatchState, sums: np.ndarray, onpitch_s: np.ndarray, keys: tuple[str, ...] | None = None) -> list[dict[str, Any]]:
     cols = state.heart.figures(sums, onpitch_s)  # type: ignore[union-attr]
     if keys is not None:
         cols = {k: cols[k] for k in keys}
     return _rows(cols, state.n)
 
 
-def _with_heart_windows(state: "MatchState", windows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+def _with_heart_windows(state: MatchState, windows: list[dict[str, Any]]) -> list[dict[str, Any]]:
     """Per-player windows with the heart-rate figures of the last-N windows and fixed blocks added
     (not cached with the windows: samples settle on their own clock)."""
     hr = state.heart
@@ -272,7 +299,7 @@ def _with_heart_windows(state: "MatchState", windows: list[dict[str, Any]]) -> l
     cur = state.current
     if cur is not None:
         stop = cur.bins.complete
-        for m in state.settings.windows.last_min:
+        for m in state.params.windows.last_min:
             key = f"last_{m}min"
             rows = _hr_cols(state, hr.period_sums(cur.index, max(stop - m * 60, 0), stop), zero, _HR_WINDOW_KEYS)  # type: ignore[union-attr]
             for i, r in enumerate(rows):
@@ -289,11 +316,9 @@ def _with_heart_windows(state: "MatchState", windows: list[dict[str, Any]]) -> l
     return out
 
 
-def _hr_health(state: "MatchState", on_pitch: list[bool]) -> dict[str, float | None]:
+def _hr_health(state: MatchState, on_pitch: list[bool]) -> dict[str, float | None]:
     """Heart-rate samples received over the last minute ÷ expected, per player on the pitch: a strap
     that drops out shows here as low coverage, not as a low heart rate."""
-    from pacewire.engine.heart import HR_N
-
     cur = state.current
     hr = state.heart
     out: dict[str, float | None] = {}
@@ -311,7 +336,7 @@ def _hr_health(state: "MatchState", on_pitch: list[bool]) -> dict[str, float | N
     return out
 
 
-def _health(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None,
+def _health(state: MatchState, now: float | None, extra_reasons: list[dict[str, str]] | None,
             on_pitch: list[bool], cov: np.ndarray) -> dict[str, Any]:
     """The snapshot's ``health`` object at wall-clock ``now`` (None: the last frame's time)."""
     h = state.health
@@ -346,7 +371,7 @@ def _health(state: "MatchState", now: float | None, extra_reasons: list[dict[str
     return health
 
 
-def _team_windows(state: "MatchState", masks: list[np.ndarray], team_last: dict[int, np.ndarray]) -> list[dict[str, Any]]:
+def _team_windows(state: MatchState, masks: list[np.ndarray], team_last: dict[int, np.ndarray]) -> list[dict[str, Any]]:
     """Each team's last-N outfield windows, all in one pass; the same objects until a second completes
     or the players counted change (``team_last`` comes from the windows cache, whose key says when)."""
     cache = _cache(state)
@@ -368,65 +393,110 @@ def _team_windows(state: "MatchState", masks: list[np.ndarray], team_last: dict[
     return out
 
 
-def build_health(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
+def build_health(state: MatchState, now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
     """The snapshot's ``health`` alone, equal to ``build_snapshot(...)["health"]`` at the same ``now``
     (the health check runs four times a second and needs no figures)."""
     return _health(state, now, extra_reasons, state.on_pitch().tolist(), state.coverage())
 
 
-def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
-    roster = state.roster
-    n = state.n
-    fps = state.fps
-    periods = state.periods
-    cur = state.current
+def build_snapshot(state: MatchState, now: float | None = None,
+                   extra_reasons: list[dict[str, str]] | None = None) -> dict[str, Any]:
+    """The snapshot body plus ``match_time_s`` and ``period`` (envelope fields).
 
-    total = np.zeros((n, ex.N_FIG), np.int64)
-    zones = np.zeros((n, len(state.zone_names)), np.int64)
-    poss = np.zeros((n, 3, 2), np.int64)
-    onp = np.zeros(n, np.int64)
-    vmax = np.zeros(n)
-    for per in periods:
-        total += per.sums
-        zones += per.zones
-        poss += per.poss
-        onp += per.onpitch_slots()
-        np.maximum(vmax, per.max_speed, out=vmax)
-    onp_s = onp / fps
+    ``now``: wall-clock seconds for health (live); None evaluates at the last
+    frame's time (offline: no arrival lag is known). ``extra_reasons``: health
+    reasons the caller adds (``{"code", "message"}``).
+    """
+    roster = state.roster
+    total, zones, poss, onp, vmax = _match_sums(state)
+    onp_s = onp / state.fps
     cov = state.coverage()
     on_pitch = state.on_pitch().tolist()
     cache = _cache(state)
     figs = _cached_figures(cache, ("figures", "match"), state, total, zones, onp_s, vmax, cov)
     windows, team_last = _player_windows(state)
-    per_figs = [(per.name, _period_figures(state, per)) for per in periods]
-    heart = state.heart
+    per_figs = [(per.name, _period_figures(state, per)) for per in state.periods]
     hr_rows = None
-    if heart is not None:
-        windows = _with_heart_windows(state, windows)
-        per_figs = [(name, [{**f, **h} for f, h in zip(pf, _hr_cols(state, heart.period_sums(per.index),
-                                                                     per.onpitch_slots() / fps))])
-                    for (name, pf), per in zip(per_figs, periods)]
-        latest = max(state.last_t or 0.0, float(np.nanmax(heart.last_t)))
-        hr_now, hr_pct = heart.now(latest)
-        hr_rows = _hr_cols(state, heart.match_sums(), onp_s)
-        for i, (bpm, pct, peak, omitted) in enumerate(zip(hr_now, hr_pct, heart.peak(), heart.omitted())):
-            hr_rows[i] = {"hr_bpm": bpm, "hr_pct_max": pct, **hr_rows[i], "hr_peak_bpm": peak, "hr_omitted": omitted}
-    speed = [None] * n
-    if cur is not None:
-        recent = (cur.last_valid >= 0) & (cur.track.fin - cur.last_valid <= fps)
-        sp = np.round(cur.last_speed, 2).tolist()
-        speed = [s if r else None for s, r in zip(sp, recent.tolist())]
-    poss_rows = None
-    if state.has_ball:
-        flat = poss.reshape(n, -1)
+    if state.heart is not None:
+        windows, per_figs, hr_rows = _with_heart(state, windows, per_figs, onp_s)
+    speed = _speeds(state)
+    poss_rows = _possession_rows(cache, poss) if state.has_ball else None
+    players = _players(state, cache, on_pitch, speed, figs, windows, per_figs, poss_rows, hr_rows)
+    teams = _teams(state, total, onp, onp_s, team_last)
+    health = _health(state, now, extra_reasons, on_pitch, cov)
+    return {
+        "match_id": roster.match_id,
+        "match_time_s": round(state.match_time_s(), 2),
+        "period": state.period_name(),
+        "players": players,
+        "teams": teams,
+        "health": health,
+    }
 
-        def poss_build(r: Any) -> list[dict[str, Any]]:
-            pm = np.round(poss[r] * _U, 1).tolist()
-            return [{ctx: {"distance_m": p[k][0], "hsr_m": p[k][1]} for k, ctx in enumerate(CONTEXTS)} for p in pm]
 
-        poss_rows = _reuse(cache, "possession", flat.astype(float), poss_build)
+def _match_sums(state: MatchState) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Whole-match sums per player over the periods: figures (P, N_FIG), zones (P, Z) µm,
+    possession (P, 3, 2) µm, on-pitch slots (P,) and max speed (P,) m/s."""
+    n = state.n
+    total = np.zeros((n, ex.N_FIG), np.int64)
+    zones = np.zeros((n, len(state.params.zones.names)), np.int64)
+    poss = np.zeros((n, 3, 2), np.int64)
+    onp = np.zeros(n, np.int64)
+    vmax = np.zeros(n)
+    for per in state.periods:
+        total += per.sums
+        zones += per.zones
+        poss += per.poss
+        onp += per.onpitch_slots()
+        np.maximum(vmax, per.max_speed, out=vmax)
+    return total, zones, poss, onp, vmax
 
-    # a player whose every part is the object of the last snapshot keeps that player object (a diff skips it)
+
+def _with_heart(state: MatchState, windows: _Rows, per_figs: _PeriodRows, onp_s: np.ndarray
+                ) -> tuple[_Rows, _PeriodRows, _Rows]:
+    """The windows and period figures with the heart-rate figures added, and each player's
+    match heart-rate row (latest, %HRmax, match sums, peak, omitted figures)."""
+    heart = state.heart
+    assert heart is not None
+    fps = state.fps
+    windows = _with_heart_windows(state, windows)
+    per_figs = [(name, [{**f, **h} for f, h in zip(pf, _hr_cols(state, heart.period_sums(per.index),
+                                                                 per.onpitch_slots() / fps))])
+                for (name, pf), per in zip(per_figs, state.periods)]
+    latest = max(state.last_t or 0.0, float(np.nanmax(heart.last_t)))
+    hr_now, hr_pct = heart.now(latest)
+    hr_rows = _hr_cols(state, heart.match_sums(), onp_s)
+    for i, (bpm, pct, peak, omitted) in enumerate(zip(hr_now, hr_pct, heart.peak(), heart.omitted())):
+        hr_rows[i] = {"hr_bpm": bpm, "hr_pct_max": pct, **hr_rows[i], "hr_peak_bpm": peak, "hr_omitted": omitted}
+    return windows, per_figs, hr_rows
+
+
+def _speeds(state: MatchState) -> list[float | None]:
+    """Each player's speed at his latest credited sample, m/s; None when that is over a second old."""
+    cur = state.current
+    if cur is None:
+        return [None] * state.n
+    recent = (cur.last_valid >= 0) & (cur.track.fin - cur.last_valid <= state.fps)
+    sp = np.round(cur.last_speed, 2).tolist()
+    return [s if r else None for s, r in zip(sp, recent.tolist())]
+
+
+def _possession_rows(cache: dict[Any, Any], poss: np.ndarray) -> _Rows:
+    """Each player's distance and HSR per ball context, from ``poss`` (P, 3, 2) µm (see _reuse)."""
+    flat = poss.reshape(poss.shape[0], -1)
+
+    def poss_build(r: Any) -> list[dict[str, Any]]:
+        pm = np.round(poss[r] * _U, 1).tolist()
+        return [{ctx: {"distance_m": p[k][0], "hsr_m": p[k][1]} for k, ctx in enumerate(CONTEXTS)} for p in pm]
+
+    return _reuse(cache, "possession", flat.astype(float), poss_build)
+
+
+def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], speed: list[float | None], figs: _Rows,
+             windows: _Rows, per_figs: _PeriodRows, poss_rows: _Rows | None, hr_rows: _Rows | None) -> dict[str, Any]:
+    """The snapshot's ``players``. A player whose every part is the object of the last snapshot keeps
+    that player object (a diff skips it)."""
+    roster = state.roster
     prev = cache.get("players")
     made: dict[str, tuple[tuple[Any, ...], dict[str, Any]]] = {}
     players: dict[str, Any] = {}
@@ -458,7 +528,15 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
         made[pl.id] = ((on_pitch[i], speed[i], period_names, parts), obj)
         players[pl.id] = obj
     cache["players"] = made
+    return players
 
+
+def _teams(state: MatchState, total: np.ndarray, onp: np.ndarray, onp_s: np.ndarray,
+           team_last: dict[int, np.ndarray]) -> dict[str, Any]:
+    """The snapshot's ``teams``: each tracked team's outfield sums, per-player means and windows."""
+    roster = state.roster
+    periods = state.periods
+    fps = state.fps
     elapsed_s = sum((max(p.last_slot, 0) + 1) / fps for p in periods) if periods else 0.0
     teams: dict[str, Any] = {}
     tracked = roster.tracked()
@@ -486,13 +564,4 @@ def build_snapshot(state: "MatchState", now: float | None, extra_reasons: list[d
         }
         outfield["windows"] = team_windows[k]
         teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": True, "outfield": outfield}
-
-    health = _health(state, now, extra_reasons, on_pitch, cov)
-    return {
-        "match_id": roster.match_id,
-        "match_time_s": round(state.match_time_s(), 2),
-        "period": state.period_name(),
-        "players": players,
-        "teams": teams,
-        "health": health,
-    }
+    return teams

@@ -220,7 +220,8 @@ class Followup:
             base = state.provisional()
             base.end_period()  # as a whistle would: tail finalised, last partial second counted
         now = time.time()
-        inp = report_input(base, per.index, "live", now, now=now, extra_reasons=r.extra_reasons(), score=list(r.score))
+        inp = report_input(base, per.index, "live", now, self.settings.reports.intensity_block_min, now=now,
+                           extra_reasons=r.extra_reasons(), score=list(r.score))
         inp = replace(inp, snapshot=orjson.loads(orjson.dumps(inp.snapshot)))  # nothing shared with the live state
         blocks = None
         if kind == "full_time" and self.settings.history.enabled:

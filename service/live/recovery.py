@@ -51,7 +51,7 @@ def _heart_rate(runner: MatchRunner) -> None:
         return
     state = runner.state
     with open(path, "rb") as fh:
-        res = HrDecoder(runner.roster, state.heart_params, recorded=True).decode_lines(fh)
+        res = HrDecoder(runner.roster, state.params.heart, recorded=True).decode_lines(fh)
     # the live gate continues from the recorded samples (the last one per player)
     gate = runner.intake.hr_decoder.gate
     for i in set(res.player.tolist()):

@@ -16,6 +16,7 @@ from typing import Any
 
 from pacewire.config import Settings
 from pacewire.engine.match import MatchState
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import Roster
 from pacewire.events import apply_event, check_event
 from pacewire.live.broadcaster import Broadcaster
@@ -25,6 +26,7 @@ from pacewire.live.intake import Intake, Queued
 from pacewire.live.metrics import Hooks
 from pacewire.live.periods import PeriodAnnouncer
 from pacewire.live.recorder import Recorder, write_json_atomic
+from pacewire.params import match_params
 from pacewire.wire.cdf import DecodeResult, FrameDecoder
 from pacewire.wire.heart import HrDecoder, HrResult
 from pacewire.tasks import cancel
@@ -39,12 +41,12 @@ class MatchRunner:
         self.settings = settings
         self.folder = folder
         self.hooks = hooks or Hooks()
-        self.state = MatchState(roster, settings)
+        self.state = MatchState(roster, match_params(settings, roster))
         self.decoder = FrameDecoder(roster, settings.decode.outside_margin_m, settings.decode.recent_ids)
         srv = settings.server
         self.recorder = Recorder(folder, srv.fsync_interval_s)
         self.hr_recorder = Recorder(folder, srv.fsync_interval_s, "hr.jsonl")
-        self.intake = Intake(roster, self.decoder, HrDecoder(roster, self.state.heart_params), self.recorder,
+        self.intake = Intake(roster, self.decoder, HrDecoder(roster, self.state.params.heart), self.recorder,
                              self.hr_recorder, self)
         self.broadcaster = Broadcaster(self.match_id, self.snapshot_body, srv.resume_buffer_s, srv.subscriber_queue,
                                        srv.max_subscribers, on_message=self.hooks.messages_out,
@@ -191,7 +193,7 @@ class MatchRunner:
 
     def snapshot_body(self) -> dict[str, Any]:
         now = time.time()
-        snap = self.feed.shown(now).snapshot(now=now, extra_reasons=self.extra_reasons())
+        snap = build_snapshot(self.feed.shown(now), now=now, extra_reasons=self.extra_reasons())
         for k, tid in enumerate(self.roster.team_ids):
             snap["teams"][tid]["score"] = self.score[k]
         return snap

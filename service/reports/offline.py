@@ -18,6 +18,7 @@ from pacewire.wire.recording import Recording, open_recording
 from pacewire.config import Settings
 from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
+from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import PERIOD_INDEX
 from pacewire.reports.builder import ReportInput, build_report, report_kind
 
@@ -106,16 +107,18 @@ def state_until(state: MatchState, period_index: int) -> MatchState:
     return view
 
 
-def report_input(state: MatchState, period_index: int, source: str, created_at: float, now: float | None = None,
-                 extra_reasons: list[dict[str, str]] | None = None, score: list[int] | None = None) -> ReportInput:
+def report_input(state: MatchState, period_index: int, source: str, created_at: float, intensity_block_min: int,
+                 now: float | None = None, extra_reasons: list[dict[str, str]] | None = None,
+                 score: list[int] | None = None) -> ReportInput:
     """What a report of the match up to the end of ``period_index`` is built from
-    (cheap: one snapshot and the block sums; run it where the state lives)."""
+    (cheap: one snapshot and the block sums of ``intensity_block_min`` minutes; run it
+    where the state lives)."""
     view = state_until(state, period_index)
-    snap = view.snapshot(now=now, extra_reasons=extra_reasons)
+    snap = build_snapshot(view, now=now, extra_reasons=extra_reasons)
     if score is not None:
         for k, tid in enumerate(state.roster.team_ids):
             snap["teams"][tid]["score"] = score[k]
-    series = block_series(view, state.settings.reports.intensity_block_min, "split")
+    series = block_series(view, intensity_block_min, "split")
     name = view.period_name() or "first_half"
     return ReportInput(report_kind(name), snap, series, source, created_at)
 
@@ -141,7 +144,7 @@ def build_offline(folder: str | Path, out: str | Path, settings: Settings, progr
         wanted.append(indices[-1])
     for idx in wanted:
         t0 = time.perf_counter()
-        inp = report_input(state, idx, source, time.time())
+        inp = report_input(state, idx, source, time.time(), settings.reports.intensity_block_min)
         entry = build_report(inp, out, settings.reports.low_coverage)
         entries.append(entry)
         if progress:

@@ -23,11 +23,11 @@ import orjson
 from redis.exceptions import RedisError, ResponseError
 
 from pacewire.config import Settings
-from pacewire.engine.match import heart_params
 from pacewire.engine.types import Roster
 from pacewire.errors import NotStored
 from pacewire.events import check_event
 from pacewire.live.matches import SetupConflict
+from pacewire.params import heart_params
 from pacewire.scale import keys
 from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message, parse_setup
 from pacewire.wire.heart import HrDecoder, HrGate

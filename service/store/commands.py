@@ -17,6 +17,7 @@ def db_path(data: str | Path, settings) -> Path:  # noqa: ANN001
 def _import(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
     from pacewire.wire.recording import RecordingError
     from pacewire.engine.blocks import block_series
+    from pacewire.engine.snapshot import build_snapshot
     from pacewire.reports.offline import run_recording, source_of
     from pacewire.wire.cdf import SetupError
 
@@ -26,7 +27,7 @@ def _import(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
         print(f"pacewire: {exc}", file=sys.stderr)
         return 2
     source = args.source or source_of(rec.meta)
-    snap = state.snapshot()
+    snap = build_snapshot(state)
     record = match_record(snap, block_series(state, settings.history.block_min, "merge"), source,
                           key=args.key, kickoff_t=state.periods[0].t0 if state.periods else None,
                           origin=str(Path(args.folder).resolve()))

@@ -34,7 +34,9 @@ import cdf_build as cb  # noqa: E402
 from pacewire.config import Settings, load_settings  # noqa: E402
 from pacewire.engine.exertion import G, minetti_cost  # noqa: E402
 from pacewire.engine.match import MatchState  # noqa: E402
+from pacewire.engine.snapshot import build_snapshot  # noqa: E402
 from pacewire.engine.types import BALL_IN, PERIOD_INDEX, Block  # noqa: E402
+from pacewire.params import match_params  # noqa: E402
 from pacewire.wire.cdf import DecodeResult, FrameDecoder, parse_setup  # noqa: E402
 
 FPS = 25
@@ -149,7 +151,8 @@ def blocks(m: SynthMatch, per_block: int = FPS) -> list[Block]:
 
 def feed_engine(m: SynthMatch, settings: Settings, bl: list[Block]) -> MatchState:
     """A fresh match state fed every block (as the live ingest does), then finished."""
-    state = MatchState(parse_setup(m.roster_meta, m.roster_sheet), settings)
+    roster = parse_setup(m.roster_meta, m.roster_sheet)
+    state = MatchState(roster, match_params(settings, roster))
     for b in bl:
         state.ingest(DecodeResult(b, []))
     state.finish()
@@ -330,12 +333,13 @@ def profile(quick: bool, top: int = 25) -> None:
     bl = blocks(m)
     settings = load_settings()
     prof = cProfile.Profile()
-    state = MatchState(parse_setup(m.roster_meta, m.roster_sheet), settings)
+    roster = parse_setup(m.roster_meta, m.roster_sheet)
+    state = MatchState(roster, match_params(settings, roster))
     prof.enable()
     for b in bl:
         state.ingest(DecodeResult(b, []))
     state.finish()
-    state.snapshot()
+    build_snapshot(state)
     prof.disable()
     stats = pstats.Stats(prof)
     stats.sort_stats("tottime").print_stats(top)

@@ -10,7 +10,7 @@ the second half; ``report_ready_s`` is the time from sending it to
 ``GET /api/matches/{id}/reports`` first listing the full-time report (polled
 every 20 ms): snapshot, block sums, charts, HTML, CSV, JSON, written to disk.
 
-Baseline, same run: one ``state.snapshot()`` on that match: the server's
+Baseline, same run: one ``build_snapshot(state)`` on that match: the server's
 recording run through the engine in this process (its snapshot cache cleared
 before each call; best of 3). ``ratio`` = report_ready_s / snapshot_s.
 ``report_build_s`` is the builder's own time as the report's index says.
@@ -84,13 +84,14 @@ def wait_listed(http: str, kind: str, timeout: float = 300.0, every: float = 0.0
 
 def snapshot_s(folder: Path, repeats: int = 3) -> float:
     from pacewire.analyze import analyze_folder
+    from pacewire.engine.snapshot import build_snapshot
 
     state = analyze_folder(folder).state
     best = float("inf")
     for _ in range(repeats):
         state.__dict__.pop("_snapshot_cache", None)
         t = time.perf_counter()
-        state.snapshot()
+        build_snapshot(state)
         best = min(best, time.perf_counter() - t)
     return best
 

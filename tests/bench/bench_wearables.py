@@ -37,6 +37,7 @@ import cdf_build as cb  # noqa: E402
 from bench_engine import best_of, synth_match  # noqa: E402
 from pacewire.analyze import new_match  # noqa: E402
 from pacewire.config import load_settings  # noqa: E402
+from pacewire.engine.snapshot import build_snapshot  # noqa: E402
 from pacewire.wire.gnss import PitchProjection, rectangle  # noqa: E402
 from pacewire.wire.heart import HrDecoder  # noqa: E402
 
@@ -79,14 +80,14 @@ def build(minutes: float) -> tuple[dict, dict, list[list[bytes]], list[list[byte
 
 def run_match(meta: dict, sheet: dict, blocks: list[list[bytes]], hr: list[bytes] | None) -> dict:
     state, dec = new_match(meta, sheet, load_settings())
-    hdec = HrDecoder(state.roster, state.heart_params) if hr else None
+    hdec = HrDecoder(state.roster, state.params.heart) if hr else None
     per_s = N_TEAM
     for k, lines in enumerate(blocks):
         if hdec is not None:  # the heart-rate second that goes with this block, as a live feed sends it
             state.ingest_heart(hdec.decode_lines(hr[k * per_s:(k + 1) * per_s]))  # type: ignore[index]
         state.ingest(dec.decode_lines(lines))
     state.finish()
-    return state.snapshot()
+    return build_snapshot(state)
 
 
 def run(quick: bool) -> dict[str, dict]:
