@@ -2,35 +2,28 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 
 import orjson
 
+from pacewire.errors import PacewireError
+
 
 def _analyze(args: argparse.Namespace) -> int:
-    from pacewire.wire.recording import RecordingError
     from pacewire.analyze import StrictError, analyze_folder, print_table
-    from pacewire.config import ConfigError, load_settings
-    from pacewire.wire.cdf import SetupError
+    from pacewire.config import load_settings
+    from pacewire.wire.cdf import FrameError
 
-    try:
-        settings = load_settings(args.config)
-    except ConfigError as exc:
-        print(f"pacewire: {exc}", file=sys.stderr)
-        return 2
-
-    def report(err):  # noqa: ANN001
+    def report(err: FrameError) -> None:
         where = f"line {err.line}" if err.line is not None else f"frame {err.frame_id}"
         print(f"pacewire: {where}: {err.code}: {err.message}", file=sys.stderr)
 
     try:
-        result = analyze_folder(args.folder, settings, strict=args.strict, on_error=report)
+        result = analyze_folder(args.folder, load_settings(args.config), strict=args.strict, on_error=report)
     except StrictError as exc:
         print(f"pacewire: {exc} (--strict)", file=sys.stderr)
         return 1
-    except (RecordingError, SetupError) as exc:
-        print(f"pacewire: {exc}", file=sys.stderr)
-        return 2
     snap = result.snapshot()
     if args.json:
         from pacewire.wire.messages import snapshot_message
@@ -106,7 +99,14 @@ def main(argv: list[str] | None = None) -> int:
         from pacewire.replay.importer import main as import_main
         return import_main(argv[1:])
     args = build_parser().parse_args(argv)
-    return args.func(args)
+    try:
+        return int(args.func(args))
+    except PacewireError as exc:  # bad input or an unusable setting: the message says which
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:  # the reader went away (``| head``): nothing left to say
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
 
 
 if __name__ == "__main__":
