@@ -9,6 +9,7 @@ from typing import Any, Callable
 from pacewire.wire.recording import Recording, open_recording
 from pacewire.config import Settings, load_settings
 from pacewire.engine.match import MatchState
+from pacewire.errors import PacewireError
 from pacewire.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
 from pacewire.wire.heart import HrDecoder
 
@@ -23,7 +24,9 @@ class AnalyzeResult:
         return self.state.snapshot()
 
 
-class StrictError(ValueError):
+class StrictError(PacewireError, ValueError):
+    """A frame refused under ``--strict``; the message names its line, code and reason."""
+
     def __init__(self, error: FrameError) -> None:
         super().__init__(f"line {error.line}: {error.code}: {error.message}")
         self.error = error
