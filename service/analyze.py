@@ -13,6 +13,7 @@ from pacewire.config import Settings, load_settings
 from pacewire.engine.match import CLOCK_START_MIN, MatchState
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import PERIODS
+from pacewire.errors import PacewireError
 from pacewire.events import applies_by, apply_event
 from pacewire.params import match_params
 from pacewire.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
@@ -29,7 +30,9 @@ class AnalyzeResult:
         return build_snapshot(self.state)
 
 
-class StrictError(ValueError):
+class StrictError(PacewireError, ValueError):
+    """A frame refused under ``--strict``; the message names its line, code and reason."""
+
     def __init__(self, error: FrameError) -> None:
         super().__init__(f"line {error.line}: {error.code}: {error.message}")
         self.error = error

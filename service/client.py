@@ -1,4 +1,4 @@
-"""A small client for pacewire's live stream (``WS /live/{match_id}``, DESIGN §3).
+"""A small client for pacewire's live stream (``WS /live/{match_id}``; README, "Consuming the stream").
 
 It keeps a local copy of the match state (``sub.state``: ``players``, ``teams``,
 ``health``, the same body as a snapshot) by applying every delta, checks that
@@ -37,12 +37,13 @@ import orjson
 from websockets.asyncio.client import ClientConnection, connect
 from websockets.exceptions import ConnectionClosed, InvalidHandshake, InvalidStatus, InvalidURI
 
+from pacewire.errors import PacewireError
 from pacewire.wire.messages import CONTRACT_VERSION, apply_delta
 
 BODY = ("players", "teams", "health")
 
 
-class SubscriptionError(RuntimeError):
+class SubscriptionError(PacewireError, RuntimeError):
     """The server refused the subscription (unknown match, bad parameters, no valid token)."""
 
     def __init__(self, code: str, message: str) -> None:

@@ -5,17 +5,21 @@ start-up with a message naming the key (``kinematics.smooth_order: ...``).
 """
 from __future__ import annotations
 
-import json
-import tomllib
 from pathlib import Path
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
-from pacewire.reports.alerts import AlertsSection  # alert rules are data; their models live beside the rules
+from pacewire.errors import PacewireError, describe_validation
+from pacewire.wire.datafile import read_data_file
+from pacewire.wire.rules import AlertsSection  # alert rules arrive as files and HTTP bodies: wire models
 
 # Shipped inside the package; in the repository a link to config/default.toml, the one source.
 DEFAULT_PATH = Path(__file__).with_name("default.toml")
+
+
+class ConfigError(PacewireError, ValueError):
+    """A configuration file is unreadable or holds an invalid value."""
 
 
 class _Section(BaseModel):
@@ -83,21 +87,13 @@ class HeartRate(_Section):
 
 
 def load_heart_profiles(path: str | Path) -> HeartProfiles:
-    """Per-player heart-rate profiles from a TOML or JSON file; ValueError names the bad key."""
+    """Per-player heart-rate profiles from a TOML or JSON file; ConfigError names the bad key."""
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except OSError as exc:
-        raise ValueError(f"cannot read heart-rate profiles file {path}: {exc.strerror}") from None
-    try:
-        data = json.loads(text) if path.suffix.lower() == ".json" else tomllib.loads(text)
-    except (json.JSONDecodeError, tomllib.TOMLDecodeError) as exc:
-        raise ValueError(f"heart-rate profiles file {path} is not valid {path.suffix.lstrip('.').upper() or 'TOML'}: {exc}") from None
+    data = read_data_file(path, "heart-rate profiles file", ConfigError)
     try:
         return HeartProfiles.model_validate(data)
     except ValidationError as exc:
-        where = "; ".join(f"{'.'.join(str(p) for p in e['loc'])}: {e['msg']}" for e in exc.errors()[:5])
-        raise ValueError(f"invalid heart-rate profiles file {path}: {where}") from None
+        raise ConfigError(f"invalid heart-rate profiles file {path}: {describe_validation(exc, limit=5)}") from None
 
 
 class Kinematics(_Section):
@@ -229,10 +225,6 @@ class Settings(_Section):
     extra: dict[str, Any] = Field(default_factory=dict)
 
 
-class ConfigError(ValueError):
-    """A configuration file is unreadable or holds an invalid value."""
-
-
 def _merge(base: dict[str, Any], over: dict[str, Any]) -> dict[str, Any]:
     out = dict(base)
     for key, value in over.items():
@@ -244,16 +236,8 @@ def _merge(base: dict[str, Any], over: dict[str, Any]) -> dict[str, Any]:
 
 
 def _read(path: Path) -> dict[str, Any]:
-    try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise ConfigError(f"cannot read config file {path}: {exc.strerror}") from exc
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"config file {path} is not valid TOML: {exc}") from exc
-    except UnicodeDecodeError as exc:
-        raise ConfigError(f"config file {path} is not UTF-8 text: {exc.reason} at byte {exc.start}") from None
-    except RecursionError:
-        raise ConfigError(f"config file {path} nests tables or arrays too deeply") from None
+    """A config file: TOML only."""
+    return read_data_file(path, "config file", ConfigError, allow_json=False)
 
 
 def settings_from_dict(data: dict[str, Any], source: str = "config") -> Settings:
@@ -264,11 +248,7 @@ def settings_from_dict(data: dict[str, Any], source: str = "config") -> Settings
     try:
         return Settings.model_validate(core)
     except ValidationError as exc:
-        lines = []
-        for err in exc.errors():
-            key = ".".join(str(p) for p in err["loc"])
-            lines.append(f"{key}: {err['msg']}")
-        raise ConfigError(f"invalid {source}: " + "; ".join(lines)) from None
+        raise ConfigError(f"invalid {source}: {describe_validation(exc, limit=None)}") from None
 
 
 def load_settings(path: str | Path | None = None, overrides: dict[str, Any] | None = None) -> Settings:

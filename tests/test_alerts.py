@@ -19,12 +19,13 @@ from pacewire.engine.blocks import clock_block, window_coverage
 from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import BALL_IN, PERIOD_INDEX, Block
-from pacewire.reports.alerts import (Alerter, Band, Caps, DropOffBaseline, DropOffPeak, LoadBudget, RulesError,
-                                    check_rules, load_rules, parse_budgets)
+from pacewire.reports.alerts import Alerter, Band
 from pacewire.store import history
 from pacewire.store.record import MatchRecord
 from pacewire.params import match_params
 from pacewire.wire.cdf import parse_setup
+from pacewire.wire.rules import (Caps, DropOffBaseline, DropOffPeak, LoadBudget, RulesError, check_rules, load_rules,
+                                 load_budgets, parse_budgets)
 
 FPS = 25
 N_HOME, N_AWAY = 3, 2  # h1 and a1 are goalkeepers
@@ -143,8 +144,8 @@ def test_a_drop_that_recovers_and_drops_again_fires_twice():
 # -- the feed-quality guard -------------------------------------------------------------------------
 def test_no_drop_off_alert_when_the_player_is_barely_seen():
     """4 m/s throughout, but after 6 minutes the player is seen 2 s and missed 2 s in turn: gaps over
-    the 1-s bridge credit nothing (DESIGN §4), so his distance rate halves, and coverage in the window
-    falls to ~0.5. The drop is the camera's: no alert; without the guard the same case alerts."""
+    the 1-s bridge (kinematics.bridge_gap_s) credit nothing, so his distance rate halves, and coverage in
+    the window falls to ~0.5. The drop is the camera's: no alert; without the guard the same case alerts."""
     speeds = steps((720, 4.0))
     seen = np.ones(speeds.size, bool)
     k = np.arange(speeds.size)
@@ -265,8 +266,9 @@ def test_rule_files_in_json_and_windows_that_are_not_computed(tmp_path):
                                           "share": 0.5, "min_on_pitch_min": 10, "min_coverage": 0.7}]}).decode())
     rules = load_rules(f)
     assert rules[0].window_min == 3
+    s = load_settings()
     with pytest.raises(RulesError, match=r"rules.0 \(d\).window_min: 3 is not in windows.last_min"):
-        check_rules(rules, load_settings())
+        check_rules(rules, s.windows.last_min, s.windows.peak_min)
     (tmp_path / "broken.json").write_text("{")
     with pytest.raises(RulesError, match="not valid JSON"):
         load_rules(tmp_path / "broken.json")
@@ -291,18 +293,16 @@ def test_bad_budgets_get_clear_errors(body, needle):
 
 def test_default_rules_are_valid_and_computable():
     s = load_settings()
-    check_rules(list(s.alerts.rules), s)
+    check_rules(list(s.alerts.rules), s.windows.last_min, s.windows.peak_min)
     assert {r.kind for r in s.alerts.rules} == {"drop_off_peak", "drop_off_baseline", "load_budget"}
     budget = next(r for r in s.alerts.rules if r.kind == "load_budget")
-    assert budget.levels == [0.8, 1.0]  # issue 6
+    assert budget.levels == [0.8, 1.0]  # the pacewire default levels
 
 
 # -- live: budgets over HTTP, alerts on the wire ------------------------------------------------------
 def test_budget_files_load_and_bad_ones_are_refused(tmp_path):
     f = tmp_path / "budgets.toml"
     f.write_text('[players.h2]\nminutes = 60\nsprints = 12\n')
-    from pacewire.reports.alerts import load_budgets
-
     assert load_budgets(f).players["h2"].items() == [("minutes", 60.0), ("sprints", 12.0)]
     bad = tmp_path / "bad.toml"
     bad.write_text('[players.h2]\nminutes = "sixty"\n')
@@ -380,8 +380,6 @@ def test_budgets_over_http_and_alerts_on_the_live_stream(tmp_path):
 
 def test_budget_caps_take_numbers_only():
     # a cap of true or "12" is a typing mistake to name, not a value to guess (common practice: strict input)
-    from pacewire.reports.alerts import RulesError, parse_budgets
-
     for bad in (True, "12", [60]):
         with pytest.raises(RulesError, match="players.h1.minutes"):
             parse_budgets({"players": {"h1": {"minutes": bad}}})

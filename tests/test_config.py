@@ -8,7 +8,7 @@ from pacewire.config import DEFAULT_PATH, ConfigError, load_settings
 
 def test_defaults_carry_the_design_thresholds():
     s = load_settings()
-    # DESIGN §4: Bradley et al. 2009 / Di Salvo et al. 2009 bands, Akenhead et al. 2013 accel band
+    # Bradley et al. 2009 / Di Salvo et al. 2009 bands, Akenhead et al. 2013 accel band
     assert (s.speed.hsr_ms, s.speed.sprint_ms) == (5.5, 7.0)
     assert (s.efforts.accel_ms2, s.efforts.decel_ms2) == (3.0, -3.0)
     assert s.metabolic.model == "osgnach2010" and s.metabolic.kt == 1.29

@@ -26,7 +26,7 @@ import cdf_build as cb
 from live_server import LiveServer
 from pacewire.analyze import analyze_folder
 from pacewire.config import ConfigError, settings_from_dict, load_settings
-from pacewire.reports.alerts import RulesError, load_budgets, load_rules
+from pacewire.wire.rules import RulesError, load_budgets, load_rules
 
 FPS = 25
 IDS = cb.player_ids(3, 2)
@@ -191,7 +191,7 @@ def test_config_values(section, key, value):
 
 
 # -- load budgets over HTTP, alert-rule and budget files through the config loader ----------------------
-# Caps and their bounds, (low, high]: service/reports/alerts.py `Caps` (the contract of PUT .../budgets)
+# Caps and their bounds, (low, high]: service/wire/rules.py `Caps` (the contract of PUT .../budgets)
 CAPS = {"minutes": (0, 150), "hsr_m": (0, 10_000), "sprint_m": (0, 10_000), "sprints": (0, 500)}
 _n = itertools.count()
 
@@ -341,7 +341,7 @@ def _through_config(folder, key: str, path, needle: str) -> None:
 rule_ids = st.from_regex(r"\A[a-z0-9_]{1,12}\Z")
 _drop_off = {"figure": st.sampled_from(["distance", "hsr"]), "window_min": st.integers(1, 30),
              "min_on_pitch_min": st.floats(0, 150), "min_coverage": st.floats(0, 1)}
-# Valid rules per kind: service/reports/alerts.py (DropOffPeak, DropOffBaseline, LoadBudget)
+# Valid rules per kind: service/wire/rules.py (DropOffPeak, DropOffBaseline, LoadBudget)
 good_rule = st.one_of(
     st.fixed_dictionaries({"kind": st.just("drop_off_peak"), **_drop_off, "share": st.floats(0, 1, exclude_min=True,
                                                                                                exclude_max=True)},

@@ -183,7 +183,7 @@ def test_angle_error_names_the_corner(pitch):
 
 @pytest.mark.parametrize("pair", ["touchlines", "goal lines"])
 def test_side_mismatch(pitch, pair):
-    """Issue 10: opposite sides within 1%. The y_max touchline (or x_max goal line) shortened
+    """docs/wearables.md: opposite sides within 1%. The y_max touchline (or x_max goal line) shortened
     symmetrically, so the angles stay within 1°: 1.2% is refused, 0.8% accepted."""
     def cal(share: float) -> dict:
         if pair == "touchlines":
@@ -288,4 +288,4 @@ def test_check_venue(pitch):
 
 def test_config_tolerances():
     s = load_settings()
-    assert (s.gnss.side_tolerance, s.gnss.angle_tolerance_deg) == (0.01, 1.0)  # issue 10
+    assert (s.gnss.side_tolerance, s.gnss.angle_tolerance_deg) == (0.01, 1.0)  # docs/wearables.md, "Checks on arrival"

@@ -1,4 +1,4 @@
-"""Wearable feeds end to end (issue 10, docs/wearables.md): one team, GNSS fixes, heart rate.
+"""Wearable feeds end to end (docs/wearables.md): one team, GNSS fixes, heart rate.
 
 Engine-level checks use constructed paths; the live checks run a real server
 and compare its figures with ``analyze`` over the folder it recorded.
@@ -211,7 +211,7 @@ def test_heart_rate_worked_values_through_the_match():
     assert h1["trimp_banister"] == pytest.approx(credited_min * hrr * 0.64 * math.exp(1.92 * hrr), abs=0.06)
     assert h1["hr_mean_bpm"] == 150.0 and h1["hr_peak_bpm"] == 150.0
     assert h1["hr_bpm"] == 150.0 and h1["hr_pct_max"] == pytest.approx(78.9, abs=0.05)
-    assert h1["hr_coverage"] == pytest.approx((secs - 1) / secs, abs=0.002)  # 1 Hz expected (issue 10)
+    assert h1["hr_coverage"] == pytest.approx((secs - 1) / secs, abs=0.002)  # 1 Hz expected (config heart_rate.expected_hz)
     assert h1["hr_omitted"] == {}
     # h3 has hr_max but no hr_rest_bpm nor sex: Banister is left out, and the snapshot says why
     h3 = p["h3"]
@@ -293,8 +293,8 @@ def test_live_wearable_match_equals_analyze_and_survives_a_restart(server, tmp_p
     for pid in ("h1", "h2", "h3"):
         hr += hr_samples(pid, (130 + 10 * np.sin(np.arange(secs) / 9) + rng.normal(0, 1, secs)).round())
     hr.sort(key=lambda s: s["timestamp"])
-    bad = [{"player_id": "h1", "timestamp": cb.stamp(0.5), "bpm": 250},  # implausible_bpm (> 230, issue 10)
-           {"player_id": "h2", "timestamp": cb.stamp(0.5), "bpm": 190},  # hr_jump: +60 bpm in 0.5 s (issue 10)
+    bad = [{"player_id": "h1", "timestamp": cb.stamp(0.5), "bpm": 250},  # implausible_bpm (> 230 bpm)
+           {"player_id": "h2", "timestamp": cb.stamp(0.5), "bpm": 190},  # hr_jump: +60 bpm in 0.5 s
            {"player_id": "h1", "timestamp": cb.stamp(0.0), "bpm": 130},  # duplicate of the first sample
            {"player_id": "h3", "timestamp": "yesterday", "bpm": 100}]
     http = server.http

@@ -18,7 +18,7 @@ from pacewire.live.metrics import Metrics
 from pacewire.live.runner import MatchRunner
 from pacewire.wire.messages import dumps, snapshot_message
 from pacewire.wire.outcome import IngestOutcome
-from pacewire.reports.alerts import RulesError
+from pacewire.wire.rules import RulesError
 
 
 class LocalWriter:

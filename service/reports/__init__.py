@@ -4,7 +4,7 @@
 ``charts``   the matplotlib (SVG backend) charts of a report
 ``page``     the self-contained HTML page
 ``table``    the flat one-row-per-player table (CSV)
-``alerts``   drop-off and load-budget rules: data (TOML/JSON) validated by pydantic
+``alerts``   drop-off and load-budget rules evaluated (their data models: :mod:`pacewire.wire.rules`)
 ``offline``  ``pacewire report FOLDER --out DIR``
 
 Importing this package loads nothing heavy: matplotlib is imported by

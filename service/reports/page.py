@@ -248,27 +248,20 @@ def intensity_table(players: list[tuple[str, dict[str, Any]]], blocks: list[str]
     return _table(head, rows)
 
 
-def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession: dict[str, dict[str, float]],
-         source: str, created_at: float, low_coverage: float,
-         blocks: list[tuple[str, str]] | None = None, per_min: dict[str, list[float | None]] | None = None) -> str:
-    """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``:
-    (label, period) of each block; ``per_min``: each player's distance per minute in them."""
+Played = list[tuple[str, dict[str, Any]]]  # (player id, snapshot player) in table order
+
+
+def _head_and_masthead(kind: str, snapshot: dict[str, Any], source: str, created_at: float) -> list[str]:
+    """The document head and the masthead: report kind, teams and score, clock, source, build time."""
     teams = tracked_teams(snapshot)
     every_team = list(snapshot["teams"].items())
     single = one_team(snapshot)
-    heart = has_heart_rate(snapshot)
     title = TITLES.get(kind, kind)
     names = [t["name"] or tid for tid, t in every_team]
     scores = [t.get("score") for _, t in every_team]
     score = f"{scores[0]} – {scores[1]}" if None not in scores else "v"
     built = time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime(created_at))
-    order = player_order(snapshot)
-    players = snapshot["players"]
-    windows = sorted(int(k[5:-3]) for p in players.values() for k, v in (p.get("windows") or {}).items()
-                     if k.startswith("peak_") and v is not None)
-    windows = sorted(set(windows))
-    health = snapshot["health"]
-    parts = [
+    return [
         "<!doctype html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f"<title>{esc(title)} · {esc(names[0])} {esc(score)} {esc(names[1])} · pacewire</title>",
@@ -283,15 +276,32 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
         + (f' · one team tracked: {esc(teams[0][1]["name"] or teams[0][0])} only, so no opponent comparison'
            if single else "") + "</p>",
         "</header>",
+    ]
+
+
+def _cautions(heart: bool) -> list[str]:
+    return [
         '<section class="cautions" id="cautions">',
         f'<p class="health"><strong>Health caution.</strong> {esc(HEALTH_CAUTION)}</p>',
         f'<p class="live"><strong>Live data.</strong> {esc(LIVE_CAVEAT)}</p>',
         f'<p class="hr"><strong>Heart rate.</strong> {esc(HR_CAVEAT)}</p>' if heart else "",
         "</section>",
-        ('<section id="teams"><h2>Team figures <span class="n">one team tracked · outfield players, goalkeepers '
-         'excluded</span></h2>' if single else
-         '<section id="teams"><h2>Team comparison <span class="n">outfield players, goalkeepers excluded</span></h2>'),
-        team_table(snapshot, possession), charts.get("possession", ""), "</section>",
+    ]
+
+
+def _teams_section(snapshot: dict[str, Any], charts: dict[str, str],
+                   possession: dict[str, dict[str, float]]) -> list[str]:
+    head = ('<section id="teams"><h2>Team figures <span class="n">one team tracked · outfield players, goalkeepers '
+            'excluded</span></h2>' if one_team(snapshot) else
+            '<section id="teams"><h2>Team comparison <span class="n">outfield players, goalkeepers excluded</span></h2>')
+    return [head, team_table(snapshot, possession), charts.get("possession", ""), "</section>"]
+
+
+def _intensity_section(teams: list[tuple[str, dict[str, Any]]], charts: dict[str, str],
+                       played_by_team: dict[str, Played], blocks: list[tuple[str, str]] | None,
+                       per_min: dict[str, list[float | None]] | None) -> list[str]:
+    """Team intensity chart, then per team its heat map and, by period, distance per minute per block."""
+    parts = [
         '<section id="intensity"><h2>Intensity over time</h2>', charts.get("team-intensity", ""),
         '<p class="note">Team lines: outfield distance and HSR per player-minute on the pitch in each block. '
         'Player maps and tables: per minute on the pitch in each block; a blank cell: not on the pitch then. '
@@ -300,55 +310,77 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
     for tid, t in teams:
         parts.append(charts.get(f"heatmap-{tid}", ""))
         if blocks and per_min is not None:
-            played = [(pid, players[pid]) for pid in order if players[pid]["team_id"] == tid and players[pid]["minutes"]]
             parts.append(f'<h3>{esc(t["name"] or tid)}: distance per minute on the pitch, by block</h3>')
             for period in dict.fromkeys(p for _, p in blocks):  # one table per period: fits an A4 page
                 cols = [i for i, (_, p) in enumerate(blocks) if p == period]
-                parts.append(intensity_table(played, [blocks[i][0] for i in cols],
+                parts.append(intensity_table(played_by_team[tid], [blocks[i][0] for i in cols],
                                              {pid: [v[i] for i in cols] for pid, v in per_min.items()}))
     parts.append("</section>")
-    parts.append('<section id="players"><h2>Players</h2>')
-    played_by_team: dict[str, list[tuple[str, dict[str, Any]]]] = {}
-    for tid, t in teams:
-        played = [(pid, players[pid]) for pid in order if players[pid]["team_id"] == tid and players[pid]["minutes"]]
+    return parts
+
+
+def _players_section(snapshot: dict[str, Any], charts: dict[str, str], played_by_team: dict[str, Played],
+                     low_coverage: float) -> list[str]:
+    """Per team the player table, who did not play, and the bar chart."""
+    players = snapshot["players"]
+    order = player_order(snapshot)
+    parts = ['<section id="players"><h2>Players</h2>']
+    for tid, t in tracked_teams(snapshot):
         unused = [pid for pid in order if players[pid]["team_id"] == tid and not players[pid]["minutes"]]
-        played_by_team[tid] = played
         parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
-        parts.append(player_table(played, low_coverage))
+        parts.append(player_table(played_by_team[tid], low_coverage))
         if unused:
             parts.append('<p class="unused">Did not play: ' + ", ".join(
                 f'{esc(players[pid]["jersey_number"])} {esc(players[pid].get("name") or pid)}' for pid in unused) + "</p>")
         parts.append(charts.get(f"bars-{tid}", ""))
     parts.append(f'<p class="note">Coverage is the share of time on the pitch the feed credited; below '
                  f'{low_coverage:.0%} it is marked ▾. {esc(LIVE_CAVEAT)}</p></section>')
-    parts.append('<section id="peaks"><h2>Peak windows <span class="n">highest rolling distance, '
-                 'and when it began (match clock)</span></h2>')
-    for tid, t in teams:
+    return parts
+
+
+def _peaks_section(snapshot: dict[str, Any], charts: dict[str, str], played_by_team: dict[str, Played]) -> list[str]:
+    """Every player's peak windows (the lengths any player has), per team."""
+    windows = sorted({int(k[5:-3]) for p in snapshot["players"].values() for k, v in (p.get("windows") or {}).items()
+                      if k.startswith("peak_") and v is not None})
+    parts = ['<section id="peaks"><h2>Peak windows <span class="n">highest rolling distance, '
+             'and when it began (match clock)</span></h2>']
+    for tid, t in tracked_teams(snapshot):
         parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
         parts.append(peak_table(played_by_team[tid], windows))
         parts.append(charts.get(f"peaks-{tid}", ""))
     parts.append("</section>")
-    if possession:
-        parts.append('<section id="possession"><h2>Ball context <span class="n">distance and HSR in possession, '
-                     'out of possession, ball out of play</span></h2>')
-        for tid, t in teams:
-            parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
-            parts.append(possession_table(played_by_team[tid]))
-        parts.append("</section>")
-    if heart:
-        parts.append('<section id="heart"><h2>Heart rate <span class="n">time in zones of % HRmax (m:ss), '
-                     'TRIMP (Edwards 1993; Banister 1991)</span></h2>')
-        for tid, t in teams:
-            parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
-            parts.append(heart_table(played_by_team[tid], low_coverage))
-            parts.append(charts.get(f"hr-zones-{tid}", ""))
-        parts.append(f'<p class="note">Mean heart rate is time-weighted over the time the strap was credited. '
-                     f'HR coverage is the share of expected strap samples received while on the pitch; below '
-                     f'{low_coverage:.0%} it is tagged GAPS: the strap dropped out and that time is missing, which '
-                     f'is not a low heart rate. {OMITTED_MARK}: left out because the player\'s profile lacks '
-                     f'HRmax, resting HR or sex (the reasons are listed under the table).</p></section>')
-    parts.append('<section id="feed"><h2>Feed</h2>')
-    parts.append(_table([("feed", "l"), ("value", "")], [
+    return parts
+
+
+def _possession_section(teams: list[tuple[str, dict[str, Any]]], played_by_team: dict[str, Played]) -> list[str]:
+    parts = ['<section id="possession"><h2>Ball context <span class="n">distance and HSR in possession, '
+             'out of possession, ball out of play</span></h2>']
+    for tid, t in teams:
+        parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
+        parts.append(possession_table(played_by_team[tid]))
+    parts.append("</section>")
+    return parts
+
+
+def _heart_section(teams: list[tuple[str, dict[str, Any]]], charts: dict[str, str],
+                   played_by_team: dict[str, Played], low_coverage: float) -> list[str]:
+    parts = ['<section id="heart"><h2>Heart rate <span class="n">time in zones of % HRmax (m:ss), '
+             'TRIMP (Edwards 1993; Banister 1991)</span></h2>']
+    for tid, t in teams:
+        parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
+        parts.append(heart_table(played_by_team[tid], low_coverage))
+        parts.append(charts.get(f"hr-zones-{tid}", ""))
+    parts.append(f'<p class="note">Mean heart rate is time-weighted over the time the strap was credited. '
+                 f'HR coverage is the share of expected strap samples received while on the pitch; below '
+                 f'{low_coverage:.0%} it is tagged GAPS: the strap dropped out and that time is missing, which '
+                 f'is not a low heart rate. {OMITTED_MARK}: left out because the player\'s profile lacks '
+                 f'HRmax, resting HR or sex (the reasons are listed under the table).</p></section>')
+    return parts
+
+
+def _feed_section(health: dict[str, Any]) -> list[str]:
+    """The feed's health counters at build time (heart-rate ones when the match had a strap channel)."""
+    rows = [
         [("state at build", "l"), (esc(health.get("state")), "")],
         [("frames applied", "l"), (num(health.get("frames")), "")],
         [("nominal frame rate, Hz", "l"), (num(health.get("fps_nominal")), "")],
@@ -356,12 +388,39 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
         [("duplicates", "l"), (num(health.get("duplicates")), "")],
         [("late frames", "l"), (num(health.get("late")), "")],
         [("position jumps removed", "l"), (num(health.get("jumps")), "")],
-    ] + ([
-        [("heart-rate samples refused", "l"), (num(health.get("hr_rejected")), "")],
-        [("heart-rate duplicates", "l"), (num(health.get("hr_duplicates")), "")],
-        [("heart-rate late samples", "l"), (num(health.get("hr_late")), "")],
-    ] if any(k in health for k in ("hr_rejected", "hr_duplicates", "hr_late")) else [])))
-    parts.append("</section>")
-    parts.append(f"<footer>{esc(HEALTH_CAUTION)} Report by pacewire; CSV and JSON copies sit beside this file.</footer>")
-    parts += ["</main>", "</body>", "</html>"]
+    ]
+    if any(k in health for k in ("hr_rejected", "hr_duplicates", "hr_late")):
+        rows += [
+            [("heart-rate samples refused", "l"), (num(health.get("hr_rejected")), "")],
+            [("heart-rate duplicates", "l"), (num(health.get("hr_duplicates")), "")],
+            [("heart-rate late samples", "l"), (num(health.get("hr_late")), "")],
+        ]
+    return ['<section id="feed"><h2>Feed</h2>', _table([("feed", "l"), ("value", "")], rows), "</section>"]
+
+
+def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession: dict[str, dict[str, float]],
+         source: str, created_at: float, low_coverage: float,
+         blocks: list[tuple[str, str]] | None = None, per_min: dict[str, list[float | None]] | None = None) -> str:
+    """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``:
+    (label, period) of each block; ``per_min``: each player's distance per minute in them."""
+    teams = tracked_teams(snapshot)
+    heart = has_heart_rate(snapshot)
+    players = snapshot["players"]
+    order = player_order(snapshot)
+    # the players of each tracked team who played, in table order
+    played_by_team = {tid: [(pid, players[pid]) for pid in order
+                            if players[pid]["team_id"] == tid and players[pid]["minutes"]] for tid, _ in teams}
+    parts = [
+        *_head_and_masthead(kind, snapshot, source, created_at),
+        *_cautions(heart),
+        *_teams_section(snapshot, charts, possession),
+        *_intensity_section(teams, charts, played_by_team, blocks, per_min),
+        *_players_section(snapshot, charts, played_by_team, low_coverage),
+        *_peaks_section(snapshot, charts, played_by_team),
+        *(_possession_section(teams, played_by_team) if possession else []),
+        *(_heart_section(teams, charts, played_by_team, low_coverage) if heart else []),
+        *_feed_section(snapshot["health"]),
+        f"<footer>{esc(HEALTH_CAUTION)} Report by pacewire; CSV and JSON copies sit beside this file.</footer>",
+        "</main>", "</body>", "</html>",
+    ]
     return "\n".join(parts) + "\n"

@@ -14,6 +14,7 @@ from contextlib import closing
 from pathlib import Path
 from typing import Any, Iterable
 
+from pacewire.errors import PacewireError
 from pacewire.reports.alerts import Band
 from pacewire.store.record import MatchRecord, robust_band
 
@@ -66,7 +67,7 @@ MIGRATIONS: tuple[str, ...] = (
 VERSION = len(MIGRATIONS)
 
 
-class HistoryError(RuntimeError):
+class HistoryError(PacewireError, RuntimeError):
     """The history database cannot be opened or is from a newer pacewire."""
 
 

@@ -1,4 +1,4 @@
-"""The AsyncAPI 3.0 description of pacewire's WebSocket channels (DESIGN §3).
+"""The AsyncAPI 3.0 description of pacewire's WebSocket channels (README, "Consuming the stream").
 
 Two channels: ``/live/{match_id}`` (subscribe to a match's messages) and
 ``/ingest/{match_id}`` (a provider pushes CDF frames and reads errors back).
@@ -77,13 +77,30 @@ def _message(kind: str, schema_base: str) -> dict[str, Any]:
     }
 
 
-def asyncapi_document(host: str = "localhost:8000", protocol: str = "ws", schema_base: str = SCHEMA_BASE,
-                      default_every_s: float = 1.0, max_every_s: float = 60.0) -> dict[str, Any]:
-    """The AsyncAPI 3.0 document; ``schema_base`` prefixes the JSON Schema references
-    (a URL path on the server, or ``./`` beside ``docs/schema/``)."""
-    live_kinds = list(MESSAGES)
-    security = [{"$ref": "#/components/securitySchemes/bearer"}, {"$ref": "#/components/securitySchemes/queryToken"}]
-    live_query = {
+def _security() -> list[dict[str, str]]:
+    """Either scheme: a bearer header or ``?token=``."""
+    return [{"$ref": "#/components/securitySchemes/bearer"}, {"$ref": "#/components/securitySchemes/queryToken"}]
+
+
+def _info() -> dict[str, Any]:
+    return {
+        "title": "pacewire",
+        "version": str(CONTRACT_VERSION),
+        "description": (
+            "Live exertion figures of football matches, from positional tracking. Written from pacewire's "
+            "side: it sends on /live/{match_id} and receives CDF frames on /ingest/{match_id}. Every "
+            f"message carries v (contract major version, now {CONTRACT_VERSION}); within it fields are only "
+            "added, never removed or renamed, so ignore fields you do not know. seq increases by one per "
+            "message of a subscription stream; on a gap, reconnect with since=LAST_SEQ. Figures are "
+            "estimates from positional data; decisions on injury, return-to-play and substitution stay "
+            "with qualified staff."),
+        "license": {"name": "MIT"},
+    }
+
+
+def _live_query(default_every_s: float, max_every_s: float) -> dict[str, Any]:
+    """The query parameters of ``/live/{match_id}``; the cadence bounds come from config ``[server]``."""
+    return {
         "type": "object",
         "properties": {
             "every": {"type": "number", "default": default_every_s, "maximum": max_every_s,
@@ -100,92 +117,98 @@ def asyncapi_document(host: str = "localhost:8000", protocol: str = "ws", schema
             "token": {"type": "string", "description": "View (or ingest) token, when the server requires one."},
         },
     }
+
+
+def _channels(live_query: dict[str, Any]) -> dict[str, Any]:
+    return {
+        "live": {
+            "address": "/live/{match_id}",
+            "title": "Live stream of a match",
+            "description": "Opens with a snapshot (or, resuming with since, the messages missed), then deltas "
+                           "at the chosen cadence and event messages. A refused subscription gets one error "
+                           "message, then the socket closes with code 1008 (also without a valid token).",
+            "parameters": {"match_id": _MATCH_ID},
+            "messages": {k: {"$ref": f"#/components/messages/{k}"} for k in MESSAGES},
+            "bindings": {"ws": {"method": "GET", "query": live_query, "headers": _AUTH_HEADER,
+                                "bindingVersion": "0.1.0"}},
+        },
+        "ingest": {
+            "address": "/ingest/{match_id}",
+            "title": "Frames in",
+            "description": "A provider sends one CDF frame, or a JSON array of frames, per text message. "
+                           "Bad frames are answered with an error message each; good ones are recorded and "
+                           "applied. Needs the ingest token when the server has one.",
+            "parameters": {"match_id": _MATCH_ID},
+            "messages": {
+                "frame": {"$ref": "#/components/messages/frame"},
+                "frames": {"$ref": "#/components/messages/frames"},
+                "error": {"$ref": "#/components/messages/error"},
+            },
+            "bindings": {"ws": {"method": "GET", "headers": _AUTH_HEADER, "query": {
+                "type": "object", "properties": {"token": {"type": "string", "description": "Ingest token."}}},
+                "bindingVersion": "0.1.0"}},
+        },
+    }
+
+
+def _operations() -> dict[str, Any]:
+    return {
+        "sendLive": {
+            "action": "send", "channel": {"$ref": "#/channels/live"},
+            "summary": "pacewire sends a match's messages to a subscriber.",
+            "security": _security(),
+            "messages": [{"$ref": f"#/channels/live/messages/{k}"} for k in MESSAGES],
+        },
+        "receiveFrames": {
+            "action": "receive", "channel": {"$ref": "#/channels/ingest"},
+            "summary": "pacewire receives tracking frames from a provider.",
+            "security": _security(),
+            "messages": [{"$ref": "#/channels/ingest/messages/frame"}, {"$ref": "#/channels/ingest/messages/frames"}],
+        },
+        "sendIngestErrors": {
+            "action": "send", "channel": {"$ref": "#/channels/ingest"},
+            "summary": "pacewire answers a bad frame with an error message.",
+            "messages": [{"$ref": "#/channels/ingest/messages/error"}],
+        },
+    }
+
+
+def _components(schema_base: str) -> dict[str, Any]:
+    return {
+        "messages": {
+            **{k: _message(k, schema_base) for k in MESSAGES},
+            "frame": {"name": "frame", "title": "Frame", "summary": "One CDF tracking frame.",
+                      "contentType": "application/json", "payload": _frame_schema()},
+            "frames": {"name": "frames", "title": "Frames", "summary": "A JSON array of CDF tracking frames.",
+                       "contentType": "application/json",
+                       "payload": {"type": "array", "items": _frame_schema()}},
+        },
+        "securitySchemes": {
+            "bearer": {"type": "http", "scheme": "bearer",
+                       "description": "Authorization: Bearer TOKEN. The view token reads (live, REST reads, "
+                                      "exports); the ingest token writes (ingest, set-up) and reads too. "
+                                      "Needed only when the server was started with tokens."},
+            "queryToken": {"type": "httpApiKey", "in": "query", "name": "token",
+                           "description": "The same token as ?token=TOKEN, for clients that cannot set headers."},
+        },
+    }
+
+
+def asyncapi_document(host: str = "localhost:8000", protocol: str = "ws", schema_base: str = SCHEMA_BASE,
+                      default_every_s: float = 1.0, max_every_s: float = 60.0) -> dict[str, Any]:
+    """The AsyncAPI 3.0 document; ``schema_base`` prefixes the JSON Schema references
+    (a URL path on the server, or ``./`` beside ``docs/schema/``)."""
     return {
         "asyncapi": ASYNCAPI_VERSION,
         "id": "urn:pacewire:live",
-        "info": {
-            "title": "pacewire",
-            "version": str(CONTRACT_VERSION),
-            "description": (
-                "Live exertion figures of football matches, from positional tracking. Written from pacewire's "
-                "side: it sends on /live/{match_id} and receives CDF frames on /ingest/{match_id}. Every "
-                f"message carries v (contract major version, now {CONTRACT_VERSION}); within it fields are only "
-                "added, never removed or renamed, so ignore fields you do not know. seq increases by one per "
-                "message of a subscription stream; on a gap, reconnect with since=LAST_SEQ. Figures are "
-                "estimates from positional data; decisions on injury, return-to-play and substitution stay "
-                "with qualified staff."),
-            "license": {"name": "MIT"},
-        },
+        "info": _info(),
         "defaultContentType": "application/json",
         "servers": {
-            "pacewire": {"host": host, "protocol": protocol, "description": "A pacewire server.", "security": security},
+            "pacewire": {"host": host, "protocol": protocol, "description": "A pacewire server.", "security": _security()},
         },
-        "channels": {
-            "live": {
-                "address": "/live/{match_id}",
-                "title": "Live stream of a match",
-                "description": "Opens with a snapshot (or, resuming with since, the messages missed), then deltas "
-                               "at the chosen cadence and event messages. A refused subscription gets one error "
-                               "message, then the socket closes with code 1008 (also without a valid token).",
-                "parameters": {"match_id": _MATCH_ID},
-                "messages": {k: {"$ref": f"#/components/messages/{k}"} for k in live_kinds},
-                "bindings": {"ws": {"method": "GET", "query": live_query, "headers": _AUTH_HEADER,
-                                    "bindingVersion": "0.1.0"}},
-            },
-            "ingest": {
-                "address": "/ingest/{match_id}",
-                "title": "Frames in",
-                "description": "A provider sends one CDF frame, or a JSON array of frames, per text message. "
-                               "Bad frames are answered with an error message each; good ones are recorded and "
-                               "applied. Needs the ingest token when the server has one.",
-                "parameters": {"match_id": _MATCH_ID},
-                "messages": {
-                    "frame": {"$ref": "#/components/messages/frame"},
-                    "frames": {"$ref": "#/components/messages/frames"},
-                    "error": {"$ref": "#/components/messages/error"},
-                },
-                "bindings": {"ws": {"method": "GET", "headers": _AUTH_HEADER, "query": {
-                    "type": "object", "properties": {"token": {"type": "string", "description": "Ingest token."}}},
-                    "bindingVersion": "0.1.0"}},
-            },
-        },
-        "operations": {
-            "sendLive": {
-                "action": "send", "channel": {"$ref": "#/channels/live"},
-                "summary": "pacewire sends a match's messages to a subscriber.",
-                "security": security,
-                "messages": [{"$ref": f"#/channels/live/messages/{k}"} for k in live_kinds],
-            },
-            "receiveFrames": {
-                "action": "receive", "channel": {"$ref": "#/channels/ingest"},
-                "summary": "pacewire receives tracking frames from a provider.",
-                "security": security,
-                "messages": [{"$ref": "#/channels/ingest/messages/frame"}, {"$ref": "#/channels/ingest/messages/frames"}],
-            },
-            "sendIngestErrors": {
-                "action": "send", "channel": {"$ref": "#/channels/ingest"},
-                "summary": "pacewire answers a bad frame with an error message.",
-                "messages": [{"$ref": "#/channels/ingest/messages/error"}],
-            },
-        },
-        "components": {
-            "messages": {
-                **{k: _message(k, schema_base) for k in live_kinds},
-                "frame": {"name": "frame", "title": "Frame", "summary": "One CDF tracking frame.",
-                          "contentType": "application/json", "payload": _frame_schema()},
-                "frames": {"name": "frames", "title": "Frames", "summary": "A JSON array of CDF tracking frames.",
-                           "contentType": "application/json",
-                           "payload": {"type": "array", "items": _frame_schema()}},
-            },
-            "securitySchemes": {
-                "bearer": {"type": "http", "scheme": "bearer",
-                           "description": "Authorization: Bearer TOKEN. The view token reads (live, REST reads, "
-                                          "exports); the ingest token writes (ingest, set-up) and reads too. "
-                                          "Needed only when the server was started with tokens."},
-                "queryToken": {"type": "httpApiKey", "in": "query", "name": "token",
-                               "description": "The same token as ?token=TOKEN, for clients that cannot set headers."},
-            },
-        },
+        "channels": _channels(_live_query(default_every_s, max_every_s)),
+        "operations": _operations(),
+        "components": _components(schema_base),
     }
 
 

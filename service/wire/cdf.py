@@ -21,6 +21,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 
 from pacewire.errors import PacewireError
 from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
+from pacewire.errors import PacewireError, describe_validation
 from pacewire.wire.gnss import CalibrationError, PitchProjection, check_venue, parse_calibration
 
 PeriodName = Literal["first_half", "second_half", "first_half_extratime", "second_half_extratime", "shootout"]
@@ -202,10 +203,6 @@ def gnss_tolerances(settings: Any) -> tuple[float, float]:
     return settings.gnss.side_tolerance, settings.gnss.angle_tolerance_deg
 
 
-def describe_validation(exc: ValidationError) -> str:
-    return "; ".join(f"{'.'.join(str(p) for p in e['loc']) or 'body'}: {e['msg']}" for e in exc.errors()[:10])
-
-
 # --- tracking frames ------------------------------------------------------------
 
 class FramePlayer(BaseModel):
@@ -336,7 +333,9 @@ class DecodeResult:
                             sum(r.duplicates for r in results), sum(r.late for r in results))
 
 
-class Reject(Exception):
+class Reject(PacewireError):
+    """A frame (or heart-rate sample) refused: ``code`` and ``message`` become its FrameError."""
+
     def __init__(self, code: str, message: str) -> None:
         self.code, self.message = code, message
 
@@ -346,6 +345,30 @@ _NUM_SET = frozenset(_NUM)
 _ID, _X, _Y = itemgetter("id"), itemgetter("x"), itemgetter("y")
 _BULK_MIN = 8  # frames in a call before the players of all its frames are checked at once
 _BULK_PAUSE = 8  # calls decoded frame by frame after a batch the bulk check could not take
+
+
+def _refusal(exc: Exception, fid: int | None, line: int | None) -> FrameError:
+    """The FrameError of a refused frame: a Reject's code and message, else ``bad_frame`` naming the fault."""
+    if isinstance(exc, Reject):
+        return FrameError(exc.code, exc.message, fid, line)
+    return FrameError("bad_frame", f"frame could not be read: {type(exc).__name__}: {exc}", fid, line)
+
+
+def _block(n_players: int, frames: list[tuple[int, float, int, int, int, int]],
+           samples: list[tuple[Any, Any, Any, Any]]) -> Block:
+    """The engine block of the accepted ``frames``; ``samples``: (frame rows, roster indices, x, y) runs."""
+    fids, ts, periods, slots, balls, poss = zip(*frames)
+    xy = np.full((len(frames), n_players, 2), np.nan)
+    for f, p, x, y in samples:
+        f = np.asarray(f)
+        p = np.asarray(p)
+        xy[f, p, 0] = x
+        xy[f, p, 1] = y
+    return Block(
+        frame_id=np.asarray(fids, np.int64), t=np.asarray(ts, np.float64),
+        period=np.asarray(periods, np.int8), slot=np.asarray(slots, np.int64), xy=xy,
+        ball=np.asarray(balls, np.int8), poss=np.asarray(poss, np.int8),
+    )
 
 
 def parse_timestamp(value: Any) -> float:
@@ -460,21 +483,15 @@ class FrameDecoder:
         """``bulk``: the players of all accepted frames are checked together at the end, and
         None comes back if any entry is not plainly good (the caller then decodes frame by
         frame, where each check names what is wrong); otherwise the result is the same."""
-        n_players = self.roster.n
         plists: tuple[list[Any], list[Any]] = ([], [])
-        fids: list[int] = []
-        ts: list[float] = []
-        periods: list[int] = []
-        slots: list[int] = []
-        balls: list[int] = []
-        poss: list[int] = []
+        frames: list[tuple[int, float, int, int, int, int]] = []  # accepted: (frame_id, t, period, slot, ball, poss)
         # Flat (frame, player, x, y) samples of accepted frames.
         s_f: list[int] = []
         s_p: list[int] = []
         s_x: list[float] = []
         s_y: list[float] = []
         errors: list[FrameError] = []
-        res = DecodeResult(Block.empty(n_players), errors)
+        res = DecodeResult(Block.empty(self.roster.n), errors)
         gate = self.gate
         for k, obj in enumerate(objs):
             line = lines[k] if lines is not None else None
@@ -490,18 +507,13 @@ class FrameDecoder:
                     raise Reject("bad_value", f"frame_id {fid} is negative (CDF frame ids count from 0)")
                 t = self._check_frame(obj)
                 if fid <= gate.last_id:
-                    if fid in gate.recent_set:
-                        res.duplicates += 1
-                        errors.append(FrameError("duplicate", f"frame {fid} was already applied", fid, line))
-                    else:
-                        res.late += 1
-                        errors.append(FrameError("late", f"frame {fid} arrived after frame {gate.last_id}", fid, line))
+                    errors.append(self._repeated(res, fid, line))
                     continue
                 if t < gate.last_t:
                     raise Reject("bad_timestamp", "timestamp goes back in time")
                 period = PERIOD_INDEX[obj["period"]]
                 slot = gate.slot_of(period, t)
-                row = len(fids)
+                row = len(frames)
                 if not bulk:
                     for side in (0, 1):
                         self._players(obj["teams"][("home", "away")[side]], side, row, s_f, s_p, s_x, s_y)
@@ -514,48 +526,35 @@ class FrameDecoder:
                         for side in (0, 1):
                             self._players(obj["teams"][("home", "away")[side]], side, row, [], [], [], [])
                         raise
-            except Reject as rej:
+            except Exception as exc:  # a Reject, or a shape no rule above foresaw: still a clear rejection
                 del s_f[mark:], s_p[mark:], s_x[mark:], s_y[mark:]
                 res.rejected += 1
-                errors.append(FrameError(rej.code, rej.message, fid_known, line))
-                continue
-            except Exception as exc:  # a shape no rule above foresaw: still a clear rejection
-                del s_f[mark:], s_p[mark:], s_x[mark:], s_y[mark:]
-                res.rejected += 1
-                errors.append(FrameError("bad_frame", f"frame could not be read: {type(exc).__name__}: {exc}", fid_known, line))
+                errors.append(_refusal(exc, fid_known, line))
                 continue
             res.accepted.append(k)
             if bulk:
                 teams = obj["teams"]
                 plists[0].append(teams["home"]["players"])
                 plists[1].append(teams["away"]["players"])
-            fids.append(fid)
-            ts.append(t)
-            periods.append(period)
-            slots.append(slot)
-            balls.append(ball)
-            poss.append(team)
+            frames.append((fid, t, period, slot, ball, team))
             gate.admit(fid, t, period, slot)
-        n = len(fids)
         samples: list[tuple[Any, Any, Any, Any]] = [(s_f, s_p, s_x, s_y)] if s_f else []
         if bulk:
             got = self._players_bulk(plists)
             if got is None:
                 return None
             samples = got
-        if n:
-            xy = np.full((n, n_players, 2), np.nan)
-            for f, p, x, y in samples:
-                f = np.asarray(f)
-                p = np.asarray(p)
-                xy[f, p, 0] = x
-                xy[f, p, 1] = y
-            res.block = Block(
-                frame_id=np.asarray(fids, np.int64), t=np.asarray(ts, np.float64),
-                period=np.asarray(periods, np.int8), slot=np.asarray(slots, np.int64), xy=xy,
-                ball=np.asarray(balls, np.int8), poss=np.asarray(poss, np.int8),
-            )
+        if frames:
+            res.block = _block(self.roster.n, frames, samples)
         return res
+
+    def _repeated(self, res: DecodeResult, fid: int, line: int | None) -> FrameError:
+        """A frame id at or below the last one applied: a duplicate if still remembered, else late."""
+        if fid in self.gate.recent_set:
+            res.duplicates += 1
+            return FrameError("duplicate", f"frame {fid} was already applied", fid, line)
+        res.late += 1
+        return FrameError("late", f"frame {fid} arrived after frame {self.gate.last_id}", fid, line)
 
     def _check_frame(self, obj: dict[str, Any]) -> float:
         for key in ("timestamp", "period", "teams"):

@@ -1,4 +1,4 @@
-"""GNSS fixes to pitch metres (docs/wearables.md, "GNSS coordinates"; issue 10).
+"""GNSS fixes to pitch metres (docs/wearables.md, "GNSS coordinates").
 
 Wearable units report WGS 84 geodetic latitude and longitude in degrees (CDF
 v0.3.2 player fields ``lat``/``long``). The match set-up carries a pitch
@@ -30,8 +30,8 @@ checks projected distances against geographiclib's geodesics (Karney 2013,
 
 Checks on arrival (corner form): the two touchlines within ``side_tolerance``
 of each other, the two goal lines likewise, each corner angle within
-``angle_tolerance_deg`` of 90°, and the right handedness (issue 10: sides
-within 1%, right angles within 1°). A failure raises :class:`CalibrationError`
+``angle_tolerance_deg`` of 90°, and the right handedness (pacewire defaults,
+docs/wearables.md "Checks on arrival": sides within 1%, right angles within 1°). A failure raises :class:`CalibrationError`
 naming the corner most to blame: two neighbouring names exchanged (a crossed
 quadrilateral) are named as such; otherwise, since a single misplaced flag
 leaves the other three at a right angle, the corner whose opposite angle is
@@ -49,6 +49,8 @@ import pymap3d
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 from pymap3d.ellipsoid import Ellipsoid
 
+from pacewire.errors import PacewireError, describe_validation
+
 WGS84 = Ellipsoid.from_name("wgs84")
 KEY = "venue.gnss_pitch"
 CORNERS = ("x_min_y_min", "x_max_y_min", "x_max_y_max", "x_min_y_max")  # counter-clockwise seen from above
@@ -57,7 +59,7 @@ MIN_SIDE_M = 1.0  # below this a side cannot give a direction (a repeated flag);
 VENUE_TOLERANCE = 0.01  # docs/wearables.md: meta pitch_length/pitch_width within 1% of the calibration
 
 
-class CalibrationError(ValueError):
+class CalibrationError(PacewireError, ValueError):
     """A pitch calibration that cannot be used; the message starts with the key at fault,
     e.g. ``venue.gnss_pitch.corners.x_max_y_max: angle 93.1° is not within 1° of a right angle``."""
 
@@ -121,12 +123,8 @@ def parse_calibration(data: Any) -> GnssPitch:
     try:
         return GnssPitch.model_validate(data)
     except ValidationError as exc:
-        parts, first = [], None
-        for err in exc.errors():
-            key = ".".join([KEY, *(str(p) for p in err["loc"])])
-            first = first or key
-            parts.append(f"{key}: {err['msg'].removeprefix('Value error, ')}")
-        raise CalibrationError("; ".join(parts), first or KEY) from None
+        first = ".".join([KEY, *(str(p) for p in exc.errors()[0]["loc"])])
+        raise CalibrationError(describe_validation(exc, prefix=KEY, limit=None), first) from None
 
 
 # --- the projection -------------------------------------------------------------------

@@ -9,8 +9,10 @@ from typing import Any, Iterator
 
 import orjson
 
+from pacewire.errors import PacewireError
 
-class RecordingError(ValueError):
+
+class RecordingError(PacewireError, ValueError):
     """The folder is not a readable CDF recording."""
 
 

@@ -1,4 +1,4 @@
-"""Pydantic models of every message out (DESIGN §3) and their JSON Schemas (2020-12).
+"""Pydantic models of every message out (README, "Consuming the stream") and their JSON Schemas (2020-12).
 
 The models are the one source of truth for the published schemas: ``docs/schema/``
 is written from them (``make schema``), ``GET /api/schema/messages`` serves them,
