@@ -107,6 +107,9 @@ def main(argv: list[str] | None = None) -> int:
     except BrokenPipeError:  # the reader went away (``| head``): nothing left to say
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 0
+    except OSError as exc:  # a file or folder the command needs (not found, not writable)
+        print(f"pacewire: {exc}", file=sys.stderr)
+        return 2
 
 
 if __name__ == "__main__":

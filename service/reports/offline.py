@@ -153,20 +153,10 @@ def build_offline(folder: str | Path, out: str | Path, settings: Settings, progr
 
 
 def cli_report(args: argparse.Namespace) -> int:
-    from pacewire.wire.recording import RecordingError
-    from pacewire.config import ConfigError, load_settings
-    from pacewire.wire.cdf import SetupError
+    """``pacewire report``; errors go up to the command line, which prints them once."""
+    from pacewire.config import load_settings
 
-    try:
-        settings = load_settings(args.config)
-    except ConfigError as exc:
-        print(f"pacewire: {exc}", file=sys.stderr)
-        return 2
-    try:
-        entries = build_offline(args.folder, args.out, settings, progress=not args.quiet)
-    except (RecordingError, SetupError, OSError) as exc:
-        print(f"pacewire: {exc}", file=sys.stderr)
-        return 2
+    entries = build_offline(args.folder, args.out, load_settings(args.config), progress=not args.quiet)
     if not entries:
         print("pacewire: the recording holds no period to report on", file=sys.stderr)
         return 1

@@ -56,18 +56,11 @@ def _list(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
 
 
 def cli_history(args: argparse.Namespace) -> int:
-    from pacewire.config import ConfigError, load_settings
+    """``pacewire history``; errors go up to the command line, which prints them once."""
+    from pacewire.config import load_settings
 
-    try:
-        settings = load_settings(args.config)
-    except ConfigError as exc:
-        print(f"pacewire: {exc}", file=sys.stderr)
-        return 2
-    try:
-        return _import(args, settings) if args.history_command == "import" else _list(args, settings)
-    except history.HistoryError as exc:
-        print(f"pacewire: {exc}", file=sys.stderr)
-        return 2
+    settings = load_settings(args.config)
+    return _import(args, settings) if args.history_command == "import" else _list(args, settings)
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
