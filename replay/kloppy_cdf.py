@@ -3,7 +3,7 @@
 A reusable bridge (and the sketch for ``pacewire import``): any loader kloppy
 has gives a ``TrackingDataset``; this module moves it into the CDF frame of
 reference (metres, origin at the centre spot, x along the touchlines, y along
-the goal lines pointing up: DESIGN §3, Anzer et al. 2025) and writes the live
+the goal lines pointing up: Anzer et al. 2025) and writes the live
 subset of the CDF objects pacewire reads.
 
 kloppy loaders default to normalised 0-1 coordinates with the origin top-left
@@ -190,7 +190,7 @@ def meta(dataset: "TrackingDataset", match_id: str | None = None) -> dict[str, A
 
 
 def sheet(dataset: "TrackingDataset") -> dict[str, Any]:
-    """The live subset of a CDF match sheet (DESIGN §3): teams and their players."""
+    """The live subset of a CDF match sheet: teams and their players."""
     return {"teams": {side: {"id": str(t.team_id), "name": t.name, "players": _players(t)}
                       for side, t in _sides(dataset)}}
 

@@ -23,12 +23,14 @@ from __future__ import annotations
 import argparse
 import asyncio
 import contextlib
+import functools
+import itertools
 import signal
 import sys
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any, Callable, Iterator
 from urllib.parse import urlsplit, urlunsplit
 
 import orjson
@@ -176,6 +178,17 @@ class _Paced:
             self.out, self.size = [], 0
 
 
+@dataclass
+class _Cursor:
+    """How far a replay got: frames sent, the last one sent, the first frame read but not
+    sent yet (a seek reads one frame past its end) and the next heart-rate sample to send."""
+
+    sent: int = 0
+    last: Frame | None = None
+    pending: Frame | None = None
+    hr_next: int = 0
+
+
 async def replay(folder: Path, to: str, speed: float | None, start_s: float | None = None, until_s: float | None = None,
                  token: str | None = None, match_id: str | None = None, progress: Progress | None = None,
                  stop: asyncio.Event | None = None) -> tuple[int, Frame | None]:
@@ -184,123 +197,166 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
     Heart-rate samples, when the folder has them, go alongside (module docstring);
     ``progress.hr_sent`` counts them."""
     import httpx
-    import websockets
 
     rec = open_recording(folder)
     base, url_match = _http_base(to)
     mid = match_id or url_match
     headers = {"Authorization": f"Bearer {token}"} if token else {}
+    samples = samples_of(rec)
+    rename = functools.partial(_rename, mid=mid, url_match=url_match, rec=rec)
+    cur = _Cursor()
+    async with httpx.AsyncClient(base_url=base, headers=headers, timeout=60) as http:
+        await _set_up(http, mid, rec)
+        frames = frames_of(rec)
+        if start_s is not None:
+            await _seek(http, mid, frames, start_s, rename, samples, cur, progress)
+        ws_url = to if match_id is None else to.rsplit("/", 1)[0] + "/" + mid
+        await _stream(ws_url, headers, speed, frames, samples, rename, cur, until_s, progress, stop)
+    if progress is not None and cur.last is not None:
+        progress.show(cur.last, cur.sent, force=True)
+    return cur.sent, cur.last
+
+
+async def _set_up(http: Any, mid: str, rec: Recording) -> None:
+    """Set the match up on the server: the recording's meta (under match id ``mid``) and sheet."""
     meta = dict(rec.meta)
     meta["match"] = {**meta.get("match", {}), "id": mid}
-    samples = samples_of(rec)
-    hr_next = 0  # index of the next heart-rate sample to send
-    async with httpx.AsyncClient(base_url=base, headers=headers, timeout=60) as http:
-        r = await http.put(f"/api/matches/{mid}", json={"meta": meta, "sheet": rec.sheet})
-        if r.status_code >= 400:
-            raise ReplayError(f"set-up refused ({r.status_code}): {r.text}")
-        frames = frames_of(rec)
-        sent = 0
-        last: Frame | None = None
-        pending: Frame | None = None
-        if start_s is not None:
-            batch: list[bytes] = []
-            size = 0
-            for fr in frames:
-                if fr.clock_s >= start_s:
-                    pending = fr
+    r = await http.put(f"/api/matches/{mid}", json={"meta": meta, "sheet": rec.sheet})
+    if r.status_code >= 400:
+        raise ReplayError(f"set-up refused ({r.status_code}): {r.text}")
+
+
+async def _seek(http: Any, mid: str, frames: Iterator[Frame], start_s: float, rename: Callable[[bytes], bytes],
+                samples: list[Sample], cur: _Cursor, progress: Progress | None) -> None:
+    """Post the frames before match time ``start_s`` at once (batches of MAX_BYTES at most),
+    then the heart-rate samples before the first frame left to stream."""
+    batch: list[bytes] = []
+    size = 0
+    for fr in frames:
+        if fr.clock_s >= start_s:
+            cur.pending = fr
+            break
+        line = rename(fr.line)
+        if batch and size + len(line) > MAX_BYTES:
+            await _post(http, mid, batch)
+            cur.sent += len(batch)
+            batch, size = [], 0
+        batch.append(line)
+        size += len(line) + 1
+        cur.last = fr
+    if batch:
+        await _post(http, mid, batch)
+        cur.sent += len(batch)
+    # the heart rate before the first streamed frame (all of it if none is left)
+    while cur.hr_next < len(samples) and (cur.pending is None or samples[cur.hr_next].t < cur.pending.t):
+        cur.hr_next += 1
+    await _post_hr(http, mid, [s.line for s in samples[:cur.hr_next]])
+    if progress is not None:
+        progress.hr_sent += cur.hr_next
+
+
+async def _stream(ws_url: str, headers: dict[str, str], speed: float | None, frames: Iterator[Frame],
+                  samples: list[Sample], rename: Callable[[bytes], bytes], cur: _Cursor, until_s: float | None,
+                  progress: Progress | None, stop: asyncio.Event | None) -> None:
+    """Stream the frames from ``cur.pending`` on, and the heart-rate samples from
+    ``cur.hr_next`` on, over the ingest sockets until the end, ``until_s`` or ``stop``."""
+    async with contextlib.AsyncExitStack() as stack:
+        ws, hr_ws = await _connect(stack, ws_url, headers, heart_rate=cur.hr_next < len(samples))
+        drains = [asyncio.create_task(_drain(w)) for w in (ws, hr_ws) if w is not None]
+        try:
+            clock = _Clock(ws, hr_ws, speed, samples, cur.hr_next)
+            finished = True
+            for fr in itertools.chain([cur.pending] if cur.pending is not None else [], frames):
+                if stop is not None and stop.is_set() or until_s is not None and fr.clock_s > until_s:
+                    finished = False
                     break
-                line = _rename(fr.line, mid, url_match, rec)
-                if batch and size + len(line) > MAX_BYTES:
-                    await _post(http, mid, batch)
-                    sent += len(batch)
-                    batch, size = [], 0
-                batch.append(line)
-                size += len(line) + 1
-                last = fr
-            if batch:
-                await _post(http, mid, batch)
-                sent += len(batch)
-            # the heart rate before the first streamed frame (all of it if none is left)
-            while hr_next < len(samples) and (pending is None or samples[hr_next].t < pending.t):
-                hr_next += 1
-            await _post_hr(http, mid, [s.line for s in samples[:hr_next]])
-            if progress is not None:
-                progress.hr_sent += hr_next
-        ws_url = to if match_id is None else to.rsplit("/", 1)[0] + "/" + mid
-        async with contextlib.AsyncExitStack() as stack:
-            ws = await stack.enter_async_context(websockets.connect(ws_url, additional_headers=headers, max_size=None))
-            hr_ws = None
-            if hr_next < len(samples):
-                try:
-                    hr_ws = await stack.enter_async_context(
-                        websockets.connect(ws_url + "/hr", additional_headers=headers, max_size=None))
-                except websockets.InvalidStatus as exc:
-                    raise ReplayError(f"the server refused the heart-rate socket {ws_url}/hr "
-                                      f"({exc.response.status_code})") from None
-            drains = [asyncio.create_task(_drain(w)) for w in (ws, hr_ws) if w is not None]
-            try:
-                wall0 = time.monotonic()
-                ref_t: float | None = None
-                period: str | None = None
-                shift = 0.0  # skipped break time, s of frame time
-                out = _Paced(ws, wall0, speed)
-                hr_out = _Paced(hr_ws, wall0, speed) if hr_ws is not None else None
-                channels = [c for c in (out, hr_out) if c is not None]
-                finished = True
+                await clock.frame(fr, rename(fr.line), cur.last)
+                cur.last = fr
+                if progress is not None:
+                    progress.show(fr, cur.sent + clock.frames.sent)
+            await clock.finish(finished)
+            cur.sent += clock.frames.sent
+            if clock.hr is not None and progress is not None:
+                progress.hr_sent += clock.hr.sent
+        finally:
+            for task in drains:
+                task.cancel()
 
-                def due_of(t: float) -> float:
-                    return 0.0 if speed is None or ref_t is None else (t - shift - ref_t) / speed
 
-                async def emit(channel: _Paced, line: bytes, due: float) -> None:
-                    # one clock for both sockets: the other one's tick goes first once it is over
-                    for other in channels:
-                        if other is not channel and other.out and speed is not None and due - other.due_at > TICK_S:
-                            await other.flush()
-                    await channel.add(line, due)
+async def _connect(stack: contextlib.AsyncExitStack, ws_url: str, headers: dict[str, str],
+                   heart_rate: bool) -> tuple[Any, Any | None]:
+    """The ingest socket, and with ``heart_rate`` the heart-rate socket ``ws_url``/hr;
+    both close with ``stack``."""
+    import websockets
 
-                async def heart_rate_before(t: float) -> None:
-                    # samples in a break get the next period's clock: they go at once, as the break is skipped
-                    nonlocal hr_next
-                    while hr_next < len(samples) and samples[hr_next].t < t:
-                        await emit(hr_out, samples[hr_next].line, due_of(samples[hr_next].t))
-                        hr_next += 1
+    ws = await stack.enter_async_context(websockets.connect(ws_url, additional_headers=headers, max_size=None))
+    if not heart_rate:
+        return ws, None
+    try:
+        hr_ws = await stack.enter_async_context(
+            websockets.connect(ws_url + "/hr", additional_headers=headers, max_size=None))
+    except websockets.InvalidStatus as exc:
+        raise ReplayError(f"the server refused the heart-rate socket {ws_url}/hr "
+                          f"({exc.response.status_code})") from None
+    return ws, hr_ws
 
-                def stream() -> Iterator[Frame]:
-                    if pending is not None:
-                        yield pending
-                    yield from frames
 
-                for fr in stream():
-                    if stop is not None and stop.is_set() or until_s is not None and fr.clock_s > until_s:
-                        finished = False
-                        break
-                    if ref_t is None:
-                        ref_t, period = fr.t, fr.period
-                    if fr.period != period:
-                        # skip the break: the new period starts BREAK_WALL_S after the last frame
-                        gap = fr.t - (last.t if last is not None else fr.t)
-                        shift += max(gap - BREAK_WALL_S * (speed or 1.0), 0.0)
-                        period = fr.period
-                    if hr_out is not None:
-                        await heart_rate_before(fr.t)
-                    await emit(out, _rename(fr.line, mid, url_match, rec), due_of(fr.t))
-                    last = fr
-                    if progress is not None:
-                        progress.show(fr, sent + out.sent)
-                if finished and hr_out is not None:
-                    await heart_rate_before(float("inf"))  # the samples after the last frame
-                await out.flush()
-                sent += out.sent
-                if hr_out is not None:
-                    await hr_out.flush()
-                    if progress is not None:
-                        progress.hr_sent += hr_out.sent
-            finally:
-                for task in drains:
-                    task.cancel()
-    if progress is not None and last is not None:
-        progress.show(last, sent, force=True)
-    return sent, last
+class _Clock:
+    """Both ingest sockets on one clock: frames and heart-rate samples go when their
+    timestamps are due (module docstring), the break between periods skipped."""
+
+    def __init__(self, ws: Any, hr_ws: Any | None, speed: float | None, samples: list[Sample],
+                 hr_next: int) -> None:
+        wall0 = time.monotonic()
+        self.speed = speed
+        self.frames = _Paced(ws, wall0, speed)
+        self.hr = _Paced(hr_ws, wall0, speed) if hr_ws is not None else None
+        self.channels = [c for c in (self.frames, self.hr) if c is not None]
+        self.samples, self.hr_next = samples, hr_next
+        self.ref_t: float | None = None
+        self.period: str | None = None
+        self.shift = 0.0  # skipped break time, s of frame time
+
+    def due_of(self, t: float) -> float:
+        """Wall time (s after the start) at which a line of timestamp ``t`` is due."""
+        return 0.0 if self.speed is None or self.ref_t is None else (t - self.shift - self.ref_t) / self.speed
+
+    async def emit(self, channel: _Paced, line: bytes, due: float) -> None:
+        # one clock for both sockets: the other one's tick goes first once it is over
+        for other in self.channels:
+            if other is not channel and other.out and self.speed is not None and due - other.due_at > TICK_S:
+                await other.flush()
+        await channel.add(line, due)
+
+    async def heart_rate_before(self, t: float) -> None:
+        # samples in a break get the next period's clock: they go at once, as the break is skipped
+        samples, hr = self.samples, self.hr
+        while hr is not None and self.hr_next < len(samples) and samples[self.hr_next].t < t:
+            await self.emit(hr, samples[self.hr_next].line, self.due_of(samples[self.hr_next].t))
+            self.hr_next += 1
+
+    async def frame(self, fr: Frame, line: bytes, last: Frame | None) -> None:
+        """Send frame ``fr`` as ``line`` when it is due (the samples before it first);
+        ``last``: the frame sent before it, if any."""
+        if self.ref_t is None:
+            self.ref_t, self.period = fr.t, fr.period
+        if fr.period != self.period:
+            # skip the break: the new period starts BREAK_WALL_S after the last frame
+            gap = fr.t - (last.t if last is not None else fr.t)
+            self.shift += max(gap - BREAK_WALL_S * (self.speed or 1.0), 0.0)
+            self.period = fr.period
+        if self.hr is not None:
+            await self.heart_rate_before(fr.t)
+        await self.emit(self.frames, line, self.due_of(fr.t))
+
+    async def finish(self, finished: bool) -> None:
+        """Send what is held: the samples after the last frame (if the stream was not cut
+        short), then the last message of each socket."""
+        if finished and self.hr is not None:
+            await self.heart_rate_before(float("inf"))
+        await self.frames.flush()
+        if self.hr is not None:
+            await self.hr.flush()
 
 
 def _rename(line: bytes, mid: str, url_match: str, rec: Recording) -> bytes:

@@ -102,4 +102,5 @@ def test_every_package_folder_is_listed_for_the_wheel():
     found = {"pacewire" + ("." + ".".join(p.parent.relative_to(ROOT / "service").parts) if p.parent != ROOT / "service"
                            else "") for p in (ROOT / "service").rglob("__init__.py")}
     found |= {".".join(["pacewire", *p.parent.relative_to(ROOT).parts]) for p in (ROOT / "replay").rglob("__init__.py")}
-    assert listed == found
+    assert listed - found == {"pacewire.web"}  # the bench page's folder: data, no Python
+    assert found <= listed

@@ -176,7 +176,7 @@ def _physio(tmp_path_factory, name: str, **patch) -> tuple[dict, list]:
     ``patch`` overrides model constants of replay/synth.py for a control."""
     with pytest.MonkeyPatch.context() as mp:
         for key, value in patch.items():
-            mp.setattr(synth, key, value)
+            mp.setattr(synth.wearables, key, value)
         folder = synth.write_match(tmp_path_factory.mktemp(name), minutes=20, fps=10, seed=5, faults=False,
                                    compress=False, wearables=True)
     return _per_second(folder)
