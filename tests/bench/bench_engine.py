@@ -210,7 +210,7 @@ def floodlight_pass(arrays: list[np.ndarray]) -> list[object]:
 
     out = []
     for arr in arrays:
-        xy = butterworth_lowpass(XY(xy=arr, framerate=FPS), order=3, Wn=1)  # Wn in Hz (NOTES.md)
+        xy = butterworth_lowpass(XY(xy=arr, framerate=FPS), order=3, Wn=1)  # Wn in Hz (floodlight 1.2.0)
         models = (DistanceModel(), VelocityModel(), AccelerationModel(), MetabolicPowerModel())
         for model in models:
             model.fit(xy, difference="central")
