@@ -18,7 +18,7 @@ test: $(STAMP)
 	$(PY) -m pytest $(PYTEST_ARGS)
 
 bench: $(STAMP)
-	$(PY) tests/bench/run.py $(if $(QUICK),--quick,)
+	$(PY) -m tests.bench.run $(if $(QUICK),--quick,)
 
 demo: $(STAMP)
 	$(PY) -m pacewire demo

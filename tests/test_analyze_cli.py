@@ -8,8 +8,8 @@ import numpy as np
 import orjson
 import pytest
 
-import cdf_build as cb
 from pacewire.analyze import analyze_folder
+from tests.support import cdf_build as cb
 
 FPS = 25
 

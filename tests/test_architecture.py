@@ -9,7 +9,8 @@ import ast
 from collections import defaultdict
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parent.parent
+from tests.support.paths import ROOT
+
 FOLDERS = {"pacewire": ROOT / "service", "pacewire.replay": ROOT / "replay"}
 
 # Each unit may import the units listed for it, and itself. A unit is a subpackage or a top-level module.

@@ -6,7 +6,7 @@ import pytest
 from pacewire.config import DEFAULT_PATH, ConfigError, load_settings
 
 
-def test_defaults_carry_the_design_thresholds():
+def test_defaults_carry_the_published_thresholds():
     s = load_settings()
     # Bradley et al. 2009 / Di Salvo et al. 2009 bands, Akenhead et al. 2013 accel band
     assert (s.speed.hsr_ms, s.speed.sprint_ms) == (5.5, 7.0)

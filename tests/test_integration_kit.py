@@ -13,7 +13,6 @@ import csv
 import io
 import json
 import time
-from pathlib import Path
 from urllib.parse import parse_qs, urlsplit
 
 import httpx
@@ -23,16 +22,17 @@ import orjson
 import pytest
 import websockets
 
-import cdf_build as cb
-from live_server import LiveServer
 from pacewire.analyze import analyze_folder
 from pacewire.client import SubscriptionError, run_until, subscribe, subscribe_sync
 from pacewire.reports.export import FIGURE_COLUMNS
 from pacewire.wire.schema import json_schemas, strict
+from tests.support import cdf_build as cb
+from tests.support.live_server import LiveServer
+from tests.support.paths import ROOT, TEST_DATA
+from tests.support.sockets import recv
+from tests.support.trajectories import FPS, sway
 
-ROOT = Path(__file__).resolve().parent.parent
-ASYNCAPI_SCHEMA = Path(__file__).parent / "data" / "asyncapi-3.0.0.schema.json"
-FPS = 25
+ASYNCAPI_SCHEMA = TEST_DATA / "asyncapi-3.0.0.schema.json"
 N_HOME, N_AWAY = 4, 3
 IDS = cb.player_ids(N_HOME, N_AWAY)
 MATCH = "m_kit"
@@ -44,14 +44,9 @@ AUTH = {"Authorization": f"Bearer {VIEW}"}
 def trajectory(seconds: float, seed: int = 4) -> np.ndarray:
     """Fictional players running loops at up to ~8 m/s, so HSR and sprints occur."""
     rng = np.random.default_rng(seed)
-    T = int(seconds * FPS)
-    t = np.arange(T) / FPS
-    xy = np.zeros((T, len(IDS), 2))
-    for p in range(len(IDS)):
-        r, w = rng.uniform(8, 14), rng.uniform(0.35, 0.6)
-        xy[:, p, 0] = r * np.sin(w * t + p) + 4 * p - 12
-        xy[:, p, 1] = r * np.cos(w * t + p) * 0.8
-    return xy
+    n = len(IDS)
+    r, w = np.array([(rng.uniform(8, 14), rng.uniform(0.35, 0.6)) for _ in range(n)]).T  # radius m, rad/s
+    return sway(seconds, n, np.c_[r, 0.8 * r], np.c_[w, w], centre=np.c_[4.0 * np.arange(n) - 12, np.zeros(n)])
 
 
 def make_frames(seconds: float = SECONDS) -> list[dict]:
@@ -65,10 +60,6 @@ def validator(schema: dict) -> jsonschema.Draft202012Validator:
 
 def problems(schema: dict, msg: dict) -> list[str]:
     return [f"{'/'.join(map(str, e.absolute_path))}: {e.message[:200]}" for e in validator(schema).iter_errors(msg)]
-
-
-async def recv(ws, timeout: float = 10.0) -> dict:
-    return orjson.loads(await asyncio.wait_for(ws.recv(), timeout))
 
 
 # -- the scenario ----------------------------------------------------------------------------------------

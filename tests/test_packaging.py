@@ -12,9 +12,8 @@ from pathlib import Path
 import httpx
 import pytest
 
-from live_server import free_port
-
-ROOT = Path(__file__).resolve().parent.parent
+from tests.support.live_server import free_port
+from tests.support.paths import DEMO_CLIP, ROOT
 
 
 
@@ -61,7 +60,7 @@ def test_import_version_and_module_entry(venv: Path, tmp_path: Path):
 
 
 def test_analyze_from_another_folder_gives_the_checkout_figures(venv: Path, tmp_path: Path):
-    clip = ROOT / "demo_feeds" / "clip"
+    clip = DEMO_CLIP
     installed = json.loads(run(venv / "bin" / "pacewire", "analyze", clip, "--json", cwd=tmp_path).stdout)
     here = json.loads(run(sys.executable, "-m", "pacewire", "analyze", clip, "--json", cwd=tmp_path).stdout)
     assert installed["type"] == "snapshot" and len(installed["players"]) >= 22

@@ -29,7 +29,6 @@ import pytest
 from hypothesis import given, settings as hsettings, strategies as st
 from scipy.integrate import cumulative_trapezoid
 
-import cdf_build as cb
 from pacewire.replay import kloppy_cdf as kc
 from pacewire.analyze import new_match
 from pacewire.config import load_settings
@@ -37,8 +36,8 @@ from pacewire.engine.exertion import metabolic_power, minetti_cost
 from pacewire.engine.kinematics import Track
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.wire.cdf import SetupError
-
-FPS = 25
+from tests.support import cdf_build as cb
+from tests.support.trajectories import FPS, round_circle
 OSGNACH = {"metabolic": {"model": "osgnach2010"}}
 DIPRAMPERO = {"metabolic": {"model": "diprampero2018"}}
 
@@ -66,8 +65,7 @@ def track_kinematics(xy: np.ndarray, state) -> tuple[np.ndarray, np.ndarray]:
 def circle_run(seconds: float, speed: float = 5.0, radius: float = 30.0) -> np.ndarray:
     """Constant speed around a circle (flat, no tangential acceleration); (T, 1, 2), metres."""
     t = np.arange(int(round(seconds * FPS)) + 1) / FPS
-    a = speed * t / radius
-    return np.stack([radius * np.cos(a), radius * np.sin(a)], -1)[:, None, :]
+    return round_circle(speed * t, radius)[:, None, :]
 
 
 def speed_profile(t: np.ndarray, phase: float = 0.0) -> np.ndarray:
@@ -124,7 +122,7 @@ def test_flat_running_cost_is_minetti_times_terrain_constant():
 def test_constant_5ms_osgnach2010():
     snap, state = analyse(circle_run(180.0), OSGNACH)
     p = snap["players"]["h1"]
-    # geometry: 5 m/s for 3 min = 300 m/min, 900 m (within 0.5%, the brief)
+    # geometry: 5 m/s for 3 min = 300 m/min, 900 m (within 0.5%, pacewire's accuracy target)
     assert p["m_per_min"] == pytest.approx(300.0, rel=0.005)
     assert p["distance_m"] == pytest.approx(900.0, rel=0.005)
     # Osgnach et al. 2010: P = C v = 4.644 J/kg/m x 5 m/s = 23.22 W/kg
@@ -144,7 +142,7 @@ def test_constant_5ms_diprampero2018_and_floodlight():
     # di Prampero & Osgnach 2018 with the Minetti & Pavei 2018 cost: 19.197 W/kg at 5 m/s on the flat
     assert float(metabolic_power(np.array(5.0), np.array(0.0), state.params.exertion)) == pytest.approx(19.197, abs=0.001)
     assert snap["players"]["h1"]["metabolic_power_wkg"] == pytest.approx(19.197, abs=0.05)
-    # floodlight 1.2.0 MetabolicPowerModel on the same trajectory: 19.19727 W/kg (NOTES.md);
+    # floodlight 1.2.0 MetabolicPowerModel on the same trajectory gives 19.19727 W/kg;
     # interior samples only (its first and last samples are one-sided differences)
     fl = floodlight_power(xy)[2:-2, 0]
     assert fl.mean() == pytest.approx(19.19727, abs=0.001)
@@ -210,7 +208,7 @@ def test_distance_and_mean_power_against_floodlight():
     fl_power = floodlight_power(xy).mean(axis=0)
     for k, pid in enumerate(cb.player_ids(4, 0)):
         p = snap["players"][pid]
-        # floodlight 1.2.0 DistanceModel on the same path: within 1% (the brief)
+        # floodlight 1.2.0 DistanceModel on the same path: within 1% (pacewire's accuracy target)
         assert p["distance_m"] == pytest.approx(fl_dist[k], rel=0.01)
         # geometry: the integral of the true speed (trapezoid)
         assert p["distance_m"] == pytest.approx(np.trapezoid(runs[k][1], dx=1 / FPS), rel=0.005)
@@ -254,7 +252,7 @@ def test_validator_is_a_live_oracle():
     for bad in (bad_x, no_ball):
         with pytest.raises(jsonschema.ValidationError):
             validate(cdf.TrackingSchemaValidator, bad)
-    # pacewire's live meta lacks the rosters the validator requires (DESIGN §3 live subset)
+    # pacewire's live meta lacks the rosters the validator requires (the live setup reads them from the sheet)
     with pytest.raises(jsonschema.ValidationError):
         validate(cdf.MetaSchemaValidator, cb.meta())
 
@@ -404,7 +402,7 @@ def hawkeye():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # "Could not determine orientation": irrelevant to load figures
         dataset = loader.load(ball_feeds=ball, player_centroid_feeds=centroids)  # kloppy's own tests load it so
-    assert dataset.metadata.coordinate_system.normalized  # kloppy's default: 0-1, top-left (NOTES.md)
+    assert dataset.metadata.coordinate_system.normalized  # kloppy's default: 0-1, top-left (kloppy's documentation)
     metric = kc.to_cdf_coordinates(dataset)
     meta, sheet = kc.meta(metric), kc.sheet(metric)
     frames = list(kc.frames(metric))
@@ -481,14 +479,14 @@ def test_kloppy_sample_against_provider_figures(hawkeye, record_property):
     record_property("kloppy_reference", summary)
     assert len(d_rel) == 22  # the sample has all 22 players throughout (kloppy's test_hawkeye)
 
-    # Distance: the brief starts from 5%; the provider integrates a 0.02 s difference of its own
+    # Distance: a 5% tolerance is the usual starting point; the provider integrates a 0.02 s difference of its own
     # smoothed track, pacewire a 1 s Savitzky-Golay fit of the same track, so the two differ only by
     # the jitter the fit removes (measured <= 0.8%, goalkeepers walking most). 2% per player, 1% total.
     assert np.all(np.abs(d_rel) < 0.02)
     assert tot_e == pytest.approx(tot_p, rel=0.01)
 
     # Max speed: the provider's per-sample speed is that 0.02 s difference; pacewire's 1 s centred
-    # window (DESIGN §4, common practice) averages over a brief peak, so it reads lower, by more the
+    # window (config/default.toml, common practice) averages over a brief peak, so it reads lower, by more the
     # shorter the peak (measured -1.5% to -7%, worst on peaks lasting ~0.2 s). Allowed: down to
     # -10% (or -0.3 m/s for a slow goalkeeper) and never more than 2% above (smoothing cannot raise a
     # peak; 2% for position noise); the mean shortfall under 6%.

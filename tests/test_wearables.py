@@ -14,71 +14,23 @@ import jsonschema
 import numpy as np
 import orjson
 import pytest
-import websockets
 
-import cdf_build as cb
-from live_server import LiveServer
 from pacewire.analyze import analyze_folder, new_match
 from pacewire.config import load_settings
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.wire.cdf import SetupError, parse_setup
-from pacewire.wire.gnss import PitchProjection, rectangle
 from pacewire.wire.heart import HrDecoder
 from pacewire.wire.schema import json_schemas, strict
-
-FPS = 25
-# A fictional ground: open sea west of nowhere, chosen so that it is no real venue.
-GROUND = (47.5, -30.0, 105.0, 68.0, 23.0)  # centre lat, long, length m, width m, bearing of +x, degrees
-PROFILES = {"h1": (190.0, 50.0, "male"), "h2": (200.0, 45.0, "female"), "h3": (185.0, None, None)}
-
-
-def calibration() -> dict:
-    return rectangle(*GROUND).model_dump(exclude_none=True)
-
-
-def wearable_meta(match_id: str = "m_test", gnss: bool = True) -> dict:
-    m = cb.meta(match_id)
-    if gnss:
-        m["venue"] = {"id": "v_fict", "gnss_pitch": calibration()}
-    return m
-
-
-def wearable_sheet(n_home: int) -> dict:
-    """One tracked team (home); the away team has no players. h3 lacks hr_rest_bpm and sex."""
-    sheet = cb.sheet(n_home, 0, gk=())
-    for p in sheet["teams"]["home"]["players"]:
-        hr_max, hr_rest, sex = PROFILES.get(p["id"], (None, None, None))
-        p.update({k: v for k, v in (("hr_max_bpm", hr_max), ("hr_rest_bpm", hr_rest), ("sex", sex)) if v is not None})
-    return sheet
-
-
-def one_team_frames(xy: np.ndarray, gnss: bool, match_id: str = "m_test", period: str = "first_half",
-                    t0: float = 0.0, frame0: int = 0) -> list[dict]:
-    """CDF frames of the home team only, without a ball; with ``gnss`` every player carries
-    lat/long only (no x/y)."""
-    ids = cb.player_ids(xy.shape[1], 0)
-    frames = cb.frames(xy, ids, xy.shape[1], match_id=match_id, period=period, t0=t0, frame0=frame0)
-    proj = PitchProjection.from_calibration(rectangle(*GROUND)) if gnss else None
-    for f, pos in zip(frames, xy):
-        del f["ball"]
-        if proj is None:
-            continue
-        seen = [j for j in range(pos.shape[0]) if not np.isnan(pos[j, 0])]
-        lat, lon = proj.to_gnss(pos[seen, 0], pos[seen, 1])
-        f["teams"]["home"]["players"] = [{"id": ids[j], "lat": float(a), "long": float(b)}
-                                         for j, a, b in zip(seen, np.atleast_1d(lat), np.atleast_1d(lon))]
-    return frames
-
-
-def hr_samples(pid: str, bpm: np.ndarray, t0: float = 0.0, hz: float = 1.0) -> list[dict]:
-    return [{"player_id": pid, "timestamp": cb.stamp(t0 + k / hz), "bpm": float(b)} for k, b in enumerate(bpm)]
+from tests.support import cdf_build as cb
+from tests.support.trajectories import FPS, distance, speeds
+from tests.support.wearables import (calibration, hr_figures, hr_samples, jog, one_team_frames, send_hr, wearable_meta,
+                                     wearable_sheet)
 
 
 def touchline_run(seconds: float) -> np.ndarray:
     """One player running along a touchline (y = -33 m) with a sprint, a stop and a jog (common practice shapes)."""
-    v = np.concatenate([np.full(10 * FPS, 4.0), np.full(4 * FPS, 8.0), np.full(6 * FPS, 0.5),
-                        np.full(int((seconds - 20) * FPS), 3.0)])
-    x = -50.0 + np.concatenate([[0.0], np.cumsum(v)[:-1] / FPS])
+    v = speeds([(4.0, 10), (8.0, 4), (0.5, 6), (3.0, seconds - 20)])
+    x = -50.0 + distance(v)[:-1]
     x = 50.0 - np.abs((x + 50.0) % 200.0 - 100.0)  # turn at the far line
     xy = np.zeros((len(x), 1, 2))
     xy[:, 0, 0], xy[:, 0, 1] = x, -33.0
@@ -110,7 +62,7 @@ def test_run_along_a_touchline_in_gnss_gives_the_figures_of_the_run_in_metres():
     xy = touchline_run(60)
     by_gnss = analyse(one_team_frames(xy, gnss=True))["players"]["h1"]
     by_xy = analyse(one_team_frames(xy, gnss=False), gnss=False)["players"]["h1"]
-    # the projection round-trips within 1 mm (tests/test_gnss.py, Karney 2013 geodesics): figures agree
+    # the projection round-trips within 1 mm (tests/wire/test_gnss.py, Karney 2013 geodesics): figures agree
     for key in ("distance_m", "hsr_m", "sprint_m", "energy_jkg"):
         assert by_gnss[key] == pytest.approx(by_xy[key], abs=0.2), key
     for key in ("sprints", "hsr_efforts", "accels", "decels", "minutes"):
@@ -185,18 +137,9 @@ def test_one_team_feed_has_no_opponent_figures_and_players_join_and_leave():
 
 
 # -- heart rate in the engine ------------------------------------------------------------------
-def _jog(seconds: int, n: int = 3) -> np.ndarray:
-    t = np.arange(seconds * FPS) / FPS
-    xy = np.zeros((len(t), n, 2))
-    for j in range(n):
-        xy[:, j, 0] = 30 * np.cos(t / 10 + j)  # 3 m/s on a 30 m circle
-        xy[:, j, 1] = 30 * np.sin(t / 10 + j)
-    return xy
-
-
 def test_heart_rate_worked_values_through_the_match():
     secs = 600
-    frames = one_team_frames(_jog(secs), gnss=True)
+    frames = one_team_frames(jog(secs), gnss=True)
     hr = hr_samples("h1", np.full(secs, 150.0)) + hr_samples("h3", np.full(secs, 150.0))
     hr.sort(key=lambda s: s["timestamp"])
     p = analyse(frames, hr, n_home=3)["players"]
@@ -226,8 +169,8 @@ def test_heart_rate_worked_values_through_the_match():
 
 
 def test_heart_rate_in_the_half_time_break_and_ahead_of_tracking_credits_nothing():
-    first = one_team_frames(_jog(60, 1), gnss=False)
-    second = one_team_frames(_jog(60, 1), gnss=False, period="second_half", t0=900.0, frame0=len(first))
+    first = one_team_frames(jog(60, 1), gnss=False)
+    second = one_team_frames(jog(60, 1), gnss=False, period="second_half", t0=900.0, frame0=len(first))
     # 1 Hz from kick-off to 30 s after the second half's tracking ended
     hr = hr_samples("h1", np.full(990, 120.0))
     snap = analyse(first + second, hr, gnss=False)
@@ -244,7 +187,7 @@ def test_heart_rate_in_the_half_time_break_and_ahead_of_tracking_credits_nothing
 @pytest.mark.parametrize("chunks,hr_first", [([1] * 250 + [1250], True), ([250] * 6, False), ([7, 600, 893], True)])
 def test_heart_rate_figures_do_not_depend_on_arrival_order_or_blocks(chunks, hr_first):
     secs = 60
-    frames = one_team_frames(_jog(secs), gnss=False)
+    frames = one_team_frames(jog(secs), gnss=False)
     rng = np.random.default_rng(3)
     hr = []
     for pid in ("h1", "h2", "h3"):
@@ -256,38 +199,10 @@ def test_heart_rate_figures_do_not_depend_on_arrival_order_or_blocks(chunks, hr_
 
 
 # -- live --------------------------------------------------------------------------------------
-@pytest.fixture
-def server(tmp_path):
-    srv = LiveServer(tmp_path / "data").start()
-    yield srv
-    srv.stop()
-
-
-async def _send_ws(url: str, messages: list[bytes]) -> list[dict]:
-    """Send messages on one provider socket; return the error messages that came back."""
-    errors = []
-    async with websockets.connect(url) as ws:
-        for m in messages:
-            await ws.send(m.decode())
-        await ws.send(orjson.dumps({"player_id": "nobody", "timestamp": cb.stamp(0), "bpm": 60}).decode())
-        for _ in range(100):  # bounded: every refusal is answered before the marker's
-            msg = orjson.loads(await asyncio.wait_for(ws.recv(), 10))
-            errors.append(msg)
-            if msg.get("code") == "unknown_player" and "nobody" in msg.get("message", ""):
-                break
-    return errors
-
-
-def _figures(snap: dict) -> dict:
-    keep = ("distance_m", "hsr_m", "sprints", "minutes", "hr_mean_bpm", "hr_zones", "trimp_edwards",
-            "trimp_banister", "hr_peak_bpm", "hr_omitted", "periods")
-    return {pid: {k: p.get(k) for k in keep} for pid, p in snap["players"].items()}
-
-
 def test_live_wearable_match_equals_analyze_and_survives_a_restart(server, tmp_path):
     secs = 90
     mid = "m_wear"
-    frames = one_team_frames(_jog(secs), gnss=True, match_id=mid)
+    frames = one_team_frames(jog(secs), gnss=True, match_id=mid)
     rng = np.random.default_rng(5)
     hr = []
     for pid in ("h1", "h2", "h3"):
@@ -309,7 +224,7 @@ def test_live_wearable_match_equals_analyze_and_survives_a_restart(server, tmp_p
     assert [e["code"] for e in body["errors"]] == ["implausible_bpm", "hr_jump", "duplicate", "bad_timestamp"]
     r = httpx.post(f"{http}/api/matches/{mid}/frames", content=b"\n".join(cb.lines(frames)))
     assert r.json()["accepted"] == len(frames)
-    errs = asyncio.run(_send_ws(f"{server.ws}/ingest/{mid}/hr",
+    errs = asyncio.run(send_hr(f"{server.ws}/ingest/{mid}/hr",
                                 [orjson.dumps(late[i:i + 7]) for i in range(0, len(late), 7)] + [b"{not json"]))
     assert [e["code"] for e in errs] == ["bad_json", "unknown_player"]
     snap = None
@@ -326,16 +241,16 @@ def test_live_wearable_match_equals_analyze_and_survives_a_restart(server, tmp_p
     folder = server.data / "matches" / mid
     assert sum(1 for _ in open(folder / "hr.jsonl", "rb")) == len(hr)  # every accepted sample recorded
     offline = analyze_folder(folder).snapshot()
-    live = _figures(snap)
+    live = hr_figures(snap)
     assert snap["health"]["state"] == "stalled", snap["health"]
-    assert live == _figures(offline)
+    assert live == hr_figures(offline)
     assert snap["teams"][cb.AWAY]["tracked"] is False and "outfield" not in snap["teams"][cb.AWAY]
     # kill -9 and restart: recovery rebuilds the same figures and counters
     server.kill9()
     server.start()
     again = httpx.get(f"{http}/api/matches/{mid}/snapshot").json()
     # the restart finalises nothing new: compare what was final before (analyze's figures)
-    assert _figures(again)["h1"]["hr_zones"] == live["h1"]["hr_zones"]
+    assert hr_figures(again)["h1"]["hr_zones"] == live["h1"]["hr_zones"]
     assert again["players"]["h2"]["trimp_edwards"] == live["h2"]["trimp_edwards"]
 
 

@@ -5,12 +5,12 @@ substitutes per side never seen), 25 Hz, smooth synthetic movement at
 realistic speeds, built in memory with numpy. The engine is fed decoded
 blocks of one second (the live shape of the data, minus JSON); the numpy
 pass computes the same figures over the whole arrays at once; floodlight
-does its batch filter + kinematics + metabolic power. Design targets
-(DESIGN / brief): engine <= 2x the numpy pass and <= 1/3 of floodlight.
+does its batch filter + kinematics + metabolic power. pacewire's targets:
+engine <= 2x the numpy pass and <= 1/3 of floodlight (README, "Performance").
 ``engine_us_per_frame_single``: a frame fed on its own (one frame per WebSocket
 message), over a shorter match of the same kind.
 
-    python tests/bench/bench_engine.py [--quick] [--profile]
+    python -m tests.bench.bench_engine [--quick] [--profile]
 """
 from __future__ import annotations
 
@@ -18,7 +18,6 @@ import os
 import sys
 import time
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Callable
 
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
@@ -26,11 +25,6 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 
 import numpy as np  # noqa: E402
 
-_TESTS = Path(__file__).resolve().parents[1]
-if str(_TESTS) not in sys.path:
-    sys.path.insert(0, str(_TESTS))  # cdf_build
-
-import cdf_build as cb  # noqa: E402
 from pacewire.config import Settings, load_settings  # noqa: E402
 from pacewire.engine.exertion import G, minetti_cost  # noqa: E402
 from pacewire.engine.match import MatchState  # noqa: E402
@@ -38,6 +32,7 @@ from pacewire.engine.snapshot import build_snapshot  # noqa: E402
 from pacewire.engine.types import BALL_IN, PERIOD_INDEX, Block  # noqa: E402
 from pacewire.params import match_params  # noqa: E402
 from pacewire.wire.cdf import DecodeResult, FrameDecoder, parse_setup  # noqa: E402
+from tests.support import cdf_build as cb  # noqa: E402
 
 FPS = 25
 N_SIDE, N_BENCH = 11, 7  # per team: on the pitch, on the bench (never seen)
@@ -215,7 +210,7 @@ def floodlight_pass(arrays: list[np.ndarray]) -> list[object]:
 
     out = []
     for arr in arrays:
-        xy = butterworth_lowpass(XY(xy=arr, framerate=FPS), order=3, Wn=1)  # Wn in Hz (NOTES.md)
+        xy = butterworth_lowpass(XY(xy=arr, framerate=FPS), order=3, Wn=1)  # Wn in Hz (floodlight 1.2.0)
         models = (DistanceModel(), VelocityModel(), AccelerationModel(), MetabolicPowerModel())
         for model in models:
             model.fit(xy, difference="central")

@@ -1,4 +1,4 @@
-"""Cost of GNSS-to-pitch conversion per fix (service/wire/gnss.py; issue 10).
+"""Cost of GNSS-to-pitch conversion per fix (service/wire/gnss.py; docs/wearables.md).
 
 22 players' fixes per frame at 25 Hz over 5 minutes (quick) or a 95-minute match
 (full), on a fictional 105 x 68 m ground (lat 47.5, long -30.0, bearing 23°).
@@ -13,7 +13,7 @@ Baseline, same run and same call pattern: plain numpy rotate + translate of the
 frame's (or block's) x/y arrays, the part of the conversion that is not geodesy.
 ``ratio`` = to_pitch time / baseline time. Each timing is the best of 3.
 
-    python tests/bench/bench_gnss.py [--quick]
+    python -m tests.bench.bench_gnss [--quick]
 """
 from __future__ import annotations
 
@@ -21,17 +21,12 @@ import math
 import os
 import sys
 import time
-from pathlib import Path
 from typing import Callable
 
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")  # one-core figures (before numpy loads)
 
 import numpy as np  # noqa: E402
-
-_ROOT = Path(__file__).resolve().parents[2]
-if str(_ROOT) not in sys.path:
-    sys.path.insert(0, str(_ROOT))
 
 from pacewire.wire.gnss import PitchProjection, rectangle  # noqa: E402
 

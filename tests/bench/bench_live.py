@@ -1,4 +1,4 @@
-"""Live latency and fan-out of a real ``pacewire serve`` process on loopback (issue 3).
+"""Live latency and fan-out of a real ``pacewire serve`` process on loopback.
 
 What is timed: a provider process streams one fictional match (22 players on
 the pitch + 14 substitutes never seen, smooth synthetic movement from
@@ -34,7 +34,7 @@ decode, no engine, no per-subscriber queue), every frame, or every 25th for
 fan-out. ``ratio`` = value / baseline. ``live_match_rss_mb``: the server's
 VmRSS after the 100-subscriber case, against its VmRSS just after start.
 
-    python tests/bench/bench_live.py [--quick] [--profile]
+    python -m tests.bench.bench_live [--quick] [--profile]
 
 ``--profile`` runs the pacewire cases alone with ``py-spy record`` on the server during
 each window (``pip install py-spy`` into the venv) and prints its hotspots.
@@ -61,14 +61,9 @@ from typing import Callable
 
 import numpy as np
 
-_HERE = Path(__file__).resolve().parent
-for _p in (_HERE, _HERE.parent):  # bench_engine; cdf_build and live_server
-    if str(_p) not in sys.path:
-        sys.path.insert(0, str(_p))
-
-import cdf_build as cb  # noqa: E402
-from bench_engine import N_BENCH, N_SIDE, synth_match  # noqa: E402
-from live_server import LiveServer  # noqa: E402
+from tests.bench.bench_engine import N_BENCH, N_SIDE, synth_match
+from tests.support import cdf_build as cb
+from tests.support.live_server import LiveServer
 
 FPS = 25
 MATCH = "m_live_bench"
@@ -391,7 +386,7 @@ class _Record:
 def _client_main(url: str, n: int, field_name: str, wait_first: bool, resume: bool, conn: Connection) -> None:
     """Hold ``n`` subscriber sockets on ``url``; record each delta/snapshot (or, from the baseline,
     each forwarded frame) until told to stop; send the records back. ``resume``: only the first
-    socket opens with a snapshot, the others with ``since=`` its latest seq (DESIGN §3: no opening
+    socket opens with a snapshot, the others with ``since=`` its latest seq (a resume gets no opening
     snapshot), which connects 1000 subscribers in a fraction of the time."""
     _nice()
     _uvloop()
@@ -715,7 +710,7 @@ def measure(plan: list[Case], lines: list[bytes], tmp: Path, baseline: bool = Tr
     """Each case against the baseline server, then against pacewire, one after the other, so that
     both see the same load from the rest of the machine. Both feeds run all along."""
     import httpx
-    from live_server import free_port
+    from tests.support.live_server import free_port
 
     port = free_port()
     started = CTX.Event()

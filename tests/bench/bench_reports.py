@@ -1,4 +1,4 @@
-"""Time from the full-time whistle to the full-time report being listed (issue 6: target <= 10 s).
+"""Time from the full-time whistle to the full-time report being listed (pacewire's target: <= 10 s).
 
 A fictional 95-minute match at 25 Hz (bench_engine.synth_match: 22 players on
 the pitch, 14 substitutes never seen; ball in play, possession alternating
@@ -15,7 +15,7 @@ recording run through the engine in this process (its snapshot cache cleared
 before each call; best of 3). ``ratio`` = report_ready_s / snapshot_s.
 ``report_build_s`` is the builder's own time as the report's index says.
 
-    python tests/bench/bench_reports.py [--quick]
+    python -m tests.bench.bench_reports [--quick]
 """
 from __future__ import annotations
 
@@ -31,14 +31,9 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 import httpx  # noqa: E402
 import numpy as np  # noqa: E402
 
-_HERE = Path(__file__).resolve().parent
-for _p in (_HERE, _HERE.parent):  # bench_engine; cdf_build and live_server
-    if str(_p) not in sys.path:
-        sys.path.insert(0, str(_p))
-
-import cdf_build as cb  # noqa: E402
-from bench_engine import HALF_BREAK_S, N_BENCH, N_SIDE, synth_match  # noqa: E402
-from live_server import LiveServer  # noqa: E402
+from tests.bench.bench_engine import HALF_BREAK_S, N_BENCH, N_SIDE, synth_match  # noqa: E402
+from tests.support import cdf_build as cb  # noqa: E402
+from tests.support.live_server import LiveServer  # noqa: E402
 
 FPS = 25
 MATCH = "m_report_bench"

@@ -1,4 +1,4 @@
-"""Scale-out over Redis on this machine (issue 7): 1 ingest + 1 aggregator + 2 gateways.
+"""Scale-out over Redis on this machine: 1 ingest + 1 aggregator + 2 gateways.
 
 N fictional matches (bench_live's 22-player synthetic match, one copy per
 match id) stream at 25 Hz real time, one CDF frame per message, from one
@@ -10,7 +10,7 @@ frame: its latency is the delivery latency of a frame) and the rest at
 clock for every process here), so it is end to end: provider → ingest → Redis
 Stream → aggregator → Redis pub/sub → gateway → socket.
 
-Full mode is the issue's set-up: 1, 5, 10 and 20 matches, 500 subscribers
+Full mode is the league set-up: 1, 5, 10 and 20 matches, 500 subscribers
 over the two gateways in every step, fresh processes and a fresh Redis per
 step. Quick mode (``make bench QUICK=1``) does 1 and 4 matches with 40
 subscribers in about 25 s.
@@ -29,7 +29,7 @@ fixed + per_match × matches, over the steps that kept up with an aggregator
 that had slack (running plus waiting below 0.9 of a core): a saturated one
 trades deltas for throughput, so its CPU no longer measures what a match costs.
 
-    python tests/bench/bench_scale.py [--quick]
+    python -m tests.bench.bench_scale [--quick]
 """
 from __future__ import annotations
 
@@ -43,21 +43,15 @@ from pathlib import Path
 
 import numpy as np
 
-_HERE = Path(__file__).resolve().parent
-for _p in (_HERE, _HERE.parent):
-    if str(_p) not in sys.path:
-        sys.path.insert(0, str(_p))
-
-from bench_live import FPS, MATCH, feed_lines, setup_body  # noqa: E402
-from live_server import LiveServer  # noqa: E402
-from redis_server import RedisServer, redis_available  # noqa: E402
-
-from pacewire.scale import keys  # noqa: E402
-from pacewire.scale.aggregator import GROUP  # noqa: E402
+from pacewire.scale import keys
+from pacewire.scale.aggregator import GROUP
+from tests.bench.bench_live import FPS, MATCH, feed_lines, setup_body
+from tests.support.live_server import LiveServer
+from tests.support.redis_server import RedisServer, redis_available
 
 CTX = mp.get_context("fork")  # load generators start at once and inherit the prebuilt frames
 CLK = os.sysconf("SC_CLK_TCK")
-# (matches per step, subscribers, warm-up s, window s); the issue's set-up in full mode
+# (matches per step, subscribers, warm-up s, window s); the league set-up in full mode
 FULL = ((1, 5, 10, 20), 500, 6.0, 20.0)
 QUICK = ((1, 4), 40, 1.5, 5.0)
 KEPT_UP = 0.95  # a step kept up when it read this share of the offered frames (common practice: 5 % slack)

@@ -1,4 +1,4 @@
-"""Soak: a whole synthetic match replayed at 10x into one real server with 200 subscribers (issue 9).
+"""Soak: a whole synthetic match replayed at 10x into one real server with 200 subscribers.
 
 The match is ``pacewire synth --out TMP --minutes M`` (replay/synth.py: the
 fictional 95-minute demo match, feed faults on: a 20 s outage, dropouts,
@@ -32,7 +32,7 @@ over the folder the server recorded: every player figure but ``on_pitch``
 Full: the 95-minute match (about 10 wall minutes). Quick (``make bench
 QUICK=1``): 1 minute of match, the same 200 subscribers, about 15 s.
 
-    python tests/bench/bench_soak.py [--quick]
+    python -m tests.bench.bench_soak [--quick]
 """
 from __future__ import annotations
 
@@ -54,13 +54,10 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 import httpx  # noqa: E402
 import orjson  # noqa: E402
 
-_HERE = Path(__file__).resolve().parent
-ROOT = _HERE.parents[1]
-for _p in (_HERE.parent, ROOT):  # live_server; the service package
-    if str(_p) not in sys.path:
-        sys.path.insert(0, str(_p))
+from tests.support.live_server import LiveServer  # noqa: E402
+from tests.support.paths import ROOT  # noqa: E402
 
-from live_server import LiveServer  # noqa: E402
+_HERE = Path(__file__).resolve().parent
 
 MATCH = "soak"
 SPEED = 10

@@ -1,4 +1,4 @@
-"""Wearable feeds against the plain x/y run (issue 10): GNSS fixes and heart rate, same match.
+"""Wearable feeds against the plain x/y run (docs/wearables.md): GNSS fixes and heart rate, same match.
 
 One tracked team of 11 (fictional; the other team empty, no ball), 25 Hz, the
 smooth synthetic movement of ``bench_engine.synth_match``; 10 minutes in quick
@@ -14,13 +14,12 @@ blocks, as ``pacewire analyze`` does, and ends with one snapshot:
 
 Each timing is the best of 3. ``ratio`` = run time / baseline time.
 
-    python tests/bench/bench_wearables.py [--quick]
+    python -m tests.bench.bench_wearables [--quick]
 """
 from __future__ import annotations
 
 import os
 import sys
-from pathlib import Path
 
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")  # one-core figures (before numpy loads)
@@ -28,18 +27,13 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 import numpy as np  # noqa: E402
 import orjson  # noqa: E402
 
-_HERE = Path(__file__).resolve().parent
-for _p in (_HERE, _HERE.parent, _HERE.parents[1]):
-    if str(_p) not in sys.path:
-        sys.path.insert(0, str(_p))
-
-import cdf_build as cb  # noqa: E402
-from bench_engine import best_of, synth_match  # noqa: E402
 from pacewire.analyze import new_match  # noqa: E402
 from pacewire.config import load_settings  # noqa: E402
 from pacewire.engine.snapshot import build_snapshot  # noqa: E402
 from pacewire.wire.gnss import PitchProjection, rectangle  # noqa: E402
 from pacewire.wire.heart import HrDecoder  # noqa: E402
+from tests.bench.bench_engine import best_of, synth_match  # noqa: E402
+from tests.support import cdf_build as cb  # noqa: E402
 
 FPS = 25
 N_TEAM = 11

@@ -3,15 +3,19 @@
 Each module exposes ``run(quick: bool) -> dict[str, dict]`` whose entries are
 ``{"value": number, "unit": str, "baseline": number | None, "ratio": number | None}``.
 
-    python tests/bench/run.py [--quick] [--only NAME ...]
+    python -m tests.bench.run [--quick] [--only NAME ...]    (from the repository)
+
+The benchmarks import the tests' helpers as ``tests.support``, so they run as modules of the
+``tests`` package; ``python tests/bench/run.py`` hands over to that command.
 """
 from __future__ import annotations
 
 import argparse
-import importlib.util
+import importlib
 import json
 import os
 import platform
+import subprocess
 import sys
 import time
 import traceback
@@ -35,12 +39,7 @@ def discover(only: list[str] | None = None) -> list[Path]:
 
 
 def load(path: Path):
-    spec = importlib.util.spec_from_file_location(path.stem, path)
-    module = importlib.util.module_from_spec(spec)
-    assert spec.loader is not None
-    sys.modules[path.stem] = module  # dataclasses look their module up while it executes
-    spec.loader.exec_module(module)
-    return module
+    return importlib.import_module(f"tests.bench.{path.stem}")
 
 
 def check_entries(name: str, entries: object) -> dict[str, dict]:
@@ -80,9 +79,6 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--quick", action="store_true", help="short runs (under two minutes in all on 2 idle cores)")
     ap.add_argument("--only", nargs="*", help="module names to run (bench_engine or engine)")
     args = ap.parse_args(argv)
-    for p in (str(ROOT), str(HERE.parent)):  # the service package, and test helpers such as cdf_build
-        if p not in sys.path:
-            sys.path.insert(0, p)
 
     merged: dict[str, dict] = {}
     modules: dict[str, dict] = {}
@@ -128,4 +124,6 @@ def main(argv: list[str] | None = None) -> int:
 
 
 if __name__ == "__main__":
+    if not __package__:  # run as a file: hand over to the module (its package can import tests.support)
+        sys.exit(subprocess.call([sys.executable, "-m", "tests.bench.run", *sys.argv[1:]], cwd=ROOT))
     sys.exit(main())

@@ -1,0 +1,1 @@
+"""pacewire's tests: one folder per package of pacewire, shared helpers in tests.support."""

@@ -1,0 +1,1 @@
+"""Tests of pacewire.engine, the functional core."""

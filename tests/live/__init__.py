@@ -1,0 +1,1 @@
+"""Tests of pacewire.live: the single process, end to end."""

@@ -1,0 +1,1 @@
+"""Tests of pacewire.replay: replay, import and the synthetic match."""

@@ -1,0 +1,1 @@
+"""Tests of pacewire.reports: reports and alerts."""

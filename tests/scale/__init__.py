@@ -1,0 +1,1 @@
+"""Tests of pacewire.scale: the service as Redis roles."""

@@ -1,0 +1,1 @@
+"""Tests of pacewire.store: match history and baselines."""

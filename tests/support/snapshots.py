@@ -1,0 +1,20 @@
+"""Snapshots as the end-to-end tests compare them."""
+from __future__ import annotations
+
+import time
+from typing import Any
+
+import httpx
+
+from tests.support.live_server import LiveServer
+
+
+def player_figures(snap: dict[str, Any]) -> dict[str, Any]:
+    """Players' figures; on_pitch is live state (offline, the match is over and nobody is on)."""
+    return {pid: {k: v for k, v in p.items() if k != "on_pitch"} for pid, p in snap["players"].items()}
+
+
+def settled_snapshot(srv: LiveServer, match_id: str = "m_test") -> dict[str, Any]:
+    """The REST snapshot once the feed has stopped long enough to be stalled (the tail shown finalised)."""
+    time.sleep(2.8)
+    return httpx.get(f"{srv.http}/api/matches/{match_id}/snapshot", timeout=10).json()

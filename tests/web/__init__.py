@@ -1,0 +1,1 @@
+"""Tests of the bench page (pacewire/web) in a real browser."""

@@ -1,0 +1,1 @@
+"""Tests of pacewire.wire: the formats in and out."""
