@@ -9,8 +9,9 @@ from __future__ import annotations
 import argparse
 import sys
 import warnings
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 # format name → (kloppy module, loader, keyword for SOURCE, keyword for --meta or None)
 FORMATS: dict[str, tuple[str, str, str, str | None]] = {

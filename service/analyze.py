@@ -2,13 +2,13 @@
 from __future__ import annotations
 
 import sys
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 
-from pacewire.wire.recording import Recording, open_recording
 from pacewire.config import Settings, load_settings
 from pacewire.engine.match import CLOCK_START_MIN, MatchState
 from pacewire.engine.snapshot import build_snapshot
@@ -18,6 +18,7 @@ from pacewire.events import applies_by, apply_event
 from pacewire.params import match_params
 from pacewire.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
 from pacewire.wire.heart import HrDecoder
+from pacewire.wire.recording import Recording, open_recording
 
 
 @dataclass

@@ -30,7 +30,8 @@ from __future__ import annotations
 import asyncio
 import queue
 import threading
-from typing import Any, AsyncIterator, Callable, Iterator
+from collections.abc import AsyncIterator, Callable, Iterator
+from typing import Any
 from urllib.parse import urlencode, urlsplit, urlunsplit
 
 import orjson
@@ -105,7 +106,7 @@ class Subscription:
             await self._iter.aclose()
             self._iter = None
 
-    async def __aenter__(self) -> "Subscription":
+    async def __aenter__(self) -> Subscription:
         return self
 
     async def __aexit__(self, *exc: Any) -> None:
@@ -154,7 +155,7 @@ class Subscription:
                     raise
             except InvalidURI:
                 raise
-            except (OSError, asyncio.TimeoutError, InvalidHandshake):
+            except (TimeoutError, OSError, InvalidHandshake):
                 failures += 1
                 if self.max_attempts is not None and failures >= self.max_attempts:
                     raise
@@ -269,7 +270,7 @@ class SyncSubscription:
                 pass
         self._thread.join(10)
 
-    def __enter__(self) -> "SyncSubscription":
+    def __enter__(self) -> SyncSubscription:
         return self
 
     def __exit__(self, *exc: Any) -> None:

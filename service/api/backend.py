@@ -11,8 +11,9 @@ Errors: methods raise :class:`~pacewire.errors.PacewireError` subclasses whose
 """
 from __future__ import annotations
 
+from collections.abc import Awaitable, Callable
 from pathlib import Path
-from typing import Any, Awaitable, Callable, Protocol
+from typing import Any, Protocol
 
 from pacewire.api.requests import StreamParams
 from pacewire.engine.types import Roster

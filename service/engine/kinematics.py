@@ -67,7 +67,7 @@ class _Fit:
             self._band[n] = m
         return m
 
-    def __deepcopy__(self, memo: dict) -> "_Fit":
+    def __deepcopy__(self, memo: dict) -> _Fit:
         return self  # read-only: a copied track shares it
 
     def __reduce__(self) -> tuple:
@@ -105,7 +105,7 @@ class KinematicParams:
 
     @staticmethod
     def make(fps: int, window_s: float, order: int, bridge_s: float, max_step: float, tolerance: float,
-             still: float) -> "KinematicParams":
+             still: float) -> KinematicParams:
         w = max(int(round(window_s * fps)), order + 2)
         if w % 2 == 0:
             w += 1

@@ -226,7 +226,7 @@ class MatchState:
             for fin in cur.track.close():
                 self._apply(cur, fin)
 
-    def provisional(self) -> "MatchState":
+    def provisional(self) -> MatchState:
         """A copy with the tail finalised (one-sided fits), for showing a stalled
         feed's figures in full; this state itself is untouched, so frames that
         come later give exactly the figures an offline pass gives. The copy

@@ -89,7 +89,7 @@ class Block:
         return int(self.frame_id.shape[0])
 
     @staticmethod
-    def empty(n_players: int) -> "Block":
+    def empty(n_players: int) -> Block:
         return Block(
             frame_id=np.zeros(0, np.int64),
             t=np.zeros(0, np.float64),
@@ -100,11 +100,11 @@ class Block:
             poss=np.zeros(0, np.int8),
         )
 
-    def take(self, sel: slice | np.ndarray) -> "Block":
+    def take(self, sel: slice | np.ndarray) -> Block:
         return Block(*(getattr(self, f)[sel] for f in _FIELDS))
 
     @staticmethod
-    def concat(blocks: list["Block"]) -> "Block":
+    def concat(blocks: list[Block]) -> Block:
         return Block(*(np.concatenate([getattr(b, f) for b in blocks]) for f in _FIELDS))
 
 

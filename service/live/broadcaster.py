@@ -12,8 +12,9 @@ import logging
 import time
 import zlib
 from collections import deque
+from collections.abc import Awaitable, Callable
 from dataclasses import dataclass, field
-from typing import Any, Awaitable, Callable
+from typing import Any
 
 from pacewire.wire.messages import changed, dumps, envelope
 from pacewire.wire.view import View
@@ -41,7 +42,7 @@ class Subscriber:
         self.dropped = 0
         self.closed = False
         self.task: asyncio.Task | None = None
-        self.group: "Group | None" = None
+        self.group: Group | None = None
         self.idle = False  # its pump waits on an empty queue: the broadcaster writes to the socket itself
 
 

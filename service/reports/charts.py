@@ -11,7 +11,8 @@ from __future__ import annotations
 import io
 import re
 import threading
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 
@@ -62,7 +63,7 @@ def render(name: str, draw: Callable[[Any], None], size: tuple[float, float],
     return svg.replace("<svg ", f'<svg role="img" aria-label="{name}" class="chart" ', 1)
 
 
-def _cmap(colours: tuple[str, ...]):  # noqa: ANN202
+def _cmap(colours: tuple[str, ...]):
     from matplotlib.colors import LinearSegmentedColormap
 
     return LinearSegmentedColormap.from_list("pacewire", colours).with_extremes(bad=PAPER)

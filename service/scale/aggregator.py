@@ -87,7 +87,7 @@ return 1
 class _SinkQueue:
     """Looks like a subscriber's queue to the broadcaster; feeds the match's publish queue."""
 
-    def __init__(self, sink: "Sink", out: asyncio.Queue) -> None:
+    def __init__(self, sink: Sink, out: asyncio.Queue) -> None:
         self.sink, self.out = sink, out
 
     def qsize(self) -> int:
@@ -117,7 +117,7 @@ class Sink(Subscriber):
 class AggMatch:
     """One claimed match: a MatchRunner fed from the stream instead of from sockets."""
 
-    def __init__(self, agg: "Aggregator", match_id: str, runner: MatchRunner) -> None:
+    def __init__(self, agg: Aggregator, match_id: str, runner: MatchRunner) -> None:
         self.agg = agg
         self.redis = agg.redis
         self.match_id = match_id
@@ -428,7 +428,7 @@ def _restore_group(g: Group, msg: dict[str, Any]) -> None:
     g.meta = (msg["match_time_s"], msg["period"])
 
 
-def _fresh_runner(agg: "Aggregator", match_id: str, roster: Any) -> MatchRunner:
+def _fresh_runner(agg: Aggregator, match_id: str, roster: Any) -> MatchRunner:
     return MatchRunner(roster, agg.settings, agg.data_dir / "matches" / match_id, agg.hooks)
 
 

@@ -28,8 +28,8 @@ from pacewire.engine.types import Roster
 from pacewire.live.broadcaster import Subscriber
 from pacewire.scale import keys
 from pacewire.scale.settings import ScaleSettings
-from pacewire.wire.cdf import parse_setup
 from pacewire.tasks import cancel
+from pacewire.wire.cdf import parse_setup
 
 log = logging.getLogger("pacewire.scale.gateway")
 
@@ -53,7 +53,7 @@ class Client(Subscriber):
 class Feed:
     """One (match, view, cadence) stream mirrored from Redis."""
 
-    def __init__(self, gw: "Gateway", match_id: str, stream: str) -> None:
+    def __init__(self, gw: Gateway, match_id: str, stream: str) -> None:
         self.gw = gw
         self.match_id = match_id
         self.stream = stream

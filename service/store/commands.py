@@ -10,16 +10,16 @@ from pacewire.store import history
 from pacewire.store.record import match_record
 
 
-def db_path(data: str | Path, settings) -> Path:  # noqa: ANN001
+def db_path(data: str | Path, settings) -> Path:
     return Path(data) / settings.history.path
 
 
-def _import(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
-    from pacewire.wire.recording import RecordingError
+def _import(args: argparse.Namespace, settings) -> int:
     from pacewire.engine.blocks import block_series
     from pacewire.engine.snapshot import build_snapshot
     from pacewire.reports.offline import run_recording, source_of
     from pacewire.wire.cdf import SetupError
+    from pacewire.wire.recording import RecordingError
 
     try:
         state, rec, _ = run_recording(args.folder, settings, progress=not args.quiet)
@@ -38,7 +38,7 @@ def _import(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
     return 0
 
 
-def _list(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
+def _list(args: argparse.Namespace, settings) -> int:
     path = db_path(args.data, settings)
     if not path.exists():
         print(f"no history yet ({path})")

@@ -10,9 +10,10 @@ from __future__ import annotations
 
 import sqlite3
 import time
+from collections.abc import Iterable
 from contextlib import closing
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 from pacewire.errors import PacewireError
 from pacewire.reports.alerts import Band

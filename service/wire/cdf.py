@@ -9,17 +9,17 @@ from __future__ import annotations
 
 import math
 from collections import deque
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
+from datetime import datetime
 from itertools import chain
 from operator import itemgetter
-from datetime import datetime
-from typing import Any, Callable, Iterable, Literal, Sequence
+from typing import Any, Literal
 
 import numpy as np
 import orjson
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
-from pacewire.errors import PacewireError
 from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
 from pacewire.errors import PacewireError, describe_validation
 from pacewire.wire.gnss import CalibrationError, PitchProjection, check_venue, parse_calibration
@@ -94,7 +94,7 @@ class SheetPlayer(_Open):
     sex: Literal["male", "female"] | None = None
 
     @model_validator(mode="after")
-    def _rest_below_max(self) -> "SheetPlayer":
+    def _rest_below_max(self) -> SheetPlayer:
         if self.hr_max_bpm is not None and self.hr_rest_bpm is not None and self.hr_rest_bpm >= self.hr_max_bpm:
             raise ValueError(f"player {self.id!r}: hr_rest_bpm must be below hr_max_bpm")
         return self
@@ -324,7 +324,7 @@ class DecodeResult:
     accepted: list[int] = field(default_factory=list)  # input positions of the accepted frames
 
     @staticmethod
-    def merge(results: list["DecodeResult"]) -> "DecodeResult":
+    def merge(results: list[DecodeResult]) -> DecodeResult:
         if len(results) == 1:
             return results[0]
         blocks = [r.block for r in results if len(r.block)]

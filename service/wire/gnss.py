@@ -105,7 +105,7 @@ class GnssPitch(_Strict):
     width_m: float | None = Field(default=None, gt=0, allow_inf_nan=False, strict=True)
 
     @model_validator(mode="after")
-    def _one_form(self) -> "GnssPitch":
+    def _one_form(self) -> GnssPitch:
         if self.corners is not None and self.goal_centres is not None:
             raise ValueError("give either corners or goal_centres + width_m, not both")
         if self.corners is None and self.goal_centres is None:
@@ -263,7 +263,7 @@ class PitchProjection:
 
     @classmethod
     def from_calibration(cls, cal: GnssPitch, side_tolerance: float = 0.01,
-                         angle_tolerance_deg: float = 1.0) -> "PitchProjection":
+                         angle_tolerance_deg: float = 1.0) -> PitchProjection:
         """The projection of a validated calibration; raises :class:`CalibrationError` when the
         corners are not a rectangle within the tolerances (relative side difference; degrees).
         A plain dict is validated first with :func:`parse_calibration`."""

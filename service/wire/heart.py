@@ -7,14 +7,15 @@ known, and nothing of a rejected sample reaches the engine.
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Iterable, Sequence
+from typing import Any
 
 import numpy as np
 
 from pacewire.engine.heart import HeartParams
 from pacewire.engine.types import Roster
-from pacewire.wire.cdf import FrameError, Reject, parse_timestamp, decode_json_lines, parse_message
+from pacewire.wire.cdf import FrameError, Reject, decode_json_lines, parse_message, parse_timestamp
 
 SAMPLE_KEYS = ("player_id", "timestamp", "bpm")
 _KEY_SET = frozenset(SAMPLE_KEYS)
@@ -57,12 +58,12 @@ class HrResult:
         return int(self.player.shape[0])
 
     @staticmethod
-    def empty(errors: list[FrameError] | None = None, rejected: int = 0) -> "HrResult":
+    def empty(errors: list[FrameError] | None = None, rejected: int = 0) -> HrResult:
         return HrResult(np.zeros(0, np.int64), np.zeros(0, np.float64), np.zeros(0, np.float64),
                         errors if errors is not None else [], rejected)
 
     @staticmethod
-    def merge(results: list["HrResult"]) -> "HrResult":
+    def merge(results: list[HrResult]) -> HrResult:
         if len(results) == 1:
             return results[0]
         return HrResult(np.concatenate([r.player for r in results]), np.concatenate([r.t for r in results]),
