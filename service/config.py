@@ -5,6 +5,7 @@ start-up with a message naming the key (``kinematics.smooth_order: ...``).
 """
 from __future__ import annotations
 
+from itertools import pairwise
 from pathlib import Path
 from typing import Any, Literal
 
@@ -79,7 +80,7 @@ class HeartRate(_Section):
     @model_validator(mode="after")
     def _increasing(self) -> HeartRate:
         e = self.zone_edges_pct
-        if any(b <= a for a, b in zip(e, e[1:])) or e[0] <= 0 or e[-1] >= 100:
+        if any(b <= a for a, b in pairwise(e)) or e[0] <= 0 or e[-1] >= 100:
             raise ValueError("zone_edges_pct must be strictly increasing within (0, 100)")
         if self.min_bpm >= self.max_bpm:
             raise ValueError("min_bpm must be below max_bpm")
@@ -142,7 +143,7 @@ class Zones(_Section):
     def _increasing(self) -> Zones:
         for name in ("edges_ms", "edges_pct"):
             edges = getattr(self, name)
-            if any(b <= a for a, b in zip(edges, edges[1:])) or edges[0] <= 0:
+            if any(b <= a for a, b in pairwise(edges)) or edges[0] <= 0:
                 raise ValueError(f"{name} must be positive and strictly increasing")
         if any(not 0 < v <= 15 for v in self.max_speed_ms.values()):
             raise ValueError("max_speed_ms values must be in (0, 15] m/s")

@@ -5,6 +5,8 @@ from the validated settings and the match's roster.
 """
 from __future__ import annotations
 
+from itertools import pairwise
+
 import numpy as np
 
 from pacewire.config import Settings
@@ -72,9 +74,9 @@ def _speed_zones(roster: Roster, s: Settings) -> SpeedZones:
     z = s.zones
     if z.mode == "absolute":
         edges = np.array(z.edges_ms, float)
-        names = [f"{a:.1f}-{b:.1f}" for a, b in zip([0.0, *edges[:-1]], edges)] + [f"{edges[-1]:.1f}+"]
+        names = [f"{a:.1f}-{b:.1f}" for a, b in pairwise([0.0, *edges])] + [f"{edges[-1]:.1f}+"]
         return SpeedZones(z.mode, edges, np.ones(roster.n), tuple(names))
     pct = np.array(z.edges_pct, float)
     vmax = np.array([z.max_speed_ms.get(p.id) or p.max_speed_ms or z.default_max_speed_ms for p in roster.players])
-    names = [f"{a:g}-{b:g}%" for a, b in zip([0.0, *pct[:-1]], pct)] + [f"{pct[-1]:g}%+"]
+    names = [f"{a:g}-{b:g}%" for a, b in pairwise([0.0, *pct])] + [f"{pct[-1]:g}%+"]
     return SpeedZones(z.mode, pct, vmax / 100.0, tuple(names))

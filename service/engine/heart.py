@@ -68,7 +68,7 @@ class HeartParams:
     def zone_names(self) -> list[str]:
         """``"50-60%"`` ... ``"90-100%"``: the top zone also holds 100 % and above."""
         hi = (*self.zone_edges_pct[1:], 100)
-        return [f"{lo:g}-{h:g}%" for lo, h in zip(self.zone_edges_pct, hi)]
+        return [f"{lo:g}-{h:g}%" for lo, h in zip(self.zone_edges_pct, hi, strict=True)]
 
 
 @dataclass(frozen=True)
@@ -278,7 +278,7 @@ class HeartRate:
         for i in range(self.n):
             t_ok, m_ok = bool(timed[i]), bool(self.has_max[i])
             out["hr_mean_bpm"].append(mean[i] if t_ok else None)
-            out["hr_zones"].append(dict(zip(names, zones[i])) if t_ok and m_ok else None)
+            out["hr_zones"].append(dict(zip(names, zones[i], strict=True)) if t_ok and m_ok else None)
             out["trimp_edwards"].append(edw[i] if t_ok and m_ok else None)
             out["trimp_banister"].append(ban[i] if t_ok and self.has_banister[i] else None)
             out["hr_coverage"].append(cov[i] if onpitch[i] > 0 else None)

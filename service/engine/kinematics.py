@@ -482,7 +482,6 @@ class Track:
                 run_e: np.ndarray, xyb: np.ndarray, jumps: np.ndarray) -> Final:
         p = self.p
         w, h = p.window, p.half
-        n_rows = xyb.shape[0]
         rows = np.arange(r0, r1)[:, None]
         v = valid[r0:r1]
         self.jumps += int(jumps[r0:r1].sum())

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import copy
 from functools import partial
+from itertools import pairwise
 from typing import Any
 
 import numpy as np
@@ -104,7 +105,7 @@ class MatchState:
             self._step_period(block)
         else:
             bounds = (np.flatnonzero(period[1:] != period[:-1]) + 1).tolist()
-            for a, b in zip([0, *bounds], [*bounds, n]):
+            for a, b in pairwise([0, *bounds, n]):
                 self._step_period(block.take(slice(a, b)))
         if self.heart is not None:
             self._settle_heart()

@@ -56,7 +56,7 @@ def _window_rows(sums: np.ndarray, span_s: np.ndarray, extra: tuple[tuple[str, n
                  _WINDOW_ND + tuple(d for _, _, d in extra))
     keys = [(k, j) for j, (k, _, _) in enumerate(extra, len(_WINDOW_ND))]
     out = []
-    for r, c, o in zip(f, sums[:, _COUNTS].tolist(), ok.tolist()):
+    for r, c, o in zip(f, sums[:, _COUNTS].tolist(), ok.tolist(), strict=True):
         row = {"distance_m": r[0], "hsr_m": r[1], "sprint_m": r[2], "hsr_efforts": c[0], "sprints": c[1],
                "accels": c[2], "decels": c[3], "energy_jkg": r[3], "high_power_m": r[4],
                "m_per_min": r[5] if o else None, "metabolic_power_wkg": r[6] if o else None}
@@ -76,8 +76,8 @@ def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: tuple[str, ...], o
     """Scalar figures + zones per player over one stretch (match or period)."""
     rows = _window_rows(sums, onpitch_s, (("minutes", onpitch_s / 60.0, 2), ("max_speed_ms", max_speed, 2),
                                           ("coverage", coverage, 3)))
-    for row, z in zip(rows, np.round(zones * _U, 1).tolist()):
-        row["zones"] = dict(zip(zone_names, z))
+    for row, z in zip(rows, np.round(zones * _U, 1).tolist(), strict=True):
+        row["zones"] = dict(zip(zone_names, z, strict=True))
     return rows
 
 
@@ -96,7 +96,7 @@ def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable
             return hit[1]
         idx = np.flatnonzero(changed)
         rows = list(hit[1])
-        for i, r in zip(idx.tolist(), build(idx)):
+        for i, r in zip(idx.tolist(), build(idx), strict=True):
             rows[i] = r
     else:
         idx = np.arange(inputs.shape[0])
@@ -130,7 +130,7 @@ def _cached_figures(cache: dict[Any, Any], name: Any, state: MatchState, sums: n
 def _rows(cols: dict[str, list], n: int) -> list[dict[str, Any]]:
     keys = list(cols)
     vals = [cols[k] for k in keys]
-    return [dict(zip(keys, [v[i] for v in vals])) for i in range(n)]
+    return [dict(zip(keys, [v[i] for v in vals], strict=True)) for i in range(n)]
 
 
 def _blocks(state: MatchState, per: Period) -> list[tuple[str, int, int]]:
@@ -242,7 +242,7 @@ def _peak_rows(state: MatchState, cache: dict[Any, Any], rebuilt: list[np.ndarra
 
     def build_peaks(r: Any) -> list:
         made = _windows(np.maximum(best[r], 0), span[r], (("start_s", start_clock[r], 1),))
-        return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist())]
+        return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist(), strict=True)]
 
     return peak_names, _reuse(cache, ("peaks", tuple(peak_names)), _stack(best, start_clock), build_peaks, rebuilt)
 
@@ -260,7 +260,7 @@ def _per_player(cache: dict[Any, Any], n: int, named_rows: list[tuple[str, list[
         touched = np.unique(np.concatenate([r % n for r in rebuilt])).tolist() if rebuilt else []
         per_player = list(prev)
     for i in touched:
-        per_player[i] = dict(zip(all_names, [rows[k * n + i] for _, rows, k in named_rows]))
+        per_player[i] = dict(zip(all_names, [rows[k * n + i] for _, rows, k in named_rows], strict=True))
     cache["windows_players"] = per_player
     cache["windows_names"] = all_names
     return per_player
@@ -389,7 +389,7 @@ def _team_windows(state: MatchState, masks: list[np.ndarray], team_last: dict[in
         sums = np.array([s[mask].sum(axis=0) for mask in masks for s in team_last.values()], np.int64)
         rows = _windows(sums.reshape(-1, ex.N_FIG), np.array(spans * len(masks), float))
         for k in range(len(masks)):
-            out[k] = dict(zip(names, rows[k * len(names):(k + 1) * len(names)]))
+            out[k] = dict(zip(names, rows[k * len(names):(k + 1) * len(names)], strict=True))
     cache["team_windows"] = (key, out)
     return out
 
@@ -462,12 +462,12 @@ def _with_heart(state: MatchState, windows: _Rows, per_figs: _PeriodRows, onp_s:
     fps = state.fps
     windows = _with_heart_windows(state, windows)
     per_figs = [(name, [{**f, **h} for f, h in zip(pf, _hr_cols(state, heart.period_sums(per.index),
-                                                                 per.onpitch_slots() / fps))])
-                for (name, pf), per in zip(per_figs, state.periods)]
+                                                                 per.onpitch_slots() / fps), strict=True)])
+                for (name, pf), per in zip(per_figs, state.periods, strict=True)]
     latest = max(state.last_t or 0.0, float(np.nanmax(heart.last_t)))
     hr_now, hr_pct = heart.now(latest)
     hr_rows = _hr_cols(state, heart.match_sums(), onp_s)
-    for i, (bpm, pct, peak, omitted) in enumerate(zip(hr_now, hr_pct, heart.peak(), heart.omitted())):
+    for i, (bpm, pct, peak, omitted) in enumerate(zip(hr_now, hr_pct, heart.peak(), heart.omitted(), strict=True)):
         hr_rows[i] = {"hr_bpm": bpm, "hr_pct_max": pct, **hr_rows[i], "hr_peak_bpm": peak, "hr_omitted": omitted}
     return windows, per_figs, hr_rows
 
@@ -479,7 +479,7 @@ def _speeds(state: MatchState) -> list[float | None]:
         return [None] * state.n
     recent = (cur.last_valid >= 0) & (cur.track.fin - cur.last_valid <= state.fps)
     sp = np.round(cur.last_speed, 2).tolist()
-    return [s if r else None for s, r in zip(sp, recent.tolist())]
+    return [s if r else None for s, r in zip(sp, recent.tolist(), strict=True)]
 
 
 def _possession_rows(cache: dict[Any, Any], poss: np.ndarray) -> _Rows:
@@ -508,7 +508,7 @@ def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], spe
         old = prev.get(pl.id) if prev is not None else None
         if (hr_rows is None and old is not None and old[0][0] == on_pitch[i] and old[0][1] == speed[i]
                 and old[0][2] == period_names and len(old[0][3]) == len(parts)
-                and all(a is b for a, b in zip(old[0][3], parts))):
+                and all(a is b for a, b in zip(old[0][3], parts, strict=True))):
             obj = old[1]
         else:
             obj = {

@@ -10,6 +10,7 @@ return is roster-wide, one row per player.
 from __future__ import annotations
 
 from bisect import bisect_right
+from itertools import pairwise
 
 import numpy as np
 
@@ -29,7 +30,7 @@ def _segments(n: int, skip: int, cut: int, fps: int) -> np.ndarray:
     if m is None:
         edges = [skip, *range(min(cut, n), n, fps), n]
         m = np.zeros((len(edges), n))
-        for j, (a, b) in enumerate(zip(edges[:-1], edges[1:])):
+        for j, (a, b) in enumerate(pairwise(edges)):
             m[j, a:b] = 1.0
         m[-1] = 1.0
         if len(_SEGMENTS) >= 512:  # block sizes and phases vary live: keep the cache bounded

@@ -62,7 +62,7 @@ return 0
 
 # KEYS: lease, then (buffer, snapshot) per stream. ARGV: owner, lease ms, wall time, then per stream:
 # channel, snapshot text, buffer length, n, then n × (seq, text).
-_PUBLISH = """
+_PUBLISH = f"""
 local owner = redis.call('GET', KEYS[1])
 if not owner then
   -- expired while this process was busy, and nobody took it: still the only writer
@@ -78,10 +78,10 @@ for g = 1, (#KEYS - 1) / 2 do
     redis.call('PUBLISH', channel, ARGV[a + 1])
     a = a + 2
   end
-  redis.call('SET', snap, snaptext, 'EX', %d)
+  redis.call('SET', snap, snaptext, 'EX', {SNAP_TTL_S})
 end
 return 1
-""" % SNAP_TTL_S
+"""
 
 
 class _SinkQueue:
@@ -379,7 +379,7 @@ class AggMatch:
                     entry[1].append(text)
             # no await since the texts were queued: each group's seq and state are those of its last message
             k = [keys.lease(self.match_id)]
-            a: list[Any] = [self.agg.owner, self.agg.scale.lease_ms, "%.6f" % time.time()]
+            a: list[Any] = [self.agg.owner, self.agg.scale.lease_ms, f"{time.time():.6f}"]
             for sink, texts in streams.values():
                 assert sink.group is not None
                 k += [sink.buffer_key, sink.snapshot_key]

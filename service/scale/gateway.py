@@ -382,7 +382,7 @@ class RedisReads:
         except RedisError as exc:
             raise unavailable(exc) from None
         out = []
-        for mid, raw in zip(ids, raws):
+        for mid, raw in zip(ids, raws, strict=True):
             s = orjson.loads(raw) if raw is not None else {"match_id": mid, "health": "stalled", "frames": 0}
             s["subscribers"] = self.gw.subscriber_count(mid)  # on this gateway
             out.append(s)

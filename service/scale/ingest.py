@@ -202,7 +202,7 @@ class StreamIngest:
         arrival = b"%.6f" % time.time()
         p = self.redis.pipeline(transaction=False)
         fids = [int(f) for f in res.block.frame_id]
-        for fid, line in zip(fids, raw):
+        for fid, line in zip(fids, raw, strict=True):
             p.xadd(key, {"f": line, "a": arrival}, id=keys.frame_entry_id(fid))
         self._count_pipe(p, match_id, res)
         if not len(p):
@@ -213,7 +213,7 @@ class StreamIngest:
             m.decoder.gate.restore(cp)
             return self._unstored(match_id, exc)
         refused = []
-        for fid, ans in zip(fids, answers):
+        for fid, ans in zip(fids, answers, strict=False):  # the counters' replies follow the frames'
             if isinstance(ans, ResponseError):
                 refused.append(fid)
             elif isinstance(ans, Exception):  # the connection broke mid-batch: the provider resends
@@ -282,7 +282,7 @@ class StreamIngest:
                     return out
                 args: list[Any] = [m.hr_version, gate_bytes(dec.gate), res.rejected, res.duplicates, res.late]
                 ids = m.roster.players
-                for line, i, t, bpm in zip(raw, res.player.tolist(), res.t.tolist(), res.bpm.tolist()):
+                for line, i, t, bpm in zip(raw, res.player.tolist(), res.t.tolist(), res.bpm.tolist(), strict=True):
                     args += [line, ids[i].id, repr(t), repr(bpm)]
                 try:
                     ans = await self._append_hr(keys=[keys.hr(match_id), keys.hr_gate(match_id),

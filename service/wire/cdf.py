@@ -357,7 +357,7 @@ def _refusal(exc: Exception, fid: int | None, line: int | None) -> FrameError:
 def _block(n_players: int, frames: list[tuple[int, float, int, int, int, int]],
            samples: list[tuple[Any, Any, Any, Any]]) -> Block:
     """The engine block of the accepted ``frames``; ``samples``: (frame rows, roster indices, x, y) runs."""
-    fids, ts, periods, slots, balls, poss = zip(*frames)
+    fids, ts, periods, slots, balls, poss = zip(*frames, strict=True)
     xy = np.full((len(frames), n_players, 2), np.nan)
     for f, p, x, y in samples:
         f = np.asarray(f)
@@ -571,7 +571,7 @@ class FrameDecoder:
         teams = obj["teams"]
         if type(teams) is not dict or "home" not in teams or "away" not in teams:
             raise Reject("missing_field", "teams must hold 'home' and 'away'")
-        for side, tid in zip(("home", "away"), self.roster.team_ids):
+        for side, tid in zip(("home", "away"), self.roster.team_ids, strict=True):
             team = teams[side]
             if type(team) is not dict:
                 raise Reject("bad_type", f"teams.{side} must be an object")
@@ -693,7 +693,7 @@ class FrameDecoder:
         if not keys:
             return {}
         xs, ys = self.projection.to_pitch(np.array(lats), np.array(lons))
-        return dict(zip(keys, zip(xs.tolist(), ys.tolist())))
+        return dict(zip(keys, zip(xs.tolist(), ys.tolist(), strict=True), strict=True))
 
     def _players_fast(self, plist: list[Any], side: int, row: int,
                       s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> bool:

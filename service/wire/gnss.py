@@ -319,7 +319,7 @@ def rectangle(centre_lat: float, centre_lon: float, length_m: float, width_m: fl
     ux, uy = math.sin(b), math.cos(b)  # +x (east, north)
     vx, vy = -uy, ux  # +y, to the left of +x
     corners = {}
-    for name, (sx, sy) in zip(CORNERS, CORNER_XY):
+    for name, (sx, sy) in zip(CORNERS, CORNER_XY, strict=True):
         x, y = sx * length_m / 2, sy * width_m / 2
         lat, lon, _ = pymap3d.enu2geodetic(x * ux + y * vx, x * uy + y * vy, 0.0, centre_lat, centre_lon, 0.0,
                                            ell=WGS84, deg=True)

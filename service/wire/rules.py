@@ -9,6 +9,7 @@ rules against the figures is :mod:`pacewire.reports.alerts`.
 from __future__ import annotations
 
 from collections.abc import Sequence
+from itertools import pairwise
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -63,7 +64,7 @@ class LoadBudget(_Model):
 
     @model_validator(mode="after")
     def _levels(self) -> LoadBudget:
-        if any(not 0 < v <= 2 for v in self.levels) or any(b <= a for a, b in zip(self.levels, self.levels[1:])):
+        if any(not 0 < v <= 2 for v in self.levels) or any(b <= a for a, b in pairwise(self.levels)):
             raise ValueError("levels must be shares of the cap in (0, 2], strictly increasing")
         return self
 

@@ -299,9 +299,10 @@ def partial(model: type[BaseModel], suffix: str = "Delta") -> type[BaseModel]:
         if origin is Annotated:
             return Annotated[(conv(args[0]), *tp.__metadata__)]  # type: ignore[misc]
         if origin in (Union, types.UnionType):
-            return Union[tuple(conv(a) for a in args)]  # type: ignore[return-value]
+            # a Union of a run-time tuple has no X | Y spelling
+            return Union[tuple(conv(a) for a in args)]  # type: ignore[return-value]  # noqa: UP007
         if origin is dict:
-            return dict[args[0], Union[conv(args[1]), None]]  # type: ignore[index]
+            return dict[args[0], conv(args[1]) | None]  # type: ignore[index]
         return tp
 
     def make(m: type[BaseModel]) -> type[BaseModel]:
@@ -311,7 +312,7 @@ def partial(model: type[BaseModel], suffix: str = "Delta") -> type[BaseModel]:
                 tp = conv(info.annotation)
                 if info.metadata:  # keep the bounds (ge, le, pattern) of the full shape
                     tp = Annotated[(tp, *info.metadata)]
-                fields[name] = (Union[tp, None], Field(None, description=info.description))
+                fields[name] = (tp | None, Field(None, description=info.description))
             extra = m.model_config.get("json_schema_extra")
             cache[m] = create_model(f"{m.__name__}{suffix}", __base__=_Shape, __doc__=m.__doc__, **fields)
             if extra:
@@ -347,7 +348,8 @@ MESSAGES: dict[str, type[Envelope]] = {
     "error": ErrorMessage,
 }
 
-Message = Annotated[Union[tuple(MESSAGES.values())], Field(discriminator="type")]  # type: ignore[valid-type]
+# a Union of a run-time tuple has no X | Y spelling
+Message = Annotated[Union[tuple(MESSAGES.values())], Field(discriminator="type")]  # type: ignore[valid-type]  # noqa: UP007
 
 
 # -- JSON Schema --------------------------------------------------------------------------------------
