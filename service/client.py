@@ -149,7 +149,8 @@ class Subscription:
             except InvalidStatus as exc:
                 status = exc.response.status_code
                 if 400 <= status < 500:  # the server will not change its mind: no retry
-                    raise SubscriptionError(f"http_{status}", f"the server refused the WebSocket handshake ({status})") from None
+                    raise SubscriptionError(f"http_{status}",
+                                            f"the server refused the WebSocket handshake ({status})") from None
                 failures += 1
                 if self.max_attempts is not None and failures >= self.max_attempts:
                     raise

@@ -70,7 +70,8 @@ class StreamParams:
             if not math.isfinite(every) or every < low - 1e-9 or every > max_every_s:
                 raise ValueError
         except ValueError:
-            raise ApiError(422, "bad_request", f"every must be a number of seconds from {low:g} to {max_every_s:g}") from None
+            raise ApiError(422, "bad_request",
+                           f"every must be a number of seconds from {low:g} to {max_every_s:g}") from None
         since: int | None = None
         if "since" in query:
             try:

@@ -119,12 +119,13 @@ class FeedHealth:
         warmed = now - self.first_arrival >= p.rate_window_s  # type: ignore[operator]
         fps = self.fps_observed(now)
         if warmed and fps < p.min_rate_share * self.fps_nominal:
-            reasons.append({"code": "low_rate",
-                            "message": f"frame rate {fps:.1f}/s below {p.min_rate_share:.0%} of nominal {self.fps_nominal}/s"})
+            reasons.append({"code": "low_rate", "message": f"frame rate {fps:.1f}/s below {p.min_rate_share:.0%} "
+                                                          f"of nominal {self.fps_nominal}/s"})
         if dropout > p.max_dropout:
             reasons.append({"code": "dropout", "message": f"dropout {dropout:.0%} above {p.max_dropout:.0%}"})
         excess = self.excess_lag(now)
         if excess is not None and excess > p.max_lag_s:
-            reasons.append({"code": "late_delivery", "message": f"frames arrive {excess:.2f} s later than usual (limit {p.max_lag_s:g} s)"})
+            reasons.append({"code": "late_delivery",
+                            "message": f"frames arrive {excess:.2f} s later than usual (limit {p.max_lag_s:g} s)"})
         reasons.extend(extra_reasons or [])
         return (DEGRADED if reasons else OK), reasons

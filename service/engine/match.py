@@ -171,9 +171,9 @@ class MatchState:
             ball_poss=np.full((1024, 2), (BALL_UNKNOWN, NO_TEAM), np.int8),
             cols=np.zeros(0, np.int64), unseen=np.arange(self.n), order=np.arange(self.n), team=self.team[:0],
             c_sums=np.zeros((ex.N_FIG, 0), np.int64), c_zones=np.zeros((0, zones.edges.shape[0] + 1), np.int64),
-            c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64), c_max_speed=np.zeros(0), c_first_seen=np.zeros(0, np.int64),
-            c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64), c_last_valid=np.zeros(0, np.int64),
-            c_last_speed=np.zeros(0),
+            c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64), c_max_speed=np.zeros(0),
+            c_first_seen=np.zeros(0, np.int64), c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64),
+            c_last_valid=np.zeros(0, np.int64), c_last_speed=np.zeros(0),
         )
         self.periods.append(per)
         return per
@@ -345,7 +345,8 @@ class MatchState:
         poss = bp[:, 1:2]
         own = poss == per.team[None, :]
         # context 0 in, 1 out of possession, 2 out of play, 3 unknown
-        ctx = np.where(ball == BALL_OUT, 2, np.where(ball != BALL_IN, 3, np.where(own, 0, np.where(poss == NO_TEAM, 3, 1))))
+        in_play = np.where(own, 0, np.where(poss == NO_TEAM, 3, 1))
+        ctx = np.where(ball == BALL_OUT, 2, np.where(ball != BALL_IN, 3, in_play))
         m = ctx.shape[1]
         flat = (np.arange(m) * 4 + ctx).ravel()
         size = 4 * m

@@ -284,7 +284,8 @@ def _period_figures(state: MatchState, per: Period) -> list[dict[str, Any]]:
 _HR_WINDOW_KEYS = ("hr_mean_bpm", "trimp_edwards", "trimp_banister")
 
 
-def _hr_cols(state: MatchState, sums: np.ndarray, onpitch_s: np.ndarray, keys: tuple[str, ...] | None = None) -> list[dict[str, Any]]:
+def _hr_cols(state: MatchState, sums: np.ndarray, onpitch_s: np.ndarray, keys: tuple[str, ...] | None = None
+             ) -> list[dict[str, Any]]:
     cols = state.heart.figures(sums, onpitch_s)  # type: ignore[union-attr]
     if keys is not None:
         cols = {k: cols[k] for k in keys}

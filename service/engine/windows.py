@@ -85,7 +85,8 @@ class SecondBins:
         self._run = _widen(self._run, k, 0)
         # windows evaluated already saw these players' zeros: peak 0 from second 0
         reached = np.where(self.complete >= self._win, 0, -1)
-        self._peak = np.concatenate([self._peak, np.broadcast_to(reached[:, None, None], (len(self._win), N_FIG, k))], 2)
+        grown = np.broadcast_to(reached[:, None, None], (len(self._win), N_FIG, k))
+        self._peak = np.concatenate([self._peak, grown], 2)
         self._peak_start = np.concatenate([self._peak_start, np.broadcast_to(reached[:, None], (len(self._win), k))], 1)
 
     def add(self, slot0: int, fig: np.ndarray) -> np.ndarray:

@@ -76,7 +76,8 @@ class Recorder:
             os.close(self._fd)
             self._fd = None
 
-    def append(self, lines: list[bytes], durable: bool = False, after: Callable[[], None] | None = None) -> Awaitable[None]:
+    def append(self, lines: list[bytes], durable: bool = False, after: Callable[[], None] | None = None
+               ) -> Awaitable[None]:
         """Queue lines (without newlines); ``after`` runs right after they reach the OS.
 
         The returned future resolves once written (and fsynced if ``durable``),

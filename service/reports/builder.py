@@ -91,7 +91,8 @@ def draw_charts(snapshot: dict[str, Any], series: BlockSeries) -> dict[str, str]
         name = t["name"] or tid
         if len(series):
             rows = [ids.index(pid) for pid, _ in played]
-            out[f"heatmap-{tid}"] = charts.player_heatmap(series, rows, [charts.player_label(pid, p) for pid, p in played], name)
+            labels = [charts.player_label(pid, p) for pid, p in played]
+            out[f"heatmap-{tid}"] = charts.player_heatmap(series, rows, labels, name)
         out[f"bars-{tid}"] = charts.player_bars(played, name)
         if windows:
             out[f"peaks-{tid}"] = charts.peak_timeline(played, windows, name)

@@ -124,7 +124,8 @@ def player_heatmap(series: BlockSeries, rows: list[int], names: list[str], team:
 
     def draw(fig: Any) -> None:
         axes = fig.subplots(1, 2, sharey=True)
-        for ax, data, cmap, title in ((axes[0], dist, MAP_DIST, "distance, m/min"), (axes[1], hsr, MAP_HSR, "HSR, m/min")):
+        panels = ((axes[0], dist, MAP_DIST, "distance, m/min"), (axes[1], hsr, MAP_HSR, "HSR, m/min"))
+        for ax, data, cmap, title in panels:
             masked = np.ma.masked_invalid(data)
             top = float(np.nanmax(data)) if np.isfinite(data).any() else 1.0
             mesh = ax.pcolormesh(masked, cmap=_cmap(cmap), vmin=0.0, vmax=max(top, 1e-9), edgecolors=PAPER, lw=0.6)

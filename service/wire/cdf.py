@@ -135,7 +135,8 @@ class MatchSetup(BaseModel):
                 if p.id in seen:
                     raise ValueError(f"player id {p.id!r} appears twice in the sheet")
                 if p.team_id != team.id:
-                    raise ValueError(f"player {p.id!r} has team_id {p.team_id!r} but is listed under {side} team {team.id!r}")
+                    raise ValueError(f"player {p.id!r} has team_id {p.team_id!r} "
+                                     f"but is listed under {side} team {team.id!r}")
                 seen.add(p.id)
         return sheet
 
@@ -158,7 +159,8 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
     if team_ids[0] == team_ids[1]:
         raise SetupError("home and away team ids are the same")
     if (sheet.teams.home.id, sheet.teams.away.id) != team_ids:
-        raise SetupError(f"sheet team ids {(sheet.teams.home.id, sheet.teams.away.id)} differ from meta team ids {team_ids}")
+        raise SetupError(f"sheet team ids {(sheet.teams.home.id, sheet.teams.away.id)} "
+                         f"differ from meta team ids {team_ids}")
     players = []
     for side, team in ((0, sheet.teams.home), (1, sheet.teams.away)):
         for p in team.players:
@@ -169,8 +171,8 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
                 is_starter=p.is_starter, name=name, max_speed_ms=p.max_speed_ms,
                 hr_max_bpm=p.hr_max_bpm, hr_rest_bpm=p.hr_rest_bpm, sex=p.sex,
             ))
-    names = tuple(getattr(sheet.teams, s).name or getattr(meta.teams, s).name or getattr(sheet.teams, s).short_name or ""
-                  for s in ("home", "away"))
+    names = tuple(getattr(sheet.teams, s).name or getattr(meta.teams, s).name
+                  or getattr(sheet.teams, s).short_name or "" for s in ("home", "away"))
     venue = meta.venue
     length, width = venue.pitch_length or 105.0, venue.pitch_width or 68.0
     cal = projection = None
@@ -579,7 +581,8 @@ class FrameDecoder:
             if got != tid:
                 raise Reject("unknown_team", f"teams.{side}.id {got!r} is not {tid!r}")
             if type(team.get("players")) is not list:
-                raise Reject("missing_field" if "players" not in team else "bad_type", f"teams.{side}.players must be an array")
+                raise Reject("missing_field" if "players" not in team else "bad_type",
+                             f"teams.{side}.players must be an array")
         return parse_timestamp(obj["timestamp"])
 
     def _players(self, team: dict[str, Any], side: int, row: int,
@@ -661,7 +664,8 @@ class FrameDecoder:
         if bad.size:
             k = int(bad[0])
             raise Reject("out_of_pitch", f"player {gnss[k][1]!r} at lat {gnss[k][2]}, long {gnss[k][3]} is "
-                                          f"{float(xs[k]):.1f}, {float(ys[k]):.1f} m from the centre spot: far outside the pitch")
+                                          f"{float(xs[k]):.1f}, {float(ys[k]):.1f} m from the centre spot: "
+                                          "far outside the pitch")
         s_f.extend([row] * len(gnss))
         s_p.extend(g[0] for g in gnss)
         s_x.extend(xs.tolist())

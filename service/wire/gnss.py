@@ -31,8 +31,8 @@ checks projected distances against geographiclib's geodesics (Karney 2013,
 Checks on arrival (corner form): the two touchlines within ``side_tolerance``
 of each other, the two goal lines likewise, each corner angle within
 ``angle_tolerance_deg`` of 90°, and the right handedness (pacewire defaults,
-docs/wearables.md "Checks on arrival": sides within 1%, right angles within 1°). A failure raises :class:`CalibrationError`
-naming the corner most to blame: two neighbouring names exchanged (a crossed
+docs/wearables.md "Checks on arrival": sides within 1%, right angles within 1°).
+A failure raises :class:`CalibrationError` naming the corner most to blame: two neighbouring names exchanged (a crossed
 quadrilateral) are named as such; otherwise, since a single misplaced flag
 leaves the other three at a right angle, the corner whose opposite angle is
 closest to 90° is named (ties go to the corner with the worse angle of its
@@ -333,7 +333,8 @@ def check_venue(pitch: PitchProjection, pitch_length: float | None, pitch_width:
     differs from the calibration by more than ``tolerance`` (relative, 1% by the contract).
     Returns the pitch (length, width) to use: the meta's where given, else the calibration's."""
     out = []
-    for name, given, cal in (("pitch_length", pitch_length, pitch.length_m), ("pitch_width", pitch_width, pitch.width_m)):
+    for name, given, cal in (("pitch_length", pitch_length, pitch.length_m),
+                             ("pitch_width", pitch_width, pitch.width_m)):
         if given is None:
             out.append(cal)
             continue

@@ -110,7 +110,8 @@ class HrDecoder:
                     pid, stamp = obj["player_id"], obj["timestamp"]
                     if t == last_t:
                         res.duplicates += 1
-                        errors.append(FrameError("duplicate", f"player {pid!r} already has a sample at {stamp}", None, line))
+                        errors.append(FrameError("duplicate", f"player {pid!r} already has a sample at {stamp}",
+                                                 None, line))
                     else:
                         res.late += 1
                         errors.append(FrameError("late", f"sample of player {pid!r} at {stamp} is older than "
@@ -124,7 +125,8 @@ class HrDecoder:
                 continue
             except Exception as exc:  # a shape no rule above foresaw: still a clear rejection
                 res.rejected += 1
-                errors.append(FrameError("bad_value", f"sample could not be read: {type(exc).__name__}: {exc}", None, line))
+                errors.append(FrameError("bad_value", f"sample could not be read: {type(exc).__name__}: {exc}",
+                                         None, line))
                 continue
             res.accepted.append(k)
             players.append(i)
