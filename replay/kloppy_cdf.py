@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Any
 import orjson
 
 if TYPE_CHECKING:
-    from kloppy.domain import TrackingDataset
+    from kloppy.domain import CustomCoordinateSystem, TrackingDataset
 
 CDF_VERSION = "0.3.2"
 # kloppy period ids → CDF period names (Anzer et al. 2025).
@@ -35,7 +35,7 @@ CDF_POSITION_GROUPS = {"Goalkeeper": "GK", "Defender": "DF", "Midfielder": "MF",
 _FALLBACK_KICKOFF = datetime(2000, 1, 1, tzinfo=UTC)
 
 
-def cdf_coordinate_system(pitch_length_m: float, pitch_width_m: float):
+def cdf_coordinate_system(pitch_length_m: float, pitch_width_m: float) -> CustomCoordinateSystem:
     """kloppy coordinate system equal to CDF's: metres, origin at the centre spot, y up."""
     from kloppy.domain import CustomCoordinateSystem, Dimension, MetricPitchDimensions, Origin, VerticalOrientation
 

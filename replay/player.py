@@ -259,11 +259,11 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
                             await other.flush()
                     await channel.add(line, due)
 
-                async def heart_rate_before(t: float) -> None:
+                async def heart_rate_before(hr: _Paced, t: float) -> None:
                     # samples in a break get the next period's clock: they go at once, as the break is skipped
                     nonlocal hr_next
                     while hr_next < len(samples) and samples[hr_next].t < t:
-                        await emit(hr_out, samples[hr_next].line, due_of(samples[hr_next].t))
+                        await emit(hr, samples[hr_next].line, due_of(samples[hr_next].t))
                         hr_next += 1
 
                 def stream() -> Iterator[Frame]:
@@ -283,13 +283,13 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
                         shift += max(gap - BREAK_WALL_S * (speed or 1.0), 0.0)
                         period = fr.period
                     if hr_out is not None:
-                        await heart_rate_before(fr.t)
+                        await heart_rate_before(hr_out, fr.t)
                     await emit(out, _rename(fr.line, mid, url_match, rec), due_of(fr.t))
                     last = fr
                     if progress is not None:
                         progress.show(fr, sent + out.sent)
                 if finished and hr_out is not None:
-                    await heart_rate_before(float("inf"))  # the samples after the last frame
+                    await heart_rate_before(hr_out, float("inf"))  # the samples after the last frame
                 await out.flush()
                 sent += out.sent
                 if hr_out is not None:

@@ -30,7 +30,7 @@ from __future__ import annotations
 import asyncio
 import queue
 import threading
-from collections.abc import AsyncIterator, Callable, Iterator
+from collections.abc import AsyncGenerator, AsyncIterator, Callable, Iterator
 from typing import Any
 from urllib.parse import urlencode, urlsplit, urlunsplit
 
@@ -112,7 +112,7 @@ class Subscription:
     async def __aexit__(self, *exc: Any) -> None:
         await self.aclose()
 
-    async def _messages(self) -> AsyncIterator[dict[str, Any]]:
+    async def _messages(self) -> AsyncGenerator[dict[str, Any], None]:
         stream = self.stream()
         try:
             async for _text, msg in stream:
@@ -120,7 +120,7 @@ class Subscription:
         finally:
             await stream.aclose()  # closes the socket
 
-    async def stream(self) -> AsyncIterator[tuple[str, dict[str, Any]]]:
+    async def stream(self) -> AsyncGenerator[tuple[str, dict[str, Any]], None]:
         """(raw text, message) of every message applied, in seq order, across reconnects."""
         failures = 0
         while True:
@@ -214,7 +214,7 @@ class SyncSubscription:
         self.state: dict[str, Any] | None = None
         self.seq: int | None = None
         self._loop = asyncio.new_event_loop()
-        self._task: asyncio.Task | None = None
+        self._task: asyncio.Task[None] | None = None
         self._ready = threading.Event()
         self._thread = threading.Thread(target=self._main, name=f"pacewire-client:{match_id}", daemon=True)
         self._thread.start()

@@ -50,8 +50,8 @@ def heart_params(settings: Settings) -> HeartParams:
     h = settings.heart_rate
     return HeartParams(min_bpm=h.min_bpm, max_bpm=h.max_bpm, max_jump_bpm_s=h.max_jump_bpm_s, jump_reset=h.jump_reset,
                        max_gap_s=h.max_gap_s, expected_hz=h.expected_hz, zone_edges_pct=tuple(h.zone_edges_pct),
-                       edwards_weights=tuple(h.edwards_weights), banister_male=tuple(h.banister_male),
-                       banister_female=tuple(h.banister_female), stale_s=h.stale_s)
+                       edwards_weights=tuple(h.edwards_weights), banister_male=h.banister_male,
+                       banister_female=h.banister_female, stale_s=h.stale_s)
 
 
 def _heart_profiles(roster: Roster, s: Settings) -> tuple[HeartProfile, ...]:
@@ -65,7 +65,7 @@ def _heart_profiles(roster: Roster, s: Settings) -> tuple[HeartProfile, ...]:
         sex = p.sex if p.sex is not None else (f.sex if f else None)
         if hr_max is not None and hr_rest is not None and hr_rest >= hr_max:
             hr_rest = None  # sheet and file disagree: a resting rate above the maximum is not used
-        out.append(HeartProfile(hr_max_bpm=hr_max, hr_rest_bpm=hr_rest, sex=sex))  # type: ignore[arg-type]
+        out.append(HeartProfile(hr_max_bpm=hr_max, hr_rest_bpm=hr_rest, sex=sex))
     return tuple(out)
 
 

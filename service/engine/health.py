@@ -111,12 +111,12 @@ class FeedHealth:
         """
         p = self.params
         reasons: list[dict[str, str]] = []
-        if self.last_arrival is None:
+        if self.last_arrival is None or self.first_arrival is None:
             return STALLED, [{"code": "no_frames", "message": "no frames received yet"}]
         idle = now - self.last_arrival
         if idle > p.stall_s:
             return STALLED, [{"code": "no_frames", "message": f"no frame for {idle:.1f} s (limit {p.stall_s:g} s)"}]
-        warmed = now - self.first_arrival >= p.rate_window_s  # type: ignore[operator]
+        warmed = now - self.first_arrival >= p.rate_window_s
         fps = self.fps_observed(now)
         if warmed and fps < p.min_rate_share * self.fps_nominal:
             reasons.append({"code": "low_rate", "message": f"frame rate {fps:.1f}/s below {p.min_rate_share:.0%} "

@@ -15,9 +15,11 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Literal
+from typing import Any
 
 import numpy as np
+
+from pacewire.engine.types import Sex
 
 MICRO = 1_000_000
 _U = 1e-6  # micro-units to units
@@ -34,7 +36,6 @@ HR_BANISTER = HR_EDWARDS + 1  # Banister TRIMP, µ(AU·60)
 HR_N = HR_BANISTER + 1  # samples credited to a period (a count, not micro-units)
 N_HR = HR_N + 1
 
-Sex = Literal["male", "female"]
 PROFILE_SOURCE = "match sheet or heart_rate.profiles_file"
 
 

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
@@ -67,10 +68,10 @@ class _Fit:
             self._band[n] = m
         return m
 
-    def __deepcopy__(self, memo: dict) -> _Fit:
+    def __deepcopy__(self, memo: dict[int, Any]) -> _Fit:
         return self  # read-only: a copied track shares it
 
-    def __reduce__(self) -> tuple:
+    def __reduce__(self) -> tuple[Any, ...]:
         return _fit, (self.window, self.order, self.dt)  # a pickled track carries no matrices
 
 
@@ -440,7 +441,7 @@ class Track:
             self._clean_upto = self.end
             return self._clean_cols
         seen = ~np.isnan(part[:, :, 0])
-        cols = seen[0] if start == 0 else self._clean_cols
+        cols = seen[0] if start == 0 or self._clean_cols is None else self._clean_cols  # start > 0: a mask exists
         if not (seen == cols).all() or (step2 > lim * lim).any():
             self._clean_cols = None
             return None

@@ -45,6 +45,8 @@ def _widen(a: np.ndarray, k: int, fill: Any, axis: int = 0) -> np.ndarray:
 class MatchState:
     """All figures of one match, from its frames."""
 
+    _snapshot_cache: dict[Any, Any]  # pacewire.engine.snapshot's, set by its first snapshot of this state
+
     def __init__(self, roster: Roster, params: MatchParams) -> None:
         if not params.fits(roster.n, roster.fps):
             raise ValueError(f"parameters built for another roster than {roster.match_id!r}")
@@ -128,11 +130,11 @@ class MatchState:
         self._settle_heart()
 
     def _settle_heart(self) -> None:
-        if self.last_t is None:
+        if self.heart is None or self.last_t is None:
             return
         fps = self.fps
         spans = [(p.index, p.t0, p.t0 + (p.last_slot + 1) / fps) for p in self.periods]
-        self.heart.settle(spans, self.last_t)  # type: ignore[union-attr]
+        self.heart.settle(spans, self.last_t)
 
     def _step_period(self, b: Block) -> None:
         idx = int(b.period[0])
@@ -232,13 +234,7 @@ class MatchState:
         feed's figures in full; this state itself is untouched, so frames that
         come later give exactly the figures an offline pass gives. The copy
         shares this state's feed-health bookkeeping."""
-        health = self.health
-        self.health = None  # type: ignore[assignment]
-        try:
-            twin = copy.deepcopy(self)
-        finally:
-            self.health = health
-        twin.health = health
+        twin = copy.deepcopy(self, {id(self.health): self.health})  # the feed health is shared, not copied
         twin.freeze()
         return twin
 

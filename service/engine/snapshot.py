@@ -81,8 +81,8 @@ def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: tuple[str, ...], o
     return rows
 
 
-def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable[[Any], list],
-           rebuilt: list[np.ndarray] | None = None) -> list:
+def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable[[Any], list[Any]],
+           rebuilt: list[np.ndarray] | None = None) -> list[Any]:
     """``build(rows)``: one object per row of ``inputs`` (rows, k), which determines it in full. Rows whose
     inputs equal those of the last call under ``name`` come back as the very objects returned then, so a
     diff against the last snapshot skips them at once; only the others are built. Callers never mutate
@@ -127,7 +127,7 @@ def _cached_figures(cache: dict[Any, Any], name: Any, state: MatchState, sums: n
                   lambda r: _figures(sums[r], zones[r], names, onpitch_s[r], max_speed[r], coverage[r]))
 
 
-def _rows(cols: dict[str, list], n: int) -> list[dict[str, Any]]:
+def _rows(cols: dict[str, list[Any]], n: int) -> list[dict[str, Any]]:
     keys = list(cols)
     vals = [cols[k] for k in keys]
     return [dict(zip(keys, [v[i] for v in vals], strict=True)) for i in range(n)]
@@ -153,7 +153,7 @@ def _blocks(state: MatchState, per: Period) -> list[tuple[str, int, int]]:
 def _cache(state: MatchState) -> dict[Any, Any]:
     c = getattr(state, "_snapshot_cache", None)
     if c is None:
-        c = state._snapshot_cache = {}  # type: ignore[attr-defined]
+        c = state._snapshot_cache = {}
     return c
 
 
@@ -228,8 +228,8 @@ def _peak_rows(state: MatchState, cache: dict[Any, Any], rebuilt: list[np.ndarra
     peak_names = [f"peak_{w_s // 60}min" for w_s in state.peak_s]
     if not peak_names:
         return peak_names, []
-    best = np.full((len(peak_names), n, ex.N_FIG), -1, np.int64)
-    start_clock = np.full((len(peak_names), n), -1.0)
+    best: np.ndarray = np.full((len(peak_names), n, ex.N_FIG), -1, np.int64)
+    start_clock: np.ndarray = np.full((len(peak_names), n), -1.0)
     for per in periods:
         clock_s, peak, peak_start = CLOCK_START_MIN[per.name] * 60, per.bins.peak, per.bins.peak_start
         for j, w_s in enumerate(state.peak_s):
@@ -240,7 +240,7 @@ def _peak_rows(state: MatchState, cache: dict[Any, Any], rebuilt: list[np.ndarra
     best, start_clock = best.reshape(-1, ex.N_FIG), start_clock.reshape(-1)
     span = np.repeat(np.array([float(w_s) for w_s in state.peak_s]), n)
 
-    def build_peaks(r: Any) -> list:
+    def build_peaks(r: Any) -> list[Any]:
         made = _windows(np.maximum(best[r], 0), span[r], (("start_s", start_clock[r], 1),))
         return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist(), strict=True)]
 
@@ -286,7 +286,8 @@ _HR_WINDOW_KEYS = ("hr_mean_bpm", "trimp_edwards", "trimp_banister")
 
 def _hr_cols(state: MatchState, sums: np.ndarray, onpitch_s: np.ndarray, keys: tuple[str, ...] | None = None
              ) -> list[dict[str, Any]]:
-    cols = state.heart.figures(sums, onpitch_s)  # type: ignore[union-attr]
+    assert state.heart is not None  # called for a match with heart-rate samples only
+    cols = state.heart.figures(sums, onpitch_s)
     if keys is not None:
         cols = {k: cols[k] for k in keys}
     return _rows(cols, state.n)
@@ -296,6 +297,7 @@ def _with_heart_windows(state: MatchState, windows: list[dict[str, Any]]) -> lis
     """Per-player windows with the heart-rate figures of the last-N windows and fixed blocks added
     (not cached with the windows: samples settle on their own clock)."""
     hr = state.heart
+    assert hr is not None  # called for a match with heart-rate samples only
     out = [dict(w) for w in windows]
     zero = np.zeros(state.n)
     cur = state.current
@@ -303,7 +305,7 @@ def _with_heart_windows(state: MatchState, windows: list[dict[str, Any]]) -> lis
         stop = cur.bins.complete
         for m in state.params.windows.last_min:
             key = f"last_{m}min"
-            rows = _hr_cols(state, hr.period_sums(cur.index, max(stop - m * 60, 0), stop), zero, _HR_WINDOW_KEYS)  # type: ignore[union-attr]
+            rows = _hr_cols(state, hr.period_sums(cur.index, max(stop - m * 60, 0), stop), zero, _HR_WINDOW_KEYS)
             for i, r in enumerate(rows):
                 if out[i].get(key) is not None:
                     out[i][key] = {**out[i][key], **r}
@@ -311,7 +313,7 @@ def _with_heart_windows(state: MatchState, windows: list[dict[str, Any]]) -> lis
         for key, s0, s1 in _blocks(state, per):
             if s0 >= per.bins.complete:
                 continue
-            rows = _hr_cols(state, hr.period_sums(per.index, s0, s1), zero, _HR_WINDOW_KEYS)  # type: ignore[union-attr]
+            rows = _hr_cols(state, hr.period_sums(per.index, s0, s1), zero, _HR_WINDOW_KEYS)
             for i, r in enumerate(rows):
                 if out[i].get(key) is not None:
                     out[i][key] = {**out[i][key], **r}

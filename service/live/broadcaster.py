@@ -12,7 +12,7 @@ import logging
 import time
 import zlib
 from collections import deque
-from collections.abc import Awaitable, Callable
+from collections.abc import Callable, Coroutine
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -31,17 +31,17 @@ def _pack(text: str) -> bytes:
 
 
 def _unpack(entry: str | bytes) -> str:
-    return entry if type(entry) is str else zlib.decompress(entry).decode()
+    return entry if isinstance(entry, str) else zlib.decompress(entry).decode()
 
 
 class Subscriber:
-    def __init__(self, send: Callable[[str], Awaitable[None]], queue_size: int) -> None:
+    def __init__(self, send: Callable[[str], Coroutine[Any, Any, None]], queue_size: int) -> None:
         self.send = send
         self.limit = queue_size  # the opening messages may exceed it; later ones may not
         self.queue: asyncio.Queue[Any] = asyncio.Queue()  # message texts, and _Resume/_Failed (see pump)
         self.dropped = 0
         self.closed = False
-        self.task: asyncio.Task | None = None
+        self.task: asyncio.Task[None] | None = None
         self.group: Group | None = None
         self.idle = False  # its pump waits on an empty queue: the broadcaster writes to the socket itself
 

@@ -64,7 +64,7 @@ class Followup:
         self._built: dict[str, tuple[int, int]] = {e["kind"]: tuple(e["basis"]) for e in list_reports(self.root)
                                                    if isinstance(e.get("basis"), list)}
         self._pending: dict[str, tuple[int, int]] = {}
-        self._tasks: set[asyncio.Task] = set()
+        self._tasks: set[asyncio.Task[None]] = set()
         self._second: tuple[int, int] | None = None
         ids = tuple(p.id for p in runner.roster.players)
         rules: list[Any] = []

@@ -87,7 +87,7 @@ return 1
 class _SinkQueue:
     """Looks like a subscriber's queue to the broadcaster; feeds the match's publish queue."""
 
-    def __init__(self, sink: Sink, out: asyncio.Queue) -> None:
+    def __init__(self, sink: Sink, out: asyncio.Queue[tuple[Sink, str | None]]) -> None:
         self.sink, self.out = sink, out
 
     def qsize(self) -> int:
@@ -100,13 +100,14 @@ class _SinkQueue:
 class Sink(Subscriber):
     """The one 'subscriber' of a stream on the aggregator: Redis, on behalf of every gateway."""
 
-    def __init__(self, match_id: str, stream: str, out: asyncio.Queue, maxlen: int) -> None:
+    def __init__(self, match_id: str, stream: str, out: asyncio.Queue[tuple[Sink, str | None]], maxlen: int) -> None:
         super().__init__(self._never, 1)
         self.stream = stream
         self.channel = keys.out_channel(match_id, stream)
         self.buffer_key = keys.out_buffer(match_id, stream)
         self.snapshot_key = keys.out_snapshot(match_id, stream)
         self.maxlen = maxlen
+        # duck-typed: the broadcaster only calls qsize and put_nowait on a sink's queue
         self.queue = _SinkQueue(self, out)  # type: ignore[assignment]
         self.wanted_until = 0.0
 
@@ -128,7 +129,7 @@ class AggMatch:
         self.hr_last_id = b"0-0"  # heart-rate entries applied up to here
         self.out: asyncio.Queue[tuple[Sink, str | None]] = asyncio.Queue()
         self.sinks: dict[str, Sink] = {}
-        self.tasks: list[asyncio.Task] = []
+        self.tasks: list[asyncio.Task[None]] = []
         self.lost = asyncio.Event()
         self.stopped = False
         self.last_checkpoint = time.monotonic()
@@ -262,7 +263,7 @@ class AggMatch:
                 return
             got = {key: entries for key, entries in resp if entries}
             hr = got.pop(hr_key, [])
-            entries = next(iter(got.values()), [])
+            entries: list[Any] = next(iter(got.values()), [])
             if hr and self._apply_hr(hr) and not entries:
                 r.broadcaster.invalidate()
                 r.broadcaster.tick()
@@ -447,7 +448,7 @@ class Aggregator:
         self.publish = redis.register_script(_PUBLISH)
         self._renew = redis.register_script(_RENEW)
         self._release = redis.register_script(_RELEASE)
-        self._tasks: list[asyncio.Task] = []
+        self._tasks: list[asyncio.Task[None]] = []
 
     async def run(self) -> None:
         self._tasks = [asyncio.create_task(self._want_listener(), name="agg-wants")]

@@ -29,7 +29,7 @@ from pacewire.events import check_event
 from pacewire.live.matches import SetupConflict
 from pacewire.params import heart_params
 from pacewire.scale import keys
-from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message, parse_setup
+from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, GateCheckpoint, parse_message, parse_setup
 from pacewire.wire.heart import HrDecoder, HrGate
 from pacewire.wire.outcome import IngestOutcome
 
@@ -196,7 +196,7 @@ class StreamIngest:
         return IngestOutcome.unstored()
 
     async def _append(self, match_id: str, m: IngestMatch, res: DecodeResult, raw: list[bytes],
-                      cp: tuple) -> IngestOutcome:
+                      cp: GateCheckpoint) -> IngestOutcome:
         out = IngestOutcome(len(res.block), res.rejected, res.duplicates, res.late, list(res.errors))
         key = keys.frames(match_id)
         arrival = b"%.6f" % time.time()
@@ -271,10 +271,11 @@ class StreamIngest:
                 except RedisError as exc:
                     return self._unstored(match_id, exc)
                 cp = dec.gate.checkpoint()
-                if objs is None:
-                    res = dec.decode_lines(data)  # type: ignore[arg-type]
-                    raw = [data[i].strip() for i in res.accepted]  # type: ignore[index]
+                if isinstance(data, list):  # JSON Lines (objs is None)
+                    res = dec.decode_lines(data)
+                    raw = [data[i].strip() for i in res.accepted]
                 else:
+                    assert objs is not None  # parsed above
                     res = dec.decode_objects(objs)
                     raw = [orjson.dumps(objs[i]) for i in res.accepted]
                 out = IngestOutcome(len(res), res.rejected, res.duplicates, res.late, res.errors)

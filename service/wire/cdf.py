@@ -147,6 +147,12 @@ class SetupError(PacewireError, ValueError):
     code = "bad_setup"
 
 
+def _team_name(meta: CdfMeta, sheet: CdfSheet, side: str) -> str:
+    """The sheet's team name, else the meta's, else the sheet's short name."""
+    team = getattr(sheet.teams, side)
+    return team.name or getattr(meta.teams, side).name or team.short_name or ""
+
+
 def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
                       gnss_tolerances: tuple[float, float] = (0.01, 1.0)) -> Roster:
     """Build the engine roster; the sheet's team ids must equal the meta's.
@@ -171,8 +177,7 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
                 is_starter=p.is_starter, name=name, max_speed_ms=p.max_speed_ms,
                 hr_max_bpm=p.hr_max_bpm, hr_rest_bpm=p.hr_rest_bpm, sex=p.sex,
             ))
-    names = tuple(getattr(sheet.teams, s).name or getattr(meta.teams, s).name
-                  or getattr(sheet.teams, s).short_name or "" for s in ("home", "away"))
+    names = (_team_name(meta, sheet, "home"), _team_name(meta, sheet, "away"))
     venue = meta.venue
     length, width = venue.pitch_length or 105.0, venue.pitch_width or 68.0
     cal = projection = None
@@ -186,7 +191,7 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
     return Roster(
         match_id=mid, team_ids=team_ids, players=tuple(players), fps=meta.meta.tracking.fps,
         pitch_length_m=length, pitch_width_m=width,
-        team_names=names, gnss_pitch=cal, projection=projection,  # type: ignore[arg-type]
+        team_names=names, gnss_pitch=cal, projection=projection,
     )
 
 
@@ -262,6 +267,12 @@ class FrameError:
         return d
 
 
+# last_id, last_t, period, period_t0, last_slot and the length of recent
+GateCheckpoint = tuple[int, float, int, float, int, int]
+# the same with recent and recent_set themselves
+GateState = tuple[int, float, int, float, int, deque[int], set[int]]
+
+
 @dataclass
 class FrameGate:
     """Ordering state across decode calls: drops duplicate and late frames."""
@@ -287,21 +298,21 @@ class FrameGate:
             raise Reject("bad_timestamp", "timestamp is less than one frame period after the previous frame")
         return slot
 
-    def checkpoint(self) -> tuple:
+    def checkpoint(self) -> GateCheckpoint:
         return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, len(self.recent))
 
-    def restore(self, cp: tuple) -> None:
+    def restore(self, cp: GateCheckpoint) -> None:
         """Undo admissions since ``checkpoint()`` (frames that could not be recorded)."""
         self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, n = cp
         while len(self.recent) > n:
             self.recent_set.discard(self.recent.pop())
 
-    def save(self) -> tuple:
+    def save(self) -> GateState:
         """Everything, for :meth:`load` (checkpoint/restore undo a few admissions, not a batch)."""
         return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, deque(self.recent),
                 set(self.recent_set))
 
-    def load(self, saved: tuple) -> None:
+    def load(self, saved: GateState) -> None:
         (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, recent, recent_set) = saved
         self.recent, self.recent_set = deque(recent), set(recent_set)
 
@@ -476,7 +487,9 @@ class FrameDecoder:
                 self._bulk_pause = _BULK_PAUSE
             elif self._bulk_pause:
                 self._bulk_pause -= 1
-            return self._decode_objects(objs, lines)  # type: ignore[return-value]
+            res = self._decode_objects(objs, lines)
+            assert res is not None  # only a bulk pass gives up
+            return res
         finally:
             self._projected = {}  # keyed by object ids: valid for this batch only
 
@@ -497,14 +510,15 @@ class FrameDecoder:
         gate = self.gate
         for k, obj in enumerate(objs):
             line = lines[k] if lines is not None else None
-            fid = obj.get("frame_id") if type(obj) is dict else None
-            fid_known = fid if type(fid) is int else None
+            raw_fid = obj.get("frame_id") if type(obj) is dict else None
+            fid_known = raw_fid if type(raw_fid) is int else None
             mark = len(s_f)
             try:
                 if type(obj) is not dict:
                     raise Reject("bad_type", f"a frame must be a JSON object, got {type(obj).__name__}")
                 if fid_known is None:
-                    raise Reject("missing_field" if fid is None else "bad_type", "frame_id must be an integer")
+                    raise Reject("missing_field" if raw_fid is None else "bad_type", "frame_id must be an integer")
+                fid = fid_known
                 if fid < 0:
                     raise Reject("bad_value", f"frame_id {fid} is negative (CDF frame ids count from 0)")
                 t = self._check_frame(obj)
@@ -638,6 +652,8 @@ class FrameDecoder:
         (one vectorised call per team and frame); entries without them use x/y."""
         gnss: list[tuple[int, str, float, float, int]] = []
         plain: list[Any] = []
+        lat: Any  # JSON values, checked by type() below
+        lon: Any
         for pl in plist:
             if type(pl) is not dict:
                 raise Reject("bad_type", "a player entry must be an object")
@@ -656,8 +672,9 @@ class FrameDecoder:
         if not gnss:
             return
         done = [self._projected.get(g[4]) for g in gnss]
-        if all(d is not None for d in done):
-            xs, ys = np.array([d[0] for d in done]), np.array([d[1] for d in done])  # type: ignore[index]
+        known = [d for d in done if d is not None]
+        if len(known) == len(done):
+            xs, ys = np.array([d[0] for d in known]), np.array([d[1] for d in known])
         else:
             xs, ys = self.projection.to_pitch(np.array([g[2] for g in gnss]), np.array([g[3] for g in gnss]))
         bad = np.flatnonzero((np.abs(xs) > self.x_lim) | (np.abs(ys) > self.y_lim))
@@ -677,6 +694,8 @@ class FrameDecoder:
         keys: list[int] = []
         lats: list[float] = []
         lons: list[float] = []
+        lat: Any  # JSON values, checked by type() below
+        lon: Any
         for obj in objs:
             teams = obj.get("teams") if type(obj) is dict else None
             if type(teams) is not dict:

@@ -165,12 +165,14 @@ def _angle_deg(u: np.ndarray, v: np.ndarray) -> float:
 
 
 _SIDE_PAIRS = (("touchlines", (0, 1), (3, 2)), ("goal lines", (0, 3), (1, 2)))  # corner indices of opposite sides
+# label, corners (a0, a1), length a, corners (b0, b1), length b, their difference as a share of the mean
+SideFault = tuple[str, tuple[int, int], float, tuple[int, int], float, float]
 
 
-def _faults(p: np.ndarray, side_tolerance: float):
+def _faults(p: np.ndarray, side_tolerance: float) -> tuple[list[SideFault], list[float], bool]:
     """The corner form's measurements: (side faults [(label, (a0, a1), la, (b0, b1), lb, share)], the four
     corner angles in degrees, whether x_min_y_max lies on the +y side of x_min_y_min)."""
-    sides = []
+    sides: list[SideFault] = []
     for label, (a0, a1), (b0, b1) in _SIDE_PAIRS:
         la, lb = float(np.hypot(*(p[a1] - p[a0]))), float(np.hypot(*(p[b1] - p[b0])))
         share = abs(la - lb) / ((la + lb) / 2)

@@ -35,7 +35,7 @@ from pacewire.wire.messages import CONTRACT_VERSION
 
 JSON_SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
 
-Period = Literal[PERIODS]  # type: ignore[valid-type]
+Period = Literal[PERIODS]  # type: ignore[valid-type]  # mypy reads no Literal of a run-time tuple
 WINDOW_KEY = r"^(last_[0-9]+min|peak_[0-9]+min|block_[0-9]+_[0-9]+)$"
 LAST_WINDOW_KEY = r"^last_[0-9]+min$"
 ZONE_KEY = r"^[0-9]+(\.[0-9]+)?(-[0-9]+(\.[0-9]+)?%?|%?\+)$"
@@ -245,6 +245,7 @@ class Envelope(_Shape):
     seq: int = Field(ge=0, description="Position in this subscription's stream: one more per message; 0 on errors.")
     match_time_s: float = Field(ge=0, description="Match clock of the state the message reflects, s.")
     period: Period | None = Field(description="Current period; null before the first frame.")
+    # mypy reads no Literal of a name
     v: Literal[CONTRACT_VERSION] = Field(  # type: ignore[valid-type]
         description="Contract major version; within it fields are only added, never removed or renamed.")
 
@@ -317,12 +318,12 @@ def partial(model: type[BaseModel], suffix: str = "Delta") -> type[BaseModel]:
         origin = typing.get_origin(tp)
         args = typing.get_args(tp)
         if origin is Annotated:
-            return Annotated[(conv(args[0]), *tp.__metadata__)]  # type: ignore[misc]
+            return Annotated[(conv(args[0]), *tp.__metadata__)]
         if origin in (Union, types.UnionType):
             # a Union of a run-time tuple has no X | Y spelling
-            return Union[tuple(conv(a) for a in args)]  # type: ignore[return-value]  # noqa: UP007
+            return Union[tuple(conv(a) for a in args)]  # noqa: UP007
         if origin is dict:
-            return dict[args[0], conv(args[1]) | None]  # type: ignore[index]
+            return types.GenericAlias(dict, (args[0], conv(args[1]) | None))
         return tp
 
     def make(m: type[BaseModel]) -> type[BaseModel]:
@@ -353,6 +354,7 @@ class DeltaMessage(Envelope):
     Apply it by merging nested objects; a null value means the key went away."""
 
     type: Literal["delta"]
+    # models made at run time by partial(): mypy cannot read them as types
     players: dict[str, PlayerDelta | None] | None = None  # type: ignore[valid-type]
     teams: dict[str, TeamDelta | None] | None = None  # type: ignore[valid-type]
     health: HealthDelta | None = None  # type: ignore[valid-type]
@@ -368,8 +370,8 @@ MESSAGES: dict[str, type[Envelope]] = {
     "error": ErrorMessage,
 }
 
-# a Union of a run-time tuple has no X | Y spelling
-Message = Annotated[Union[tuple(MESSAGES.values())], Field(discriminator="type")]  # type: ignore[valid-type]  # noqa: UP007
+# built at run time from MESSAGES: a value for TypeAdapter, not an annotation (and with no X | Y spelling)
+Message: Any = Annotated[Union[tuple(MESSAGES.values())], Field(discriminator="type")]  # noqa: UP007
 
 
 # -- JSON Schema --------------------------------------------------------------------------------------
