@@ -1,4 +1,4 @@
-# pacewire: `make demo`, `make test`, `make bench`; each creates .venv if missing.
+# pacewire: `make demo`, `make test` (lint, typecheck, pytest), `make bench`; each creates .venv if missing.
 PYTHON ?= python3
 VENV   := .venv
 PY     := $(VENV)/bin/python
@@ -20,14 +20,13 @@ test: lint typecheck
 lint: $(STAMP)
 	$(PY) -m ruff check service replay tests
 
-# mypy cannot follow setuptools' package-dir (pacewire is service/, pacewire.replay is replay/):
-# it checks a tree of links under build/ that has the installed layout, rebuilt each run
+# mypy cannot follow setuptools' package-dir (pacewire is service/, pacewire.replay is replay/), so it
+# checks a tree of links with the installed layout, made anew each run; messages name pacewire/... files
 TYPECHECK := build/typecheck
 typecheck: $(STAMP)
-	rm -rf $(TYPECHECK)/pacewire
-	mkdir -p $(TYPECHECK)/pacewire
-	ln -s $(addprefix $(CURDIR)/,$(wildcard service/*)) $(TYPECHECK)/pacewire/
-	ln -s $(CURDIR)/replay $(TYPECHECK)/pacewire/replay
+	@rm -rf $(TYPECHECK)/pacewire && mkdir -p $(TYPECHECK)/pacewire
+	@ln -s $(addprefix $(CURDIR)/,$(wildcard service/*)) $(TYPECHECK)/pacewire/
+	@ln -s $(CURDIR)/replay $(TYPECHECK)/pacewire/replay
 	cd $(TYPECHECK) && $(CURDIR)/$(PY) -m mypy --config-file $(CURDIR)/pyproject.toml -p pacewire
 
 bench: $(STAMP)
