@@ -19,13 +19,22 @@ from pacewire.engine.blocks import clock_block, window_coverage
 from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import BALL_IN, PERIOD_INDEX, Block
+from pacewire.params import match_params
 from pacewire.reports.alerts import Alerter, Band
 from pacewire.store import history
 from pacewire.store.record import MatchRecord
-from pacewire.params import match_params
 from pacewire.wire.cdf import parse_setup
-from pacewire.wire.rules import (Caps, DropOffBaseline, DropOffPeak, LoadBudget, RulesError, check_rules, load_rules,
-                                 load_budgets, parse_budgets)
+from pacewire.wire.rules import (
+    Caps,
+    DropOffBaseline,
+    DropOffPeak,
+    LoadBudget,
+    RulesError,
+    check_rules,
+    load_budgets,
+    load_rules,
+    parse_budgets,
+)
 
 FPS = 25
 N_HOME, N_AWAY = 3, 2  # h1 and a1 are goalkeepers

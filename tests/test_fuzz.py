@@ -25,7 +25,7 @@ from websockets.sync.client import connect
 import cdf_build as cb
 from live_server import LiveServer
 from pacewire.analyze import analyze_folder
-from pacewire.config import ConfigError, settings_from_dict, load_settings
+from pacewire.config import ConfigError, load_settings, settings_from_dict
 from pacewire.wire.rules import RulesError, load_budgets, load_rules
 
 FPS = 25

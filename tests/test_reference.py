@@ -30,12 +30,12 @@ from hypothesis import given, settings as hsettings, strategies as st
 from scipy.integrate import cumulative_trapezoid
 
 import cdf_build as cb
-from pacewire.replay import kloppy_cdf as kc
 from pacewire.analyze import new_match
 from pacewire.config import load_settings
 from pacewire.engine.exertion import metabolic_power, minetti_cost
 from pacewire.engine.kinematics import Track
 from pacewire.engine.snapshot import build_snapshot
+from pacewire.replay import kloppy_cdf as kc
 from pacewire.wire.cdf import SetupError
 
 FPS = 25

@@ -15,8 +15,8 @@ import pytest
 
 import cdf_build as cb
 from live_server import LiveServer
-from pacewire.replay.player import replay
 from pacewire.analyze import analyze_folder
+from pacewire.replay.player import replay
 
 FPS = 25
 IDS = cb.player_ids(2, 2)

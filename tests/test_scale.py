@@ -16,8 +16,8 @@ import websockets
 
 import cdf_build as cb
 from live_server import LiveServer
-from redis_server import RedisServer, cli, redis_available
 from pacewire.analyze import analyze_folder
+from redis_server import RedisServer, cli, redis_available
 from test_live import FPS, IDS, apply, frames, setup_body, stream
 
 if not redis_available():

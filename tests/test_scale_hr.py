@@ -20,8 +20,8 @@ import websockets
 
 import cdf_build as cb
 from live_server import LiveServer
-from redis_server import RedisServer, cli, redis_available
 from pacewire.analyze import analyze_folder
+from redis_server import RedisServer, cli, redis_available
 from test_scale import Cluster, collect, replay_state
 from test_wearables import _figures, _jog, _send_ws, hr_samples, one_team_frames, wearable_meta, wearable_sheet
 

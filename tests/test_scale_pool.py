@@ -16,8 +16,8 @@ import pytest
 import websockets
 
 from live_server import LiveServer
-from redis_server import RedisServer, redis_available
 from pacewire.scale import keys
+from redis_server import RedisServer, redis_available
 from test_live import setup_body
 
 if not redis_available():

@@ -25,9 +25,9 @@ import pytest
 from cdf.validators.custom import ValidationWarning
 
 from live_server import LiveServer
+from pacewire.analyze import analyze_folder
 from pacewire.replay import synth
 from pacewire.replay.player import Progress, replay
-from pacewire.analyze import analyze_folder
 from pacewire.wire.gnss import PitchProjection, parse_calibration
 
 HR_LOW_BPM, HR_HIGH_BPM = 40, 215  # common practice: athletes' resting HR rarely below ~40, HRmax rarely above ~210

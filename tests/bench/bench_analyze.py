@@ -20,8 +20,8 @@ import orjson
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from pacewire.replay.synth import write_match  # noqa: E402
 from pacewire.analyze import analyze_folder  # noqa: E402
+from pacewire.replay.synth import write_match  # noqa: E402
 
 
 def _match_seconds(folder: Path) -> float:

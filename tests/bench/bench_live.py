@@ -715,6 +715,7 @@ def measure(plan: list[Case], lines: list[bytes], tmp: Path, baseline: bool = Tr
     """Each case against the baseline server, then against pacewire, one after the other, so that
     both see the same load from the rest of the machine. Both feeds run all along."""
     import httpx
+
     from live_server import free_port
 
     port = free_port()

@@ -50,10 +50,9 @@ for _p in (_HERE, _HERE.parent):
 
 from bench_live import FPS, MATCH, feed_lines, setup_body  # noqa: E402
 from live_server import LiveServer  # noqa: E402
-from redis_server import RedisServer, redis_available  # noqa: E402
-
 from pacewire.scale import keys  # noqa: E402
 from pacewire.scale.aggregator import GROUP  # noqa: E402
+from redis_server import RedisServer, redis_available  # noqa: E402
 
 CTX = mp.get_context("fork")  # load generators start at once and inherit the prebuilt frames
 CLK = os.sysconf("SC_CLK_TCK")
