@@ -6,8 +6,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import orjson
-from fastapi import Path as PathParam
-from fastapi import Request
+from fastapi import Path as PathParam, Request
 
 from pacewire.api.errors import ApiError, unknown_match
 from pacewire.engine.types import Roster
