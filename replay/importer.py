@@ -9,8 +9,9 @@ from __future__ import annotations
 import argparse
 import sys
 import warnings
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 # format name → (kloppy module, loader, keyword for SOURCE, keyword for --meta or None)
 FORMATS: dict[str, tuple[str, str, str, str | None]] = {
@@ -34,7 +35,8 @@ def _loader(fmt: str) -> Callable[..., Any]:
         module = importlib.import_module(FORMATS[fmt][0])
     except ModuleNotFoundError as exc:
         if exc.name and exc.name.split(".")[0] == "kloppy":
-            raise ImportErrorKloppy("pacewire import needs kloppy: pip install 'pacewire[import]' (or pip install kloppy)") from None
+            raise ImportErrorKloppy("pacewire import needs kloppy: pip install 'pacewire[import]' "
+                                    "(or pip install kloppy)") from None
         raise
     return getattr(module, FORMATS[fmt][1])
 
@@ -71,7 +73,8 @@ def import_recording(source: Path, fmt: str, out: Path, meta: Path | None = None
 
 
 def main(argv: list[str] | None = None) -> int:
-    p = argparse.ArgumentParser(prog="pacewire import", description="Convert a recording kloppy reads into a CDF folder.")
+    p = argparse.ArgumentParser(prog="pacewire import",
+                                description="Convert a recording kloppy reads into a CDF folder.")
     p.add_argument("source", type=Path, help="the tracking data file (for metrica_csv: the home team's file)")
     p.add_argument("--format", required=True, choices=sorted(FORMATS))
     p.add_argument("--meta", type=Path, help="the provider's metadata file (for metrica_csv: the away team's file)")

@@ -15,14 +15,15 @@ kloppy is imported where it is used, so importing this module costs nothing.
 from __future__ import annotations
 
 import math
-from datetime import datetime, timedelta, timezone
+from collections.abc import Iterator
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Iterator
+from typing import TYPE_CHECKING, Any
 
 import orjson
 
 if TYPE_CHECKING:
-    from kloppy.domain import TrackingDataset
+    from kloppy.domain import CustomCoordinateSystem, TrackingDataset
 
 CDF_VERSION = "0.3.2"
 # kloppy period ids → CDF period names (Anzer et al. 2025).
@@ -31,10 +32,10 @@ CDF_PERIODS = {1: "first_half", 2: "second_half", 3: "first_half_extratime", 4: 
 # kloppy position groups → CDF position_group values.
 CDF_POSITION_GROUPS = {"Goalkeeper": "GK", "Defender": "DF", "Midfielder": "MF", "Attacker": "FW"}
 # Used when a provider gives periods relative to an unknown kick-off (a fictional date).
-_FALLBACK_KICKOFF = datetime(2000, 1, 1, tzinfo=timezone.utc)
+_FALLBACK_KICKOFF = datetime(2000, 1, 1, tzinfo=UTC)
 
 
-def cdf_coordinate_system(pitch_length_m: float, pitch_width_m: float):
+def cdf_coordinate_system(pitch_length_m: float, pitch_width_m: float) -> CustomCoordinateSystem:
     """kloppy coordinate system equal to CDF's: metres, origin at the centre spot, y up."""
     from kloppy.domain import CustomCoordinateSystem, Dimension, MetricPitchDimensions, Origin, VerticalOrientation
 
@@ -47,19 +48,19 @@ def cdf_coordinate_system(pitch_length_m: float, pitch_width_m: float):
                                   pitch_dimensions=dims)
 
 
-def pitch_size(dataset: "TrackingDataset") -> tuple[float, float]:
+def pitch_size(dataset: TrackingDataset) -> tuple[float, float]:
     """The dataset's real pitch size in metres; 105 x 68 when the provider gives none (common practice)."""
     cs = dataset.metadata.coordinate_system
     return float(cs.pitch_length or 105.0), float(cs.pitch_width or 68.0)
 
 
-def to_cdf_coordinates(dataset: "TrackingDataset") -> "TrackingDataset":
+def to_cdf_coordinates(dataset: TrackingDataset) -> TrackingDataset:
     """The same dataset with positions in CDF coordinates (metres, centre origin, y up)."""
     length, width = pitch_size(dataset)
     return dataset.transform(to_coordinate_system=cdf_coordinate_system(length, width))
 
 
-def _sides(dataset: "TrackingDataset") -> list[tuple[str, Any]]:
+def _sides(dataset: TrackingDataset) -> list[tuple[str, Any]]:
     """[("home", team), ("away", team)] from the teams' grounds."""
     from kloppy.domain import Ground
 
@@ -88,13 +89,13 @@ def _utc(value: Any) -> datetime:
     if isinstance(value, timedelta):
         return _FALLBACK_KICKOFF + value
     if value.tzinfo is None:
-        return value.replace(tzinfo=timezone.utc)
-    return value.astimezone(timezone.utc)
+        return value.replace(tzinfo=UTC)
+    return value.astimezone(UTC)
 
 
 def _stamp(dt: datetime) -> str:
     """RFC 3339 UTC with milliseconds and a trailing Z (the CDF validator's form)."""
-    return dt.astimezone(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
+    return dt.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
 
 
 def _players(team: Any) -> list[dict[str, Any]]:
@@ -115,7 +116,7 @@ def _players(team: Any) -> list[dict[str, Any]]:
     return out
 
 
-def play_directions(dataset: "TrackingDataset") -> dict[int, str]:
+def play_directions(dataset: TrackingDataset) -> dict[int, str]:
     """Home team's direction of play per kloppy period id: "left_right" or "right_left".
 
     From the data where the period has frames (the home team's mean x in its first frame:
@@ -153,7 +154,7 @@ def play_directions(dataset: "TrackingDataset") -> dict[int, str]:
     return out
 
 
-def meta(dataset: "TrackingDataset", match_id: str | None = None) -> dict[str, Any]:
+def meta(dataset: TrackingDataset, match_id: str | None = None) -> dict[str, Any]:
     """CDF meta object (with rosters and play directions, so the CDF validator accepts it).
 
     Needs a dataset in CDF coordinates (for the play directions).
@@ -189,7 +190,7 @@ def meta(dataset: "TrackingDataset", match_id: str | None = None) -> dict[str, A
     }
 
 
-def sheet(dataset: "TrackingDataset") -> dict[str, Any]:
+def sheet(dataset: TrackingDataset) -> dict[str, Any]:
     """The live subset of a CDF match sheet: teams and their players."""
     return {"teams": {side: {"id": str(t.team_id), "name": t.name, "players": _players(t)}
                       for side, t in _sides(dataset)}}
@@ -202,7 +203,7 @@ def _num(v: Any) -> float | None:
     return None if math.isnan(v) else v
 
 
-def frames(dataset: "TrackingDataset", match_id: str | None = None, renumber: bool = True) -> Iterator[dict[str, Any]]:
+def frames(dataset: TrackingDataset, match_id: str | None = None, renumber: bool = True) -> Iterator[dict[str, Any]]:
     """CDF frames from a dataset already in CDF coordinates (see ``to_cdf_coordinates``).
 
     ``renumber``: frame ids from 0 (the CDF validator's whole-file rule); else the provider's ids.
@@ -241,7 +242,7 @@ def frames(dataset: "TrackingDataset", match_id: str | None = None, renumber: bo
                "period": CDF_PERIODS[fr.period.id], "match": {"id": mid}, "teams": teams, "ball": ball}
 
 
-def provider_figures(dataset: "TrackingDataset") -> dict[str, dict[str, Any]]:
+def provider_figures(dataset: TrackingDataset) -> dict[str, dict[str, Any]]:
     """The provider's own per-player figures, where it supplies per-sample speed and distance.
 
     ``distance_m``: sum of the provider's per-sample distance (None if it gives none);
@@ -260,7 +261,7 @@ def provider_figures(dataset: "TrackingDataset") -> dict[str, dict[str, Any]]:
     return out
 
 
-def write_folder(dataset: "TrackingDataset", folder: Path, match_id: str | None = None) -> Path:
+def write_folder(dataset: TrackingDataset, folder: Path, match_id: str | None = None) -> Path:
     """A CDF recording folder (meta.json, match.json, tracking.jsonl) from a dataset in CDF coordinates."""
     folder.mkdir(parents=True, exist_ok=True)
     (folder / "meta.json").write_bytes(orjson.dumps(meta(dataset, match_id)))

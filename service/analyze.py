@@ -2,13 +2,13 @@
 from __future__ import annotations
 
 import sys
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 
-from pacewire.wire.recording import Recording, open_recording
 from pacewire.config import Settings, load_settings
 from pacewire.engine.match import CLOCK_START_MIN, MatchState
 from pacewire.engine.snapshot import build_snapshot
@@ -18,6 +18,7 @@ from pacewire.events import applies_by, apply_event
 from pacewire.params import match_params
 from pacewire.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
 from pacewire.wire.heart import HrDecoder
+from pacewire.wire.recording import Recording, open_recording
 
 
 @dataclass
@@ -99,7 +100,8 @@ def print_table(snapshot: dict[str, Any], out: Any = sys.stdout) -> None:
             ("min", "minutes", "{:>6.1f}"), ("dist m", "distance_m", "{:>8.0f}"), ("m/min", "m_per_min", "{:>6.1f}"),
             ("HSR m", "hsr_m", "{:>6.0f}"), ("spr m", "sprint_m", "{:>6.0f}"), ("HSR#", "hsr_efforts", "{:>5}"),
             ("spr#", "sprints", "{:>5}"), ("acc", "accels", "{:>4}"), ("dec", "decels", "{:>4}"),
-            ("vmax", "max_speed_ms", "{:>5.2f}"), ("W/kg", "metabolic_power_wkg", "{:>5.2f}"), ("cov", "coverage", "{:>5.2f}")]
+            ("vmax", "max_speed_ms", "{:>5.2f}"), ("W/kg", "metabolic_power_wkg", "{:>5.2f}"),
+            ("cov", "coverage", "{:>5.2f}")]
     head = "  ".join(f"{h:>{len(fmt.format(0) if 'f' in fmt or '>' in fmt else h)}}" for h, _, fmt in cols)
     print(head, file=out)
     players = sorted(snapshot["players"].items(), key=lambda kv: (kv[1]["team_id"], kv[1]["jersey_number"]))

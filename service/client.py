@@ -30,7 +30,8 @@ from __future__ import annotations
 import asyncio
 import queue
 import threading
-from typing import Any, AsyncIterator, Callable, Iterator
+from collections.abc import AsyncGenerator, AsyncIterator, Callable, Iterator
+from typing import Any
 from urllib.parse import urlencode, urlsplit, urlunsplit
 
 import orjson
@@ -105,13 +106,13 @@ class Subscription:
             await self._iter.aclose()
             self._iter = None
 
-    async def __aenter__(self) -> "Subscription":
+    async def __aenter__(self) -> Subscription:
         return self
 
     async def __aexit__(self, *exc: Any) -> None:
         await self.aclose()
 
-    async def _messages(self) -> AsyncIterator[dict[str, Any]]:
+    async def _messages(self) -> AsyncGenerator[dict[str, Any], None]:
         stream = self.stream()
         try:
             async for _text, msg in stream:
@@ -119,7 +120,7 @@ class Subscription:
         finally:
             await stream.aclose()  # closes the socket
 
-    async def stream(self) -> AsyncIterator[tuple[str, dict[str, Any]]]:
+    async def stream(self) -> AsyncGenerator[tuple[str, dict[str, Any]], None]:
         """(raw text, message) of every message applied, in seq order, across reconnects."""
         failures = 0
         while True:
@@ -148,13 +149,14 @@ class Subscription:
             except InvalidStatus as exc:
                 status = exc.response.status_code
                 if 400 <= status < 500:  # the server will not change its mind: no retry
-                    raise SubscriptionError(f"http_{status}", f"the server refused the WebSocket handshake ({status})") from None
+                    raise SubscriptionError(f"http_{status}",
+                                            f"the server refused the WebSocket handshake ({status})") from None
                 failures += 1
                 if self.max_attempts is not None and failures >= self.max_attempts:
                     raise
             except InvalidURI:
                 raise
-            except (OSError, asyncio.TimeoutError, InvalidHandshake):
+            except (TimeoutError, OSError, InvalidHandshake):
                 failures += 1
                 if self.max_attempts is not None and failures >= self.max_attempts:
                     raise
@@ -212,7 +214,7 @@ class SyncSubscription:
         self.state: dict[str, Any] | None = None
         self.seq: int | None = None
         self._loop = asyncio.new_event_loop()
-        self._task: asyncio.Task | None = None
+        self._task: asyncio.Task[None] | None = None
         self._ready = threading.Event()
         self._thread = threading.Thread(target=self._main, name=f"pacewire-client:{match_id}", daemon=True)
         self._thread.start()
@@ -269,7 +271,7 @@ class SyncSubscription:
                 pass
         self._thread.join(10)
 
-    def __enter__(self) -> "SyncSubscription":
+    def __enter__(self) -> SyncSubscription:
         return self
 
     def __exit__(self, *exc: Any) -> None:

@@ -5,6 +5,7 @@ start-up with a message naming the key (``kinematics.smooth_order: ...``).
 """
 from __future__ import annotations
 
+from itertools import pairwise
 from pathlib import Path
 from typing import Any, Literal
 
@@ -44,7 +45,7 @@ class HeartProfileModel(_Section):
     sex: Literal["male", "female"] | None = None
 
     @model_validator(mode="after")
-    def _rest_below_max(self) -> "HeartProfileModel":
+    def _rest_below_max(self) -> HeartProfileModel:
         if self.hr_max_bpm is not None and self.hr_rest_bpm is not None and self.hr_rest_bpm >= self.hr_max_bpm:
             raise ValueError("hr_rest_bpm must be below hr_max_bpm")
         return self
@@ -77,9 +78,9 @@ class HeartRate(_Section):
         return data
 
     @model_validator(mode="after")
-    def _increasing(self) -> "HeartRate":
+    def _increasing(self) -> HeartRate:
         e = self.zone_edges_pct
-        if any(b <= a for a, b in zip(e, e[1:])) or e[0] <= 0 or e[-1] >= 100:
+        if any(b <= a for a, b in pairwise(e)) or e[0] <= 0 or e[-1] >= 100:
             raise ValueError("zone_edges_pct must be strictly increasing within (0, 100)")
         if self.min_bpm >= self.max_bpm:
             raise ValueError("min_bpm must be below max_bpm")
@@ -110,7 +111,7 @@ class Speed(_Section):
     sprint_ms: float = Field(gt=0, le=15)
 
     @model_validator(mode="after")
-    def _ordered(self) -> "Speed":
+    def _ordered(self) -> Speed:
         if self.sprint_ms <= self.hsr_ms:
             raise ValueError("sprint_ms must be above hsr_ms")
         return self
@@ -139,10 +140,10 @@ class Zones(_Section):
     max_speed_ms: dict[str, float] = Field(default_factory=dict)
 
     @model_validator(mode="after")
-    def _increasing(self) -> "Zones":
+    def _increasing(self) -> Zones:
         for name in ("edges_ms", "edges_pct"):
             edges = getattr(self, name)
-            if any(b <= a for a, b in zip(edges, edges[1:])) or edges[0] <= 0:
+            if any(b <= a for a, b in pairwise(edges)) or edges[0] <= 0:
                 raise ValueError(f"{name} must be positive and strictly increasing")
         if any(not 0 < v <= 15 for v in self.max_speed_ms.values()):
             raise ValueError("max_speed_ms values must be in (0, 15] m/s")
@@ -155,7 +156,7 @@ class Windows(_Section):
     block_min: int = Field(ge=1, le=45)
 
     @model_validator(mode="after")
-    def _positive(self) -> "Windows":
+    def _positive(self) -> Windows:
         if any(m < 1 or m > 120 for m in [*self.last_min, *self.peak_min]):
             raise ValueError("window lengths must be 1..120 minutes")
         return self

@@ -50,11 +50,11 @@ def _check_kind(roster: Roster, kind: str, e: dict[str, Any]) -> None:
         if e.get("period") not in PERIODS:
             raise EventError(f"period must be one of {', '.join(PERIODS)}")
     elif kind == "substitution":
-        off, on = e.get("player_off"), e.get("player_on")
-        for name, pid in (("player_off", off), ("player_on", on)):
+        for name in ("player_off", "player_on"):
+            pid = e.get(name)
             if not isinstance(pid, str) or pid not in players:
                 raise EventError(f"{name} {pid!r} is not in the match sheet")
-        if roster.players[players[off]].team != roster.players[players[on]].team:
+        if roster.players[players[e["player_off"]]].team != roster.players[players[e["player_on"]]].team:
             raise EventError("player_off and player_on play for different teams")
     elif kind == "goal":
         if e.get("team_id") not in roster.team_ids:

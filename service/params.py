@@ -5,6 +5,8 @@ from the validated settings and the match's roster.
 """
 from __future__ import annotations
 
+from itertools import pairwise
+
 import numpy as np
 
 from pacewire.config import Settings
@@ -48,8 +50,8 @@ def heart_params(settings: Settings) -> HeartParams:
     h = settings.heart_rate
     return HeartParams(min_bpm=h.min_bpm, max_bpm=h.max_bpm, max_jump_bpm_s=h.max_jump_bpm_s, jump_reset=h.jump_reset,
                        max_gap_s=h.max_gap_s, expected_hz=h.expected_hz, zone_edges_pct=tuple(h.zone_edges_pct),
-                       edwards_weights=tuple(h.edwards_weights), banister_male=tuple(h.banister_male),
-                       banister_female=tuple(h.banister_female), stale_s=h.stale_s)
+                       edwards_weights=tuple(h.edwards_weights), banister_male=h.banister_male,
+                       banister_female=h.banister_female, stale_s=h.stale_s)
 
 
 def _heart_profiles(roster: Roster, s: Settings) -> tuple[HeartProfile, ...]:
@@ -63,7 +65,7 @@ def _heart_profiles(roster: Roster, s: Settings) -> tuple[HeartProfile, ...]:
         sex = p.sex if p.sex is not None else (f.sex if f else None)
         if hr_max is not None and hr_rest is not None and hr_rest >= hr_max:
             hr_rest = None  # sheet and file disagree: a resting rate above the maximum is not used
-        out.append(HeartProfile(hr_max_bpm=hr_max, hr_rest_bpm=hr_rest, sex=sex))  # type: ignore[arg-type]
+        out.append(HeartProfile(hr_max_bpm=hr_max, hr_rest_bpm=hr_rest, sex=sex))
     return tuple(out)
 
 
@@ -72,9 +74,9 @@ def _speed_zones(roster: Roster, s: Settings) -> SpeedZones:
     z = s.zones
     if z.mode == "absolute":
         edges = np.array(z.edges_ms, float)
-        names = [f"{a:.1f}-{b:.1f}" for a, b in zip([0.0, *edges[:-1]], edges)] + [f"{edges[-1]:.1f}+"]
+        names = [f"{a:.1f}-{b:.1f}" for a, b in pairwise([0.0, *edges])] + [f"{edges[-1]:.1f}+"]
         return SpeedZones(z.mode, edges, np.ones(roster.n), tuple(names))
     pct = np.array(z.edges_pct, float)
     vmax = np.array([z.max_speed_ms.get(p.id) or p.max_speed_ms or z.default_max_speed_ms for p in roster.players])
-    names = [f"{a:g}-{b:g}%" for a, b in zip([0.0, *pct[:-1]], pct)] + [f"{pct[-1]:g}%+"]
+    names = [f"{a:g}-{b:g}%" for a, b in pairwise([0.0, *pct])] + [f"{pct[-1]:g}%+"]
     return SpeedZones(z.mode, pct, vmax / 100.0, tuple(names))

@@ -11,14 +11,15 @@ Errors: methods raise :class:`~pacewire.errors.PacewireError` subclasses whose
 """
 from __future__ import annotations
 
+from collections.abc import Callable, Coroutine
 from pathlib import Path
-from typing import Any, Awaitable, Callable, Protocol
+from typing import Any, Protocol
 
 from pacewire.api.requests import StreamParams
 from pacewire.engine.types import Roster
 from pacewire.wire.outcome import IngestOutcome
 
-Send = Callable[[str], Awaitable[None]]
+Send = Callable[[str], Coroutine[Any, Any, None]]  # a coroutine: the broadcaster may step it itself
 
 
 class MatchWriter(Protocol):

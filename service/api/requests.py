@@ -6,8 +6,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import orjson
-from fastapi import Path as PathParam
-from fastapi import Request
+from fastapi import Path as PathParam, Request
 
 from pacewire.api.errors import ApiError, unknown_match
 from pacewire.engine.types import Roster
@@ -70,7 +69,8 @@ class StreamParams:
             if not math.isfinite(every) or every < low - 1e-9 or every > max_every_s:
                 raise ValueError
         except ValueError:
-            raise ApiError(422, "bad_request", f"every must be a number of seconds from {low:g} to {max_every_s:g}") from None
+            raise ApiError(422, "bad_request",
+                           f"every must be a number of seconds from {low:g} to {max_every_s:g}") from None
         since: int | None = None
         if "since" in query:
             try:

@@ -1,8 +1,9 @@
 """What every role serves beside its data: ``/healthz``, ``/metrics``, and the bench page."""
 from __future__ import annotations
 
+from collections.abc import Awaitable, Callable
 from pathlib import Path
-from typing import Any, Awaitable, Callable
+from typing import Any
 
 from fastapi import APIRouter, FastAPI
 from fastapi.responses import FileResponse, JSONResponse, Response

@@ -111,20 +111,21 @@ class FeedHealth:
         """
         p = self.params
         reasons: list[dict[str, str]] = []
-        if self.last_arrival is None:
+        if self.last_arrival is None or self.first_arrival is None:
             return STALLED, [{"code": "no_frames", "message": "no frames received yet"}]
         idle = now - self.last_arrival
         if idle > p.stall_s:
             return STALLED, [{"code": "no_frames", "message": f"no frame for {idle:.1f} s (limit {p.stall_s:g} s)"}]
-        warmed = now - self.first_arrival >= p.rate_window_s  # type: ignore[operator]
+        warmed = now - self.first_arrival >= p.rate_window_s
         fps = self.fps_observed(now)
         if warmed and fps < p.min_rate_share * self.fps_nominal:
-            reasons.append({"code": "low_rate",
-                            "message": f"frame rate {fps:.1f}/s below {p.min_rate_share:.0%} of nominal {self.fps_nominal}/s"})
+            reasons.append({"code": "low_rate", "message": f"frame rate {fps:.1f}/s below {p.min_rate_share:.0%} "
+                                                          f"of nominal {self.fps_nominal}/s"})
         if dropout > p.max_dropout:
             reasons.append({"code": "dropout", "message": f"dropout {dropout:.0%} above {p.max_dropout:.0%}"})
         excess = self.excess_lag(now)
         if excess is not None and excess > p.max_lag_s:
-            reasons.append({"code": "late_delivery", "message": f"frames arrive {excess:.2f} s later than usual (limit {p.max_lag_s:g} s)"})
+            reasons.append({"code": "late_delivery",
+                            "message": f"frames arrive {excess:.2f} s later than usual (limit {p.max_lag_s:g} s)"})
         reasons.extend(extra_reasons or [])
         return (DEGRADED if reasons else OK), reasons

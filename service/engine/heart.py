@@ -13,10 +13,13 @@ return-to-play and substitution stay with qualified staff.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Literal, Sequence
+from typing import Any
 
 import numpy as np
+
+from pacewire.engine.types import Sex
 
 MICRO = 1_000_000
 _U = 1e-6  # micro-units to units
@@ -33,7 +36,6 @@ HR_BANISTER = HR_EDWARDS + 1  # Banister TRIMP, µ(AU·60)
 HR_N = HR_BANISTER + 1  # samples credited to a period (a count, not micro-units)
 N_HR = HR_N + 1
 
-Sex = Literal["male", "female"]
 PROFILE_SOURCE = "match sheet or heart_rate.profiles_file"
 
 
@@ -67,7 +69,7 @@ class HeartParams:
     def zone_names(self) -> list[str]:
         """``"50-60%"`` ... ``"90-100%"``: the top zone also holds 100 % and above."""
         hi = (*self.zone_edges_pct[1:], 100)
-        return [f"{lo:g}-{h:g}%" for lo, h in zip(self.zone_edges_pct, hi)]
+        return [f"{lo:g}-{h:g}%" for lo, h in zip(self.zone_edges_pct, hi, strict=True)]
 
 
 @dataclass(frozen=True)
@@ -277,7 +279,7 @@ class HeartRate:
         for i in range(self.n):
             t_ok, m_ok = bool(timed[i]), bool(self.has_max[i])
             out["hr_mean_bpm"].append(mean[i] if t_ok else None)
-            out["hr_zones"].append(dict(zip(names, zones[i])) if t_ok and m_ok else None)
+            out["hr_zones"].append(dict(zip(names, zones[i], strict=True)) if t_ok and m_ok else None)
             out["trimp_edwards"].append(edw[i] if t_ok and m_ok else None)
             out["trimp_banister"].append(ban[i] if t_ok and self.has_banister[i] else None)
             out["hr_coverage"].append(cov[i] if onpitch[i] > 0 else None)

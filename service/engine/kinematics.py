@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
@@ -67,10 +68,10 @@ class _Fit:
             self._band[n] = m
         return m
 
-    def __deepcopy__(self, memo: dict) -> "_Fit":
+    def __deepcopy__(self, memo: dict[int, Any]) -> _Fit:
         return self  # read-only: a copied track shares it
 
-    def __reduce__(self) -> tuple:
+    def __reduce__(self) -> tuple[Any, ...]:
         return _fit, (self.window, self.order, self.dt)  # a pickled track carries no matrices
 
 
@@ -105,7 +106,7 @@ class KinematicParams:
 
     @staticmethod
     def make(fps: int, window_s: float, order: int, bridge_s: float, max_step: float, tolerance: float,
-             still: float) -> "KinematicParams":
+             still: float) -> KinematicParams:
         w = max(int(round(window_s * fps)), order + 2)
         if w % 2 == 0:
             w += 1
@@ -440,7 +441,7 @@ class Track:
             self._clean_upto = self.end
             return self._clean_cols
         seen = ~np.isnan(part[:, :, 0])
-        cols = seen[0] if start == 0 else self._clean_cols
+        cols = seen[0] if start == 0 or self._clean_cols is None else self._clean_cols  # start > 0: a mask exists
         if not (seen == cols).all() or (step2 > lim * lim).any():
             self._clean_cols = None
             return None
@@ -482,7 +483,6 @@ class Track:
                 run_e: np.ndarray, xyb: np.ndarray, jumps: np.ndarray) -> Final:
         p = self.p
         w, h = p.window, p.half
-        n_rows = xyb.shape[0]
         rows = np.arange(r0, r1)[:, None]
         v = valid[r0:r1]
         self.jumps += int(jumps[r0:r1].sum())

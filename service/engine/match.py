@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import copy
 from functools import partial
+from itertools import pairwise
 from typing import Any
 
 import numpy as np
@@ -43,6 +44,8 @@ def _widen(a: np.ndarray, k: int, fill: Any, axis: int = 0) -> np.ndarray:
 
 class MatchState:
     """All figures of one match, from its frames."""
+
+    _snapshot_cache: dict[Any, Any]  # pacewire.engine.snapshot's, set by its first snapshot of this state
 
     def __init__(self, roster: Roster, params: MatchParams) -> None:
         if not params.fits(roster.n, roster.fps):
@@ -104,7 +107,7 @@ class MatchState:
             self._step_period(block)
         else:
             bounds = (np.flatnonzero(period[1:] != period[:-1]) + 1).tolist()
-            for a, b in zip([0, *bounds], [*bounds, n]):
+            for a, b in pairwise([0, *bounds, n]):
                 self._step_period(block.take(slice(a, b)))
         if self.heart is not None:
             self._settle_heart()
@@ -127,11 +130,11 @@ class MatchState:
         self._settle_heart()
 
     def _settle_heart(self) -> None:
-        if self.last_t is None:
+        if self.heart is None or self.last_t is None:
             return
         fps = self.fps
         spans = [(p.index, p.t0, p.t0 + (p.last_slot + 1) / fps) for p in self.periods]
-        self.heart.settle(spans, self.last_t)  # type: ignore[union-attr]
+        self.heart.settle(spans, self.last_t)
 
     def _step_period(self, b: Block) -> None:
         idx = int(b.period[0])
@@ -170,9 +173,9 @@ class MatchState:
             ball_poss=np.full((1024, 2), (BALL_UNKNOWN, NO_TEAM), np.int8),
             cols=np.zeros(0, np.int64), unseen=np.arange(self.n), order=np.arange(self.n), team=self.team[:0],
             c_sums=np.zeros((ex.N_FIG, 0), np.int64), c_zones=np.zeros((0, zones.edges.shape[0] + 1), np.int64),
-            c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64), c_max_speed=np.zeros(0), c_first_seen=np.zeros(0, np.int64),
-            c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64), c_last_valid=np.zeros(0, np.int64),
-            c_last_speed=np.zeros(0),
+            c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64), c_max_speed=np.zeros(0),
+            c_first_seen=np.zeros(0, np.int64), c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64),
+            c_last_valid=np.zeros(0, np.int64), c_last_speed=np.zeros(0),
         )
         self.periods.append(per)
         return per
@@ -226,18 +229,12 @@ class MatchState:
             for fin in cur.track.close():
                 self._apply(cur, fin)
 
-    def provisional(self) -> "MatchState":
+    def provisional(self) -> MatchState:
         """A copy with the tail finalised (one-sided fits), for showing a stalled
         feed's figures in full; this state itself is untouched, so frames that
         come later give exactly the figures an offline pass gives. The copy
         shares this state's feed-health bookkeeping."""
-        health = self.health
-        self.health = None  # type: ignore[assignment]
-        try:
-            twin = copy.deepcopy(self)
-        finally:
-            self.health = health
-        twin.health = health
+        twin = copy.deepcopy(self, {id(self.health): self.health})  # the feed health is shared, not copied
         twin.freeze()
         return twin
 
@@ -344,7 +341,8 @@ class MatchState:
         poss = bp[:, 1:2]
         own = poss == per.team[None, :]
         # context 0 in, 1 out of possession, 2 out of play, 3 unknown
-        ctx = np.where(ball == BALL_OUT, 2, np.where(ball != BALL_IN, 3, np.where(own, 0, np.where(poss == NO_TEAM, 3, 1))))
+        in_play = np.where(own, 0, np.where(poss == NO_TEAM, 3, 1))
+        ctx = np.where(ball == BALL_OUT, 2, np.where(ball != BALL_IN, 3, in_play))
         m = ctx.shape[1]
         flat = (np.arange(m) * 4 + ctx).ravel()
         size = 4 * m

@@ -48,7 +48,8 @@ class Period:
     order: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))  # cols, then unseen
     poss_code: int | None = None  # ball state and possession (int16 view) of the blocks in poss_pend
     poss_ctx: tuple[int, int] | None = None  # context of each team for poss_pend
-    zone_bin: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))  # (C,) first bincount bin of each column
+    # (C,) first bincount bin of each column
+    zone_bin: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
 
     @property
     def name(self) -> str:

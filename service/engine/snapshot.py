@@ -11,7 +11,8 @@ cost nothing per frame.
 from __future__ import annotations
 
 import math
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 import numpy as np
 
@@ -55,7 +56,7 @@ def _window_rows(sums: np.ndarray, span_s: np.ndarray, extra: tuple[tuple[str, n
                  _WINDOW_ND + tuple(d for _, _, d in extra))
     keys = [(k, j) for j, (k, _, _) in enumerate(extra, len(_WINDOW_ND))]
     out = []
-    for r, c, o in zip(f, sums[:, _COUNTS].tolist(), ok.tolist()):
+    for r, c, o in zip(f, sums[:, _COUNTS].tolist(), ok.tolist(), strict=True):
         row = {"distance_m": r[0], "hsr_m": r[1], "sprint_m": r[2], "hsr_efforts": c[0], "sprints": c[1],
                "accels": c[2], "decels": c[3], "energy_jkg": r[3], "high_power_m": r[4],
                "m_per_min": r[5] if o else None, "metabolic_power_wkg": r[6] if o else None}
@@ -75,13 +76,13 @@ def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: tuple[str, ...], o
     """Scalar figures + zones per player over one stretch (match or period)."""
     rows = _window_rows(sums, onpitch_s, (("minutes", onpitch_s / 60.0, 2), ("max_speed_ms", max_speed, 2),
                                           ("coverage", coverage, 3)))
-    for row, z in zip(rows, np.round(zones * _U, 1).tolist()):
-        row["zones"] = dict(zip(zone_names, z))
+    for row, z in zip(rows, np.round(zones * _U, 1).tolist(), strict=True):
+        row["zones"] = dict(zip(zone_names, z, strict=True))
     return rows
 
 
-def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable[[Any], list],
-           rebuilt: list[np.ndarray] | None = None) -> list:
+def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable[[Any], list[Any]],
+           rebuilt: list[np.ndarray] | None = None) -> list[Any]:
     """``build(rows)``: one object per row of ``inputs`` (rows, k), which determines it in full. Rows whose
     inputs equal those of the last call under ``name`` come back as the very objects returned then, so a
     diff against the last snapshot skips them at once; only the others are built. Callers never mutate
@@ -95,7 +96,7 @@ def _reuse(cache: dict[Any, Any], name: Any, inputs: np.ndarray, build: Callable
             return hit[1]
         idx = np.flatnonzero(changed)
         rows = list(hit[1])
-        for i, r in zip(idx.tolist(), build(idx)):
+        for i, r in zip(idx.tolist(), build(idx), strict=True):
             rows[i] = r
     else:
         idx = np.arange(inputs.shape[0])
@@ -126,10 +127,10 @@ def _cached_figures(cache: dict[Any, Any], name: Any, state: MatchState, sums: n
                   lambda r: _figures(sums[r], zones[r], names, onpitch_s[r], max_speed[r], coverage[r]))
 
 
-def _rows(cols: dict[str, list], n: int) -> list[dict[str, Any]]:
+def _rows(cols: dict[str, list[Any]], n: int) -> list[dict[str, Any]]:
     keys = list(cols)
     vals = [cols[k] for k in keys]
-    return [dict(zip(keys, [v[i] for v in vals])) for i in range(n)]
+    return [dict(zip(keys, [v[i] for v in vals], strict=True)) for i in range(n)]
 
 
 def _blocks(state: MatchState, per: Period) -> list[tuple[str, int, int]]:
@@ -152,7 +153,7 @@ def _blocks(state: MatchState, per: Period) -> list[tuple[str, int, int]]:
 def _cache(state: MatchState) -> dict[Any, Any]:
     c = getattr(state, "_snapshot_cache", None)
     if c is None:
-        c = state._snapshot_cache = {}  # type: ignore[attr-defined]
+        c = state._snapshot_cache = {}
     return c
 
 
@@ -227,8 +228,8 @@ def _peak_rows(state: MatchState, cache: dict[Any, Any], rebuilt: list[np.ndarra
     peak_names = [f"peak_{w_s // 60}min" for w_s in state.peak_s]
     if not peak_names:
         return peak_names, []
-    best = np.full((len(peak_names), n, ex.N_FIG), -1, np.int64)
-    start_clock = np.full((len(peak_names), n), -1.0)
+    best: np.ndarray = np.full((len(peak_names), n, ex.N_FIG), -1, np.int64)
+    start_clock: np.ndarray = np.full((len(peak_names), n), -1.0)
     for per in periods:
         clock_s, peak, peak_start = CLOCK_START_MIN[per.name] * 60, per.bins.peak, per.bins.peak_start
         for j, w_s in enumerate(state.peak_s):
@@ -239,9 +240,9 @@ def _peak_rows(state: MatchState, cache: dict[Any, Any], rebuilt: list[np.ndarra
     best, start_clock = best.reshape(-1, ex.N_FIG), start_clock.reshape(-1)
     span = np.repeat(np.array([float(w_s) for w_s in state.peak_s]), n)
 
-    def build_peaks(r: Any) -> list:
+    def build_peaks(r: Any) -> list[Any]:
         made = _windows(np.maximum(best[r], 0), span[r], (("start_s", start_clock[r], 1),))
-        return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist())]
+        return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist(), strict=True)]
 
     return peak_names, _reuse(cache, ("peaks", tuple(peak_names)), _stack(best, start_clock), build_peaks, rebuilt)
 
@@ -259,7 +260,7 @@ def _per_player(cache: dict[Any, Any], n: int, named_rows: list[tuple[str, list[
         touched = np.unique(np.concatenate([r % n for r in rebuilt])).tolist() if rebuilt else []
         per_player = list(prev)
     for i in touched:
-        per_player[i] = dict(zip(all_names, [rows[k * n + i] for _, rows, k in named_rows]))
+        per_player[i] = dict(zip(all_names, [rows[k * n + i] for _, rows, k in named_rows], strict=True))
     cache["windows_players"] = per_player
     cache["windows_names"] = all_names
     return per_player
@@ -283,8 +284,10 @@ def _period_figures(state: MatchState, per: Period) -> list[dict[str, Any]]:
 _HR_WINDOW_KEYS = ("hr_mean_bpm", "trimp_edwards", "trimp_banister")
 
 
-def _hr_cols(state: MatchState, sums: np.ndarray, onpitch_s: np.ndarray, keys: tuple[str, ...] | None = None) -> list[dict[str, Any]]:
-    cols = state.heart.figures(sums, onpitch_s)  # type: ignore[union-attr]
+def _hr_cols(state: MatchState, sums: np.ndarray, onpitch_s: np.ndarray, keys: tuple[str, ...] | None = None
+             ) -> list[dict[str, Any]]:
+    assert state.heart is not None  # called for a match with heart-rate samples only
+    cols = state.heart.figures(sums, onpitch_s)
     if keys is not None:
         cols = {k: cols[k] for k in keys}
     return _rows(cols, state.n)
@@ -294,6 +297,7 @@ def _with_heart_windows(state: MatchState, windows: list[dict[str, Any]]) -> lis
     """Per-player windows with the heart-rate figures of the last-N windows and fixed blocks added
     (not cached with the windows: samples settle on their own clock)."""
     hr = state.heart
+    assert hr is not None  # called for a match with heart-rate samples only
     out = [dict(w) for w in windows]
     zero = np.zeros(state.n)
     cur = state.current
@@ -301,7 +305,7 @@ def _with_heart_windows(state: MatchState, windows: list[dict[str, Any]]) -> lis
         stop = cur.bins.complete
         for m in state.params.windows.last_min:
             key = f"last_{m}min"
-            rows = _hr_cols(state, hr.period_sums(cur.index, max(stop - m * 60, 0), stop), zero, _HR_WINDOW_KEYS)  # type: ignore[union-attr]
+            rows = _hr_cols(state, hr.period_sums(cur.index, max(stop - m * 60, 0), stop), zero, _HR_WINDOW_KEYS)
             for i, r in enumerate(rows):
                 if out[i].get(key) is not None:
                     out[i][key] = {**out[i][key], **r}
@@ -309,7 +313,7 @@ def _with_heart_windows(state: MatchState, windows: list[dict[str, Any]]) -> lis
         for key, s0, s1 in _blocks(state, per):
             if s0 >= per.bins.complete:
                 continue
-            rows = _hr_cols(state, hr.period_sums(per.index, s0, s1), zero, _HR_WINDOW_KEYS)  # type: ignore[union-attr]
+            rows = _hr_cols(state, hr.period_sums(per.index, s0, s1), zero, _HR_WINDOW_KEYS)
             for i, r in enumerate(rows):
                 if out[i].get(key) is not None:
                     out[i][key] = {**out[i][key], **r}
@@ -388,7 +392,7 @@ def _team_windows(state: MatchState, masks: list[np.ndarray], team_last: dict[in
         sums = np.array([s[mask].sum(axis=0) for mask in masks for s in team_last.values()], np.int64)
         rows = _windows(sums.reshape(-1, ex.N_FIG), np.array(spans * len(masks), float))
         for k in range(len(masks)):
-            out[k] = dict(zip(names, rows[k * len(names):(k + 1) * len(names)]))
+            out[k] = dict(zip(names, rows[k * len(names):(k + 1) * len(names)], strict=True))
     cache["team_windows"] = (key, out)
     return out
 
@@ -461,12 +465,12 @@ def _with_heart(state: MatchState, windows: _Rows, per_figs: _PeriodRows, onp_s:
     fps = state.fps
     windows = _with_heart_windows(state, windows)
     per_figs = [(name, [{**f, **h} for f, h in zip(pf, _hr_cols(state, heart.period_sums(per.index),
-                                                                 per.onpitch_slots() / fps))])
-                for (name, pf), per in zip(per_figs, state.periods)]
+                                                                 per.onpitch_slots() / fps), strict=True)])
+                for (name, pf), per in zip(per_figs, state.periods, strict=True)]
     latest = max(state.last_t or 0.0, float(np.nanmax(heart.last_t)))
     hr_now, hr_pct = heart.now(latest)
     hr_rows = _hr_cols(state, heart.match_sums(), onp_s)
-    for i, (bpm, pct, peak, omitted) in enumerate(zip(hr_now, hr_pct, heart.peak(), heart.omitted())):
+    for i, (bpm, pct, peak, omitted) in enumerate(zip(hr_now, hr_pct, heart.peak(), heart.omitted(), strict=True)):
         hr_rows[i] = {"hr_bpm": bpm, "hr_pct_max": pct, **hr_rows[i], "hr_peak_bpm": peak, "hr_omitted": omitted}
     return windows, per_figs, hr_rows
 
@@ -478,7 +482,7 @@ def _speeds(state: MatchState) -> list[float | None]:
         return [None] * state.n
     recent = (cur.last_valid >= 0) & (cur.track.fin - cur.last_valid <= state.fps)
     sp = np.round(cur.last_speed, 2).tolist()
-    return [s if r else None for s, r in zip(sp, recent.tolist())]
+    return [s if r else None for s, r in zip(sp, recent.tolist(), strict=True)]
 
 
 def _possession_rows(cache: dict[Any, Any], poss: np.ndarray) -> _Rows:
@@ -507,7 +511,7 @@ def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], spe
         old = prev.get(pl.id) if prev is not None else None
         if (hr_rows is None and old is not None and old[0][0] == on_pitch[i] and old[0][1] == speed[i]
                 and old[0][2] == period_names and len(old[0][3]) == len(parts)
-                and all(a is b for a, b in zip(old[0][3], parts))):
+                and all(a is b for a, b in zip(old[0][3], parts, strict=True))):
             obj = old[1]
         else:
             obj = {

@@ -6,7 +6,7 @@ centre spot, x along the touchlines, y along the goal lines; NaN is "not seen".
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
@@ -24,6 +24,8 @@ PERIOD_INDEX = {name: i for i, name in enumerate(PERIODS)}
 BALL_UNKNOWN, BALL_OUT, BALL_IN = -1, 0, 1
 NO_TEAM = -1
 
+Sex = Literal["male", "female"]
+
 
 @dataclass(frozen=True)
 class Player:
@@ -36,7 +38,7 @@ class Player:
     max_speed_ms: float | None = None
     hr_max_bpm: float | None = None  # heart-rate profile (docs/wearables.md)
     hr_rest_bpm: float | None = None
-    sex: str | None = None  # "male" | "female"
+    sex: Sex | None = None
 
 
 @dataclass(frozen=True)
@@ -70,7 +72,7 @@ class Roster:
 
     def tracked(self) -> tuple[bool, bool]:
         """Which teams the feed tracks: a team with no players in the sheet is not tracked (one-team feeds)."""
-        return tuple(any(p.team == k for p in self.players) for k in (0, 1))  # type: ignore[return-value]
+        return any(p.team == 0 for p in self.players), any(p.team == 1 for p in self.players)
 
 
 @dataclass(frozen=True)
@@ -89,7 +91,7 @@ class Block:
         return int(self.frame_id.shape[0])
 
     @staticmethod
-    def empty(n_players: int) -> "Block":
+    def empty(n_players: int) -> Block:
         return Block(
             frame_id=np.zeros(0, np.int64),
             t=np.zeros(0, np.float64),
@@ -100,11 +102,11 @@ class Block:
             poss=np.zeros(0, np.int8),
         )
 
-    def take(self, sel: slice | np.ndarray) -> "Block":
+    def take(self, sel: slice | np.ndarray) -> Block:
         return Block(*(getattr(self, f)[sel] for f in _FIELDS))
 
     @staticmethod
-    def concat(blocks: list["Block"]) -> "Block":
+    def concat(blocks: list[Block]) -> Block:
         return Block(*(np.concatenate([getattr(b, f) for b in blocks]) for f in _FIELDS))
 
 

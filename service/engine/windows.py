@@ -10,6 +10,7 @@ return is roster-wide, one row per player.
 from __future__ import annotations
 
 from bisect import bisect_right
+from itertools import pairwise
 
 import numpy as np
 
@@ -29,7 +30,7 @@ def _segments(n: int, skip: int, cut: int, fps: int) -> np.ndarray:
     if m is None:
         edges = [skip, *range(min(cut, n), n, fps), n]
         m = np.zeros((len(edges), n))
-        for j, (a, b) in enumerate(zip(edges[:-1], edges[1:])):
+        for j, (a, b) in enumerate(pairwise(edges)):
             m[j, a:b] = 1.0
         m[-1] = 1.0
         if len(_SEGMENTS) >= 512:  # block sizes and phases vary live: keep the cache bounded
@@ -84,7 +85,8 @@ class SecondBins:
         self._run = _widen(self._run, k, 0)
         # windows evaluated already saw these players' zeros: peak 0 from second 0
         reached = np.where(self.complete >= self._win, 0, -1)
-        self._peak = np.concatenate([self._peak, np.broadcast_to(reached[:, None, None], (len(self._win), N_FIG, k))], 2)
+        grown = np.broadcast_to(reached[:, None, None], (len(self._win), N_FIG, k))
+        self._peak = np.concatenate([self._peak, grown], 2)
         self._peak_start = np.concatenate([self._peak_start, np.broadcast_to(reached[:, None], (len(self._win), k))], 1)
 
     def add(self, slot0: int, fig: np.ndarray) -> np.ndarray:

@@ -12,8 +12,9 @@ import logging
 import time
 import zlib
 from collections import deque
+from collections.abc import Callable, Coroutine
 from dataclasses import dataclass, field
-from typing import Any, Awaitable, Callable
+from typing import Any
 
 from pacewire.wire.messages import changed, dumps, envelope
 from pacewire.wire.view import View
@@ -30,18 +31,18 @@ def _pack(text: str) -> bytes:
 
 
 def _unpack(entry: str | bytes) -> str:
-    return entry if type(entry) is str else zlib.decompress(entry).decode()
+    return entry if isinstance(entry, str) else zlib.decompress(entry).decode()
 
 
 class Subscriber:
-    def __init__(self, send: Callable[[str], Awaitable[None]], queue_size: int) -> None:
+    def __init__(self, send: Callable[[str], Coroutine[Any, Any, None]], queue_size: int) -> None:
         self.send = send
         self.limit = queue_size  # the opening messages may exceed it; later ones may not
         self.queue: asyncio.Queue[Any] = asyncio.Queue()  # message texts, and _Resume/_Failed (see pump)
         self.dropped = 0
         self.closed = False
-        self.task: asyncio.Task | None = None
-        self.group: "Group | None" = None
+        self.task: asyncio.Task[None] | None = None
+        self.group: Group | None = None
         self.idle = False  # its pump waits on an empty queue: the broadcaster writes to the socket itself
 
 

@@ -23,7 +23,11 @@ from typing import Any, Protocol
 
 import orjson
 
+from pacewire.config import Settings
 from pacewire.engine.blocks import block_series, clock_block, window_coverage
+from pacewire.engine.match import MatchState
+from pacewire.engine.types import Roster
+from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.recorder import write_json_atomic
 from pacewire.reports.alerts import Alerter, rules_from_settings
 from pacewire.reports.builder import ReportInput, build_report, list_reports, report_kind
@@ -31,10 +35,6 @@ from pacewire.reports.offline import report_input, state_until
 from pacewire.store import history
 from pacewire.store.record import match_record
 from pacewire.wire.rules import Budgets, DropOffBaseline, RulesError, load_budgets, parse_budgets
-from pacewire.config import Settings
-from pacewire.engine.match import MatchState
-from pacewire.engine.types import Roster
-from pacewire.live.broadcaster import Broadcaster
 
 log = logging.getLogger("pacewire.followup")
 
@@ -64,7 +64,7 @@ class Followup:
         self._built: dict[str, tuple[int, int]] = {e["kind"]: tuple(e["basis"]) for e in list_reports(self.root)
                                                    if isinstance(e.get("basis"), list)}
         self._pending: dict[str, tuple[int, int]] = {}
-        self._tasks: set[asyncio.Task] = set()
+        self._tasks: set[asyncio.Task[None]] = set()
         self._second: tuple[int, int] | None = None
         ids = tuple(p.id for p in runner.roster.players)
         rules: list[Any] = []

@@ -1,7 +1,7 @@
 """Period starts and ends, each announced once: from frames moving on, or from match events."""
 from __future__ import annotations
 
-from typing import Callable
+from collections.abc import Callable
 
 from pacewire.engine.match import MatchState
 from pacewire.live.broadcaster import Broadcaster

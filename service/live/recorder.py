@@ -10,9 +10,10 @@ from __future__ import annotations
 import asyncio
 import os
 import time
+from collections.abc import Awaitable, Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Awaitable, Callable
+from typing import Any
 
 import orjson
 
@@ -31,7 +32,7 @@ class _Job:
     lines: list[bytes]
     durable: bool
     after: Callable[[], None] | None
-    done: asyncio.Future = field(default_factory=lambda: asyncio.get_running_loop().create_future())
+    done: asyncio.Future[None] = field(default_factory=lambda: asyncio.get_running_loop().create_future())
 
 
 def write_json_atomic(path: Path, obj: Any) -> None:
@@ -57,8 +58,8 @@ class Recorder:
         self._last_sync = time.monotonic()
         self.error: str | None = None  # last write problem, cleared by a good write
         self.frames_written = 0
-        self._task: asyncio.Task | None = None
-        self._sync_task: asyncio.Task | None = None
+        self._task: asyncio.Task[None] | None = None
+        self._sync_task: asyncio.Task[None] | None = None
 
     def start(self) -> None:
         self._task = asyncio.create_task(self._run(), name=f"recorder:{self.folder.name}")
@@ -75,7 +76,8 @@ class Recorder:
             os.close(self._fd)
             self._fd = None
 
-    def append(self, lines: list[bytes], durable: bool = False, after: Callable[[], None] | None = None) -> Awaitable[None]:
+    def append(self, lines: list[bytes], durable: bool = False, after: Callable[[], None] | None = None
+               ) -> Awaitable[None]:
         """Queue lines (without newlines); ``after`` runs right after they reach the OS.
 
         The returned future resolves once written (and fsynced if ``durable``),
@@ -91,7 +93,7 @@ class Recorder:
             try:
                 self._write(job.lines)
                 if job.durable:
-                    await asyncio.to_thread(os.fsync, self._fd)  # type: ignore[arg-type]
+                    await asyncio.to_thread(os.fsync, self._open())  # the descriptor _write used
                     self._dirty = False
                     self._last_sync = time.monotonic()
                 self.error = None

@@ -27,9 +27,9 @@ from pacewire.live.metrics import Hooks
 from pacewire.live.periods import PeriodAnnouncer
 from pacewire.live.recorder import Recorder, write_json_atomic
 from pacewire.params import match_params
+from pacewire.tasks import cancel
 from pacewire.wire.cdf import DecodeResult, FrameDecoder
 from pacewire.wire.heart import HrDecoder, HrResult
-from pacewire.tasks import cancel
 
 log = logging.getLogger("pacewire.runner")
 

@@ -91,7 +91,8 @@ def draw_charts(snapshot: dict[str, Any], series: BlockSeries) -> dict[str, str]
         name = t["name"] or tid
         if len(series):
             rows = [ids.index(pid) for pid, _ in played]
-            out[f"heatmap-{tid}"] = charts.player_heatmap(series, rows, [charts.player_label(pid, p) for pid, p in played], name)
+            labels = [charts.player_label(pid, p) for pid, p in played]
+            out[f"heatmap-{tid}"] = charts.player_heatmap(series, rows, labels, name)
         out[f"bars-{tid}"] = charts.player_bars(played, name)
         if windows:
             out[f"peaks-{tid}"] = charts.peak_timeline(played, windows, name)
@@ -120,7 +121,7 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
     per_min = {pid: [None if not np.isfinite(v) else round(float(v), 1) for v in rate[:, i]]
                for i, pid in enumerate(ser.player_ids)}
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,
-                [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods)], per_min)
+                [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min)
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
                    players=snap["players"], teams=snap["teams"], health=snap["health"])
     _write_atomic(folder / "report.html", text.encode("utf-8"))

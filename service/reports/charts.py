@@ -11,12 +11,17 @@ from __future__ import annotations
 import io
 import re
 import threading
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from pacewire.engine import exertion as ex
 from pacewire.engine.blocks import BlockSeries
+
+if TYPE_CHECKING:  # matplotlib itself is imported when a chart is drawn
+    from matplotlib.colors import Colormap
+    from matplotlib.typing import RcKeyType
 
 # our own palette: ink, paper, grid; home and away; speed bands
 INK, PAPER, GRID, MUTED = "#1f2a30", "#fbf8f1", "#ddd6c6", "#6b7479"
@@ -31,7 +36,7 @@ _PROLOG = re.compile(r"^.*?(?=<svg\b)", re.S)
 _META = re.compile(r"<metadata>.*?</metadata>\s*", re.S)
 
 
-def _style() -> dict[str, Any]:
+def _style() -> dict[RcKeyType, Any]:
     return {"svg.fonttype": "none", "font.family": "sans-serif", "font.size": 8.0,
             "axes.edgecolor": GRID, "axes.labelcolor": INK, "axes.titlesize": 9.0, "axes.titleweight": "bold",
             "axes.titlelocation": "left", "axes.spines.top": False, "axes.spines.right": False,
@@ -57,12 +62,13 @@ def render(name: str, draw: Callable[[Any], None], size: tuple[float, float],
                             wspace=0.25, hspace=0.3)
         draw(fig)
         buf = io.StringIO()
-        FigureCanvasSVG(fig).print_svg(buf, metadata={"Date": None})
+        # matplotlib annotates the canvas, not its print_svg
+        FigureCanvasSVG(fig).print_svg(buf, metadata={"Date": None})  # type: ignore[no-untyped-call]
     svg = _META.sub("", _PROLOG.sub("", buf.getvalue(), count=1), count=1)
     return svg.replace("<svg ", f'<svg role="img" aria-label="{name}" class="chart" ', 1)
 
 
-def _cmap(colours: tuple[str, ...]):  # noqa: ANN202
+def _cmap(colours: tuple[str, ...]) -> Colormap:
     from matplotlib.colors import LinearSegmentedColormap
 
     return LinearSegmentedColormap.from_list("pacewire", colours).with_extremes(bad=PAPER)
@@ -123,7 +129,8 @@ def player_heatmap(series: BlockSeries, rows: list[int], names: list[str], team:
 
     def draw(fig: Any) -> None:
         axes = fig.subplots(1, 2, sharey=True)
-        for ax, data, cmap, title in ((axes[0], dist, MAP_DIST, "distance, m/min"), (axes[1], hsr, MAP_HSR, "HSR, m/min")):
+        panels = ((axes[0], dist, MAP_DIST, "distance, m/min"), (axes[1], hsr, MAP_HSR, "HSR, m/min"))
+        for ax, data, cmap, title in panels:
             masked = np.ma.masked_invalid(data)
             top = float(np.nanmax(data)) if np.isfinite(data).any() else 1.0
             mesh = ax.pcolormesh(masked, cmap=_cmap(cmap), vmin=0.0, vmax=max(top, 1e-9), edgecolors=PAPER, lw=0.6)

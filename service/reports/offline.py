@@ -14,13 +14,13 @@ import time
 from pathlib import Path
 from typing import Any, TextIO
 
-from pacewire.wire.recording import Recording, open_recording
 from pacewire.config import Settings
 from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import PERIOD_INDEX
 from pacewire.reports.builder import ReportInput, build_report, report_kind
+from pacewire.wire.recording import Recording, open_recording
 
 
 class ProgressBar:

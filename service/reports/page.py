@@ -211,7 +211,8 @@ def heart_table(players: list[tuple[str, dict[str, Any]]], low_coverage: float) 
     for pid, p in players:
         omitted = p.get("hr_omitted") or {}
         name = esc(p.get("name") or pid)
-        r = [(num(p["jersey_number"]), ""), (name, "l"), (num(p.get("hr_mean_bpm")), ""), (num(p.get("hr_peak_bpm")), "")]
+        r = [(num(p["jersey_number"]), ""), (name, "l"), (num(p.get("hr_mean_bpm")), ""),
+             (num(p.get("hr_peak_bpm")), "")]
         hz = p.get("hr_zones") or {}
         for z in zones:
             r.append(_omitted_cell(omitted["hr_zones"]) if "hr_zones" in omitted else (_clock_or_dash(hz.get(z)), ""))
@@ -293,7 +294,8 @@ def _teams_section(snapshot: dict[str, Any], charts: dict[str, str],
                    possession: dict[str, dict[str, float]]) -> list[str]:
     head = ('<section id="teams"><h2>Team figures <span class="n">one team tracked · outfield players, goalkeepers '
             'excluded</span></h2>' if one_team(snapshot) else
-            '<section id="teams"><h2>Team comparison <span class="n">outfield players, goalkeepers excluded</span></h2>')
+            '<section id="teams"><h2>Team comparison <span class="n">outfield players, goalkeepers excluded'
+            '</span></h2>')
     return [head, team_table(snapshot, possession), charts.get("possession", ""), "</section>"]
 
 
@@ -330,8 +332,9 @@ def _players_section(snapshot: dict[str, Any], charts: dict[str, str], played_by
         parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
         parts.append(player_table(played_by_team[tid], low_coverage))
         if unused:
-            parts.append('<p class="unused">Did not play: ' + ", ".join(
-                f'{esc(players[pid]["jersey_number"])} {esc(players[pid].get("name") or pid)}' for pid in unused) + "</p>")
+            names = ", ".join(f'{esc(players[pid]["jersey_number"])} {esc(players[pid].get("name") or pid)}'
+                              for pid in unused)
+            parts.append(f'<p class="unused">Did not play: {names}</p>')
         parts.append(charts.get(f"bars-{tid}", ""))
     parts.append(f'<p class="note">Coverage is the share of time on the pitch the feed credited; below '
                  f'{low_coverage:.0%} it is marked ▾. {esc(LIVE_CAVEAT)}</p></section>')

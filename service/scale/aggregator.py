@@ -62,7 +62,7 @@ return 0
 
 # KEYS: lease, then (buffer, snapshot) per stream. ARGV: owner, lease ms, wall time, then per stream:
 # channel, snapshot text, buffer length, n, then n × (seq, text).
-_PUBLISH = """
+_PUBLISH = f"""
 local owner = redis.call('GET', KEYS[1])
 if not owner then
   -- expired while this process was busy, and nobody took it: still the only writer
@@ -78,16 +78,16 @@ for g = 1, (#KEYS - 1) / 2 do
     redis.call('PUBLISH', channel, ARGV[a + 1])
     a = a + 2
   end
-  redis.call('SET', snap, snaptext, 'EX', %d)
+  redis.call('SET', snap, snaptext, 'EX', {SNAP_TTL_S})
 end
 return 1
-""" % SNAP_TTL_S
+"""
 
 
 class _SinkQueue:
     """Looks like a subscriber's queue to the broadcaster; feeds the match's publish queue."""
 
-    def __init__(self, sink: "Sink", out: asyncio.Queue) -> None:
+    def __init__(self, sink: Sink, out: asyncio.Queue[tuple[Sink, str | None]]) -> None:
         self.sink, self.out = sink, out
 
     def qsize(self) -> int:
@@ -100,13 +100,14 @@ class _SinkQueue:
 class Sink(Subscriber):
     """The one 'subscriber' of a stream on the aggregator: Redis, on behalf of every gateway."""
 
-    def __init__(self, match_id: str, stream: str, out: asyncio.Queue, maxlen: int) -> None:
+    def __init__(self, match_id: str, stream: str, out: asyncio.Queue[tuple[Sink, str | None]], maxlen: int) -> None:
         super().__init__(self._never, 1)
         self.stream = stream
         self.channel = keys.out_channel(match_id, stream)
         self.buffer_key = keys.out_buffer(match_id, stream)
         self.snapshot_key = keys.out_snapshot(match_id, stream)
         self.maxlen = maxlen
+        # duck-typed: the broadcaster only calls qsize and put_nowait on a sink's queue
         self.queue = _SinkQueue(self, out)  # type: ignore[assignment]
         self.wanted_until = 0.0
 
@@ -117,7 +118,7 @@ class Sink(Subscriber):
 class AggMatch:
     """One claimed match: a MatchRunner fed from the stream instead of from sockets."""
 
-    def __init__(self, agg: "Aggregator", match_id: str, runner: MatchRunner) -> None:
+    def __init__(self, agg: Aggregator, match_id: str, runner: MatchRunner) -> None:
         self.agg = agg
         self.redis = agg.redis
         self.match_id = match_id
@@ -128,7 +129,7 @@ class AggMatch:
         self.hr_last_id = b"0-0"  # heart-rate entries applied up to here
         self.out: asyncio.Queue[tuple[Sink, str | None]] = asyncio.Queue()
         self.sinks: dict[str, Sink] = {}
-        self.tasks: list[asyncio.Task] = []
+        self.tasks: list[asyncio.Task[None]] = []
         self.lost = asyncio.Event()
         self.stopped = False
         self.last_checkpoint = time.monotonic()
@@ -262,7 +263,7 @@ class AggMatch:
                 return
             got = {key: entries for key, entries in resp if entries}
             hr = got.pop(hr_key, [])
-            entries = next(iter(got.values()), [])
+            entries: list[Any] = next(iter(got.values()), [])
             if hr and self._apply_hr(hr) and not entries:
                 r.broadcaster.invalidate()
                 r.broadcaster.tick()
@@ -379,7 +380,7 @@ class AggMatch:
                     entry[1].append(text)
             # no await since the texts were queued: each group's seq and state are those of its last message
             k = [keys.lease(self.match_id)]
-            a: list[Any] = [self.agg.owner, self.agg.scale.lease_ms, "%.6f" % time.time()]
+            a: list[Any] = [self.agg.owner, self.agg.scale.lease_ms, f"{time.time():.6f}"]
             for sink, texts in streams.values():
                 assert sink.group is not None
                 k += [sink.buffer_key, sink.snapshot_key]
@@ -428,7 +429,7 @@ def _restore_group(g: Group, msg: dict[str, Any]) -> None:
     g.meta = (msg["match_time_s"], msg["period"])
 
 
-def _fresh_runner(agg: "Aggregator", match_id: str, roster: Any) -> MatchRunner:
+def _fresh_runner(agg: Aggregator, match_id: str, roster: Any) -> MatchRunner:
     return MatchRunner(roster, agg.settings, agg.data_dir / "matches" / match_id, agg.hooks)
 
 
@@ -447,7 +448,7 @@ class Aggregator:
         self.publish = redis.register_script(_PUBLISH)
         self._renew = redis.register_script(_RENEW)
         self._release = redis.register_script(_RELEASE)
-        self._tasks: list[asyncio.Task] = []
+        self._tasks: list[asyncio.Task[None]] = []
 
     async def run(self) -> None:
         self._tasks = [asyncio.create_task(self._want_listener(), name="agg-wants")]

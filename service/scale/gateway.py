@@ -28,8 +28,8 @@ from pacewire.engine.types import Roster
 from pacewire.live.broadcaster import Subscriber
 from pacewire.scale import keys
 from pacewire.scale.settings import ScaleSettings
-from pacewire.wire.cdf import parse_setup
 from pacewire.tasks import cancel
+from pacewire.wire.cdf import parse_setup
 
 log = logging.getLogger("pacewire.scale.gateway")
 
@@ -53,7 +53,7 @@ class Client(Subscriber):
 class Feed:
     """One (match, view, cadence) stream mirrored from Redis."""
 
-    def __init__(self, gw: "Gateway", match_id: str, stream: str) -> None:
+    def __init__(self, gw: Gateway, match_id: str, stream: str) -> None:
         self.gw = gw
         self.match_id = match_id
         self.stream = stream
@@ -192,11 +192,12 @@ class Feed:
             try:
                 s0, text = await self.snapshot_text()
             except RedisError:
-                s0, text = self.snap  # type: ignore[misc]
+                assert self.snap is not None  # set before ready
+                s0, text = self.snap
             first = [(s0, resync_text(text) if since is not None else text)]
             first += [(s, t) for s, _, t in self.buffer if s > s0]
         for item in first:
-            c.queue.put_nowait(item)  # type: ignore[arg-type]
+            c.queue.put_nowait(item)
         self.subscribers.add(c)
 
     def detach(self, c: Client) -> None:
@@ -221,13 +222,13 @@ class Gateway:
         self.buffer_s = srv.resume_buffer_s
         self.buffer_max = 100_000
         self.feeds: dict[tuple[str, str], Feed] = {}
-        self._starting: dict[tuple[str, str], asyncio.Task] = {}
+        self._starting: dict[tuple[str, str], asyncio.Task[None]] = {}
         self.handlers: dict[str, Feed] = {}
         self.pubsub = redis.pubsub(ignore_subscribe_messages=True)
         self.rosters: dict[str, tuple[bytes, Roster]] = {}
         self.messages_out = 0
         self.dropped = 0
-        self._tasks: list[asyncio.Task] = []
+        self._tasks: list[asyncio.Task[None]] = []
 
     async def start(self) -> None:
         await self.pubsub.subscribe(f"{keys.PREFIX}:gateway")  # the connection exists from now on
@@ -281,17 +282,17 @@ class Gateway:
 
     def offer(self, c: Client, seq: int, text: str) -> None:
         if c.queue.qsize() < c.limit:
-            c.queue.put_nowait((seq, text))  # type: ignore[arg-type]
+            c.queue.put_nowait((seq, text))
             return
         while not c.queue.empty():  # slow reader: its backlog becomes one fresh snapshot
             c.queue.get_nowait()
         c.dropped += 1
         self.dropped += 1
-        c.queue.put_nowait((_RESYNC, ""))  # type: ignore[arg-type]
+        c.queue.put_nowait((_RESYNC, ""))
 
     async def pump(self, c: Client) -> None:
         while not c.closed:
-            seq, text = await c.queue.get()  # type: ignore[misc]
+            seq, text = await c.queue.get()
             if seq == _RESYNC:
                 assert c.feed is not None
                 seq, text = await c.feed.snapshot_text()
@@ -313,9 +314,9 @@ class Gateway:
                 if msg is None or msg.get("type") != "message":
                     continue
                 ch = msg["channel"].decode()
-                f = self.handlers.get(ch)
-                if f is not None:
-                    f.on_text(msg["data"].decode())
+                feed = self.handlers.get(ch)
+                if feed is not None:
+                    feed.on_text(msg["data"].decode())
             except asyncio.CancelledError:
                 raise
             except Exception as exc:
@@ -382,7 +383,7 @@ class RedisReads:
         except RedisError as exc:
             raise unavailable(exc) from None
         out = []
-        for mid, raw in zip(ids, raws):
+        for mid, raw in zip(ids, raws, strict=True):
             s = orjson.loads(raw) if raw is not None else {"match_id": mid, "health": "stalled", "frames": 0}
             s["subscribers"] = self.gw.subscriber_count(mid)  # on this gateway
             out.append(s)

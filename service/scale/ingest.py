@@ -29,7 +29,7 @@ from pacewire.events import check_event
 from pacewire.live.matches import SetupConflict
 from pacewire.params import heart_params
 from pacewire.scale import keys
-from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message, parse_setup
+from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, GateCheckpoint, parse_message, parse_setup
 from pacewire.wire.heart import HrDecoder, HrGate
 from pacewire.wire.outcome import IngestOutcome
 
@@ -196,13 +196,13 @@ class StreamIngest:
         return IngestOutcome.unstored()
 
     async def _append(self, match_id: str, m: IngestMatch, res: DecodeResult, raw: list[bytes],
-                      cp: tuple) -> IngestOutcome:
+                      cp: GateCheckpoint) -> IngestOutcome:
         out = IngestOutcome(len(res.block), res.rejected, res.duplicates, res.late, list(res.errors))
         key = keys.frames(match_id)
         arrival = b"%.6f" % time.time()
         p = self.redis.pipeline(transaction=False)
         fids = [int(f) for f in res.block.frame_id]
-        for fid, line in zip(fids, raw):
+        for fid, line in zip(fids, raw, strict=True):
             p.xadd(key, {"f": line, "a": arrival}, id=keys.frame_entry_id(fid))
         self._count_pipe(p, match_id, res)
         if not len(p):
@@ -213,7 +213,7 @@ class StreamIngest:
             m.decoder.gate.restore(cp)
             return self._unstored(match_id, exc)
         refused = []
-        for fid, ans in zip(fids, answers):
+        for fid, ans in zip(fids, answers, strict=False):  # the counters' replies follow the frames'
             if isinstance(ans, ResponseError):
                 refused.append(fid)
             elif isinstance(ans, Exception):  # the connection broke mid-batch: the provider resends
@@ -271,10 +271,11 @@ class StreamIngest:
                 except RedisError as exc:
                     return self._unstored(match_id, exc)
                 cp = dec.gate.checkpoint()
-                if objs is None:
-                    res = dec.decode_lines(data)  # type: ignore[arg-type]
-                    raw = [data[i].strip() for i in res.accepted]  # type: ignore[index]
+                if isinstance(data, list):  # JSON Lines (objs is None)
+                    res = dec.decode_lines(data)
+                    raw = [data[i].strip() for i in res.accepted]
                 else:
+                    assert objs is not None  # parsed above
                     res = dec.decode_objects(objs)
                     raw = [orjson.dumps(objs[i]) for i in res.accepted]
                 out = IngestOutcome(len(res), res.rejected, res.duplicates, res.late, res.errors)
@@ -282,7 +283,7 @@ class StreamIngest:
                     return out
                 args: list[Any] = [m.hr_version, gate_bytes(dec.gate), res.rejected, res.duplicates, res.late]
                 ids = m.roster.players
-                for line, i, t, bpm in zip(raw, res.player.tolist(), res.t.tolist(), res.bpm.tolist()):
+                for line, i, t, bpm in zip(raw, res.player.tolist(), res.t.tolist(), res.bpm.tolist(), strict=True):
                     args += [line, ids[i].id, repr(t), repr(bpm)]
                 try:
                     ans = await self._append_hr(keys=[keys.hr(match_id), keys.hr_gate(match_id),

@@ -34,7 +34,7 @@ class MatchFolder:
         self.folder = folder
         folder.mkdir(parents=True, exist_ok=True)
         self.pos_path = folder / POSITION
-        pos = {"id": "0-0", "tracking": 0, "events": 0}
+        pos: dict[str, Any] = {"id": "0-0", "tracking": 0, "events": 0}
         if self.pos_path.exists():
             pos = orjson.loads(self.pos_path.read_bytes())
         self.last_id: str = pos["id"]

@@ -5,21 +5,25 @@ import argparse
 import sys
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from pacewire.store import history
 from pacewire.store.record import match_record
 
+if TYPE_CHECKING:
+    from pacewire.config import Settings
 
-def db_path(data: str | Path, settings) -> Path:  # noqa: ANN001
+
+def db_path(data: str | Path, settings: Settings) -> Path:
     return Path(data) / settings.history.path
 
 
-def _import(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
-    from pacewire.wire.recording import RecordingError
+def _import(args: argparse.Namespace, settings: Settings) -> int:
     from pacewire.engine.blocks import block_series
     from pacewire.engine.snapshot import build_snapshot
     from pacewire.reports.offline import run_recording, source_of
     from pacewire.wire.cdf import SetupError
+    from pacewire.wire.recording import RecordingError
 
     try:
         state, rec, _ = run_recording(args.folder, settings, progress=not args.quiet)
@@ -38,7 +42,7 @@ def _import(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
     return 0
 
 
-def _list(args: argparse.Namespace, settings) -> int:  # noqa: ANN001
+def _list(args: argparse.Namespace, settings: Settings) -> int:
     path = db_path(args.data, settings)
     if not path.exists():
         print(f"no history yet ({path})")

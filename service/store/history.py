@@ -10,9 +10,10 @@ from __future__ import annotations
 
 import sqlite3
 import time
+from collections.abc import Iterable
 from contextlib import closing
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 from pacewire.errors import PacewireError
 from pacewire.reports.alerts import Band
@@ -129,7 +130,8 @@ def matches(path: str | Path) -> list[dict[str, Any]]:
             "FROM matches m ORDER BY COALESCE(m.kickoff_t, m.stored_at), m.match_key")]
         for r in rows:
             r["teams"] = [dict(t) for t in conn.execute(
-                "SELECT team_id, name, side, score FROM teams WHERE match_key = ? ORDER BY side DESC", (r["match_key"],))]
+                "SELECT team_id, name, side, score FROM teams WHERE match_key = ? ORDER BY side DESC",
+                (r["match_key"],))]
     return rows
 
 
@@ -138,7 +140,8 @@ def figures(path: str | Path, match_key: str, player_id: str) -> dict[str, dict[
     out: dict[str, dict[str, float]] = {}
     with closing(connect(path)) as conn:
         for scope, fig, value in conn.execute(
-                "SELECT scope, figure, value FROM figures WHERE match_key = ? AND player_id = ?", (match_key, player_id)):
+                "SELECT scope, figure, value FROM figures WHERE match_key = ? AND player_id = ?",
+                (match_key, player_id)):
             out.setdefault(scope, {})[fig] = value
     return out
 

@@ -80,7 +80,8 @@ def match_record(snapshot: dict[str, Any], blocks: BlockSeries, source: str, key
             vals["m_per_min"] = round(float(dist_rate[b, i]), 3)
             vals["hsr_m_per_min"] = round(float(hsr_rate[b, i]), 3)
             add(pid, scope, vals, tuple(vals))
-    teams = tuple((tid, t.get("name") or "", t.get("side") or "", t.get("score")) for tid, t in snapshot["teams"].items())
+    teams = tuple((tid, t.get("name") or "", t.get("side") or "", t.get("score"))
+                  for tid, t in snapshot["teams"].items())
     return MatchRecord(
         key=key or snapshot["match_id"], match_id=snapshot["match_id"], source=source, kickoff_t=kickoff_t,
         match_time_s=float(snapshot["match_time_s"]), frames=int(snapshot["health"].get("frames") or 0),

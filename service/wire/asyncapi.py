@@ -53,7 +53,8 @@ def _frame_schema() -> dict[str, Any]:
                        "common-data-format-validator.",
         "required": ["frame_id", "timestamp", "period", "teams"],
         "properties": {
-            "frame_id": {"type": "integer", "description": "Increases; repeats and late frames are dropped and counted."},
+            "frame_id": {"type": "integer",
+                         "description": "Increases; repeats and late frames are dropped and counted."},
             "timestamp": {"type": "string", "format": "date-time"},
             "period": {"type": "string", "enum": list(PERIODS)},
             "match": {"type": "object", "properties": {"id": {"type": "string"}}},
@@ -204,7 +205,8 @@ def asyncapi_document(host: str = "localhost:8000", protocol: str = "ws", schema
         "info": _info(),
         "defaultContentType": "application/json",
         "servers": {
-            "pacewire": {"host": host, "protocol": protocol, "description": "A pacewire server.", "security": _security()},
+            "pacewire": {"host": host, "protocol": protocol, "description": "A pacewire server.",
+                         "security": _security()},
         },
         "channels": _channels(_live_query(default_every_s, max_every_s)),
         "operations": _operations(),

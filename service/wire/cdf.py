@@ -9,17 +9,17 @@ from __future__ import annotations
 
 import math
 from collections import deque
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
+from datetime import datetime
 from itertools import chain
 from operator import itemgetter
-from datetime import datetime
-from typing import Any, Callable, Iterable, Literal, Sequence
+from typing import Any, Literal
 
 import numpy as np
 import orjson
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
-from pacewire.errors import PacewireError
 from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
 from pacewire.errors import PacewireError, describe_validation
 from pacewire.wire.gnss import CalibrationError, PitchProjection, check_venue, parse_calibration
@@ -94,7 +94,7 @@ class SheetPlayer(_Open):
     sex: Literal["male", "female"] | None = None
 
     @model_validator(mode="after")
-    def _rest_below_max(self) -> "SheetPlayer":
+    def _rest_below_max(self) -> SheetPlayer:
         if self.hr_max_bpm is not None and self.hr_rest_bpm is not None and self.hr_rest_bpm >= self.hr_max_bpm:
             raise ValueError(f"player {self.id!r}: hr_rest_bpm must be below hr_max_bpm")
         return self
@@ -135,7 +135,8 @@ class MatchSetup(BaseModel):
                 if p.id in seen:
                     raise ValueError(f"player id {p.id!r} appears twice in the sheet")
                 if p.team_id != team.id:
-                    raise ValueError(f"player {p.id!r} has team_id {p.team_id!r} but is listed under {side} team {team.id!r}")
+                    raise ValueError(f"player {p.id!r} has team_id {p.team_id!r} "
+                                     f"but is listed under {side} team {team.id!r}")
                 seen.add(p.id)
         return sheet
 
@@ -144,6 +145,12 @@ class SetupError(PacewireError, ValueError):
     """Meta and sheet do not describe one match."""
 
     code = "bad_setup"
+
+
+def _team_name(meta: CdfMeta, sheet: CdfSheet, side: str) -> str:
+    """The sheet's team name, else the meta's, else the sheet's short name."""
+    team = getattr(sheet.teams, side)
+    return team.name or getattr(meta.teams, side).name or team.short_name or ""
 
 
 def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
@@ -158,7 +165,8 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
     if team_ids[0] == team_ids[1]:
         raise SetupError("home and away team ids are the same")
     if (sheet.teams.home.id, sheet.teams.away.id) != team_ids:
-        raise SetupError(f"sheet team ids {(sheet.teams.home.id, sheet.teams.away.id)} differ from meta team ids {team_ids}")
+        raise SetupError(f"sheet team ids {(sheet.teams.home.id, sheet.teams.away.id)} "
+                         f"differ from meta team ids {team_ids}")
     players = []
     for side, team in ((0, sheet.teams.home), (1, sheet.teams.away)):
         for p in team.players:
@@ -169,8 +177,7 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
                 is_starter=p.is_starter, name=name, max_speed_ms=p.max_speed_ms,
                 hr_max_bpm=p.hr_max_bpm, hr_rest_bpm=p.hr_rest_bpm, sex=p.sex,
             ))
-    names = tuple(getattr(sheet.teams, s).name or getattr(meta.teams, s).name or getattr(sheet.teams, s).short_name or ""
-                  for s in ("home", "away"))
+    names = (_team_name(meta, sheet, "home"), _team_name(meta, sheet, "away"))
     venue = meta.venue
     length, width = venue.pitch_length or 105.0, venue.pitch_width or 68.0
     cal = projection = None
@@ -184,7 +191,7 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
     return Roster(
         match_id=mid, team_ids=team_ids, players=tuple(players), fps=meta.meta.tracking.fps,
         pitch_length_m=length, pitch_width_m=width,
-        team_names=names, gnss_pitch=cal, projection=projection,  # type: ignore[arg-type]
+        team_names=names, gnss_pitch=cal, projection=projection,
     )
 
 
@@ -260,6 +267,12 @@ class FrameError:
         return d
 
 
+# last_id, last_t, period, period_t0, last_slot and the length of recent
+GateCheckpoint = tuple[int, float, int, float, int, int]
+# the same with recent and recent_set themselves
+GateState = tuple[int, float, int, float, int, deque[int], set[int]]
+
+
 @dataclass
 class FrameGate:
     """Ordering state across decode calls: drops duplicate and late frames."""
@@ -285,21 +298,21 @@ class FrameGate:
             raise Reject("bad_timestamp", "timestamp is less than one frame period after the previous frame")
         return slot
 
-    def checkpoint(self) -> tuple:
+    def checkpoint(self) -> GateCheckpoint:
         return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, len(self.recent))
 
-    def restore(self, cp: tuple) -> None:
+    def restore(self, cp: GateCheckpoint) -> None:
         """Undo admissions since ``checkpoint()`` (frames that could not be recorded)."""
         self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, n = cp
         while len(self.recent) > n:
             self.recent_set.discard(self.recent.pop())
 
-    def save(self) -> tuple:
+    def save(self) -> GateState:
         """Everything, for :meth:`load` (checkpoint/restore undo a few admissions, not a batch)."""
         return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, deque(self.recent),
                 set(self.recent_set))
 
-    def load(self, saved: tuple) -> None:
+    def load(self, saved: GateState) -> None:
         (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, recent, recent_set) = saved
         self.recent, self.recent_set = deque(recent), set(recent_set)
 
@@ -324,7 +337,7 @@ class DecodeResult:
     accepted: list[int] = field(default_factory=list)  # input positions of the accepted frames
 
     @staticmethod
-    def merge(results: list["DecodeResult"]) -> "DecodeResult":
+    def merge(results: list[DecodeResult]) -> DecodeResult:
         if len(results) == 1:
             return results[0]
         blocks = [r.block for r in results if len(r.block)]
@@ -357,7 +370,7 @@ def _refusal(exc: Exception, fid: int | None, line: int | None) -> FrameError:
 def _block(n_players: int, frames: list[tuple[int, float, int, int, int, int]],
            samples: list[tuple[Any, Any, Any, Any]]) -> Block:
     """The engine block of the accepted ``frames``; ``samples``: (frame rows, roster indices, x, y) runs."""
-    fids, ts, periods, slots, balls, poss = zip(*frames)
+    fids, ts, periods, slots, balls, poss = zip(*frames, strict=True)
     xy = np.full((len(frames), n_players, 2), np.nan)
     for f, p, x, y in samples:
         f = np.asarray(f)
@@ -474,7 +487,9 @@ class FrameDecoder:
                 self._bulk_pause = _BULK_PAUSE
             elif self._bulk_pause:
                 self._bulk_pause -= 1
-            return self._decode_objects(objs, lines)  # type: ignore[return-value]
+            res = self._decode_objects(objs, lines)
+            assert res is not None  # only a bulk pass gives up
+            return res
         finally:
             self._projected = {}  # keyed by object ids: valid for this batch only
 
@@ -495,14 +510,15 @@ class FrameDecoder:
         gate = self.gate
         for k, obj in enumerate(objs):
             line = lines[k] if lines is not None else None
-            fid = obj.get("frame_id") if type(obj) is dict else None
-            fid_known = fid if type(fid) is int else None
+            raw_fid = obj.get("frame_id") if type(obj) is dict else None
+            fid_known = raw_fid if type(raw_fid) is int else None
             mark = len(s_f)
             try:
                 if type(obj) is not dict:
                     raise Reject("bad_type", f"a frame must be a JSON object, got {type(obj).__name__}")
                 if fid_known is None:
-                    raise Reject("missing_field" if fid is None else "bad_type", "frame_id must be an integer")
+                    raise Reject("missing_field" if raw_fid is None else "bad_type", "frame_id must be an integer")
+                fid = fid_known
                 if fid < 0:
                     raise Reject("bad_value", f"frame_id {fid} is negative (CDF frame ids count from 0)")
                 t = self._check_frame(obj)
@@ -571,7 +587,7 @@ class FrameDecoder:
         teams = obj["teams"]
         if type(teams) is not dict or "home" not in teams or "away" not in teams:
             raise Reject("missing_field", "teams must hold 'home' and 'away'")
-        for side, tid in zip(("home", "away"), self.roster.team_ids):
+        for side, tid in zip(("home", "away"), self.roster.team_ids, strict=True):
             team = teams[side]
             if type(team) is not dict:
                 raise Reject("bad_type", f"teams.{side} must be an object")
@@ -579,7 +595,8 @@ class FrameDecoder:
             if got != tid:
                 raise Reject("unknown_team", f"teams.{side}.id {got!r} is not {tid!r}")
             if type(team.get("players")) is not list:
-                raise Reject("missing_field" if "players" not in team else "bad_type", f"teams.{side}.players must be an array")
+                raise Reject("missing_field" if "players" not in team else "bad_type",
+                             f"teams.{side}.players must be an array")
         return parse_timestamp(obj["timestamp"])
 
     def _players(self, team: dict[str, Any], side: int, row: int,
@@ -635,6 +652,8 @@ class FrameDecoder:
         (one vectorised call per team and frame); entries without them use x/y."""
         gnss: list[tuple[int, str, float, float, int]] = []
         plain: list[Any] = []
+        lat: Any  # JSON values, checked by type() below
+        lon: Any
         for pl in plist:
             if type(pl) is not dict:
                 raise Reject("bad_type", "a player entry must be an object")
@@ -653,15 +672,17 @@ class FrameDecoder:
         if not gnss:
             return
         done = [self._projected.get(g[4]) for g in gnss]
-        if all(d is not None for d in done):
-            xs, ys = np.array([d[0] for d in done]), np.array([d[1] for d in done])  # type: ignore[index]
+        known = [d for d in done if d is not None]
+        if len(known) == len(done):
+            xs, ys = np.array([d[0] for d in known]), np.array([d[1] for d in known])
         else:
             xs, ys = self.projection.to_pitch(np.array([g[2] for g in gnss]), np.array([g[3] for g in gnss]))
         bad = np.flatnonzero((np.abs(xs) > self.x_lim) | (np.abs(ys) > self.y_lim))
         if bad.size:
             k = int(bad[0])
             raise Reject("out_of_pitch", f"player {gnss[k][1]!r} at lat {gnss[k][2]}, long {gnss[k][3]} is "
-                                          f"{float(xs[k]):.1f}, {float(ys[k]):.1f} m from the centre spot: far outside the pitch")
+                                          f"{float(xs[k]):.1f}, {float(ys[k]):.1f} m from the centre spot: "
+                                          "far outside the pitch")
         s_f.extend([row] * len(gnss))
         s_p.extend(g[0] for g in gnss)
         s_x.extend(xs.tolist())
@@ -673,6 +694,8 @@ class FrameDecoder:
         keys: list[int] = []
         lats: list[float] = []
         lons: list[float] = []
+        lat: Any  # JSON values, checked by type() below
+        lon: Any
         for obj in objs:
             teams = obj.get("teams") if type(obj) is dict else None
             if type(teams) is not dict:
@@ -693,7 +716,7 @@ class FrameDecoder:
         if not keys:
             return {}
         xs, ys = self.projection.to_pitch(np.array(lats), np.array(lons))
-        return dict(zip(keys, zip(xs.tolist(), ys.tolist())))
+        return dict(zip(keys, zip(xs.tolist(), ys.tolist(), strict=True), strict=True))
 
     def _players_fast(self, plist: list[Any], side: int, row: int,
                       s_f: list[int], s_p: list[int], s_x: list[float], s_y: list[float]) -> bool:

@@ -31,8 +31,8 @@ checks projected distances against geographiclib's geodesics (Karney 2013,
 Checks on arrival (corner form): the two touchlines within ``side_tolerance``
 of each other, the two goal lines likewise, each corner angle within
 ``angle_tolerance_deg`` of 90°, and the right handedness (pacewire defaults,
-docs/wearables.md "Checks on arrival": sides within 1%, right angles within 1°). A failure raises :class:`CalibrationError`
-naming the corner most to blame: two neighbouring names exchanged (a crossed
+docs/wearables.md "Checks on arrival": sides within 1%, right angles within 1°).
+A failure raises :class:`CalibrationError` naming the corner most to blame: two neighbouring names exchanged (a crossed
 quadrilateral) are named as such; otherwise, since a single misplaced flag
 leaves the other three at a right angle, the corner whose opposite angle is
 closest to 90° is named (ties go to the corner with the worse angle of its
@@ -105,7 +105,7 @@ class GnssPitch(_Strict):
     width_m: float | None = Field(default=None, gt=0, allow_inf_nan=False, strict=True)
 
     @model_validator(mode="after")
-    def _one_form(self) -> "GnssPitch":
+    def _one_form(self) -> GnssPitch:
         if self.corners is not None and self.goal_centres is not None:
             raise ValueError("give either corners or goal_centres + width_m, not both")
         if self.corners is None and self.goal_centres is None:
@@ -165,12 +165,14 @@ def _angle_deg(u: np.ndarray, v: np.ndarray) -> float:
 
 
 _SIDE_PAIRS = (("touchlines", (0, 1), (3, 2)), ("goal lines", (0, 3), (1, 2)))  # corner indices of opposite sides
+# label, corners (a0, a1), length a, corners (b0, b1), length b, their difference as a share of the mean
+SideFault = tuple[str, tuple[int, int], float, tuple[int, int], float, float]
 
 
-def _faults(p: np.ndarray, side_tolerance: float):
+def _faults(p: np.ndarray, side_tolerance: float) -> tuple[list[SideFault], list[float], bool]:
     """The corner form's measurements: (side faults [(label, (a0, a1), la, (b0, b1), lb, share)], the four
     corner angles in degrees, whether x_min_y_max lies on the +y side of x_min_y_min)."""
-    sides = []
+    sides: list[SideFault] = []
     for label, (a0, a1), (b0, b1) in _SIDE_PAIRS:
         la, lb = float(np.hypot(*(p[a1] - p[a0]))), float(np.hypot(*(p[b1] - p[b0])))
         share = abs(la - lb) / ((la + lb) / 2)
@@ -263,7 +265,7 @@ class PitchProjection:
 
     @classmethod
     def from_calibration(cls, cal: GnssPitch, side_tolerance: float = 0.01,
-                         angle_tolerance_deg: float = 1.0) -> "PitchProjection":
+                         angle_tolerance_deg: float = 1.0) -> PitchProjection:
         """The projection of a validated calibration; raises :class:`CalibrationError` when the
         corners are not a rectangle within the tolerances (relative side difference; degrees).
         A plain dict is validated first with :func:`parse_calibration`."""
@@ -319,7 +321,7 @@ def rectangle(centre_lat: float, centre_lon: float, length_m: float, width_m: fl
     ux, uy = math.sin(b), math.cos(b)  # +x (east, north)
     vx, vy = -uy, ux  # +y, to the left of +x
     corners = {}
-    for name, (sx, sy) in zip(CORNERS, CORNER_XY):
+    for name, (sx, sy) in zip(CORNERS, CORNER_XY, strict=True):
         x, y = sx * length_m / 2, sy * width_m / 2
         lat, lon, _ = pymap3d.enu2geodetic(x * ux + y * vx, x * uy + y * vy, 0.0, centre_lat, centre_lon, 0.0,
                                            ell=WGS84, deg=True)
@@ -333,7 +335,8 @@ def check_venue(pitch: PitchProjection, pitch_length: float | None, pitch_width:
     differs from the calibration by more than ``tolerance`` (relative, 1% by the contract).
     Returns the pitch (length, width) to use: the meta's where given, else the calibration's."""
     out = []
-    for name, given, cal in (("pitch_length", pitch_length, pitch.length_m), ("pitch_width", pitch_width, pitch.width_m)):
+    for name, given, cal in (("pitch_length", pitch_length, pitch.length_m),
+                             ("pitch_width", pitch_width, pitch.width_m)):
         if given is None:
             out.append(cal)
             continue

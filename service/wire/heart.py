@@ -7,14 +7,15 @@ known, and nothing of a rejected sample reaches the engine.
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Iterable, Sequence
+from typing import Any
 
 import numpy as np
 
 from pacewire.engine.heart import HeartParams
 from pacewire.engine.types import Roster
-from pacewire.wire.cdf import FrameError, Reject, parse_timestamp, decode_json_lines, parse_message
+from pacewire.wire.cdf import FrameError, Reject, decode_json_lines, parse_message, parse_timestamp
 
 SAMPLE_KEYS = ("player_id", "timestamp", "bpm")
 _KEY_SET = frozenset(SAMPLE_KEYS)
@@ -57,12 +58,12 @@ class HrResult:
         return int(self.player.shape[0])
 
     @staticmethod
-    def empty(errors: list[FrameError] | None = None, rejected: int = 0) -> "HrResult":
+    def empty(errors: list[FrameError] | None = None, rejected: int = 0) -> HrResult:
         return HrResult(np.zeros(0, np.int64), np.zeros(0, np.float64), np.zeros(0, np.float64),
                         errors if errors is not None else [], rejected)
 
     @staticmethod
-    def merge(results: list["HrResult"]) -> "HrResult":
+    def merge(results: list[HrResult]) -> HrResult:
         if len(results) == 1:
             return results[0]
         return HrResult(np.concatenate([r.player for r in results]), np.concatenate([r.t for r in results]),
@@ -109,7 +110,8 @@ class HrDecoder:
                     pid, stamp = obj["player_id"], obj["timestamp"]
                     if t == last_t:
                         res.duplicates += 1
-                        errors.append(FrameError("duplicate", f"player {pid!r} already has a sample at {stamp}", None, line))
+                        errors.append(FrameError("duplicate", f"player {pid!r} already has a sample at {stamp}",
+                                                 None, line))
                     else:
                         res.late += 1
                         errors.append(FrameError("late", f"sample of player {pid!r} at {stamp} is older than "
@@ -123,7 +125,8 @@ class HrDecoder:
                 continue
             except Exception as exc:  # a shape no rule above foresaw: still a clear rejection
                 res.rejected += 1
-                errors.append(FrameError("bad_value", f"sample could not be read: {type(exc).__name__}: {exc}", None, line))
+                errors.append(FrameError("bad_value", f"sample could not be read: {type(exc).__name__}: {exc}",
+                                         None, line))
                 continue
             res.accepted.append(k)
             players.append(i)

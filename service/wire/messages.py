@@ -1,4 +1,5 @@
-"""Messages out (the contract in README, "Consuming the stream"): the envelope, deltas between states, and their codec."""
+"""Messages out (the contract in README, "Consuming the stream"): the envelope, deltas between states,
+and their codec."""
 from __future__ import annotations
 
 from typing import Any

@@ -3,9 +3,10 @@ and hr.jsonl[.gz] when the match had a heart-rate channel (docs/wearables.md).""
 from __future__ import annotations
 
 import gzip
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
 
 import orjson
 

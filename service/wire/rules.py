@@ -8,8 +8,10 @@ rules against the figures is :mod:`pacewire.reports.alerts`.
 """
 from __future__ import annotations
 
+from collections.abc import Sequence
+from itertools import pairwise
 from pathlib import Path
-from typing import Annotated, Any, Literal, Sequence, Union
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
@@ -61,13 +63,13 @@ class LoadBudget(_Model):
     levels: list[float] = Field(min_length=1, max_length=5)
 
     @model_validator(mode="after")
-    def _levels(self) -> "LoadBudget":
-        if any(not 0 < v <= 2 for v in self.levels) or any(b <= a for a, b in zip(self.levels, self.levels[1:])):
+    def _levels(self) -> LoadBudget:
+        if any(not 0 < v <= 2 for v in self.levels) or any(b <= a for a, b in pairwise(self.levels)):
             raise ValueError("levels must be shares of the cap in (0, 2], strictly increasing")
         return self
 
 
-Rule = Annotated[Union[DropOffPeak, DropOffBaseline, LoadBudget], Field(discriminator="kind")]
+Rule = Annotated[DropOffPeak | DropOffBaseline | LoadBudget, Field(discriminator="kind")]
 
 
 def _unique(rules: list[Any]) -> None:
@@ -101,7 +103,7 @@ class AlertsSection(_Model):
         return data
 
     @model_validator(mode="after")
-    def _ids(self) -> "AlertsSection":
+    def _ids(self) -> AlertsSection:
         _unique(self.rules)
         return self
 
@@ -110,7 +112,7 @@ class RulesFile(_Model):
     rules: list[Rule] = Field(max_length=50)
 
     @model_validator(mode="after")
-    def _ids(self) -> "RulesFile":
+    def _ids(self) -> RulesFile:
         _unique(self.rules)
         return self
 
@@ -127,7 +129,7 @@ class Caps(_Model):
     sprints: int | None = Field(default=None, gt=0, le=500)
 
     @model_validator(mode="after")
-    def _some(self) -> "Caps":
+    def _some(self) -> Caps:
         if all(getattr(self, k) is None for k in BUDGET_FIGURES):
             raise ValueError(f"give at least one cap: {', '.join(BUDGET_FIGURES)}")
         return self

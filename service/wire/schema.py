@@ -35,11 +35,18 @@ from pacewire.wire.messages import CONTRACT_VERSION
 
 JSON_SCHEMA_DIALECT = "https://json-schema.org/draft/2020-12/schema"
 
-Period = Literal[PERIODS]  # type: ignore[valid-type]
+Period = Literal[PERIODS]  # type: ignore[valid-type]  # mypy reads no Literal of a run-time tuple
 WINDOW_KEY = r"^(last_[0-9]+min|peak_[0-9]+min|block_[0-9]+_[0-9]+)$"
 LAST_WINDOW_KEY = r"^last_[0-9]+min$"
 ZONE_KEY = r"^[0-9]+(\.[0-9]+)?(-[0-9]+(\.[0-9]+)?%?|%?\+)$"
 ID = Annotated[str, Field(min_length=1)]
+
+
+def _optional_key(description: str, **bounds: Any) -> Any:
+    """A key a message leaves out where it does not apply; when present it is never null, so the
+    annotation stays non-optional and the None default only makes the key not required."""
+    return Field(None, description=description, **bounds)
+
 
 
 class _Shape(BaseModel):
@@ -55,15 +62,19 @@ class WindowFigures(_Shape):
     hsr_m: float = Field(ge=0, description="High-speed running distance, 5.5-7.0 m/s (19.8-25.2 km/h), m "
                                            "(Bradley et al. 2009; Di Salvo et al. 2009).")
     sprint_m: float = Field(ge=0, description="Sprint distance, >= 7.0 m/s (25.2 km/h), m (Di Salvo et al. 2009).")
-    hsr_efforts: int = Field(ge=0, description="High-speed efforts: >= 5.5 m/s held >= 1 s (a sprint is one too), count.")
+    hsr_efforts: int = Field(ge=0, description="High-speed efforts: >= 5.5 m/s held >= 1 s (a sprint is one too), "
+                                               "count.")
     sprints: int = Field(ge=0, description="Sprint efforts: >= 7.0 m/s held >= 1 s, count.")
     accels: int = Field(ge=0, description="Accelerations above +3 m/s^2 held >= 0.5 s, count (Akenhead et al. 2013).")
     decels: int = Field(ge=0, description="Decelerations below -3 m/s^2 held >= 0.5 s, count (Akenhead et al. 2013).")
-    energy_jkg: float = Field(ge=0, description="Metabolic energy spent, J/kg (di Prampero et al. 2005; Osgnach et al. 2010).")
+    energy_jkg: float = Field(ge=0, description="Metabolic energy spent, J/kg "
+                                                "(di Prampero et al. 2005; Osgnach et al. 2010).")
     high_power_m: float = Field(ge=0, description="Distance covered while metabolic power exceeded 20 W/kg, m "
                                                   "(Osgnach et al. 2010).")
-    m_per_min: float | None = Field(description="Distance per minute on the pitch, m/min; null before any time on the pitch.")
-    metabolic_power_wkg: float | None = Field(description="Mean metabolic power, W/kg; null before any time on the pitch.")
+    m_per_min: float | None = Field(description="Distance per minute on the pitch, m/min; "
+                                                "null before any time on the pitch.")
+    metabolic_power_wkg: float | None = Field(description="Mean metabolic power, W/kg; "
+                                                          "null before any time on the pitch.")
 
 
 HR_ZONE_KEY = r"^[0-9]+(\.[0-9]+)?-[0-9]+(\.[0-9]+)?%$"
@@ -73,11 +84,14 @@ class HeartWindow(_Shape):
     """Heart-rate figures over a stretch of play; present once the match has heart-rate samples
     (docs/wearables.md). Estimates from a strap: decisions stay with qualified staff."""
 
-    hr_mean_bpm: float | None = Field(None, description="Time-weighted mean heart rate, bpm; null without credited samples.")
-    trimp_edwards: float | None = Field(None, ge=0, description="Edwards' TRIMP: minutes in the 50-60 ... 90-100 % HRmax "
-                                                                "zones weighted 1-5, AU (Edwards 1993); null without hr_max_bpm.")
-    trimp_banister: float | None = Field(None, ge=0, description="Banister's TRIMP: minutes x HRr x a*exp(b*HRr), AU "
-                                                                 "(Banister 1991); null without hr_max_bpm, hr_rest_bpm and sex.")
+    hr_mean_bpm: float | None = Field(None, description="Time-weighted mean heart rate, bpm; "
+                                                        "null without credited samples.")
+    trimp_edwards: float | None = Field(None, ge=0, description="Edwards' TRIMP: minutes in the 50-60 ... 90-100 % "
+                                                                "HRmax zones weighted 1-5, AU (Edwards 1993); "
+                                                                "null without hr_max_bpm.")
+    trimp_banister: float | None = Field(None, ge=0, description="Banister's TRIMP: minutes x HRr x a*exp(b*HRr), "
+                                                                 "AU (Banister 1991); "
+                                                                 "null without hr_max_bpm, hr_rest_bpm and sex.")
 
 
 class HeartZones(_Shape):
@@ -88,15 +102,16 @@ class HeartZones(_Shape):
 
 class HeartFigures(HeartWindow):
     hr_zones: HeartZones | None = Field(None, description="Seconds per heart-rate zone; null without hr_max_bpm.")
-    hr_coverage: float | None = Field(None, ge=0, le=1, description="Heart-rate samples credited / (seconds on the pitch "
-                                                                    "x expected rate); null before time on the pitch.")
+    hr_coverage: float | None = Field(None, ge=0, le=1, description="Heart-rate samples credited / "
+                                                                    "(seconds on the pitch x expected rate); "
+                                                                    "null before time on the pitch.")
 
 
 class Window(WindowFigures, HeartWindow):
     """A rolling window (``last_Nmin``), a fixed block (``block_A_B``) or a peak (``peak_Nmin``)."""
 
     span_s: float = Field(ge=0, description="Seconds of play the window covers (shorter than N minutes early on).")
-    start_s: float = Field(None, description="Peak windows only: match clock at the window's start, s.")
+    start_s: float = _optional_key(description="Peak windows only: match clock at the window's start, s.")
 
 
 class Zones(_Shape):
@@ -134,7 +149,8 @@ class Player(PeriodFigures):
     team_id: ID = Field(description="The player's team (a key of ``teams``).")
     jersey_number: int = Field(description="Shirt number from the match sheet.")
     name: str = Field(description="Display name from the match sheet (may be empty).")
-    is_goalkeeper: bool = Field(description="position_group GK in the match sheet; goalkeepers are left out of team figures.")
+    is_goalkeeper: bool = Field(description="position_group GK in the match sheet; "
+                                            "goalkeepers are left out of team figures.")
     on_pitch: bool = Field(description="On the pitch now (seen recently, or brought on by a substitution event).")
     speed_ms: float | None = Field(description="Current speed, m/s; null when not seen in the last second.")
     windows: dict[Annotated[str, Field(pattern=WINDOW_KEY)], Window | None] = Field(
@@ -142,12 +158,13 @@ class Player(PeriodFigures):
                     "(null until N minutes were played; Fereday et al. 2020); block_A_B: fixed blocks of the "
                     "match clock, minutes A to B.")
     periods: dict[Period, PeriodFigures] = Field(description="The same figures per period played.")
-    possession: Possession = Field(None, description="Distance by ball context; present when the feed has possession.")
+    possession: Possession = _optional_key(description="Distance by ball context; "
+                                                       "present when the feed has possession.")
     hr_bpm: float | None = Field(None, description="Latest heart rate, bpm; null when older than heart_rate.stale_s.")
     hr_pct_max: float | None = Field(None, description="hr_bpm as % of the player's HRmax; null without hr_max_bpm.")
     hr_peak_bpm: float | None = Field(None, description="Highest accepted heart rate, bpm.")
-    hr_omitted: dict[str, str] = Field(None, description="Heart-rate figures left out for this player, each with why "
-                                                         "(a profile value is missing).")
+    hr_omitted: dict[str, str] = _optional_key(description="Heart-rate figures left out for this player, each with why "
+                                                           "(a profile value is missing).")
 
 
 class PerPlayer(_Shape):
@@ -176,10 +193,10 @@ class Outfield(WindowFigures):
 class Team(_Shape):
     name: str = Field(description="Team name from the set-up.")
     side: Literal["home", "away"]
-    score: int = Field(None, ge=0, description="Goals from match events (live service only).")
+    score: int = _optional_key(ge=0, description="Goals from match events (live service only).")
     tracked: bool = Field(description="The feed tracks this team's players; false for the other team of a "
                                       "one-team (wearables) feed, which then has no outfield figures.")
-    outfield: Outfield = Field(None, description="Outfield totals; absent for a team the feed does not track.")
+    outfield: Outfield = _optional_key(description="Outfield totals; absent for a team the feed does not track.")
 
 
 class Reason(_Shape):
@@ -203,11 +220,13 @@ class Health(_Shape):
     jumps: int = Field(ge=0, description="Implausible position steps (> 12.5 m/s) rejected, count.")
     frames: int = Field(ge=0, description="Frames applied, count.")
     coverage: dict[str, float] = Field(description="Per player id: credited samples / samples on the pitch, 0-1.")
-    hr_coverage: dict[str, float | None] = Field(None, description="Per player on the pitch: heart-rate samples over the "
-                                                                   "last minute / expected (a strap dropping out shows here).")
-    hr_rejected: int = Field(None, ge=0, description="Heart-rate samples refused (implausible, jumps, bad shape), count.")
-    hr_duplicates: int = Field(None, ge=0, description="Heart-rate samples dropped as repeats, count.")
-    hr_late: int = Field(None, ge=0, description="Heart-rate samples dropped as older than the player's last, count.")
+    hr_coverage: dict[str, float | None] = _optional_key(description="Per player on the pitch: heart-rate samples "
+                                                                     "over the last minute / expected "
+                                                                     "(a strap dropping out shows here).")
+    hr_rejected: int = _optional_key(ge=0, description="Heart-rate samples refused (implausible, jumps, bad shape), "
+                                                       "count.")
+    hr_duplicates: int = _optional_key(ge=0, description="Heart-rate samples dropped as repeats, count.")
+    hr_late: int = _optional_key(ge=0, description="Heart-rate samples dropped as older than the player's last, count.")
 
 
 class SnapshotBody(_Shape):
@@ -226,6 +245,7 @@ class Envelope(_Shape):
     seq: int = Field(ge=0, description="Position in this subscription's stream: one more per message; 0 on errors.")
     match_time_s: float = Field(ge=0, description="Match clock of the state the message reflects, s.")
     period: Period | None = Field(description="Current period; null before the first frame.")
+    # mypy reads no Literal of a name
     v: Literal[CONTRACT_VERSION] = Field(  # type: ignore[valid-type]
         description="Contract major version; within it fields are only added, never removed or renamed.")
 
@@ -234,7 +254,8 @@ class SnapshotMessage(SnapshotBody, Envelope):
     """The full state: on connect, and on resync."""
 
     type: Literal["snapshot"]
-    resync: Literal[True] = Field(None, description="Present (true) when it replaces messages a resume could not deliver.")
+    resync: Literal[True] = _optional_key(description="Present (true) when it replaces messages "
+                                                      "a resume could not deliver.")
 
 
 class HealthMessage(Envelope):
@@ -263,7 +284,7 @@ class AlertMessage(Envelope):
     figure: str = Field(description="The figure the rule watches.")
     value: float = Field(description="The player's value of that figure (its unit).")
     limit: float = Field(description="The limit it crossed (same unit).")
-    level: float = Field(None, description="Load budgets only: the share of the budget this alert marks.")
+    level: float = _optional_key(description="Load budgets only: the share of the budget this alert marks.")
     message: str = Field(description="Human-readable text.")
 
 
@@ -282,8 +303,8 @@ class ErrorMessage(Envelope):
     code: str = Field(description="Machine-readable: bad_json, duplicate, late, unknown_team, unknown_match, "
                                   "bad_request, too_many_subscribers, not_stored, ...")
     message: str = Field(description="Human-readable explanation.")
-    frame_id: int = Field(None, description="The frame's id, when it could be read.")
-    line: int = Field(None, description="Line number within an HTTP batch.")
+    frame_id: int = _optional_key(description="The frame's id, when it could be read.")
+    line: int = _optional_key(description="Line number within an HTTP batch.")
 
 
 def partial(model: type[BaseModel], suffix: str = "Delta") -> type[BaseModel]:
@@ -297,11 +318,12 @@ def partial(model: type[BaseModel], suffix: str = "Delta") -> type[BaseModel]:
         origin = typing.get_origin(tp)
         args = typing.get_args(tp)
         if origin is Annotated:
-            return Annotated[(conv(args[0]), *tp.__metadata__)]  # type: ignore[misc]
+            return Annotated[(conv(args[0]), *tp.__metadata__)]
         if origin in (Union, types.UnionType):
-            return Union[tuple(conv(a) for a in args)]  # type: ignore[return-value]
+            # a Union of a run-time tuple has no X | Y spelling
+            return Union[tuple(conv(a) for a in args)]  # noqa: UP007
         if origin is dict:
-            return dict[args[0], Union[conv(args[1]), None]]  # type: ignore[index]
+            return types.GenericAlias(dict, (args[0], conv(args[1]) | None))
         return tp
 
     def make(m: type[BaseModel]) -> type[BaseModel]:
@@ -311,7 +333,7 @@ def partial(model: type[BaseModel], suffix: str = "Delta") -> type[BaseModel]:
                 tp = conv(info.annotation)
                 if info.metadata:  # keep the bounds (ge, le, pattern) of the full shape
                     tp = Annotated[(tp, *info.metadata)]
-                fields[name] = (Union[tp, None], Field(None, description=info.description))
+                fields[name] = (tp | None, Field(None, description=info.description))
             extra = m.model_config.get("json_schema_extra")
             cache[m] = create_model(f"{m.__name__}{suffix}", __base__=_Shape, __doc__=m.__doc__, **fields)
             if extra:
@@ -332,6 +354,7 @@ class DeltaMessage(Envelope):
     Apply it by merging nested objects; a null value means the key went away."""
 
     type: Literal["delta"]
+    # models made at run time by partial(): mypy cannot read them as types
     players: dict[str, PlayerDelta | None] | None = None  # type: ignore[valid-type]
     teams: dict[str, TeamDelta | None] | None = None  # type: ignore[valid-type]
     health: HealthDelta | None = None  # type: ignore[valid-type]
@@ -347,7 +370,8 @@ MESSAGES: dict[str, type[Envelope]] = {
     "error": ErrorMessage,
 }
 
-Message = Annotated[Union[tuple(MESSAGES.values())], Field(discriminator="type")]  # type: ignore[valid-type]
+# built at run time from MESSAGES: a value for TypeAdapter, not an annotation (and with no X | Y spelling)
+Message: Any = Annotated[Union[tuple(MESSAGES.values())], Field(discriminator="type")]  # noqa: UP007
 
 
 # -- JSON Schema --------------------------------------------------------------------------------------

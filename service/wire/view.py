@@ -23,7 +23,7 @@ class View:
         return self.kind if self.kind == "all" else f"{self.kind}:{','.join(self.ids)}"
 
     @staticmethod
-    def parse(text: str, team_ids: tuple[str, ...], player_ids: set[str]) -> "View":
+    def parse(text: str, team_ids: tuple[str, ...], player_ids: set[str]) -> View:
         if text == "all":
             return View("all")
         kind, _, rest = text.partition(":")

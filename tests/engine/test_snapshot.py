@@ -10,10 +10,10 @@ from pathlib import Path
 import orjson
 import pytest
 
-from pacewire.replay import synth
 from pacewire.analyze import new_match
 from pacewire.config import load_settings
 from pacewire.engine.snapshot import build_health, build_snapshot
+from pacewire.replay import synth
 from pacewire.wire.heart import HrDecoder
 
 NOW = 1.9e9  # a wall clock for health (any fixed value: both builds see the same)

@@ -22,7 +22,7 @@ from hypothesis import HealthCheck, given, settings as hsettings, strategies as 
 from websockets.sync.client import connect
 
 from pacewire.analyze import analyze_folder
-from pacewire.config import ConfigError, settings_from_dict, load_settings
+from pacewire.config import ConfigError, load_settings, settings_from_dict
 from pacewire.wire.rules import RulesError, load_budgets, load_rules
 from tests.support import cdf_build as cb
 from tests.support.live_server import LiveServer

@@ -203,8 +203,8 @@ def test_offline_cli_refuses_a_missing_folder(tmp_path):
 
 def test_synthetic_match_report(tmp_path):
     """A full squad from the synthetic match generator: every player of the sheet named, valid HTML."""
-    from pacewire.replay.synth import write_match
     from pacewire.engine.blocks import block_series
+    from pacewire.replay.synth import write_match
     from pacewire.reports.builder import ReportInput, build_report
 
     folder = write_match(tmp_path / "synth", minutes=2, fps=25, seed=11, faults=False)

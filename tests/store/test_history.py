@@ -7,10 +7,10 @@ import statistics
 import numpy as np
 import pytest
 
-from pacewire.replay.synth import write_match
 from pacewire.analyze import analyze_folder
 from pacewire.cli import main as cli
 from pacewire.config import load_settings
+from pacewire.replay.synth import write_match
 from pacewire.store import history
 from pacewire.store.record import MatchRecord, match_record, robust_band
 

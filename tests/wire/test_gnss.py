@@ -17,7 +17,13 @@ from hypothesis import given, settings as hsettings, strategies as st
 
 from pacewire.config import load_settings
 from pacewire.wire.gnss import (
-    CORNERS, CalibrationError, GnssPitch, PitchProjection, check_venue, parse_calibration, rectangle,
+    CORNERS,
+    CalibrationError,
+    GnssPitch,
+    PitchProjection,
+    check_venue,
+    parse_calibration,
+    rectangle,
 )
 
 GEOD = Geodesic.WGS84
