@@ -28,16 +28,17 @@ import itertools
 import signal
 import sys
 import time
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable, Iterator
+from typing import Any
 from urllib.parse import urlsplit, urlunsplit
 
 import orjson
 
-from pacewire.wire.recording import Recording, open_recording
 from pacewire.engine.match import CLOCK_START_MIN
 from pacewire.wire.cdf import parse_timestamp
+from pacewire.wire.recording import Recording, open_recording
 
 BREAK_WALL_S = 1.0  # wall time between periods in a replay
 TICK_S = 0.02  # frames due within one tick go in one message

@@ -16,7 +16,6 @@ from tests.support.live_server import free_port
 from tests.support.paths import DEMO_CLIP, ROOT
 
 
-
 def run(*cmd: str | Path, cwd: Path, timeout: float = 900) -> subprocess.CompletedProcess[str]:
     out = subprocess.run([str(c) for c in cmd], cwd=cwd, capture_output=True, text=True, timeout=timeout)
     assert out.returncode == 0, f"{cmd}: {out.stdout[-2000:]}\n{out.stderr[-3000:]}"

@@ -29,15 +29,16 @@ import pytest
 from hypothesis import given, settings as hsettings, strategies as st
 from scipy.integrate import cumulative_trapezoid
 
-from pacewire.replay import kloppy_cdf as kc
 from pacewire.analyze import new_match
 from pacewire.config import load_settings
 from pacewire.engine.exertion import metabolic_power, minetti_cost
 from pacewire.engine.kinematics import Track
 from pacewire.engine.snapshot import build_snapshot
+from pacewire.replay import kloppy_cdf as kc
 from pacewire.wire.cdf import SetupError
 from tests.support import cdf_build as cb
 from tests.support.trajectories import FPS, round_circle
+
 OSGNACH = {"metabolic": {"model": "osgnach2010"}}
 DIPRAMPERO = {"metabolic": {"model": "diprampero2018"}}
 

@@ -23,8 +23,16 @@ from pacewire.wire.heart import HrDecoder
 from pacewire.wire.schema import json_schemas, strict
 from tests.support import cdf_build as cb
 from tests.support.trajectories import FPS, distance, speeds
-from tests.support.wearables import (calibration, hr_figures, hr_samples, jog, one_team_frames, send_hr, wearable_meta,
-                                     wearable_sheet)
+from tests.support.wearables import (
+    calibration,
+    hr_figures,
+    hr_samples,
+    jog,
+    one_team_frames,
+    send_hr,
+    wearable_meta,
+    wearable_sheet,
+)
 
 
 def touchline_run(seconds: float) -> np.ndarray:

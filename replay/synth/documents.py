@@ -6,7 +6,17 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from pacewire.replay.synth.clubs import (
-    AWAY, CLUBS, FORMATIONS, HOME, OFFICIALS, PITCH_LENGTH_M, PITCH_WIDTH_M, POSITION_GROUP, VENUE, Club, player_id,
+    AWAY,
+    CLUBS,
+    FORMATIONS,
+    HOME,
+    OFFICIALS,
+    PITCH_LENGTH_M,
+    PITCH_WIDTH_M,
+    POSITION_GROUP,
+    VENUE,
+    Club,
+    player_id,
 )
 from pacewire.replay.synth.match import SynthMatch
 from pacewire.replay.synth.timeline import iso_ms

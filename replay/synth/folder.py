@@ -8,14 +8,18 @@ import gzip
 import pathlib
 import queue
 import threading
-from typing import Iterable, Iterator
+from collections.abc import Iterable, Iterator
 
 import numpy as np
 import orjson
 
 from pacewire.replay.synth.clubs import AWAY, player_id
 from pacewire.replay.synth.documents import (
-    MATCH_ID, build_meta, build_sheet, build_wearables_meta, build_wearables_sheet,
+    MATCH_ID,
+    build_meta,
+    build_sheet,
+    build_wearables_meta,
+    build_wearables_sheet,
 )
 from pacewire.replay.synth.faults import FaultPlan, plan_faults
 from pacewire.replay.synth.lines import frame_lines, hr_lines

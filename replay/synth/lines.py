@@ -4,7 +4,8 @@ with lat/long) and the heart-rate samples."""
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Iterator
+from collections.abc import Iterator
+from typing import TYPE_CHECKING
 
 import numpy as np
 import orjson

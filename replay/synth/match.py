@@ -13,7 +13,12 @@ from pacewire.replay.synth.anchors import formation_offsets
 from pacewire.replay.synth.ball import BallScript, rasterize_ball
 from pacewire.replay.synth.clubs import AWAY, CLUBS, HOME, player_id
 from pacewire.replay.synth.events import (
-    GoalEvent, Substitution, goal_events, plan_cards, plan_goals, plan_substitutions,
+    GoalEvent,
+    Substitution,
+    goal_events,
+    plan_cards,
+    plan_goals,
+    plan_substitutions,
 )
 from pacewire.replay.synth.plans import plan_half
 from pacewire.replay.synth.roles import slot_roles

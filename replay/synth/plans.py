@@ -16,8 +16,15 @@ from pacewire.replay.synth.anchors import formation_offsets, team_anchors
 from pacewire.replay.synth.ball import BallTrack
 from pacewire.replay.synth.clubs import AWAY, HOME
 from pacewire.replay.synth.roles import (
-    CATEGORY_SPEEDS_MS, HSR_COMMAND_S, HSR_SPEED_MS, ROLES, SPRINT_COMMAND_S, SPRINT_SPEED_MS, STOPPAGE_PROBS,
-    RoleProfile, slot_roles,
+    CATEGORY_SPEEDS_MS,
+    HSR_COMMAND_S,
+    HSR_SPEED_MS,
+    ROLES,
+    SPRINT_COMMAND_S,
+    SPRINT_SPEED_MS,
+    STOPPAGE_PROBS,
+    RoleProfile,
+    slot_roles,
 )
 
 HEADING_NOISE = 0.4  # rad per sqrt(s): random-walk wander of the heading

@@ -17,8 +17,8 @@ from pathlib import Path
 
 import orjson
 
-from pacewire.replay.synth import write_match
 from pacewire.analyze import analyze_folder
+from pacewire.replay.synth import write_match
 
 
 def _match_seconds(folder: Path) -> float:

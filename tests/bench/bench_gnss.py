@@ -21,7 +21,7 @@ import math
 import os
 import sys
 import time
-from typing import Callable
+from collections.abc import Callable
 
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")  # one-core figures (before numpy loads)

@@ -54,10 +54,10 @@ import sys
 import tempfile
 import time
 import zlib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from multiprocessing.connection import Connection
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 
@@ -139,7 +139,7 @@ class Feeder:
     reconnects: object = None
     paused: object = None
 
-    def start(self) -> "Feeder":
+    def start(self) -> Feeder:
         self.send_t = CTX.Array("d", len(self.lines), lock=False)
         self.send_t[:] = [float("nan")] * len(self.lines)
         self.n_sent = CTX.Value("l", 0, lock=False)
@@ -206,7 +206,7 @@ def _feeder_main(url: str, lines: list[bytes], send_t, n_sent, errors, reconnect
                         k += 1
                         n_sent.value = k
                     reader.cancel()
-            except (ConnectionClosed, OSError, asyncio.TimeoutError):
+            except (TimeoutError, ConnectionClosed, OSError):
                 reconnects.value += 1
                 await asyncio.sleep(0.1)
 
@@ -247,7 +247,7 @@ class _Sub(asyncio.Protocol):
     its first 256 bytes (type, seq, match_time_s) is enough: the server still deflates every
     message for every socket."""
 
-    def __init__(self, path: str, host: str, rec: "_Record", i: int, wait_first: bool) -> None:
+    def __init__(self, path: str, host: str, rec: _Record, i: int, wait_first: bool) -> None:
         self.path, self.host, self.rec, self.i, self.wait_first = path, host, rec, i, wait_first
         self.opened: asyncio.Future = asyncio.get_running_loop().create_future()
         self.transport: asyncio.Transport | None = None
@@ -710,6 +710,7 @@ def measure(plan: list[Case], lines: list[bytes], tmp: Path, baseline: bool = Tr
     """Each case against the baseline server, then against pacewire, one after the other, so that
     both see the same load from the rest of the machine. Both feeds run all along."""
     import httpx
+
     from tests.support.live_server import free_port
 
     port = free_port()

@@ -181,7 +181,7 @@ def _subscribers(urls: list[str], plan: list[tuple[str, float]], clock, q) -> No
                 while time.monotonic() < stop_at:
                     try:
                         text = await asyncio.wait_for(ws.recv(), max(stop_at - time.monotonic(), 0.01))
-                    except asyncio.TimeoutError:
+                    except TimeoutError:
                         break
                     now = time.monotonic()
                     m = orjson.loads(text)
@@ -189,7 +189,7 @@ def _subscribers(urls: list[str], plan: list[tuple[str, float]], clock, q) -> No
                         got.append((now, m["match_time_s"]))
                     elif m["type"] == "snapshot":
                         resyncs += 1  # a slow reader's backlog became a fresh snapshot
-        except Exception as exc:  # noqa: BLE001 - counted and reported, the case goes on
+        except Exception as exc:
             failed = str(exc)[:120]
             ready.set()
         return mid, every, got, resyncs, failed
@@ -217,7 +217,7 @@ class Rig:
         self.redis: RedisServer | None = None
         self.procs: dict[str, LiveServer] = {}
 
-    def start(self) -> "Rig":
+    def start(self) -> Rig:
         from concurrent.futures import ThreadPoolExecutor
 
         self.redis = RedisServer(self.folder / "redis").start()

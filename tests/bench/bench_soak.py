@@ -45,7 +45,7 @@ import subprocess
 import sys
 import tempfile
 import time
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
@@ -95,7 +95,7 @@ def _subscribers_main(urls: list[str], conn) -> None:
                     while not stop.is_set():
                         try:
                             msg = await asyncio.wait_for(ws.recv(decode=False), 0.5)
-                        except asyncio.TimeoutError:
+                        except TimeoutError:
                             continue
                         head = msg[:160]
                         seq = int(SEQ.search(head).group(1))
@@ -304,7 +304,7 @@ def run(quick: bool) -> dict[str, dict]:
     base = after[0][2] if after else samples[-1][2]
     end = samples[-1][2]
     growth = end - base
-    out = {"created": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"), "quick": quick,
+    out = {"created": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"), "quick": quick,
            "minutes": minutes, "speed": SPEED, "subscribers": SUBSCRIBERS, "cadences_s": list(CADENCES),
            "sample_s": sample_s, "warmup_s": warm, "half_time_report_listed_s": report_at,
            "rss_start_mb": round(rss_start, 2), "after_stall": stalled,

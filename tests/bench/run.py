@@ -19,7 +19,7 @@ import subprocess
 import sys
 import time
 import traceback
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
@@ -100,7 +100,7 @@ def main(argv: list[str] | None = None) -> int:
             merged[key if key not in merged else f"{name}.{key}"] = e
 
     doc = {
-        "created": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        "created": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
         "quick": args.quick,
         "python": platform.python_version(),
         "machine": platform.machine(),

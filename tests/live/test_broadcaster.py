@@ -176,7 +176,7 @@ def test_deltas_reach_the_socket_in_order_also_when_it_stalls():
             await asyncio.sleep(0)
         _frame(feed, b)  # the pump caught up and waits again: inline once more
         assert sock.sent[-1]["health"]["frames"] == feed.frames
-        assert [m["seq"] for m in sock.sent] == list(range(0, 12))
+        assert [m["seq"] for m in sock.sent] == list(range(12))
         b.detach(sub)
         sub.task.cancel()
 

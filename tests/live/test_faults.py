@@ -255,7 +255,7 @@ def _storm_main(ws_base: str, seed: int, conn) -> None:
                         try:
                             while time.monotonic() < t_end:
                                 await asyncio.wait_for(ws.recv(), max(t_end - time.monotonic(), 0.01))
-                        except asyncio.TimeoutError:
+                        except TimeoutError:
                             pass  # the hold ran out while waiting for a message: a normal way to leave
             except Exception:  # refused, or no handshake within 20 s
                 stats["failed"] += 1
@@ -316,7 +316,7 @@ def test_subscriber_storm_leaves_steady_subscribers_and_memory_alone(tmp_path):
                     while not stop.is_set():
                         try:
                             raw = await asyncio.wait_for(ws.recv(), 0.5)
-                        except asyncio.TimeoutError:
+                        except TimeoutError:
                             continue
                         m = orjson.loads(raw)
                         log.append((time.monotonic(), m["type"], m["seq"], m.get("match_time_s"), m.get("resync")))
@@ -417,7 +417,7 @@ def test_stream_left_idle_sends_nothing_and_a_resume_catches_up(tmp_path):
                 while True:  # what was published meanwhile (the stall), then one delta that catches up
                     try:
                         m = orjson.loads(await asyncio.wait_for(live.recv(), 1.5))
-                    except asyncio.TimeoutError:
+                    except TimeoutError:
                         break  # the feed is stalled: nothing more is coming
                     assert m["type"] != "snapshot" and m["seq"] == seq + 1
                     seq = m["seq"]

@@ -10,8 +10,8 @@ import time
 import httpx
 import pytest
 
-from pacewire.replay.player import replay
 from pacewire.analyze import analyze_folder
+from pacewire.replay.player import replay
 from tests.support import cdf_build as cb
 from tests.support.live_server import LiveServer
 from tests.support.snapshots import player_figures, settled_snapshot

@@ -13,7 +13,6 @@ import datetime as dt
 import gzip
 import io
 import pathlib
-import time
 import warnings
 
 import cdf
@@ -23,15 +22,15 @@ import orjson
 import pytest
 from cdf.validators.custom import ValidationWarning
 
+from pacewire.analyze import analyze_folder
 from pacewire.replay import synth
 from pacewire.replay.player import Progress, replay
-from pacewire.analyze import analyze_folder
 from pacewire.wire.gnss import PitchProjection, parse_calibration
 from tests.support.snapshots import player_figures, settled_snapshot
 
 HR_LOW_BPM, HR_HIGH_BPM = 40, 215  # common practice: athletes' resting HR rarely below ~40, HRmax rarely above ~210
 SPIKE_BPM = 255  # the injected implausible sample (replay/synth.py HR_SPIKE_BPM)
-KICKOFF = dt.datetime(2026, 3, 14, 15, 0, tzinfo=dt.timezone.utc)  # replay/synth.py KICKOFF
+KICKOFF = dt.datetime(2026, 3, 14, 15, 0, tzinfo=dt.UTC)  # replay/synth.py KICKOFF
 
 
 # --------------------------------------------------------------------------

@@ -17,15 +17,23 @@ from pacewire.engine.blocks import clock_block, window_coverage
 from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import BALL_IN, PERIOD_INDEX, Block
+from pacewire.params import match_params
 from pacewire.reports.alerts import Alerter, Band
 from pacewire.store import history
 from pacewire.store.record import MatchRecord
-from pacewire.params import match_params
 from pacewire.wire.cdf import parse_setup
-from pacewire.wire.rules import (Caps, DropOffBaseline, DropOffPeak, LoadBudget, RulesError, check_rules, load_rules,
-                                 load_budgets, parse_budgets)
-from tests.support import cdf_build as cb
-from tests.support import trajectories
+from pacewire.wire.rules import (
+    Caps,
+    DropOffBaseline,
+    DropOffPeak,
+    LoadBudget,
+    RulesError,
+    check_rules,
+    load_budgets,
+    load_rules,
+    parse_budgets,
+)
+from tests.support import cdf_build as cb, trajectories
 from tests.support.live_server import LiveServer
 from tests.support.trajectories import FPS
 
@@ -318,7 +326,7 @@ async def alerts_until_quiet(ws, quiet_s: float = 0.5) -> list[dict]:
     while True:
         try:
             m = orjson.loads(await asyncio.wait_for(ws.recv(), quiet_s))
-        except asyncio.TimeoutError:
+        except TimeoutError:
             return out
         if m["type"] == "alert":
             out.append(m)

@@ -23,8 +23,16 @@ from pacewire.reports.table import to_csv
 from pacewire.store import history
 from tests.support import cdf_build as cb
 from tests.support.live_server import LiveServer
-from tests.support.reports import (IDS, N_AWAY, N_HOME, assert_csv_equals_snapshot, collect_reports, parse_strict,
-                                   tiny_state, trajectory)
+from tests.support.reports import (
+    IDS,
+    N_AWAY,
+    N_HOME,
+    assert_csv_equals_snapshot,
+    collect_reports,
+    parse_strict,
+    tiny_state,
+    trajectory,
+)
 from tests.support.trajectories import FPS
 
 HALF_S = 70  # each half: 70 s of play

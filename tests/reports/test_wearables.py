@@ -35,8 +35,7 @@ from pacewire.reports.builder import ReportInput, build_report
 from pacewire.reports.offline import build_offline
 from pacewire.reports.page import HEALTH_CAUTION, HR_CAVEAT, OMITTED_MARK
 from pacewire.reports.table import flatten, to_csv
-from tests.support import bench_page as pc
-from tests.support import cdf_build as cb
+from tests.support import bench_page as pc, cdf_build as cb
 from tests.support.live_server import LiveServer
 from tests.support.paths import ARTIFACTS
 from tests.support.reports import assert_csv_equals_snapshot, collect_reports, parse_strict, tiny_state
@@ -257,8 +256,7 @@ def test_report_heart_rate_from_a_hand_built_snapshot():
     assert text_of(tds[11]) == "97%"
     snap = {"match_id": "m", "match_time_s": 720.0, "period": "first_half", "health": {"state": "ok"},
             "teams": {HOME: {"name": "Harbour Town", "side": "home", "tracked": True,
-                             "outfield": {k: 0 for k in ("players", "distance_m", "hsr_m", "sprint_m", "hsr_efforts",
-                                                         "sprints", "accels", "decels", "high_power_m")}
+                             "outfield": dict.fromkeys(("players", "distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "high_power_m"), 0)
                              | {"per_player": {"distance_m": 0, "m_per_min": 0, "hsr_m": 0, "sprint_m": 0}}},
                       AWAY: {"name": "Quarry Lane", "side": "away", "tracked": False}},
             "players": {"p7": dict(base, distance_m=1500.0, m_per_min=125.0, hsr_m=90.0, sprint_m=10.0, hsr_efforts=4,

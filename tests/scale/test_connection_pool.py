@@ -29,7 +29,7 @@ async def test_a_burst_waits_for_a_connection_instead_of_failing(redis):
         got = await asyncio.gather(*[r.get("k") for _ in range(300)])
         assert got == [b"v"] * 300
         # the pool stayed within its bound (CLIENT LIST: one line per connection, ours included)
-        assert len((await r.client_list())) <= 4
+        assert len(await r.client_list()) <= 4
     finally:
         await r.aclose()
 

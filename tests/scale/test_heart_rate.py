@@ -24,8 +24,7 @@ from tests.support.cluster import Cluster, holder
 from tests.support.live_server import LiveServer
 from tests.support.redis_server import RedisServer, cli, require_redis
 from tests.support.sockets import collect, replay_state
-from tests.support.wearables import (hr_figures, hr_samples, jog, one_team_frames, send_hr, wearable_meta,
-                                     wearable_sheet)
+from tests.support.wearables import hr_figures, hr_samples, jog, one_team_frames, send_hr, wearable_meta, wearable_sheet
 
 require_redis("scale heart-rate tests")
 

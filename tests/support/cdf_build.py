@@ -2,14 +2,14 @@
 from __future__ import annotations
 
 import gzip
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import orjson
 
-KICKOFF = datetime(2026, 3, 14, 15, 0, 0, tzinfo=timezone.utc)
+KICKOFF = datetime(2026, 3, 14, 15, 0, 0, tzinfo=UTC)
 HOME, AWAY = "t_harbour", "t_quarry"
 
 

@@ -39,7 +39,7 @@ class LiveServer:
     def ws(self) -> str:
         return f"ws://127.0.0.1:{self.port}"
 
-    def start(self, timeout: float = 60.0) -> "LiveServer":
+    def start(self, timeout: float = 60.0) -> LiveServer:
         cmd = [sys.executable, "-m", "pacewire", "serve", "--port", str(self.port), "--data", str(self.data),
                "--log-level", "warning", *self.args]
         if self.config is not None:

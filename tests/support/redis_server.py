@@ -40,7 +40,7 @@ class RedisServer:
     def url(self) -> str:
         return f"redis://127.0.0.1:{self.port}/0"
 
-    def start(self, timeout: float = 10.0) -> "RedisServer":
+    def start(self, timeout: float = 10.0) -> RedisServer:
         # AOF with fsync always: what README "Running at league scale" asks for no frame loss
         cmd = [redis_available() or "redis-server", "--port", str(self.port), "--bind", "127.0.0.1",
                "--dir", str(self.folder), "--save", "", "--appendonly", "yes", "--appendfsync", "always",

@@ -17,7 +17,8 @@ import gzip
 import math
 import threading
 import time
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 import httpx
 import orjson
