@@ -1,4 +1,4 @@
-"""Redis-backed roles for multi-process deployments (DESIGN §5).
+"""Redis-backed roles for multi-process deployments (README, "Running at league scale").
 
 ``ingest`` appends frames to a Redis Stream per match, ``aggregator`` claims
 matches with a lease and steps the engine, ``gateway`` fans the aggregator's

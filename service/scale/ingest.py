@@ -251,7 +251,7 @@ class StreamIngest:
     # -- heart rate -------------------------------------------------------------------------------
     async def ingest_hr(self, match_id: str, m: IngestMatch, data: bytes | str | list[bytes]) -> IngestOutcome:
         """Heart-rate samples: JSON Lines (a list of lines, HTTP) or one message (an object or an
-        array), checked as the single process checks them (``MatchRunner.ingest_hr``) against the
+        array), checked as the single process checks them (``Intake.heart_rate``) against the
         gate stored in Redis; answered once Redis has the accepted samples."""
         dec = m.hr
         objs = None if isinstance(data, list) else parse_message(data)

@@ -1,5 +1,5 @@
 /* pacewire bench page: one live subscription, a local copy of the state, a plain DOM render.
-   No framework, no build step, no external assets. Contract: DESIGN.md §3. */
+   No framework, no build step, no external assets. Contract: README, "Consuming the stream". */
 "use strict";
 
 (function () {
