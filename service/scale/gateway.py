@@ -15,6 +15,7 @@ import asyncio
 import logging
 import time
 from collections import deque
+from collections.abc import Coroutine
 from typing import Any
 
 import orjson
@@ -111,7 +112,7 @@ class Feed:
         if s > self.seq + 1:
             self.pending.append(text)
             self.repairing = True
-            asyncio.create_task(self.repair())
+            self.gw.spawn(self.repair())
             return
         self._accept(s, text)
 
@@ -229,6 +230,13 @@ class Gateway:
         self.messages_out = 0
         self.dropped = 0
         self._tasks: list[asyncio.Task[None]] = []
+        self._background: set[asyncio.Task[None]] = set()  # repairs and checks under way
+
+    def spawn(self, coro: Coroutine[Any, Any, None]) -> None:
+        """Run ``coro`` in the background, held until it ends (the loop keeps only weak references)."""
+        task = asyncio.create_task(coro)
+        self._background.add(task)
+        task.add_done_callback(self._background.discard)
 
     async def start(self) -> None:
         await self.pubsub.subscribe(f"{keys.PREFIX}:gateway")  # the connection exists from now on
@@ -310,7 +318,7 @@ class Gateway:
                 if broken:
                     broken = False
                     for f in list(self.feeds.values()):
-                        asyncio.create_task(f.check())
+                        self.spawn(f.check())
                 if msg is None or msg.get("type") != "message":
                     continue
                 ch = msg["channel"].decode()
