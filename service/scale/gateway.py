@@ -244,7 +244,7 @@ class Gateway:
                        asyncio.create_task(self._upkeep(), name="gw-upkeep")]
 
     async def stop(self) -> None:
-        await cancel(self._tasks)
+        await cancel([*self._tasks, *self._background])
         try:
             await self.pubsub.aclose()
         except Exception:
