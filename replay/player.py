@@ -435,7 +435,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("folder", type=Path, help="a CDF folder (meta.json, match.json, tracking.jsonl[.gz])")
     p.add_argument("--to", required=True, help="ws://HOST:PORT/ingest/MATCH")
     p.add_argument("--speed", type=_speed, default=1.0, help="times real time, 0.25 to 100, or max (default 1)")
-    p.add_argument("--from", dest="start", type=parse_clock, help="start at this match time (MM:SS); earlier frames are sent at once")
+    p.add_argument("--from", dest="start", type=parse_clock,
+                   help="start at this match time (MM:SS); earlier frames are sent at once")
     p.add_argument("--until", type=parse_clock, help="stop at this match time (MM:SS)")
     p.add_argument("--token", help="ingest token")
     p.add_argument("--loop", action="store_true", help="start again at the end, as a new match MATCH-2, MATCH-3, ...")
@@ -462,8 +463,9 @@ def main(argv: list[str] | None = None) -> int:
                                       None if round_no == 1 else mid, prog, stop)
             if stop.is_set():
                 where = fmt_clock(last.clock_s) if last else "00:00"
-                print(f"\nstopped at {where} ({last.period if last else 'before the first frame'}, {sent} frames sent); "
-                      f"resume with --from {where}", file=sys.stderr)
+                period = last.period if last else "before the first frame"
+                print(f"\nstopped at {where} ({period}, {sent} frames sent); resume with --from {where}",
+                      file=sys.stderr)
                 return 0
             hr = f", {prog.hr_sent} heart-rate samples" if prog.hr_sent else ""
             print(f"\nreplay of {args.folder} into {mid} done: {sent} frames{hr}", file=sys.stderr)

@@ -3,7 +3,7 @@ match sheet (match.json), in the normal and the wearables variant."""
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from pacewire.replay.synth.clubs import (
     AWAY,
@@ -30,7 +30,7 @@ CDF_VERSION = "0.3.2"
 VENDOR = "pacewire synth"
 
 
-def _player_entry(club: Club, idx: int, starter: bool, played: bool, position: str) -> dict:
+def _player_entry(club: Club, idx: int, starter: bool, played: bool, position: str) -> dict[str, Any]:
     """Match-sheet player object."""
     jersey, first, last, pos = club.squad[idx]
     group = POSITION_GROUP.get(pos, pos)
@@ -49,20 +49,20 @@ def _player_entry(club: Club, idx: int, starter: bool, played: bool, position: s
     }
 
 
-def build_meta(m: SynthMatch) -> dict:
+def build_meta(m: SynthMatch) -> dict[str, Any]:
     """CDF meta object."""
     tl = m.timeline
     e1, s2, e2 = tl.first_half_end_ms(), tl.second_half_start_ms(), tl.second_half_end_ms()
     teams = {}
-    for side, club in zip(("home", "away"), CLUBS):
+    for side, club in zip(("home", "away"), CLUBS, strict=True):
         teams[side] = {
             "id": club.team_id,
             "name": club.name,
             "jersey_colour": club.colour,
             "players": [
                 {"id": player_id(club, j), "team_id": club.team_id, "jersey_number": j,
-                 "is_starter": i < 11, "first_name": f, "last_name": l}
-                for i, (j, f, l, _) in enumerate(club.squad)
+                 "is_starter": i < 11, "first_name": first, "last_name": last}
+                for i, (j, first, last, _) in enumerate(club.squad)
             ],
         }
     return {
@@ -104,11 +104,11 @@ def build_meta(m: SynthMatch) -> dict:
     }
 
 
-def build_sheet(m: SynthMatch) -> dict:
+def build_sheet(m: SynthMatch) -> dict[str, Any]:
     """CDF match sheet (with the post-match fields the validator requires)."""
     tl = m.timeline
     ts = tl.timestamps()
-    teams = {side: _sheet_team(m, t, club) for t, (side, club) in enumerate(zip(("home", "away"), CLUBS))}
+    teams = {side: _sheet_team(m, t, club) for t, (side, club) in enumerate(zip(("home", "away"), CLUBS, strict=True))}
     goals, score, half_score = _goals(m, ts)
     winner = None if score[0] == score[1] else CLUBS[0 if score[0] > score[1] else 1].team_id
     subs = [{
@@ -136,7 +136,7 @@ def build_sheet(m: SynthMatch) -> dict:
     }
 
 
-def _sheet_team(m: SynthMatch, team: int, club: Club) -> dict:
+def _sheet_team(m: SynthMatch, team: int, club: Club) -> dict[str, Any]:
     """A team of the match sheet: the starters in their formation positions, the bench
     (with the position taken by those who came on), the coach."""
     slot_pos = [p for p, _, _ in FORMATIONS[club.formation]]
@@ -150,7 +150,7 @@ def _sheet_team(m: SynthMatch, team: int, club: Club) -> dict:
                          "last_name": club.coach[1]}]}
 
 
-def _goals(m: SynthMatch, ts: list[str]) -> tuple[list[dict], list[int], dict[str, list[int]]]:
+def _goals(m: SynthMatch, ts: list[str]) -> tuple[list[dict[str, Any]], list[int], dict[str, list[int]]]:
     """The goals of the match sheet, the final score (home, away) and the score at the end
     of each half; ts: the timestamp of every slot."""
     tl = m.timeline
@@ -173,13 +173,13 @@ def _goals(m: SynthMatch, ts: list[str]) -> tuple[list[dict], list[int], dict[st
     return goals, score, half_score
 
 
-def _officials() -> list[dict]:
+def _officials() -> list[dict[str, Any]]:
     """The match officials, as CDF meta and match sheet list them."""
-    return [{"id": i, "first_name": f, "last_name": l, "short_name": f"{f[0]}. {l}", "type": t}
-            for i, f, l, t in OFFICIALS]
+    return [{"id": i, "first_name": first, "last_name": last, "short_name": f"{first[0]}. {last}", "type": t}
+            for i, first, last, t in OFFICIALS]
 
 
-def build_wearables_meta(m: SynthMatch, cal: GnssPitch) -> dict:
+def build_wearables_meta(m: SynthMatch, cal: GnssPitch) -> dict[str, Any]:
     """The CDF meta of the wearables variant: the same match, the away squad unknown,
     the venue with its GNSS calibration (``venue.gnss_pitch``, corner form)."""
     meta = build_meta(m)
@@ -188,7 +188,7 @@ def build_wearables_meta(m: SynthMatch, cal: GnssPitch) -> dict:
     return meta
 
 
-def build_wearables_sheet(m: SynthMatch, profiles: dict[str, tuple[int, int, str]]) -> dict:
+def build_wearables_sheet(m: SynthMatch, profiles: dict[str, tuple[int, int, str]]) -> dict[str, Any]:
     """The match sheet of the wearables variant: home players with their heart-rate profile
     (pacewire extension fields), the away team without players, home events only
     (goals stay: they make the result)."""

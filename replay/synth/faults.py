@@ -9,12 +9,14 @@ over it (timestamps jump by the same amount).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
 from pacewire.replay.synth.match import SynthMatch
 
 OUTAGE_S = 20.0
+FaultRecord = dict[str, Any]  # one entry of faults.json, as fault_record makes it
 
 
 @dataclass
@@ -26,11 +28,11 @@ class FaultPlan:
     jumps: dict[int, tuple[int, complex]] = field(default_factory=dict)  # frame -> (column, new position)
     duplicates: set[int] = field(default_factory=set)
     swaps: set[int] = field(default_factory=set)  # frame f: written as f+1 then f
-    records: list[dict] = field(default_factory=list)
+    records: list[FaultRecord] = field(default_factory=list)
 
 
 def fault_record(kind: str, period: str, time: str, duration_s: float, frame_ids: list[int],
-                 player_id: str | None, **extra: object) -> dict:
+                 player_id: str | None, **extra: object) -> FaultRecord:
     """One entry of faults.json: the fields every fault has, in this order, then its own."""
     return {"kind": kind, "period": period, "time": time, "duration_s": duration_s, "frame_ids": frame_ids,
             "player_id": player_id, **extra}

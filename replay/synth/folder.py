@@ -9,6 +9,7 @@ import pathlib
 import queue
 import threading
 from collections.abc import Iterable, Iterator
+from typing import Any
 
 import numpy as np
 import orjson
@@ -21,7 +22,7 @@ from pacewire.replay.synth.documents import (
     build_wearables_meta,
     build_wearables_sheet,
 )
-from pacewire.replay.synth.faults import FaultPlan, plan_faults
+from pacewire.replay.synth.faults import FaultPlan, FaultRecord, plan_faults
 from pacewire.replay.synth.lines import frame_lines, hr_lines
 from pacewire.replay.synth.match import SynthMatch, simulate_match
 from pacewire.replay.synth.wearables import gnss_calibration, plan_wearables
@@ -84,7 +85,7 @@ def write_wearables_files(out: pathlib.Path, m: SynthMatch, fp: FaultPlan, seed:
     # the away team is not tracked: its feed faults do not exist; the late unit hides its player
     fp.hidden = {f: {c for c in cols if c < 11} for f, cols in fp.hidden.items()}
     fp.jumps = {f: j for f, j in fp.jumps.items() if j[0] < 11}
-    for f, c in zip(*np.nonzero(~wear.unit_on)):
+    for f, c in zip(*np.nonzero(~wear.unit_on), strict=True):
         fp.hidden.setdefault(int(f), set()).add(int(c))
     away = {player_id(AWAY, j) for j, _, _, _ in AWAY.squad}
     records = [r for r in fp.records if r["player_id"] not in away] + wear.records
@@ -98,12 +99,13 @@ def write_wearables_files(out: pathlib.Path, m: SynthMatch, fp: FaultPlan, seed:
     return out
 
 
-def _write_json(path: pathlib.Path, doc: dict) -> None:
+def _write_json(path: pathlib.Path, doc: dict[str, Any]) -> None:
     """A JSON document indented by 2 spaces, with a final newline."""
     path.write_bytes(orjson.dumps(doc, option=orjson.OPT_INDENT_2) + b"\n")
 
 
-def _faults_doc(m: SynthMatch, seed: int, minutes: float, records: list[dict], **variant: str) -> dict:
+def _faults_doc(m: SynthMatch, seed: int, minutes: float, records: list[FaultRecord],
+                **variant: str) -> dict[str, Any]:
     """faults.json: the match, the arguments that made it, the variant if any, the faults."""
     return {"match_id": MATCH_ID, "seed": int(seed), "fps": int(m.timeline.fps), "minutes": float(minutes),
             **variant, "faults": records}

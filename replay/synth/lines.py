@@ -93,5 +93,5 @@ def hr_lines(samples: list[tuple[int, str, int]]) -> Iterator[bytes]:
     """JSON lines (bytes, with ``\\n``) of heart-rate samples (ms after kick-off, player id, bpm)."""
     ms = np.array([t for t, _, _ in samples], dtype=np.int64).astype("timedelta64[ms]")
     stamps = np.datetime_as_string(KICKOFF + ms, unit="ms").tolist()
-    for (_, pid, bpm), stamp in zip(samples, stamps):
+    for (_, pid, bpm), stamp in zip(samples, stamps, strict=True):
         yield orjson.dumps({"player_id": pid, "timestamp": stamp + "Z", "bpm": bpm}) + b"\n"

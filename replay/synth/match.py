@@ -63,14 +63,14 @@ def simulate_match(minutes: float = 95, fps: int = 25, seed: int = 0) -> SynthMa
     for h, (start, n) in enumerate(tl.halves):
         dirs = (1.0, -1.0) if h == 0 else (-1.0, 1.0)
         forced, walkoffs = _substitution_windows(subs, start, n, fps, scale)
-        goals = [((f - start) / fps, team) for team, f in goal_plan if start <= f < start + n]
+        half_goals = [((f - start) / fps, team) for team, f in goal_plan if start <= f < start + n]
         script = BallScript(rng, n / fps, dirs, offsets, scale)
-        segs = script.run(kickoff_team=h, forced=forced, goals=goals)
+        segs = script.run(kickoff_team=h, forced=forced, goals=half_goals)
         scored += [(team, min(start + int(round(t * fps)), start + n - 1)) for t, team in script.goal_times]
         ball = rasterize_ball(segs, n, fps)
         plans.append(plan_half(rng, n, fps, ball, dirs, h, walkoffs))
         ball_parts.append(ball)
-    for (start, n), part in zip(tl.halves, integrate(plans, fps)):
+    for (start, n), part in zip(tl.halves, integrate(plans, fps), strict=True):
         positions[start:start + n] = part
     squad_index = np.tile(np.arange(11), (tl.n_slots, 2))
     for s in subs:

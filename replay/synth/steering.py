@@ -10,6 +10,7 @@ outfield player of each team goes to the ball (receiver/carrier and presser).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -124,7 +125,9 @@ class _Columns:
 
 def _columns(plans: list[HalfPlan], n: int, dt: float) -> _Columns:
     """Stack the plans of the halves as columns of ``n`` frames."""
-    cat = lambda f: np.concatenate([_pad(f(p), n) for p in plans], axis=1)  # noqa: E731
+    def cat(f: Callable[[HalfPlan], np.ndarray]) -> np.ndarray:
+        return np.concatenate([_pad(f(p), n) for p in plans], axis=1)
+
     cmds = [chase_commands(p.ball, p.dirs) for p in plans]
     c_goal, c_vmax, c_ff, c_active = (np.concatenate([_pad(c[i], n) for c in cmds], axis=1) for i in range(4))
     return _Columns(

@@ -14,7 +14,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from pacewire.replay.synth.clubs import HOME, PITCH_LENGTH_M, PITCH_WIDTH_M, player_id
-from pacewire.replay.synth.faults import fault_record
+from pacewire.replay.synth.faults import FaultRecord, fault_record
 from pacewire.replay.synth.match import SynthMatch
 from pacewire.replay.synth.timeline import PERIOD_NAMES, Timeline, duration_scale, iso_ms
 
@@ -97,7 +97,7 @@ class WearablesPlan:
 
     unit_on: np.ndarray  # (S, 11) bool: the unit of the home player in each slot streams
     samples: list[tuple[int, str, int]]  # (ms after kick-off, player id, bpm), time-ordered
-    records: list[dict]  # unit_late, hr_dropout, hr_spike (faults.json)
+    records: list[FaultRecord]  # unit_late, hr_dropout, hr_spike (faults.json)
     profiles: dict[str, tuple[int, int, str]]  # player id -> (hr_max_bpm, hr_rest_bpm, sex)
 
 
@@ -147,7 +147,7 @@ def _halves_ms(tl: Timeline) -> tuple[tuple[int, int], tuple[int, int]]:
     return (0, tl.first_half_end_ms()), (tl.second_half_start_ms(), tl.second_half_end_ms())
 
 
-def _late_unit(tl: Timeline, slot: int, pid: str, scale: float, faults: bool) -> tuple[np.ndarray, list[dict]]:
+def _late_unit(tl: Timeline, slot: int, pid: str, scale: float, faults: bool) -> tuple[np.ndarray, list[FaultRecord]]:
     """Which home units stream (S, 11) bool: all of them, except that with ``faults`` the
     unit in ``slot`` is switched on UNIT_LATE_S (scaled) after kick-off; and its record."""
     fps = tl.fps
@@ -223,7 +223,7 @@ class _SampleGrid:
         t, bpm = self.t, self.bpm
         k_idx, q_idx = np.nonzero(self.valid)
         order = np.lexsort((q_idx, t[k_idx, q_idx]))
-        return [(int(t[k, q]), ids[q], int(bpm[k, q])) for k, q in zip(k_idx[order], q_idx[order])]
+        return [(int(t[k, q]), ids[q], int(bpm[k, q])) for k, q in zip(k_idx[order], q_idx[order], strict=True)]
 
 
 def _sample_grid(rng: np.random.Generator, m: SynthMatch, unit_on: np.ndarray, hr: np.ndarray) -> _SampleGrid:
@@ -232,6 +232,8 @@ def _sample_grid(rng: np.random.Generator, m: SynthMatch, unit_on: np.ndarray, h
     (HR_NOISE_BPM), rounded."""
     tl = m.timeline
     fps = tl.fps
+    n_sec: int
+    n_squad: int  # numpy types shape entries as Any, which picks rng.integers' scalar overload
     n_sec, n_squad = hr.shape
     on_q = np.zeros((tl.n_slots, n_squad), bool)
     on_q[np.arange(tl.n_slots)[:, None], m.squad_index[:, :11]] = unit_on
@@ -240,7 +242,7 @@ def _sample_grid(rng: np.random.Generator, m: SynthMatch, unit_on: np.ndarray, h
     t = (np.arange(n_sec) * 1000)[:, None] + phase[None, :]
     frame = np.full(t.shape, -1)
     halves_ms = _halves_ms(tl)
-    for (h0, h1), (f0, n) in zip(halves_ms, tl.halves):
+    for (h0, h1), (f0, n) in zip(halves_ms, tl.halves, strict=True):
         inside = (t >= h0) & (t < h1)
         frame[inside] = f0 + np.minimum((t[inside] - h0) * fps // 1000, n - 1)
     valid = frame >= 0
@@ -249,7 +251,7 @@ def _sample_grid(rng: np.random.Generator, m: SynthMatch, unit_on: np.ndarray, h
     return _SampleGrid(t, frame, valid, bpm, halves_ms)
 
 
-def _strap_dropout(rng: np.random.Generator, grid: _SampleGrid, q: int, pid: str, faults: bool) -> list[dict]:
+def _strap_dropout(rng: np.random.Generator, grid: _SampleGrid, q: int, pid: str, faults: bool) -> list[FaultRecord]:
     """With ``faults``, squad member ``q``'s strap loses contact (HR_DROPOUT_S) in the
     longer half, HR_EDGE_S clear of its edges: his samples there are not sent."""
     h = int(np.argmax([h1 - h0 for h0, h1 in grid.halves_ms]))
@@ -276,7 +278,8 @@ def _strap_dropout(rng: np.random.Generator, grid: _SampleGrid, q: int, pid: str
     )]
 
 
-def _spike(rng: np.random.Generator, grid: _SampleGrid, tl: Timeline, q: int, pid: str, faults: bool) -> list[dict]:
+def _spike(rng: np.random.Generator, grid: _SampleGrid, tl: Timeline, q: int, pid: str,
+           faults: bool) -> list[FaultRecord]:
     """With ``faults``, one sample of squad member ``q`` inside a period (HR_EDGE_S clear of
     its edges) becomes the implausible HR_SPIKE_BPM."""
     col = grid.t[:, q]
