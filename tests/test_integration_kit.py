@@ -71,7 +71,8 @@ def run(tmp_path_factory):
     objs = make_frames()
     out: dict = {"srv": srv, "frames": objs, "tmp": tmp, "extra": []}
     try:
-        r = httpx.put(f"{srv.http}/api/matches/{MATCH}", json={"meta": cb.meta(MATCH), "sheet": cb.sheet(N_HOME, N_AWAY)},
+        r = httpx.put(f"{srv.http}/api/matches/{MATCH}",
+                      json={"meta": cb.meta(MATCH), "sheet": cb.sheet(N_HOME, N_AWAY)},
                       headers={"Authorization": f"Bearer {INGEST}"}, timeout=10)
         assert r.status_code == 201, r.text
         asyncio.run(_scenario(srv, objs, out))
@@ -143,7 +144,8 @@ async def _scenario(srv: LiveServer, objs: list[dict], out: dict) -> None:
         async with websockets.connect(f"{srv.ws}/live/m_nobody", additional_headers=AUTH) as ws:
             extra.append(await recv(ws))
         r = httpx.post(f"{srv.http}/api/matches/{MATCH}/events", headers={"Authorization": f"Bearer {INGEST}"},
-                       json={"type": "period_end", "period": "first_half", "frame_id": objs[-1]["frame_id"]}, timeout=10)
+                       json={"type": "period_end", "period": "first_half", "frame_id": objs[-1]["frame_id"]},
+                       timeout=10)
         assert r.status_code == 200, r.text
         await asyncio.wait_for(ended.wait(), 15)
         await asyncio.sleep(0.6)  # anything that follows the period end (a delta) arrives too
@@ -166,7 +168,7 @@ def test_committed_schema_files_match_the_models():
 
 def test_schemas_are_2020_12_and_reject_wrong_shapes():
     s = json_schemas()
-    for name, schema in s.items():
+    for schema in s.values():
         assert schema["$schema"] == "https://json-schema.org/draft/2020-12/schema"
         jsonschema.Draft202012Validator.check_schema(schema)
     env = {"match_id": "m_x", "seq": 3, "match_time_s": 12.0, "period": "first_half", "v": 1}
@@ -202,7 +204,8 @@ def test_every_message_the_server_sends_validates_against_the_served_schema(run)
     assert run["resync"]["type"] == "snapshot" and run["resync"]["resync"] is True
     assert all(m["type"] != "snapshot" for m in run["resumed"])
     assert {(m["event"]) for m in msgs if m["type"] == "period"} == {"start", "end"}
-    assert {m["code"] for m in run["extra"] if m["type"] == "error"} >= {"bad_json", "duplicate", "bad_request", "unknown_match"}
+    codes = {m["code"] for m in run["extra"] if m["type"] == "error"}
+    assert codes >= {"bad_json", "duplicate", "bad_request", "unknown_match"}
     assert any(m.get("frame_id") == 3 for m in run["extra"] if m["type"] == "error")
     deltas = [m for m in msgs if m["type"] == "delta"]
     assert any("players" in d and "teams" in d for d in deltas)
@@ -258,7 +261,8 @@ def test_asyncapi_document_validates_against_the_asyncapi_3_schema(run):
     assert set(live["bindings"]["ws"]["query"]["properties"]) == {"every", "view", "since", "token"}
     assert "token" in ingest["bindings"]["ws"]["query"]["properties"]
     schemes = doc["components"]["securitySchemes"]
-    assert schemes["bearer"]["scheme"] == "bearer" and schemes["queryToken"] == {**schemes["queryToken"], "in": "query", "name": "token"}
+    assert schemes["bearer"]["scheme"] == "bearer"
+    assert schemes["queryToken"] == {**schemes["queryToken"], "in": "query", "name": "token"}
     assert doc["servers"]["pacewire"]["host"] == f"127.0.0.1:{srv.port}"
     # every payload reference resolves to the served JSON Schema of that message type
     served = httpx.get(f"{srv.http}/api/schema/messages", timeout=10).json()["schemas"]
@@ -309,7 +313,8 @@ def test_client_resumes_from_the_last_seq_on_a_gap(tmp_path):
 
     def delta(seq: int, dist: float) -> dict:
         return {**{k: snap[k] for k in ("match_id", "period", "v")}, "type": "delta", "seq": seq,
-                "match_time_s": float(seq), "players": {"p1": {"distance_m": dist, "windows": {"last_1min": {"distance_m": dist}}}}}
+                "match_time_s": float(seq),
+                "players": {"p1": {"distance_m": dist, "windows": {"last_1min": {"distance_m": dist}}}}}
 
     requests: list[str] = []
 
@@ -379,7 +384,8 @@ def test_sync_wrapper_and_run_until(run):
 def test_exports_equal_the_snapshot(run):
     srv, rest = run["srv"], run["rest"]
     assert httpx.get(f"{srv.http}/api/matches/{MATCH}/export.json", timeout=10).status_code == 401
-    assert httpx.get(f"{srv.http}/api/matches/{MATCH}/export.csv", params={"token": "nope"}, timeout=10).status_code == 401
+    r = httpx.get(f"{srv.http}/api/matches/{MATCH}/export.csv", params={"token": "nope"}, timeout=10)
+    assert r.status_code == 401
     body = httpx.get(f"{srv.http}/api/matches/{MATCH}/export.json", headers=AUTH, timeout=10).json()
     assert body["v"] == 1 and body["at"] is None and body["match_time_s"] == rest["match_time_s"]
     rows = body["players"]
@@ -397,7 +403,7 @@ def test_exports_equal_the_snapshot(run):
     text = httpx.get(f"{srv.http}/api/matches/{MATCH}/export.csv", params={"token": VIEW}, timeout=10).text
     table = list(csv.DictReader(io.StringIO(text)))
     assert list(table[0]) == body["columns"] and len(table) == len(rows)
-    for got, want in zip(table, rows):
+    for got, want in zip(table, rows, strict=True):
         for c, v in want.items():
             if v is None:
                 assert got[c] == "", c

@@ -141,7 +141,8 @@ def test_constant_5ms_diprampero2018_and_floodlight():
     xy = circle_run(120.0)
     snap, state = analyse(xy, DIPRAMPERO)
     # di Prampero & Osgnach 2018 with the Minetti & Pavei 2018 cost: 19.197 W/kg at 5 m/s on the flat
-    assert float(metabolic_power(np.array(5.0), np.array(0.0), state.params.exertion)) == pytest.approx(19.197, abs=0.001)
+    flat_5ms = float(metabolic_power(np.array(5.0), np.array(0.0), state.params.exertion))
+    assert flat_5ms == pytest.approx(19.197, abs=0.001)
     assert snap["players"]["h1"]["metabolic_power_wkg"] == pytest.approx(19.197, abs=0.05)
     # floodlight 1.2.0 MetabolicPowerModel on the same trajectory gives 19.19727 W/kg;
     # interior samples only (its first and last samples are one-sided differences)
@@ -200,7 +201,8 @@ def test_distance_and_mean_power_against_floodlight():
     from floodlight import XY
     from floodlight.models.kinematics import DistanceModel
 
-    runs = [ellipse_run(150.0, a, b, phase) for a, b, phase in ((40, 25, 0.0), (30, 20, 1.3), (45, 28, 2.6), (25, 25, 4.0))]
+    shapes = ((40, 25, 0.0), (30, 20, 1.3), (45, 28, 2.6), (25, 25, 4.0))
+    runs = [ellipse_run(150.0, a, b, phase) for a, b, phase in shapes]
     xy = np.stack([r[0] for r in runs], axis=1)
     snap, _ = analyse(xy, DIPRAMPERO)
     dm = DistanceModel()

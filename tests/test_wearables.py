@@ -162,7 +162,8 @@ def test_heart_rate_worked_values_through_the_match():
     assert h1["trimp_banister"] == pytest.approx(credited_min * hrr * 0.64 * math.exp(1.92 * hrr), abs=0.06)
     assert h1["hr_mean_bpm"] == 150.0 and h1["hr_peak_bpm"] == 150.0
     assert h1["hr_bpm"] == 150.0 and h1["hr_pct_max"] == pytest.approx(78.9, abs=0.05)
-    assert h1["hr_coverage"] == pytest.approx((secs - 1) / secs, abs=0.002)  # 1 Hz expected (config heart_rate.expected_hz)
+    # 1 Hz expected (config heart_rate.expected_hz)
+    assert h1["hr_coverage"] == pytest.approx((secs - 1) / secs, abs=0.002)
     assert h1["hr_omitted"] == {}
     # h3 has hr_max but no hr_rest_bpm nor sex: Banister is left out, and the snapshot says why
     h3 = p["h3"]
@@ -267,7 +268,8 @@ def test_live_heart_rate_endpoints_refuse_clearly(server):
     r = httpx.post(f"{http}/api/matches/nope/hr", content=b"{}")
     assert r.status_code == 404 and r.json()["error"]["code"] == "unknown_match"
     mid = "m_hr"
-    assert httpx.put(f"{http}/api/matches/{mid}", json={"meta": cb.meta(mid), "sheet": cb.sheet(2, 2)}).status_code == 201
+    r = httpx.put(f"{http}/api/matches/{mid}", json={"meta": cb.meta(mid), "sheet": cb.sheet(2, 2)})
+    assert r.status_code == 201
     r = httpx.post(f"{http}/api/matches/{mid}/hr", content=orjson.dumps([{"player_id": "a1", "timestamp": cb.stamp(0),
                                                                            "bpm": True}, {"player_id": "h1"}]))
     body = r.json()

@@ -53,10 +53,12 @@ def run(quick: bool) -> dict[str, dict]:
     floor = match_s / parse_s
     return {
         "synth_full_match_s" if not quick else "synth_15min_s": {
-            "value": round(synth_s, 2), "unit": "s", "baseline": round(write_s, 2), "ratio": round(synth_s / write_s, 2)},
+            "value": round(synth_s, 2), "unit": "s", "baseline": round(write_s, 2),
+            "ratio": round(synth_s / write_s, 2)},
         "analyze_x_realtime": {"value": round(x_rt, 1), "unit": "x real time", "baseline": round(floor, 1),
                                "ratio": round(x_rt / floor, 3)},
-        "analyze_s": {"value": round(best, 2), "unit": "s", "baseline": round(parse_s, 2), "ratio": round(best / parse_s, 2)},
+        "analyze_s": {"value": round(best, 2), "unit": "s", "baseline": round(parse_s, 2),
+                      "ratio": round(best / parse_s, 2)},
     }
 
 

@@ -269,9 +269,11 @@ def agreement(snap: dict, ref: dict[str, np.ndarray], m: SynthMatch) -> list[str
     unseen = [p for p in ids if p not in on and snap["players"][p]["distance_m"] != 0]
     if unseen:
         warn.append(f"WARNING bench players credited distance: {unseen[:3]}")
+    played_min = sum(x.shape[0] for x in m.halves) / FPS / 60
+    outfield_km_per_90 = np.mean(np.delete(eng["distance_m"], [0, N_SIDE])) / 1000 * 90 / played_min
     print(f"  engine vs numpy: distance {100 * rel.mean():+.3f}% mean, {100 * np.abs(rel).max():.3f}% worst; "
           f"team distance {eng['distance_m'].sum() / 1000:.2f} km; mean per outfield player "
-          f"{np.mean(np.delete(eng['distance_m'], [0, N_SIDE])) / 1000 * 90 / (sum(x.shape[0] for x in m.halves) / FPS / 60):.2f}"
+          f"{outfield_km_per_90:.2f}"
           " km/90 min; "
           f"max speed {eng['max_speed_ms'].max():.2f} m/s")
     return warn

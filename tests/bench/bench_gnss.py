@@ -22,6 +22,7 @@ import os
 import sys
 import time
 from collections.abc import Callable
+from functools import partial
 
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")  # one-core figures (before numpy loads)
@@ -79,8 +80,8 @@ def run(quick: bool) -> dict[str, dict]:
     fixes = frames * PLAYERS
     out = {}
     for key, step in (("gnss_us_per_fix", 1), ("gnss_us_per_fix_batched", FPS)):
-        conv = best_of(lambda: convert(step)) / fixes * 1e6
-        base = best_of(lambda: baseline(step)) / fixes * 1e6
+        conv = best_of(partial(convert, step)) / fixes * 1e6
+        base = best_of(partial(baseline, step)) / fixes * 1e6
         out[key] = {"value": round(conv, 4), "unit": "µs", "baseline": round(base, 4), "ratio": round(conv / base, 2)}
     return out
 

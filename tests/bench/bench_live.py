@@ -120,7 +120,8 @@ def feed_lines(seconds: float) -> list[bytes]:
 
 
 def setup_body() -> dict:
-    bench = tuple([f"h{i + 1}" for i in range(N_SIDE, N_SIDE + N_BENCH)] + [f"a{i + 1}" for i in range(N_SIDE, N_SIDE + N_BENCH)])
+    extra = range(N_SIDE, N_SIDE + N_BENCH)
+    bench = tuple([f"h{i + 1}" for i in extra] + [f"a{i + 1}" for i in extra])
     return {"meta": cb.meta(match_id=MATCH, fps=FPS),
             "sheet": cb.sheet(N_SIDE + N_BENCH, N_SIDE + N_BENCH, gk=("h1", "a1"), bench=bench)}
 
@@ -447,7 +448,8 @@ class Recv:
 def subscribe(url: str, n: int, field_name: str, wait_first: bool, hold: Callable[[list[int]], None],
               resume: bool = False) -> Recv:
     """Open ``n`` subscribers over up to CLIENT_PROCS processes, call ``hold()`` once all are in, stop them."""
-    parts = [n // min(CLIENT_PROCS, n) + (1 if k < n % min(CLIENT_PROCS, n) else 0) for k in range(min(CLIENT_PROCS, n))]
+    n_procs = min(CLIENT_PROCS, n)
+    parts = [n // n_procs + (1 if k < n % n_procs else 0) for k in range(n_procs)]
     procs, conns = [], []
     for k in parts:
         a, b = CTX.Pipe()
@@ -666,10 +668,11 @@ def run_case(case: Case, url: str, field_name: str, scale: float, wait_first: bo
         blocks = max(d.get("pacewire_processing_seconds_count", 0.0), 1.0)
         n_win = [int(((a >= window["t0"]) & (a <= window["t1"])).sum()) for a, _ in rec.socks]
         frames_in = max(d.get("pacewire_frames_in_total", 0.0), 1.0)
+        cpu_ms_per_frame = 1e3 * window["server"] * (window["t1"] - window["t0"]) / frames_in
         print(f"    server over the window: {frames_in:.0f} frames in {blocks:.0f} blocks, "
               f"{1e3 * d.get('pacewire_processing_seconds_sum', 0) / blocks:.2f} ms wall per block (its own "
-              f"histogram: engine + snapshot + delta + writes to the subscribers that take them at once), {1e3 * window['server'] * (window['t1'] - window['t0']) / frames_in:.2f} "
-              f"ms CPU per frame in all; {np.mean(n_win):.1f} deltas per subscriber; "
+              f"histogram: engine + snapshot + delta + writes to the subscribers that take them at once), "
+              f"{cpu_ms_per_frame:.2f} ms CPU per frame in all; {np.mean(n_win):.1f} deltas per subscriber; "
               f"{d.get('pacewire_dropped_backlogs_total', 0):.0f} backlogs dropped", flush=True)
     return Result(float(p50), float(p99), len(lat), missing, window["server"], window["clients"], window["other"],
                   st["bytes"] / max(st["messages"], 1), st["sampled_bytes"] / max(st["sampled"], 1),
@@ -694,7 +697,8 @@ def _show(label: str, case: Case, r: Result) -> None:
 
 def feed_seconds(plan: list[Case]) -> float:
     """Enough feed for every case plus connecting, warm-up, grace and settling (generous)."""
-    return 2 * sum(c.seconds + c.warmup_s + c.grace_s + SETTLE_S + c.every_s + 10.0 + c.subs / 40.0 for c in plan) + 30.0
+    return 2 * sum(c.seconds + c.warmup_s + c.grace_s + SETTLE_S + c.every_s + 10.0 + c.subs / 40.0
+                   for c in plan) + 30.0
 
 
 @dataclass

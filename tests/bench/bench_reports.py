@@ -114,7 +114,8 @@ def measure(minutes: float) -> dict[str, float]:
                 t_listed = wait_listed(srv.http, "full_time")
                 entry = next(e for e in c.get(f"{srv.http}/api/matches/{MATCH}/reports").json()["reports"]
                              if e["kind"] == "full_time")
-                players = len(c.get(f"{srv.http}/api/matches/{MATCH}/reports/full_time/snapshot.json").json()["players"])
+                snapshot = c.get(f"{srv.http}/api/matches/{MATCH}/reports/full_time/snapshot.json").json()
+                players = len(snapshot["players"])
         finally:
             srv.stop()
         snap = snapshot_s(srv.data / "matches" / MATCH)

@@ -151,7 +151,7 @@ def _feeder(url: str, mids: list[str], lines: list[bytes], clock, q) -> None:
         loop = asyncio.get_running_loop()
         go = loop.create_future()
         readies = [asyncio.Event() for _ in mids]
-        tasks = [asyncio.create_task(one(m, r, go)) for m, r in zip(mids, readies)]
+        tasks = [asyncio.create_task(one(m, r, go)) for m, r in zip(mids, readies, strict=True)]
         for r in readies:
             await r.wait()
         q.put("ready")
@@ -197,7 +197,8 @@ def _subscribers(urls: list[str], plan: list[tuple[str, float]], clock, q) -> No
     async def main() -> None:
         go = asyncio.get_running_loop().create_future()
         readies = [asyncio.Event() for _ in plan]
-        tasks = [asyncio.create_task(one(i, mid, ev, r, go)) for i, ((mid, ev), r) in enumerate(zip(plan, readies))]
+        tasks = [asyncio.create_task(one(i, mid, ev, r, go))
+                 for i, ((mid, ev), r) in enumerate(zip(plan, readies, strict=True))]
         for r in readies:
             await r.wait()
         q.put("ready")
@@ -224,7 +225,7 @@ class Rig:
         names = ("ingest", "aggregator", "gateway1", "gateway2")
         self.procs = {name: LiveServer(self.folder / name, "--role", role, "--redis", self.redis.url,
                                        config_text="[scale]\nlease_ms = 10000\n")
-                      for name, role in zip(names, self.ROLES)}
+                      for name, role in zip(names, self.ROLES, strict=True)}
         try:
             with ThreadPoolExecutor(4) as pool:
                 list(pool.map(lambda srv: srv.start(timeout=180), self.procs.values()))
@@ -320,7 +321,7 @@ def run_case(rig: Rig, n_matches: int, n_subs: int, warmup_s: float, window_s: f
     gen_cpu = (g1 - g0) / dt
     roles_cpu = sum(v for k, v in cpu.items() if k != "gateway")
     other = max((m1 - m0) / dt - roles_cpu - gen_cpu, 0.0)
-    send_of = dict(zip(mids, sent))
+    send_of = dict(zip(mids, sent, strict=True))
     lat, fan = [], []
     resyncs = 0
     failures: dict[str, int] = {}
@@ -347,15 +348,18 @@ def run_case(rig: Rig, n_matches: int, n_subs: int, warmup_s: float, window_s: f
     out["kept_up"] = out["frames_per_s"] >= KEPT_UP * out["offered"]
     out["saturated"] = cpu["aggregator"] + wait["aggregator"] >= SATURATED
     t_end = time.monotonic()
-    print(f"  {n_matches} match{'es' if n_matches > 1 else ''}, {len(plan)} subscribers: read {out['frames_per_s']:.0f} frames/s of "
+    print(f"  {n_matches} match{'es' if n_matches > 1 else ''}, {len(plan)} subscribers: "
+          f"read {out['frames_per_s']:.0f} frames/s of "
           f"{out['offered']} offered ({out['stored_per_s']:.0f} stored); backlog {out['backlog_start']} -> "
-          f"{out['backlog_end']} frames ({out['backlog_growth']:+.1f} frames/s){'' if out['kept_up'] else ': FELL BEHIND'}"
+          f"{out['backlog_end']} frames ({out['backlog_growth']:+.1f} frames/s)"
+          f"{'' if out['kept_up'] else ': FELL BEHIND'}"
           f"{'; aggregator SATURATED' if out['saturated'] else ''}",
           flush=True)
     for why, k in sorted(failures.items(), key=lambda x: -x[1]):
         print(f"    {k} of {len(plan)} subscribers failed: {why}", flush=True)
     print(f"    latency p50 {out['p50_ms']:.1f} ms, p99 {out['p99_ms']:.1f} ms, max {out['max_ms']:.0f} ms "
-          f"({len(lat)} deltas timed, {out['frame_deltas_per_s']:.1f} per s per per-frame subscriber); fan-out p99 {out['fan_p99_ms']:.1f} ms; {resyncs} resync snapshots", flush=True)
+          f"({len(lat)} deltas timed, {out['frame_deltas_per_s']:.1f} per s per per-frame subscriber); "
+          f"fan-out p99 {out['fan_p99_ms']:.1f} ms; {resyncs} resync snapshots", flush=True)
     print("    CPU cores: " + ", ".join(f"{k} {v:.3f}" for k, v in cpu.items())
           + f"; load generators {gen_cpu:.2f}; rest of the machine {other:.2f}", flush=True)
     print("    waiting for a CPU (cores): " + ", ".join(f"{k} {v:.3f}" for k, v in wait.items()), flush=True)
@@ -435,7 +439,8 @@ def run(quick: bool) -> dict[str, dict]:
         if r["saturated"] or not r["kept_up"]:
             print(f"  the {n}-match step had no slack: it read {r['frames_per_s']:.0f} of {r['offered']} frames/s on "
                   f"{r['cpu']['aggregator']:.2f} cores (+{r['wait']['aggregator']:.2f} waiting for a CPU); a per-frame "
-                  f"subscriber got {r['frame_deltas_per_s']:.1f} deltas/s ({base['frame_deltas_per_s']:.1f} at 1 match), "
+                  f"subscriber got {r['frame_deltas_per_s']:.1f} deltas/s "
+                  f"({base['frame_deltas_per_s']:.1f} at 1 match), "
                   f"p99 {r['p99_ms']:.0f} ms", flush=True)
     return e
 

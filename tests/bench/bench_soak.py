@@ -115,7 +115,7 @@ def _subscribers_main(urls: list[str], conn) -> None:
                 ready.set()
 
         readies = [asyncio.Event() for _ in urls]
-        tasks = [asyncio.create_task(one(k, u, r)) for k, (u, r) in enumerate(zip(urls, readies))]
+        tasks = [asyncio.create_task(one(k, u, r)) for k, (u, r) in enumerate(zip(urls, readies, strict=True))]
         for r in readies:
             await r.wait()
         conn.send("ready")

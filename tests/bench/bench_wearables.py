@@ -57,17 +57,20 @@ def build(minutes: float) -> tuple[dict, dict, list[list[bytes]], list[list[byte
         head = {"frame_id": k, "timestamp": cb.stamp(k / FPS), "period": "first_half", "match": {"id": "m_wear"}}
         away = {"id": cb.AWAY, "players": []}
         plain.append(orjson.dumps({**head, "teams": {"home": {"id": cb.HOME, "players": [
-            {"id": pid, "x": round(float(xy[k, j, 0]), 3), "y": round(float(xy[k, j, 1]), 3)} for j, pid in enumerate(ids)]},
+            {"id": pid, "x": round(float(xy[k, j, 0]), 3), "y": round(float(xy[k, j, 1]), 3)}
+            for j, pid in enumerate(ids)]},
             "away": away}}))
         gnss.append(orjson.dumps({**head, "teams": {"home": {"id": cb.HOME, "players": [
-            {"id": pid, "lat": round(float(lat[k, j]), 8), "long": round(float(lon[k, j]), 8)} for j, pid in enumerate(ids)]},
+            {"id": pid, "lat": round(float(lat[k, j]), 8), "long": round(float(lon[k, j]), 8)}
+            for j, pid in enumerate(ids)]},
             "away": away}}))
     speed = np.linalg.norm(np.diff(xy, axis=0), axis=-1) * FPS
     hr = []
     for s in range(xy.shape[0] // FPS):
         v = speed[s * FPS: (s + 1) * FPS].mean(axis=0)
         for j, pid in enumerate(ids):
-            hr.append(orjson.dumps({"player_id": pid, "timestamp": cb.stamp(s + 0.3), "bpm": round(float(110 + 12 * v[j]))}))
+            bpm = round(float(110 + 12 * v[j]))
+            hr.append(orjson.dumps({"player_id": pid, "timestamp": cb.stamp(s + 0.3), "bpm": bpm}))
     blocks = lambda lines: [lines[i:i + FPS] for i in range(0, len(lines), FPS)]  # noqa: E731
     return meta, sheet, blocks(plain), blocks(gnss), hr
 
@@ -97,7 +100,8 @@ def run(quick: bool) -> dict[str, dict]:
     assert all(p.get("trimp_edwards") for p in snap_hr["players"].values() if p["minutes"])
     frames = sum(len(b) for b in plain)
     return {
-        "wearables_us_per_frame_xy": {"value": round(t_xy / frames * 1e6, 1), "unit": "µs", "baseline": None, "ratio": None},
+        "wearables_us_per_frame_xy": {"value": round(t_xy / frames * 1e6, 1), "unit": "µs", "baseline": None,
+                                      "ratio": None},
         "wearables_gnss_vs_xy": {"value": round(t_gnss, 3), "unit": "s", "baseline": round(t_xy, 3),
                                  "ratio": round(t_gnss / t_xy, 2)},
         "wearables_hr_vs_xy": {"value": round(t_hr, 3), "unit": "s", "baseline": round(t_xy, 3),

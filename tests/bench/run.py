@@ -68,7 +68,8 @@ def table(results: dict[str, dict]) -> str:
     widths = [max(len(r[i]) for r in rows) for i in range(5)]
     lines = []
     for n, r in enumerate(rows):
-        lines.append("  ".join(c.ljust(w) if i in (0, 2) else c.rjust(w) for i, (c, w) in enumerate(zip(r, widths))))
+        cells = enumerate(zip(r, widths, strict=True))
+        lines.append("  ".join(c.ljust(w) if i in (0, 2) else c.rjust(w) for i, (c, w) in cells))
         if n == 0:
             lines.append("  ".join("-" * w for w in widths))
     return "\n".join(lines)

@@ -76,7 +76,8 @@ def test_banister_half_reserve_for_thirty_minutes(sex, expected):
 
 def test_banister_reserve_is_clipped():
     # Banister 1991: HRr clipped to [0, 1]: at rest nothing; above HRmax as at HRmax (male: 1 × 0.64 × e^1.92 per min)
-    h = engine(HeartProfile(hr_max_bpm=190, hr_rest_bpm=50, sex="male"), HeartProfile(hr_max_bpm=190, hr_rest_bpm=50, sex="male"))
+    h = engine(HeartProfile(hr_max_bpm=190, hr_rest_bpm=50, sex="male"),
+               HeartProfile(hr_max_bpm=190, hr_rest_bpm=50, sex="male"))
     steady(h, 0, T0, 600, 45)
     steady(h, 1, T0, 600, 200)
     sums = one_period(h)
@@ -215,7 +216,7 @@ def run(owner, t, bpm, cuts, horizons) -> HeartRate:
     h = HeartRate(P, [HeartProfile(hr_max_bpm=195, hr_rest_bpm=48, sex="female"), HeartProfile(hr_max_bpm=200),
                       HeartProfile(hr_max_bpm=188, hr_rest_bpm=60, sex="male")])
     start = 0
-    for cut, hz in zip(cuts, horizons):
+    for cut, hz in zip(cuts, horizons, strict=True):
         h.add(owner[start:cut], t[start:cut], bpm[start:cut])
         h.settle(spans_at(hz), T0 + hz)
         start = cut

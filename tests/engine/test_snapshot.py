@@ -69,7 +69,8 @@ def test_incremental_snapshot_equals_a_fresh_build(recording):
             assert build_health(view, NOW, None) == got["health"]
             checked += 1
         if prev is not None and state.heart is None:
-            reused += sum(got_p is prev_p for got_p, prev_p in zip(got["players"].values(), prev["players"].values()))
+            pairs = zip(got["players"].values(), prev["players"].values(), strict=True)
+            reused += sum(got_p is prev_p for got_p, prev_p in pairs)
         prev = got
     state.finish()
     assert orjson.dumps(build_snapshot(state, now=NOW)) == orjson.dumps(build_snapshot(_fresh(state), now=NOW))

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import asyncio
 import copy
+from itertools import pairwise
 from typing import Any
 
 import orjson
@@ -91,11 +92,12 @@ def test_one_second_cadence_at_real_time_sends_once_a_second():
         b.tick(now=100.0 + k / FPS + (0.01 if k % 3 == 0 else 0.0), frames=feed.frames)
     sent = _deltas(sub)
     assert 4 <= len(sent) <= 5
-    steps = [b2["health"]["frames"] - a["health"]["frames"] for a, b2 in zip(sent, sent[1:])]
+    steps = [b2["health"]["frames"] - a["health"]["frames"] for a, b2 in pairwise(sent)]
     assert all(s >= FPS - 1 for s in steps), steps
 
 
-_leaf = st.one_of(st.none(), st.booleans(), st.integers(-3, 3), st.floats(-2, 2, allow_nan=False), st.text("ab", max_size=2))
+_leaf = st.one_of(st.none(), st.booleans(), st.integers(-3, 3), st.floats(-2, 2, allow_nan=False),
+                  st.text("ab", max_size=2))
 _tree = st.recursive(_leaf, lambda kids: st.dictionaries(st.text("abcd", min_size=1, max_size=2), kids, max_size=4),
                      max_leaves=20)
 

@@ -223,7 +223,8 @@ def test_tokens_enforced(tmp_path):
         assert post_frames(srv, frames(1), params={"token": "in-secret"}).status_code == 200
         assert httpx.get(f"{srv.http}/api/matches/m_live/snapshot", timeout=10).status_code == 401
         for tok in ("look", "in-secret"):
-            assert httpx.get(f"{srv.http}/api/matches/m_live/snapshot", params={"token": tok}, timeout=10).status_code == 200
+            r = httpx.get(f"{srv.http}/api/matches/m_live/snapshot", params={"token": tok}, timeout=10)
+            assert r.status_code == 200
 
         async def run():
             with pytest.raises(ConnectionClosed) as exc:
@@ -234,7 +235,8 @@ def test_tokens_enforced(tmp_path):
                 async with websockets.connect(f"{srv.ws}/ingest/m_live?token=look") as ws:
                     await ws.recv()
             assert exc.value.rcvd.code == 1008
-            async with websockets.connect(f"{srv.ws}/live/m_live", additional_headers={"Authorization": "Bearer look"}) as ws:
+            async with websockets.connect(f"{srv.ws}/live/m_live",
+                                          additional_headers={"Authorization": "Bearer look"}) as ws:
                 assert (await recv(ws))["type"] == "snapshot"
 
         asyncio.run(run())
@@ -296,7 +298,8 @@ def test_events_drive_score_on_pitch_and_period_messages(server):
         snap = httpx.get(f"{server.http}/api/matches/m_live/snapshot", timeout=10).json()
         assert snap["teams"][cb.AWAY]["score"] == 1 and snap["teams"][cb.HOME]["score"] == 0
         assert snap["players"]["h3"]["on_pitch"] is False
-        bad = httpx.post(f"{server.http}/api/matches/m_live/events", json={"type": "goal", "team_id": "t_x", "frame_id": 1}, timeout=10)
+        bad = httpx.post(f"{server.http}/api/matches/m_live/events",
+                         json={"type": "goal", "team_id": "t_x", "frame_id": 1}, timeout=10)
         assert bad.status_code == 422 and "team_id" in bad.json()["error"]["message"]
 
     asyncio.run(run())
@@ -323,7 +326,8 @@ def test_views_and_bad_query_parameters(server):
 
 
 def test_limits_and_operator_endpoints(tmp_path):
-    srv = LiveServer(tmp_path / "data", config_text="[server]\nmax_message_bytes = 20000\nmax_batch_frames = 10\n").start()
+    srv = LiveServer(tmp_path / "data",
+                     config_text="[server]\nmax_message_bytes = 20000\nmax_batch_frames = 10\n").start()
     try:
         put_match(srv)
         r = post_frames(srv, frames(2))  # 50 frames > 10

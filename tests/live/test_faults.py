@@ -238,9 +238,9 @@ def _storm_main(ws_base: str, seed: int, conn) -> None:
                 if kind == "half_open":
                     host, port = ws_base.removeprefix("ws://").split(":")
                     reader, writer = await asyncio.open_connection(host, int(port))
+                    key_header = b"Sec-WebSocket-Key: dGhlIHNhbXBsZSBub25jZQ==\r\n\r\n" if rng.random() < 0.5 else b""
                     writer.write(b"GET /live/m_test HTTP/1.1\r\nHost: x\r\nUpgrade: websocket\r\n"
-                                 b"Connection: Upgrade\r\nSec-WebSocket-Version: 13\r\n"
-                                 + (b"Sec-WebSocket-Key: dGhlIHNhbXBsZSBub25jZQ==\r\n\r\n" if rng.random() < 0.5 else b""))
+                                 b"Connection: Upgrade\r\nSec-WebSocket-Version: 13\r\n" + key_header)
                     await asyncio.sleep(hold / 3)
                     writer.transport.abort()
                 elif kind == "abort":
@@ -283,7 +283,8 @@ def test_subscriber_storm_leaves_steady_subscribers_and_memory_alone(tmp_path):
     storm.start()  # before this process runs an event loop: the child starts its own
     try:
         r = httpx.put(f"{srv.http}/api/matches/m_test",
-                      json={"meta": cb.meta(), "sheet": cb.sheet(14, 14, bench=("h12", "h13", "h14", "a12", "a13", "a14"))},
+                      json={"meta": cb.meta(),
+                            "sheet": cb.sheet(14, 14, bench=("h12", "h13", "h14", "a12", "a13", "a14"))},
                       timeout=10)
         assert r.status_code == 201, r.text
         on = list(range(11)) + list(range(14, 25))
@@ -328,7 +329,8 @@ def test_subscriber_storm_leaves_steady_subscribers_and_memory_alone(tmp_path):
             loop = asyncio.get_running_loop()
             before = [await loop.run_in_executor(None, gauges) for _ in range(3)]
             out = {"subs_before": before[0][0], "tasks_before": min(b[1] for b in before),
-                   "rss_before": _rss_mb(srv.proc.pid), "snapshot_kb": len(http.get("/api/matches/m_test/snapshot").content) / 1024}
+                   "rss_before": _rss_mb(srv.proc.pid),
+                   "snapshot_kb": len(http.get("/api/matches/m_test/snapshot").content) / 1024}
             out["t_storm"] = time.monotonic()
             parent.send("go")
             out["storm"] = await loop.run_in_executor(None, lambda: parent.recv() if parent.poll(60) else None)

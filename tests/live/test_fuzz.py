@@ -45,7 +45,8 @@ class World:
     def __init__(self, tmp) -> None:
         self.srv = LiveServer(tmp / "data").start()
         for mid in ("m_good", "m_junk"):
-            r = httpx.put(f"{self.srv.http}/api/matches/{mid}", json={"meta": cb.meta(mid), "sheet": cb.sheet(3, 2)}, timeout=10)
+            r = httpx.put(f"{self.srv.http}/api/matches/{mid}", json={"meta": cb.meta(mid), "sheet": cb.sheet(3, 2)},
+                          timeout=10)
             assert r.status_code == 201
         xy = sway(90, 5, (20.0, 12.0), (0.2, 0.27), y_turn=2)
         self.good = cb.frames(xy, IDS, 3, match_id="m_good")
@@ -126,7 +127,8 @@ def test_http_frames(world, body):
 
 
 @hsettings(max_examples=1500, deadline=None, suppress_health_check=SLOW)
-@given(mid=st.text(st.characters(min_codepoint=33, max_codepoint=126, exclude_characters="/?#%\\"), min_size=1, max_size=70),
+@given(mid=st.text(st.characters(min_codepoint=33, max_codepoint=126, exclude_characters="/?#%\\"),
+                   min_size=1, max_size=70),
        body=st.one_of(json_values, st.fixed_dictionaries({"meta": json_values, "sheet": json_values})))
 def test_setup(world, mid, body):
     r = world.http.put(f"/api/matches/{mid}", content=orjson.dumps(body))
@@ -209,14 +211,16 @@ def broken_budgets(draw, sheet: bool = True) -> tuple[object, str]:
     key = draw(st.sampled_from(sorted(CAPS)))
     lo, hi = CAPS[key]
     faults = ["negative", "huge", "wrong_type", "unknown_cap", "no_caps", "players_shape", "no_players",
-              "extra_key", "not_object"] + (["unknown_player"] if sheet else []) + (["fraction"] if key == "sprints" else [])
+              "extra_key", "not_object"]
+    faults += (["unknown_player"] if sheet else []) + (["fraction"] if key == "sprints" else [])
     fault = draw(st.sampled_from(faults))
     if fault == "negative":
         caps[key] = draw(st.one_of(st.floats(max_value=lo, allow_nan=False, allow_infinity=False),
                                    st.integers(max_value=lo)))
         return body, f"players.{pid}.{key}"
     if fault == "huge":
-        caps[key] = draw(st.one_of(st.floats(hi, 1e308, exclude_min=True), st.integers(hi + 1, 2**63 - 1)))  # orjson writes 64-bit ints
+        # orjson writes 64-bit ints
+        caps[key] = draw(st.one_of(st.floats(hi, 1e308, exclude_min=True), st.integers(hi + 1, 2**63 - 1)))
         return body, f"players.{pid}.{key}"
     if fault == "wrong_type":
         caps[key] = draw(not_numbers)

@@ -252,7 +252,8 @@ def test_lat_long_project_back_to_x_y_within_2_cm(short):
     # 7 decimals of a degree is ~1.1 cm of latitude (the synth writes ~1 cm fixes); the projection back
     # goes through pacewire.wire.gnss (pymap3d), independent of how the synth placed them
     proj = PitchProjection.from_calibration(_json(short / "meta.json")["venue"]["gnss_pitch"])
-    rows = np.array([(p["x"], p["y"], p["lat"], p["long"]) for f in _frames(short) for p in f["teams"]["home"]["players"]])
+    rows = np.array([(p["x"], p["y"], p["lat"], p["long"])
+                     for f in _frames(short) for p in f["teams"]["home"]["players"]])
     x, y = proj.to_pitch(rows[:, 2], rows[:, 3])
     err = np.hypot(x - rows[:, 0], y - rows[:, 1])
     assert err.max() <= 0.02
@@ -264,7 +265,8 @@ def test_lat_long_project_back_to_x_y_within_2_cm(short):
 def test_one_unit_is_switched_on_late(short):
     (late,) = _faults(short, "unit_late")
     frames = _frames(short)
-    ids_with = [f["frame_id"] for f in frames if any(p["id"] == late["player_id"] for p in f["teams"]["home"]["players"])]
+    ids_with = [f["frame_id"] for f in frames
+                if any(p["id"] == late["player_id"] for p in f["teams"]["home"]["players"])]
     # 3 minutes in a full match, scaled like the scripted stoppages (x0.25 for a 3-minute clip)
     assert late["duration_s"] == pytest.approx(180 * 0.25)
     assert min(ids_with) == late["frame_ids"][-1] + 1 and not set(ids_with) & set(late["frame_ids"])
@@ -293,7 +295,7 @@ def test_hr_samples_are_1_hz_time_ordered_and_only_while_the_unit_is_on(short):
     hidden = [(f["player_id"], _s(f["time"]), _s(f["time"]) + f["duration_s"])
               for f in _json(short / "faults.json")["faults"] if f["kind"] in ("outage", "dropout")]
     by_player: dict[str, list[float]] = {}
-    for h, ts in zip(samples, t):
+    for h, ts in zip(samples, t, strict=True):
         by_player.setdefault(h["player_id"], []).append(ts)
         assert any(a <= ts < b for a, b in spans)  # the break is not streamed
     assert set(by_player) == set(on)

@@ -66,8 +66,9 @@ def run(paths: dict[int, np.ndarray], seen: dict[int, np.ndarray] | None = None,
     for s in range(0, T, step):
         slot = np.arange(s, min(s + step, T))
         n = slot.size
-        state.step(Block(frame_id=slot.copy(), t=t0 + slot / FPS, period=np.full(n, PERIOD_INDEX["first_half"], np.int8),
-                         slot=slot, xy=xy[slot], ball=np.full(n, BALL_IN, np.int8), poss=np.zeros(n, np.int8)))
+        state.step(Block(frame_id=slot.copy(), t=t0 + slot / FPS,
+                         period=np.full(n, PERIOD_INDEX["first_half"], np.int8), slot=slot, xy=xy[slot],
+                         ball=np.full(n, BALL_IN, np.int8), poss=np.zeros(n, np.int8)))
         snap = build_snapshot(state)
         cov = {w: window_coverage(state, w) for w in settings.windows.last_min}
         out.append((snap, cov, clock_block("first_half", snap["match_time_s"], 15, 45)))
@@ -352,7 +353,8 @@ def test_budgets_over_http_and_alerts_on_the_live_stream(tmp_path):
         ok = httpx.put(url, json={"players": {"h2": {"minutes": 1.0}}}, timeout=10)
         assert ok.status_code == 200 and ok.json()["players"] == {"h2": {"minutes": 1.0}}
         assert httpx.get(url, timeout=10).json()["players"] == {"h2": {"minutes": 1.0}}  # PUT replaces them all
-        assert orjson.loads((srv.data / "matches" / mid / "budgets.json").read_bytes())["players"]["h2"] == {"minutes": 1.0}
+        stored = orjson.loads((srv.data / "matches" / mid / "budgets.json").read_bytes())
+        assert stored["players"]["h2"] == {"minutes": 1.0}
 
         xy = np.full((70 * FPS, len(IDS), 2), np.nan)
         xy[:, H2] = circle(np.full(70 * FPS, 3.0))
@@ -364,7 +366,8 @@ def test_budgets_over_http_and_alerts_on_the_live_stream(tmp_path):
                     websockets.connect(f"{srv.ws}/live/{mid}?every=1&view=team:{cb.AWAY}") as away:
                 for i in range(0, len(objs), 250):  # 10 s of frames per batch
                     body = b"\n".join(cb.lines(objs[i:i + 250]))
-                    await asyncio.to_thread(httpx.post, f"{srv.http}/api/matches/{mid}/frames", content=body, timeout=30)
+                    await asyncio.to_thread(httpx.post, f"{srv.http}/api/matches/{mid}/frames", content=body,
+                                            timeout=30)
                 alerts = []
                 deadline = time.monotonic() + 15
                 while len(alerts) < 2 and time.monotonic() < deadline:

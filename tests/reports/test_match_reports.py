@@ -71,8 +71,8 @@ def live(tmp_path_factory):
     srv = LiveServer(base / "data", config_text=CONFIG).start()
     try:
         for mid in ("m_a", "m_b"):
-            r = httpx.put(f"{srv.http}/api/matches/{mid}", json={"meta": cb.meta(mid), "sheet": cb.sheet(N_HOME, N_AWAY)},
-                          timeout=10)
+            r = httpx.put(f"{srv.http}/api/matches/{mid}",
+                          json={"meta": cb.meta(mid), "sheet": cb.sheet(N_HOME, N_AWAY)}, timeout=10)
             assert r.status_code == 201
 
         async def run():

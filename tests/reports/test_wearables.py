@@ -221,7 +221,7 @@ def test_heart_rate_report_from_the_engine(tmp_path):
     assert set(players[SILENT]["hr_omitted"]) == {"trimp_banister"}
     # Edwards 1993: TRIMP = sum of minutes in each zone x its weight 1..5, from the zone times shown
     p = players["h3"]
-    want = sum(w * p["hr_zones"][z] / 60 for w, z in zip((1, 2, 3, 4, 5), zones))
+    want = sum(w * p["hr_zones"][z] / 60 for w, z in zip((1, 2, 3, 4, 5), zones, strict=True))
     assert p["trimp_edwards"] == pytest.approx(want, abs=0.1)
     svgs = [s.get("aria-label") for s in doc.findall(".//{http://www.w3.org/2000/svg}svg")]
     assert "hr-zones-Harbour Town" in svgs
@@ -256,7 +256,8 @@ def test_report_heart_rate_from_a_hand_built_snapshot():
     assert text_of(tds[11]) == "97%"
     snap = {"match_id": "m", "match_time_s": 720.0, "period": "first_half", "health": {"state": "ok"},
             "teams": {HOME: {"name": "Harbour Town", "side": "home", "tracked": True,
-                             "outfield": dict.fromkeys(("players", "distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "high_power_m"), 0)
+                             "outfield": dict.fromkeys(("players", "distance_m", "hsr_m", "sprint_m", "hsr_efforts",
+                                                        "sprints", "accels", "decels", "high_power_m"), 0)
                              | {"per_player": {"distance_m": 0, "m_per_min": 0, "hsr_m": 0, "sprint_m": 0}}},
                       AWAY: {"name": "Quarry Lane", "side": "away", "tracked": False}},
             "players": {"p7": dict(base, distance_m=1500.0, m_per_min=125.0, hsr_m=90.0, sprint_m=10.0, hsr_efforts=4,
@@ -321,7 +322,8 @@ def test_live_reports_of_a_one_team_heart_rate_match(live):
         text = httpx.get(f"{base}/report.html", timeout=10).text
         doc = parse_strict(text)
         assert "one team tracked" in text_of(doc.find(".//header"))
-        assert [text_of(th) for th in section(doc, "teams").findall(".//thead//th")] == ["outfield players", "Harbour Town"]
+        heads = [text_of(th) for th in section(doc, "teams").findall(".//thead//th")]
+        assert heads == ["outfield players", "Harbour Town"]
         rows = heart_rows(doc)
         assert "gaps" in text_of(rows[snap["players"][GAPPY]["name"]][11])
         csv_text = httpx.get(f"{base}/report.csv", timeout=10).text
@@ -351,7 +353,7 @@ def test_offline_report_equals_live_with_heart_rate(live, tmp_path):
         on = httpx.get(f"{srv.http}/api/matches/m_w/reports/{kind}/snapshot.json", timeout=10).json()
         assert off["players"] == on["players"]
         for tid, team in off["teams"].items():  # the live service adds the score from match events
-            assert {k: v for k, v in team.items()} == {k: v for k, v in on["teams"][tid].items() if k != "score"}
+            assert team == {k: v for k, v in on["teams"][tid].items() if k != "score"}
 
 
 # -- the bench page in Chromium --------------------------------------------------------------------
@@ -433,7 +435,8 @@ def test_page_shows_one_team_tracked_and_heart_rate(live, browser_page):
     shifted = page.evaluate("""() => { const tr = document.querySelector('#player-body tr[data-player-id]');
       return [...document.querySelectorAll('#player-head th')].filter(th => !th.hidden).map(th => {
         const td = tr.querySelector(`td[data-col="${th.dataset.col}"]`);
-        return [th.dataset.col, Math.round(th.getBoundingClientRect().left), td && !td.hidden ? Math.round(td.getBoundingClientRect().left) : null];
+        return [th.dataset.col, Math.round(th.getBoundingClientRect().left),
+                td && !td.hidden ? Math.round(td.getBoundingClientRect().left) : null];
       }).filter(([, a, b]) => a !== b); }""")
     assert not shifted, shifted
     assert page.locator("#hr-legend").is_visible() and page.locator("#feed-hr").is_visible()
@@ -476,7 +479,8 @@ def test_page_heart_rate_in_windows_and_period(live, browser_page):
     page.click("label[data-window='cumulative']")
     # sorting by an HR column: high first, left-out and empty last
     page.click("th[data-col='trimp_edwards'] button")
-    order = page.evaluate("() => [...document.querySelectorAll('#player-body tr[data-player-id]')].map(t => t.dataset.playerId)")
+    order = page.evaluate("() => [...document.querySelectorAll('#player-body tr[data-player-id]')]"
+                          ".map(t => t.dataset.playerId)")
     vals = [rest["players"][pid]["trimp_edwards"] for pid in order]
     present = [v for v in vals if v is not None]
     assert present == sorted(present, reverse=True) and vals[len(present):] == [None] * (len(vals) - len(present))
@@ -512,8 +516,10 @@ def test_page_heart_rate_columns_arrive_with_the_first_samples(live, browser_pag
     assert rest["players"]["h2"]["hr_mean_bpm"] is not None and got["h2"]["hr_mean_bpm"]["value"]
     assert page.locator("#hr-legend").is_visible() and page.locator("#feed-hr").is_visible()
     # the heading and the cells stay in step after the head was rebuilt
-    assert page.evaluate("""() => [...document.querySelectorAll('#player-head th')].map(th => th.dataset.col).join()""") == \
-        page.evaluate("""() => [...document.querySelector('#player-body tr').children].map(td => td.dataset.col).join()""")
+    heading = page.evaluate("() => [...document.querySelectorAll('#player-head th')].map(th => th.dataset.col).join()")
+    cells = page.evaluate("() => [...document.querySelector('#player-body tr').children]"
+                          ".map(td => td.dataset.col).join()")
+    assert heading == cells
 
 
 def test_flatten_keeps_hr_zone_names():

@@ -73,7 +73,8 @@ def test_baselines_are_medians_over_the_live_and_replayed_matches(imported):
         mad = float(np.median(np.abs(np.array(dist) - np.median(dist))))
         assert b["match"]["distance_m"].spread == pytest.approx(1.4826 * mad, abs=1e-3)
         # 15-minute block 0-15: the whole (short) first half; per minute on the pitch
-        rate = expected(snaps, pid, lambda p: p["windows"]["block_0_15"]["distance_m"] / p["periods"]["first_half"]["minutes"])
+        rate = expected(snaps, pid,
+                        lambda p: p["windows"]["block_0_15"]["distance_m"] / p["periods"]["first_half"]["minutes"])
         assert b["block_0_15"]["m_per_min"].median == pytest.approx(statistics.median(rate), rel=5e-3)
         hsr = expected(snaps, pid, lambda p: p["windows"]["block_45_60"]["hsr_m"])
         assert b["block_45_60"]["hsr_m"].median == pytest.approx(statistics.median(hsr), abs=0.06)

@@ -27,7 +27,8 @@ def meta(match_id: str = "m_test", fps: int = 25, **extra: Any) -> dict[str, Any
                   "whistles": []},
         "teams": {"home": {"id": HOME, "name": "Harbour Town"}, "away": {"id": AWAY, "name": "Quarry Lane"}},
         "venue": {"id": "v_fict", "pitch_length": 105.0, "pitch_width": 68.0},
-        "meta": {"video": None, "tracking": {"version": "0.1.0", "name": "test", "fps": fps, "collection_timing": "live"},
+        "meta": {"video": None,
+                 "tracking": {"version": "0.1.0", "name": "test", "fps": fps, "collection_timing": "live"},
                  "event": None, "landmarks": None, "meta": None, "ball": None, "cdf": {"version": "0.3.2"}},
     }
     m.update(extra)
@@ -40,7 +41,8 @@ def sheet(n_home: int, n_away: int, gk: tuple[str, ...] = ("h1", "a1"), bench: t
         for i in range(n):
             pid = f"{prefix}{i + 1}"
             players.append({"id": pid, "team_id": tid, "jersey_number": i + 1, "is_starter": pid not in bench,
-                            "position_group": "GK" if pid in gk else "MF", "first_name": "Test", "last_name": pid.upper()})
+                            "position_group": "GK" if pid in gk else "MF", "first_name": "Test",
+                            "last_name": pid.upper()})
         return {"id": tid, "name": tid, "players": players}
     return {"teams": {"home": team(HOME, "h", n_home), "away": team(AWAY, "a", n_away)}}
 
@@ -62,7 +64,8 @@ def frames(xy: np.ndarray, ids: list[str], n_home: int, fps: int = 25, match_id:
             x, y = xy[k, j]
             if np.isnan(x):
                 continue
-            teams["home" if j < n_home else "away"]["players"].append({"id": pid, "x": round(float(x), 3), "y": round(float(y), 3)})
+            side = "home" if j < n_home else "away"
+            teams[side]["players"].append({"id": pid, "x": round(float(x), 3), "y": round(float(y), 3)})
         b: dict[str, Any] = {"x": 0.0, "y": 0.0, "z": 0.0}
         if ball is not None:
             b = {"x": float(ball[k, 0]), "y": float(ball[k, 1]), "z": 0.1}
@@ -103,7 +106,8 @@ def meta_with_rosters(meta_obj: dict[str, Any], sheet_obj: dict[str, Any]) -> di
     return out
 
 
-def post_match_sheet(sheet_obj: dict[str, Any], match_id: str = "m_test", vendor: str = "pacewire tests") -> dict[str, Any]:
+def post_match_sheet(sheet_obj: dict[str, Any], match_id: str = "m_test",
+                     vendor: str = "pacewire tests") -> dict[str, Any]:
     """A copy of a live sheet with the post-match fields the CDF validator requires
     (match status and a goalless result, officials, empty events, meta.vendor,
     ``has_played``): what a full-time match sheet holds. Fictional officials."""
@@ -115,7 +119,8 @@ def post_match_sheet(sheet_obj: dict[str, Any], match_id: str = "m_test", vendor
             p.setdefault("has_played", bool(p.get("is_starter", False)))
     nil = {"home": 0, "away": 0}
     out["match"] = {"id": match_id, "status": {"is_neutral": False, "has_extratime": False, "has_shootout": False},
-                    "result": {"final": {**nil, "winning_team_id": None}, "first_half": dict(nil), "second_half": dict(nil)}}
+                    "result": {"final": {**nil, "winning_team_id": None}, "first_half": dict(nil),
+                               "second_half": dict(nil)}}
     out["officials"] = [{"id": "o_ref", "type": "main_referee", "first_name": "Test", "last_name": "Referee"}]
     out["events"] = {"goals": [], "substitutions": [], "cards": []}
     out["meta"] = {"vendor": vendor}

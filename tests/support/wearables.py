@@ -45,14 +45,14 @@ def one_team_frames(xy: np.ndarray, gnss: bool, match_id: str = "m_test", period
     ids = cb.player_ids(xy.shape[1], 0)
     frames = cb.frames(xy, ids, xy.shape[1], match_id=match_id, period=period, t0=t0, frame0=frame0)
     proj = PitchProjection.from_calibration(rectangle(*GROUND)) if gnss else None
-    for f, pos in zip(frames, xy):
+    for f, pos in zip(frames, xy, strict=True):
         del f["ball"]
         if proj is None:
             continue
         seen = [j for j in range(pos.shape[0]) if not np.isnan(pos[j, 0])]
         lat, lon = proj.to_gnss(pos[seen, 0], pos[seen, 1])
         f["teams"]["home"]["players"] = [{"id": ids[j], "lat": float(a), "long": float(b)}
-                                         for j, a, b in zip(seen, np.atleast_1d(lat), np.atleast_1d(lon))]
+                                         for j, a, b in zip(seen, np.atleast_1d(lat), np.atleast_1d(lon), strict=True)]
     return frames
 
 

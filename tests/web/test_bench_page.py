@@ -36,7 +36,8 @@ FIGURE_FIELDS = WINDOW_FIELDS + ("max_speed_ms", "minutes", "coverage")
 PLAYER_FIELDS = FIGURE_FIELDS + ("speed_ms", "jersey_number")
 
 READ_TABLE = """() => Object.fromEntries([...document.querySelectorAll('#player-body tr[data-player-id]')].map(tr =>
-  [tr.dataset.playerId, Object.fromEntries([...tr.querySelectorAll('td[data-col]')].map(td => [td.dataset.col, td.dataset.value]))]))"""
+  [tr.dataset.playerId,
+   Object.fromEntries([...tr.querySelectorAll('td[data-col]')].map(td => [td.dataset.col, td.dataset.value]))]))"""
 READ_ORDER = "() => [...document.querySelectorAll('#player-body tr[data-player-id]')].map(tr => tr.dataset.playerId)"
 READ_TEAMS = """() => Object.fromEntries([...document.querySelectorAll('#teams [data-team-id]')].map(card =>
   [card.dataset.teamId, [...card.querySelectorAll('[data-window][data-field]')].map(el =>
@@ -154,8 +155,9 @@ class Bench:
 
         try:
             return wait_for(same, timeout, "the page to show the REST figures", every=0.25)
-        except AssertionError:
-            raise AssertionError("page and REST differ: " + "; ".join(last[:8]) + "\npage received: " + self.recent())
+        except AssertionError as exc:
+            raise AssertionError("page and REST differ: " + "; ".join(last[:8])
+                                 + "\npage received: " + self.recent()) from exc
 
 
 def mismatches(page: dict[str, dict[str, str]], players: dict[str, Any], pick: Callable[[dict], dict | None],
@@ -367,8 +369,8 @@ def test_window_switch_shows_that_windows_figures(bench):
         elif mode == "period":
             bad = mismatches(got, rest["players"], lambda p: p["periods"].get(period), FIGURE_FIELDS)
         else:
-            bad = mismatches(got, rest["players"], lambda p, m=mode: p["windows"].get(m), WINDOW_FIELDS + ("minutes", "coverage"),
-                             minutes_from_span=True)
+            bad = mismatches(got, rest["players"], lambda p, m=mode: p["windows"].get(m),
+                             WINDOW_FIELDS + ("minutes", "coverage"), minutes_from_span=True)
             assert all(got[pid]["max_speed_ms"] == "" for pid in got)  # windows carry no top speed
         assert not bad, f"{mode}: " + "; ".join(bad[:6])
         distances[mode] = num(got[busy]["distance_m"])
@@ -484,14 +486,15 @@ def test_alerts_and_report_links_as_they_arrive(bench):
     try:
         wait_for(lambda: page.locator(sel).count() >= 2, 10, "the budget alerts on the page")
     except AssertionError as exc:
-        raise AssertionError(f"{exc}; page received: {bench.recent()}")
+        raise AssertionError(f"{exc}; page received: {bench.recent()}") from None  # exc is in the message
     limits = sorted(float(v) for v in page.eval_on_selector_all(sel, "els => els.map(e => e.dataset.limit)"))
     assert limits == [0.8, 1.0]  # the 80 % and 100 % levels of a 1-minute budget
     assert "Caspar Lunde" in page.inner_text("#alerts")
     bench.join()
     # full time: the period ends, the report is built, and its link shows up by itself
     last = bench.feed.frames[bench.feed.cursor - 1]["frame_id"]
-    r = httpx.post(f"{base}/events", json=[{"type": "period_end", "period": "second_half", "frame_id": last}], timeout=10)
+    r = httpx.post(f"{base}/events", json=[{"type": "period_end", "period": "second_half", "frame_id": last}],
+                   timeout=10)
     assert r.status_code == 200, r.text
     wait_for(lambda: "ended" in page.inner_text("#period"), 5, "the period shown as ended")
     wait_for(lambda: bench.banner() == "break", 5, "the calmer end-of-period banner instead of the stall alarm")

@@ -85,7 +85,7 @@ def build(spec: list, start: int = 0) -> list:
 
 
 def one_by_one(dec: FrameDecoder, objs: list, lines: list[int]) -> tuple[DecodeResult, list[int]]:
-    results = [dec.decode_objects([o], [ln]) for o, ln in zip(objs, lines)]
+    results = [dec.decode_objects([o], [ln]) for o, ln in zip(objs, lines, strict=True)]
     accepted = [k for k, r in enumerate(results) if len(r.block)]
     return DecodeResult.merge(results), accepted
 
