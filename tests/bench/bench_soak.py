@@ -1,6 +1,6 @@
 """Soak: a whole synthetic match replayed at 10x into one real server with 200 subscribers.
 
-The match is ``pacewire synth --out TMP --minutes M`` (replay/synth.py: the
+The match is ``pacewire synth --out TMP --minutes M`` (replay/synth/: the
 fictional 95-minute demo match, feed faults on: a 20 s outage, dropouts,
 duplicates, late frames, jumps), fed by ``pacewire replay --speed 10``
 (replay/player.py) into ``pacewire serve`` on loopback. Before the first

@@ -28,7 +28,7 @@ def _fresh(state):
 
 @pytest.fixture(scope="module", params=["optical", "wearables"])
 def recording(request, tmp_path_factory) -> Path:
-    # replay/synth.py: the fictional demo match (both halves, substitutions, feed faults), 3 minutes
+    # replay/synth/: the fictional demo match (both halves, substitutions, feed faults), 3 minutes
     return synth.write_match(tmp_path_factory.mktemp(request.param), minutes=3, fps=25, seed=3, compress=False,
                              wearables=request.param == "wearables")
 

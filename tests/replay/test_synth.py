@@ -1,4 +1,4 @@
-"""Tests of the synthetic (fictional) demo match generator, replay/synth.py.
+"""Tests of the synthetic (fictional) demo match generator, replay/synth/.
 
 Short clips (2-4 minutes) keep each test fast; the full-match load check is
 marked slow. Every check value names its source.
@@ -25,7 +25,7 @@ from pacewire.replay import synth
 from tests.support.paths import DEMO_CLIP
 
 FPS = 25
-HALF_LENGTH_M = 52.5  # pitch 105 x 68 m, origin at the centre spot (CDF coordinates, replay/synth.py)
+HALF_LENGTH_M = 52.5  # pitch 105 x 68 m, origin at the centre spot (CDF coordinates, replay/synth/)
 HALF_WIDTH_M = 34.0
 MAX_SPEED_MS = 10.5  # common practice: elite footballers peak at ~9.5-10.5 m/s
 MAX_ACCEL_MS2 = 6.0  # common practice: smoothed (~1 s) |a| of players stays within ~6 m/s^2

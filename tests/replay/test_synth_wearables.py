@@ -29,8 +29,8 @@ from pacewire.wire.gnss import PitchProjection, parse_calibration
 from tests.support.snapshots import player_figures, settled_snapshot
 
 HR_LOW_BPM, HR_HIGH_BPM = 40, 215  # common practice: athletes' resting HR rarely below ~40, HRmax rarely above ~210
-SPIKE_BPM = 255  # the injected implausible sample (replay/synth.py HR_SPIKE_BPM)
-KICKOFF = dt.datetime(2026, 3, 14, 15, 0, tzinfo=dt.UTC)  # replay/synth.py KICKOFF
+SPIKE_BPM = 255  # the injected implausible sample (replay/synth/wearables.py HR_SPIKE_BPM)
+KICKOFF = dt.datetime(2026, 3, 14, 15, 0, tzinfo=dt.UTC)  # replay/synth/timeline.py KICKOFF
 
 
 # --------------------------------------------------------------------------
@@ -171,7 +171,7 @@ def clean(tmp_path_factory) -> pathlib.Path:
 
 def _physio(tmp_path_factory, name: str, **patch) -> tuple[dict, list]:
     """20 minutes at 10 fps without faults (a jump would spoil the speeds), per second;
-    ``patch`` overrides model constants of replay/synth.py for a control."""
+    ``patch`` overrides model constants of replay/synth/ for a control."""
     with pytest.MonkeyPatch.context() as mp:
         for key, value in patch.items():
             mp.setattr(synth.wearables, key, value)
@@ -230,7 +230,7 @@ def test_one_team_only_no_ball_and_the_home_roster_with_heart_rate_profiles(shor
     for p in home:
         assert 180 <= p["hr_max_bpm"] <= 205 and p["sex"] in ("male", "female")  # from memory: professional players
     rests = [p["hr_rest_bpm"] for p in home if "hr_rest_bpm" in p]
-    assert len(rests) == 15 and all(40 <= r <= 60 for r in rests)  # one left out, on purpose (replay/synth.py)
+    assert len(rests) == 15 and all(40 <= r <= 60 for r in rests)  # one left out, on purpose (replay/synth/)
     assert len({p["hr_max_bpm"] for p in home}) >= 12  # varied
     home_ids = {p["id"] for p in home}
     home_subs = sheet["events"]["substitutions"]
@@ -314,7 +314,7 @@ def test_hr_samples_are_1_hz_time_ordered_and_only_while_the_unit_is_on(short):
 def test_hr_dropout_and_spike_are_where_faults_json_says(short):
     samples = _hr(short)
     (drop,) = _faults(short, "hr_dropout")
-    assert 60.0 <= drop["duration_s"] <= 90.0  # replay/synth.py HR_DROPOUT_S: a 60-90 s strap dropout
+    assert 60.0 <= drop["duration_s"] <= 90.0  # replay/synth/wearables.py HR_DROPOUT_S: a 60-90 s strap dropout
     ts = [_s(h["timestamp"]) for h in samples if h["player_id"] == drop["player_id"]]
     before, after = _s(drop["last_sample_before"]), _s(drop["first_sample_after"])
     assert before in ts and after in ts and not [s for s in ts if before < s < after]
@@ -340,7 +340,7 @@ def test_hr_stays_in_a_plausible_range(short, physio):
 
 
 def test_hr_peaks_after_the_running_does(physio, tmp_path_factory):
-    # replay/synth.py HR_TAU_UP_S/HR_TAU_DOWN_S: time constants 25-60 s give a lag the cross-correlation puts at 10-60 s
+    # replay/synth/wearables.py HR_TAU_UP_S/HR_TAU_DOWN_S: time constants 25-60 s give a lag the cross-correlation puts at 10-60 s
     lag = hr_lag_s(*physio)
     assert 10 <= lag <= 60, lag
     # control: the same match with an (almost) instant heart rate peaks at once, so the measure can fail

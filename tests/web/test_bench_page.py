@@ -509,7 +509,7 @@ def test_alerts_and_report_links_as_they_arrive(bench):
 def test_the_demo_clip_through_the_match_picker(bench):
     """The committed demo clip (fictional, with injected faults) as a second match: pick it, see
     every player of its sheet, and the same figures as REST."""
-    assert DEMO_CLIP.is_dir(), f"{DEMO_CLIP} is missing (replay/synth.py writes it)"
+    assert DEMO_CLIP.is_dir(), f"{DEMO_CLIP} is missing (replay/synth/ writes it)"
     meta = orjson.loads((DEMO_CLIP / "meta.json").read_bytes())
     sheet = orjson.loads((DEMO_CLIP / "match.json").read_bytes())
     lines = gzip.decompress((DEMO_CLIP / "tracking.jsonl.gz").read_bytes()).splitlines()
