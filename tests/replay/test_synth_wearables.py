@@ -340,7 +340,8 @@ def test_hr_stays_in_a_plausible_range(short, physio):
 
 
 def test_hr_peaks_after_the_running_does(physio, tmp_path_factory):
-    # replay/synth/wearables.py HR_TAU_UP_S/HR_TAU_DOWN_S: time constants 25-60 s give a lag the cross-correlation puts at 10-60 s
+    # replay/synth/wearables.py HR_TAU_UP_S/HR_TAU_DOWN_S: time constants 25-60 s give a lag the
+    # cross-correlation puts at 10-60 s
     lag = hr_lag_s(*physio)
     assert 10 <= lag <= 60, lag
     # control: the same match with an (almost) instant heart rate peaks at once, so the measure can fail
