@@ -127,7 +127,8 @@ def test_full_time_report_without_an_event_and_no_stall_after_it(played):
     assert [m["health"]["state"] for m in after if m["type"] == "health"] == ["finished"]
     assert not any(m.get("health", {}).get("state") == "stalled" for m in after)
     # made final as an event in the recording: what a restart, a successor and the exports see
-    events = [orjson.loads(line) for line in (played["data"] / "matches" / MID / "events.jsonl").read_bytes().splitlines()]
+    recorded = (played["data"] / "matches" / MID / "events.jsonl").read_bytes()
+    events = [orjson.loads(line) for line in recorded.splitlines()]
     assert {"type": "period_end", "period": "second_half", "source": "timeout"}.items() <= events[0].items()
 
 
