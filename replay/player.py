@@ -5,9 +5,21 @@ due at ``start + (t_k - t_0) / speed``, so errors never accumulate over a
 match. The break between periods is skipped (the next period starts one
 second of wall time after the last frame of the previous one).
 
-Seek (``--from MM:SS``): the frames before that match-clock time are sent at
-once as HTTP batches (the server analyses them immediately and they count in
-every figure), then streaming continues at the chosen speed.
+Where the server stands (:mod:`pacewire.replay.position`): before sending, the
+replay asks the server what it already holds of the match and sends only the
+frames and heart-rate samples after that; once it has sent the frame the
+recording's meta gives as a period's end, it sends that ``period_end`` event.
+
+Seek (``--from MM:SS``): the frames before that match-clock time (and after
+what the server holds) are sent at once as HTTP batches (the server analyses
+them immediately and they count in every figure), then streaming continues
+at the chosen speed.
+
+A dropped socket (the server restarting, a network blip, a pause long enough
+for the server to close the socket) is not the end: the replay tries again
+with a growing delay for up to ``--retry-for`` seconds, asks where the server stands
+and goes on from there. Ctrl-C, and any error it cannot get past, end with
+one line saying why and how to resume (``--from``), never a traceback.
 
 Heart rate (docs/wearables.md): when the recording has heart-rate samples
 (``hr.jsonl``), they go over a second socket, ``/ingest/MATCH/hr``, paced by
@@ -37,6 +49,7 @@ from urllib.parse import urlsplit, urlunsplit
 import orjson
 
 from pacewire.engine.match import CLOCK_START_MIN
+from pacewire.replay.position import Position, ReplayError, ServerBusy, ask, period_ends, send_end
 from pacewire.wire.cdf import parse_timestamp
 from pacewire.wire.recording import Recording, open_recording
 
@@ -45,10 +58,11 @@ TICK_S = 0.02  # frames due within one tick go in one message
 MAX_BYTES = 512 * 1024  # per message or batch, well under the server's 1 MiB default
 MAX_LINES_FAST = 250  # lines per message at max speed
 HR_BATCH = 1500  # heart-rate samples per HTTP batch, far under the server's batch limit
+RETRY_FIRST_S = 0.5  # first wait after a dropped socket; doubled after each failed attempt
+RETRY_MAX_S = 8.0  # longest wait between attempts
+RETRY_BUDGET_S = 120.0  # how long a replay keeps trying to reach a server that went away
 
-
-class ReplayError(RuntimeError):
-    pass
+__all__ = ["Frame", "Progress", "ReplayError", "main", "replay"]
 
 
 @dataclass
@@ -57,6 +71,7 @@ class Frame:
     t: float  # timestamp, s
     clock_s: float  # football clock, s
     period: str
+    fid: int | None = None  # frame_id, when the line reads
 
 
 def parse_clock(text: str) -> float:
@@ -101,14 +116,17 @@ def samples_of(rec: Recording) -> list[Sample]:
     return out
 
 
-def frames_of(rec: Recording) -> Iterator[Frame]:
-    """Every parsable frame line with its time; unreadable lines go as they are (the server judges them)."""
+def frames_of(rec: Recording, after: int | None = None) -> Iterator[Frame]:
+    """Every parsable frame line with its time; unreadable lines go as they are (the server judges them).
+    ``after``: the server holds every frame up to this id, so the lines up to it are skipped."""
     t0: dict[str, float] = {}
     last = (0.0, 0.0, "first_half")
+    skipping = after is not None
     for line in rec.lines():
         raw = line.rstrip(b"\r\n")
         if not raw.strip():
             continue
+        fid = None
         try:
             obj = orjson.loads(raw)
             period = obj["period"]
@@ -116,9 +134,14 @@ def frames_of(rec: Recording) -> Iterator[Frame]:
             start = t0.setdefault(period, t)
             clock = CLOCK_START_MIN.get(period, 0) * 60.0 + (t - start)
             last = (t, clock, period)
+            fid = obj["frame_id"] if type(obj["frame_id"]) is int else None
         except Exception:  # not ours to judge: the server answers it with a reason
             t, clock, period = last
-        yield Frame(raw, t, clock, period)
+        if skipping:
+            if fid is None or after is None or fid <= after:
+                continue
+            skipping = False
+        yield Frame(raw, t, clock, period, fid)
 
 
 def _http_base(ws_url: str) -> tuple[str, str]:
@@ -152,6 +175,11 @@ class Progress:
             self.stream.write(f"{fr.period} {fmt_clock(fr.clock_s)} {sent} frames {rate:.0f} frames/s\n")
         self.stream.flush()
 
+    def say(self, text: str) -> None:
+        """A line of its own (after a progress line a terminal keeps open)."""
+        self.stream.write(("\n" if self.stream.isatty() else "") + text + "\n")
+        self.stream.flush()
+
 
 class _Paced:
     """One ingest socket: lines due within one tick go in one message, sent at the due time
@@ -182,40 +210,136 @@ class _Paced:
 @dataclass
 class _Cursor:
     """How far a replay got: frames sent, the last one sent, the first frame read but not
-    sent yet (a seek reads one frame past its end) and the next heart-rate sample to send."""
+    sent yet (a seek reads one frame past its end), the next heart-rate sample to send and
+    what the server said on the ingest socket that ends the replay."""
 
     sent: int = 0
     last: Frame | None = None
     pending: Frame | None = None
     hr_next: int = 0
+    fatal: str | None = None
+
+
+@dataclass
+class _Match:
+    """One replay's fixed parts: the server, the recording and what goes with it."""
+
+    http: Any
+    mid: str
+    rec: Recording
+    samples: list[Sample]
+    ends: dict[int, str]  # frame id -> the period the recording's meta ends there
+    rename: Callable[[bytes], bytes]
+    progress: Progress | None
+
+    def say(self, text: str) -> None:
+        (self.progress or Progress()).say(text)
+
+    async def ended_at(self, fr: Frame) -> None:
+        """After frame ``fr`` went out: the end of its period, if the meta puts it there."""
+        if fr.fid is not None and fr.fid in self.ends:
+            await send_end(self.http, self.mid, fr.fid, self.ends[fr.fid])
+
+
+def _dropped() -> tuple[type[BaseException], ...]:
+    """What a dropped, unreachable or briefly unavailable server raises: worth another attempt."""
+    import httpx
+    import websockets
+
+    return (websockets.ConnectionClosed, websockets.InvalidHandshake, httpx.TransportError, OSError, TimeoutError,
+            ServerBusy)
 
 
 async def replay(folder: Path, to: str, speed: float | None, start_s: float | None = None, until_s: float | None = None,
                  token: str | None = None, match_id: str | None = None, progress: Progress | None = None,
-                 stop: asyncio.Event | None = None) -> tuple[int, Frame | None]:
+                 stop: asyncio.Event | None = None, cursor: _Cursor | None = None,
+                 retry_s: float = RETRY_BUDGET_S) -> tuple[int, Frame | None]:
     """Stream a folder; returns (frames sent, last frame sent). ``speed`` None: as fast as possible.
 
     Heart-rate samples, when the folder has them, go alongside (module docstring);
-    ``progress.hr_sent`` counts them."""
+    ``progress.hr_sent`` counts them. ``cursor``: where the replay got, kept up to date
+    (for the caller's resume hint when it fails). ``retry_s``: how long to keep trying
+    after the server went away."""
     import httpx
 
     rec = open_recording(folder)
     base, url_match = _http_base(to)
     mid = match_id or url_match
     headers = {"Authorization": f"Bearer {token}"} if token else {}
-    samples = samples_of(rec)
-    rename = functools.partial(_rename, mid=mid, url_match=url_match, rec=rec)
-    cur = _Cursor()
+    cur = cursor if cursor is not None else _Cursor()
+    ws_url = to if match_id is None else to.rsplit("/", 1)[0] + "/" + mid
     async with httpx.AsyncClient(base_url=base, headers=headers, timeout=60) as http:
+        m = _Match(http, mid, rec, samples_of(rec), period_ends(rec),
+                   functools.partial(_rename, mid=mid, url_match=url_match, rec=rec), progress)
         await _set_up(http, mid, rec)
-        frames = frames_of(rec)
-        if start_s is not None:
-            await _seek(http, mid, frames, start_s, rename, samples, cur, progress)
-        ws_url = to if match_id is None else to.rsplit("/", 1)[0] + "/" + mid
-        await _stream(ws_url, headers, speed, frames, samples, rename, cur, until_s, progress, stop)
+        pos = await ask(http, mid)
+        deadline, sent = None, -1
+        while True:
+            try:
+                await _from(m, pos, ws_url, headers, speed, start_s, until_s, cur, stop)
+                break
+            except _dropped() as exc:
+                if stop is not None and stop.is_set():
+                    break
+                if cur.sent != sent:  # frames went out since the last drop: a new outage, a new budget
+                    deadline, sent = time.monotonic() + retry_s, cur.sent
+                where = fmt_clock(cur.last.clock_s) if cur.last else "the start"
+                m.say(f"connection to the server lost after {where} ({_why(exc)}); trying again")
+                got = await _reconnect(m, stop, exc, deadline or 0.0)
+                if got is None:
+                    break
+                pos = got
+                m.say(f"reconnected: the server holds the match up to frame {pos.last_frame_id}; going on")
     if progress is not None and cur.last is not None:
         progress.show(cur.last, cur.sent, force=True)
     return cur.sent, cur.last
+
+
+def _why(exc: BaseException) -> str:
+    return str(exc) or type(exc).__name__
+
+
+async def _reconnect(m: _Match, stop: asyncio.Event | None, first: BaseException, deadline: float
+                     ) -> Position | None:
+    """Ask where the server stands, with a growing delay between attempts, until it answers (its
+    position), ``stop`` is set (None) or the ``deadline`` (monotonic) has passed (ReplayError)."""
+    delay, last = RETRY_FIRST_S, first
+    while time.monotonic() < deadline:
+        if stop is not None:
+            with contextlib.suppress(TimeoutError):
+                await asyncio.wait_for(stop.wait(), delay)
+            if stop.is_set():
+                return None
+        else:
+            await asyncio.sleep(delay)
+        try:
+            return await ask(m.http, m.mid)
+        except _dropped() as exc:
+            last = exc
+        delay = min(2 * delay, RETRY_MAX_S)
+    raise ReplayError(f"gave up reaching the server ({_why(last)})")
+
+
+async def _from(m: _Match, pos: Position, ws_url: str, headers: dict[str, str], speed: float | None,
+                start_s: float | None, until_s: float | None, cur: _Cursor, stop: asyncio.Event | None) -> None:
+    """Send what the server lacks after ``pos``: at once up to ``start_s``, then streamed."""
+    frames = frames_of(m.rec, after=pos.last_frame_id)
+    cur.pending = None
+    cur.hr_next = next((i for i, s in enumerate(m.samples) if pos.hr_last_t is None or s.t > pos.hr_last_t),
+                       len(m.samples))
+    held = pos.last_frame_id
+    if held is not None and m.ends.get(held) == pos.period and pos.status != "ended":
+        await send_end(m.http, m.mid, held, m.ends[held])  # the replay stopped between the frame and its end
+    first = next(frames, None)
+    if first is None:
+        return  # the server holds the whole recording
+    if pos.status == "ended":
+        raise ReplayError(f"the server's match {m.mid} has ended (it holds frames up to {pos.last_frame_id}) and "
+                          "refuses more: a period_start event reopens it, or replay into another match id")
+    frames = itertools.chain([first], frames)
+    if start_s is not None:
+        await _seek(m, frames, start_s, cur)
+    await _stream(m, ws_url, headers, speed, frames, until_s, cur, stop)
 
 
 async def _set_up(http: Any, mid: str, rec: Recording) -> None:
@@ -227,61 +351,76 @@ async def _set_up(http: Any, mid: str, rec: Recording) -> None:
         raise ReplayError(f"set-up refused ({r.status_code}): {r.text}")
 
 
-async def _seek(http: Any, mid: str, frames: Iterator[Frame], start_s: float, rename: Callable[[bytes], bytes],
-                samples: list[Sample], cur: _Cursor, progress: Progress | None) -> None:
-    """Post the frames before match time ``start_s`` at once (batches of MAX_BYTES at most),
-    then the heart-rate samples before the first frame left to stream."""
-    batch: list[bytes] = []
+async def _seek(m: _Match, frames: Iterator[Frame], start_s: float, cur: _Cursor) -> None:
+    """Post the frames before match time ``start_s`` at once (batches of MAX_BYTES at most, each
+    followed by the period ends it holds), then the heart-rate samples before the first frame left
+    to stream."""
+    batch: list[Frame] = []
     size = 0
     for fr in frames:
         if fr.clock_s >= start_s:
             cur.pending = fr
             break
-        line = rename(fr.line)
+        line = m.rename(fr.line)
         if batch and size + len(line) > MAX_BYTES:
-            await _post(http, mid, batch)
-            cur.sent += len(batch)
+            await _post_frames(m, batch, cur)
             batch, size = [], 0
-        batch.append(line)
+        batch.append(Frame(line, fr.t, fr.clock_s, fr.period, fr.fid))
         size += len(line) + 1
-        cur.last = fr
     if batch:
-        await _post(http, mid, batch)
-        cur.sent += len(batch)
+        await _post_frames(m, batch, cur)
     # the heart rate before the first streamed frame (all of it if none is left)
-    while cur.hr_next < len(samples) and (cur.pending is None or samples[cur.hr_next].t < cur.pending.t):
+    first = cur.hr_next
+    while cur.hr_next < len(m.samples) and (cur.pending is None or m.samples[cur.hr_next].t < cur.pending.t):
         cur.hr_next += 1
-    await _post_hr(http, mid, [s.line for s in samples[:cur.hr_next]])
-    if progress is not None:
-        progress.hr_sent += cur.hr_next
+    await _post_hr(m.http, m.mid, [s.line for s in m.samples[first:cur.hr_next]])
+    if m.progress is not None:
+        m.progress.hr_sent += cur.hr_next - first
 
 
-async def _stream(ws_url: str, headers: dict[str, str], speed: float | None, frames: Iterator[Frame],
-                  samples: list[Sample], rename: Callable[[bytes], bytes], cur: _Cursor, until_s: float | None,
-                  progress: Progress | None, stop: asyncio.Event | None) -> None:
+async def _post_frames(m: _Match, batch: list[Frame], cur: _Cursor) -> None:
+    await _post(m.http, m.mid, [fr.line for fr in batch])
+    cur.sent += len(batch)
+    cur.last = batch[-1]
+    for fr in batch:
+        await m.ended_at(fr)
+
+
+async def _stream(m: _Match, ws_url: str, headers: dict[str, str], speed: float | None, frames: Iterator[Frame],
+                  until_s: float | None, cur: _Cursor, stop: asyncio.Event | None) -> None:
     """Stream the frames from ``cur.pending`` on, and the heart-rate samples from
     ``cur.hr_next`` on, over the ingest sockets until the end, ``until_s`` or ``stop``."""
     async with contextlib.AsyncExitStack() as stack:
-        ws, hr_ws = await _connect(stack, ws_url, headers, heart_rate=cur.hr_next < len(samples))
-        drains = [asyncio.create_task(_drain(w)) for w in (ws, hr_ws) if w is not None]
+        ws, hr_ws = await _connect(stack, ws_url, headers, heart_rate=cur.hr_next < len(m.samples))
+        drains = [asyncio.create_task(_drain(w, cur, m)) for w in (ws, hr_ws) if w is not None]
+        clock = _Clock(ws, hr_ws, speed, m.samples, cur.hr_next)
+        counted = 0
         try:
-            clock = _Clock(ws, hr_ws, speed, samples, cur.hr_next)
             finished = True
             for fr in itertools.chain([cur.pending] if cur.pending is not None else [], frames):
                 if stop is not None and stop.is_set() or until_s is not None and fr.clock_s > until_s:
                     finished = False
                     break
-                await clock.frame(fr, rename(fr.line), cur.last)
+                if cur.fatal is not None:
+                    raise ReplayError(cur.fatal)
+                await clock.frame(fr, m.rename(fr.line), cur.last)
+                if fr.fid is not None and fr.fid in m.ends:
+                    await clock.frames.flush()  # the frame first, then the end of its period
+                    await m.ended_at(fr)
+                cur.sent += clock.frames.sent - counted
+                counted = clock.frames.sent
                 cur.last = fr
-                if progress is not None:
-                    progress.show(fr, cur.sent + clock.frames.sent)
+                if m.progress is not None:
+                    m.progress.show(fr, cur.sent)
             await clock.finish(finished)
-            cur.sent += clock.frames.sent
-            if clock.hr is not None and progress is not None:
-                progress.hr_sent += clock.hr.sent
+            cur.sent += clock.frames.sent - counted
+            if clock.hr is not None and m.progress is not None:
+                m.progress.hr_sent += clock.hr.sent
         finally:
             for task in drains:
                 task.cancel()
+    if cur.fatal is not None:
+        raise ReplayError(cur.fatal)
 
 
 async def _connect(stack: contextlib.AsyncExitStack, ws_url: str, headers: dict[str, str],
@@ -404,17 +543,23 @@ async def _send(ws: Any, lines: list[bytes], wall0: float, due: float, speed: fl
     return len(lines)
 
 
-async def _drain(ws: Any) -> None:
-    """Read what the server says on the ingest socket (errors) so its buffers never fill."""
+async def _drain(ws: Any, cur: _Cursor, m: _Match) -> None:
+    """Read what the server says on an ingest socket (errors) so its buffers never fill; a refusal
+    the replay cannot get past (the match has ended) stops it."""
+    quiet = ("duplicate", "late", "resent")
     try:
         async for msg in ws:
             try:
-                m = orjson.loads(msg)
-                if m.get("type") == "error" and m.get("code") not in ("duplicate", "late"):
-                    print(f"server: {m.get('code')}: {m.get('message')}", file=sys.stderr)
+                e = orjson.loads(msg)
             except orjson.JSONDecodeError:
-                pass
-    except Exception:
+                continue
+            if e.get("type") != "error" or e.get("code") in quiet:
+                continue
+            if e.get("code") == "match_ended":
+                cur.fatal = f"the server refuses frames: {e.get('message')}"
+                continue
+            m.say(f"server: {e.get('code')}: {e.get('message')}")
+    except Exception:  # the socket went: the sender finds out on its next send
         pass
 
 
@@ -439,6 +584,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="start at this match time (MM:SS); earlier frames are sent at once")
     p.add_argument("--until", type=parse_clock, help="stop at this match time (MM:SS)")
     p.add_argument("--token", help="ingest token")
+    p.add_argument("--retry-for", dest="retry_s", type=float, default=RETRY_BUDGET_S, metavar="SECONDS",
+                   help=f"after a dropped connection keep trying this long (default {RETRY_BUDGET_S:g})")
     p.add_argument("--loop", action="store_true", help="start again at the end, as a new match MATCH-2, MATCH-3, ...")
     return p
 
@@ -446,8 +593,10 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     stop = asyncio.Event()
+    cur = _Cursor()
 
     async def run() -> int:
+        nonlocal cur
         loop = asyncio.get_running_loop()
         try:
             loop.add_signal_handler(signal.SIGINT, stop.set)
@@ -459,13 +608,11 @@ def main(argv: list[str] | None = None) -> int:
         while True:
             mid = url_match if round_no == 1 else f"{url_match}-{round_no}"
             prog = Progress()
+            cur = _Cursor()
             sent, last = await replay(args.folder, args.to, args.speed, args.start, args.until, args.token,
-                                      None if round_no == 1 else mid, prog, stop)
+                                      None if round_no == 1 else mid, prog, stop, cur, args.retry_s)
             if stop.is_set():
-                where = fmt_clock(last.clock_s) if last else "00:00"
-                period = last.period if last else "before the first frame"
-                print(f"\nstopped at {where} ({period}, {sent} frames sent); resume with --from {where}",
-                      file=sys.stderr)
+                print(f"\nstopped{_resume_hint(cur)}", file=sys.stderr)
                 return 0
             hr = f", {prog.hr_sent} heart-rate samples" if prog.hr_sent else ""
             print(f"\nreplay of {args.folder} into {mid} done: {sent} frames{hr}", file=sys.stderr)
@@ -475,9 +622,21 @@ def main(argv: list[str] | None = None) -> int:
 
     try:
         return asyncio.run(run())
+    except KeyboardInterrupt:  # before the signal handlers were in place
+        print(f"\nstopped{_resume_hint(cur)}", file=sys.stderr)
+        return 130
     except ReplayError as exc:
-        print(f"pacewire replay: {exc}", file=sys.stderr)
+        print(f"\npacewire replay: {exc}{_resume_hint(cur)}", file=sys.stderr)
         return 2
-    except OSError as exc:
-        print(f"pacewire replay: cannot reach the server: {exc}", file=sys.stderr)
+    except Exception as exc:  # one line, never a traceback: what failed and how to go on
+        what = "cannot reach the server" if isinstance(exc, _dropped()) else type(exc).__name__
+        print(f"\npacewire replay: {what}: {_why(exc)}{_resume_hint(cur)}", file=sys.stderr)
         return 2
+
+
+def _resume_hint(cur: _Cursor) -> str:
+    """Where the replay stopped and the command option that goes on from there."""
+    if cur.last is None:
+        return ""
+    where = fmt_clock(cur.last.clock_s)
+    return f" at {where} ({cur.last.period}, {cur.sent} frames sent); resume with --from {where}"

@@ -41,7 +41,7 @@ from websockets.exceptions import ConnectionClosed, InvalidHandshake, InvalidSta
 from pacewire.errors import PacewireError
 from pacewire.wire.messages import CONTRACT_VERSION, apply_delta
 
-BODY = ("players", "teams", "health")
+BODY = ("players", "teams", "health", "match_status")
 
 
 class SubscriptionError(PacewireError, RuntimeError):

@@ -177,6 +177,8 @@ class Health(_Section):
     max_lag_s: float = Field(gt=0, le=600)
     stall_s: float = Field(gt=0, le=600)
     on_pitch_timeout_s: float = Field(gt=0, le=3600)
+    fast_feed_ratio: float = Field(gt=1, le=1000)
+    max_clock_offset_s: float = Field(gt=0, le=86_400)
 
 
 class Server(_Section):

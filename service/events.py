@@ -15,7 +15,9 @@ from pacewire.errors import PacewireError
 
 EVENT_TYPES = ("period_start", "period_end", "substitution", "goal", "card")
 FIELDS = frozenset({"type", "frame_id", "match_time_s", "period", "player_off", "player_on", "team_id", "player_id",
-                    "card"})
+                    "card", "source"})
+# who says so: the provider (the default), or the service itself when a silent feed ended the match
+SOURCES = ("provider", "timeout")
 
 
 class EventError(PacewireError, ValueError):
@@ -37,6 +39,8 @@ def check_event(roster: Roster, e: Any) -> dict[str, Any]:
         raise EventError("frame_id must be an integer")
     if "match_time_s" in e and (type(e["match_time_s"]) not in (int, float) or not 0 <= e["match_time_s"] < 36000):
         raise EventError("match_time_s must be a number of seconds")
+    if e.get("source", "provider") not in SOURCES:
+        raise EventError(f"source must be one of {', '.join(SOURCES)}")
     _check_kind(roster, kind, e)
     extra = set(e) - FIELDS
     if extra:
@@ -69,8 +73,9 @@ def _check_kind(roster: Roster, kind: str, e: dict[str, Any]) -> None:
 
 
 def apply_event(state: MatchState, ev: dict[str, Any]) -> None:
-    """What a checked event does to the figures: who is on the pitch, whether the period is over.
-    (A goal changes the score only, which the figures do not hold.)"""
+    """What a checked event does to the figures: who is on the pitch, whether the period is over
+    (a ``period_start`` of the period just ended reopens it). A goal changes the score only, which
+    the figures do not hold."""
     kind = ev["type"]
     if kind == "substitution":
         state.substitute(ev["player_off"], ev["player_on"])
@@ -78,6 +83,8 @@ def apply_event(state: MatchState, ev: dict[str, Any]) -> None:
         state.substitute(ev["player_id"], None)
     elif kind == "period_end" and state.period_name() == ev.get("period"):
         state.end_period()
+    elif kind == "period_start":
+        state.reopen_period(ev["period"])
 
 
 def applies_by(ev: dict[str, Any], last_frame_id: int | None, at_s: float) -> bool:

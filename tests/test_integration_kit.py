@@ -275,7 +275,7 @@ def test_asyncapi_document_validates_against_the_asyncapi_3_schema(run):
         got = httpx.get(f"{srv.http}{ref}", timeout=10)
         assert got.status_code == 200 and got.json() == served[name], ref
         kinds.add(name)
-    assert kinds == {"snapshot", "delta", "health", "period", "alert", "report", "error"}
+    assert kinds == {"snapshot", "delta", "health", "period", "status", "alert", "report", "error"}
     # the operations point at messages of their own channels
     for op in doc["operations"].values():
         channel = op["channel"]["$ref"].split("/")[-1]

@@ -42,6 +42,11 @@ class MatchWriter(Protocol):
     def clock(self) -> tuple[float, str | None]:
         """Match time (s) and period, for the envelope of an error message."""
 
+    async def position(self) -> dict[str, Any]:
+        """Where the stored feed stands, so a provider resuming sends only what is missing:
+        ``last_frame_id``, ``last_timestamp`` (UTC s), ``period``, ``hr_last_timestamp`` (the latest
+        heart-rate sample, UTC s) and ``match_status`` (None each when not known)."""
+
 
 class IngestBackend(Protocol):
     async def setup(self, match_id: str, meta: Any, sheet: Any) -> tuple[Roster, bool]:

@@ -19,7 +19,7 @@ from pacewire.wire.messages import envelope
 
 # The HTTP status of each wire code a domain error carries (routes raising ApiError give their own).
 STATUS = {
-    "bad_json": 400, "unauthorised": 401, "unknown_match": 404, "conflict": 409, "too_large": 413,
+    "bad_json": 400, "unauthorised": 401, "unknown_match": 404, "conflict": 409, "match_ended": 409, "too_large": 413,
     "bad_setup": 422, "bad_event": 422, "bad_budgets": 422, "bad_request": 422, "bad_match_id": 422,
     "not_stored": 503, "storage": 503, "unavailable": 503, "not_ready": 503,
 }
@@ -60,10 +60,23 @@ def error_text(match_id: str, clock: tuple[float, str | None], **body: Any) -> s
     return orjson.dumps(envelope("error", match_id, 0, clock[0], clock[1], **body)).decode()
 
 
+CLOSE_REASON_BYTES = 123  # the most a websocket close frame's reason may hold (RFC 6455, 5.5)
+
+
 async def refuse(ws: Any, match_id: str, err: ApiError) -> None:
-    """Refuse a websocket after accepting it: the error message, then a close the client can read."""
-    await ws.send_text(error_text(match_id, (0.0, None), code=err.code, message=err.message))
-    await ws.close(code=close_code(err))
+    """Refuse a websocket after accepting it: the error message, then a close whose reason repeats
+    it, since many client libraries show only the close (code and reason)."""
+    await ws.send_text(error_text(match_id, (0.0, None), code=err.code, message=err.message, **err.extra))
+    await ws.close(code=close_code(err), reason=close_reason(err))
+
+
+def close_reason(err: ApiError) -> str:
+    """The error's message cut to what a close frame holds (an ellipsis marks a cut)."""
+    text = err.message
+    if len(text.encode()) <= CLOSE_REASON_BYTES:
+        return text
+    cut = text.encode()[:CLOSE_REASON_BYTES - 3].decode(errors="ignore")
+    return cut + "\u2026"
 
 
 T = TypeVar("T")

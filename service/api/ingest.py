@@ -44,7 +44,16 @@ def ingest_routes(backend: IngestBackend, tokens: Tokens, limits: Server) -> API
         out = await writer.frames(json_lines(body, limits.max_batch_frames, "frames"), durable=True)
         if not out.stored:
             raise ApiError(503, "not_stored", writer.store_error(), **out.as_dict())
+        if out.after_end:
+            raise ApiError(409, "match_ended", out.errors[0].message, **out.as_dict())
         return JSONResponse(out.as_dict())
+
+    @router.get("/api/matches/{match_id}/feed")
+    async def get_feed(request: Request, match_id: str = MatchIdParam) -> JSONResponse:
+        """Where the stored feed stands (a provider resuming asks before it sends)."""
+        tokens.check(request, write=True)
+        writer = known(await backend.writer(match_id), match_id)
+        return JSONResponse({"match_id": match_id, **await writer.position()})
 
     @router.post("/api/matches/{match_id}/events")
     async def post_events(request: Request, match_id: str = MatchIdParam) -> JSONResponse:

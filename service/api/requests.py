@@ -11,7 +11,7 @@ from fastapi import Path as PathParam, Request
 from pacewire.api.errors import ApiError, unknown_match
 from pacewire.engine.types import Roster
 from pacewire.wire.match_id import MATCH_ID, is_match_id
-from pacewire.wire.view import View
+from pacewire.wire.view import View, ViewError
 
 # The match id path parameter of every route (FastAPI refuses other characters with a 422).
 MatchIdParam = PathParam(pattern=MATCH_ID.pattern)
@@ -53,6 +53,11 @@ def json_lines(body: bytes, limit: int, what: str) -> list[bytes]:
     return lines
 
 
+def bad_param(name: str, message: str) -> ApiError:
+    """A refused query parameter: the message names it, and so does ``param``."""
+    return ApiError(422, "bad_request", message, param=name)
+
+
 @dataclass(frozen=True)
 class StreamParams:
     """``WS /live/{id}?every=S&view=V&since=N``, checked against the match's roster."""
@@ -69,8 +74,8 @@ class StreamParams:
             if not math.isfinite(every) or every < low - 1e-9 or every > max_every_s:
                 raise ValueError
         except ValueError:
-            raise ApiError(422, "bad_request",
-                           f"every must be a number of seconds from {low:g} to {max_every_s:g}") from None
+            raise bad_param("every", f"every must be a number of seconds from {low:g} to {max_every_s:g}, "
+                                     f"not {str(query.get('every'))[:20]!r}") from None
         since: int | None = None
         if "since" in query:
             try:
@@ -78,6 +83,10 @@ class StreamParams:
                 if since < 0:
                     raise ValueError
             except ValueError:
-                raise ApiError(422, "bad_request", "since must be a whole number >= 0") from None
-        view = View.parse(str(query.get("view", "all")), roster.team_ids, set(roster.index))  # ViewError: 422
+                raise bad_param("since", f"since must be a whole number >= 0, not {str(query['since'])[:20]!r}"
+                                ) from None
+        try:
+            view = View.parse(str(query.get("view", "all")), roster.team_ids, set(roster.index))
+        except ViewError as exc:
+            raise bad_param("view", str(exc)) from None
         return StreamParams(every, view, since)

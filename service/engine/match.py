@@ -87,9 +87,11 @@ class MatchState:
         h.rejected += result.rejected
         h.duplicates += result.duplicates
         h.late += result.late
+        h.resent += result.resent
         b = result.block
         if len(b):
-            h.on_frames(float(b.t[-1]) if now is None else now, b.t, len(b), measure_lag=now is not None)
+            h.on_frames(float(b.t[-1]) if now is None else now, b.t, len(b), measure_lag=now is not None,
+                        periods=b.period)
             self.step(b)
 
     def step(self, block: Block) -> None:
@@ -215,6 +217,13 @@ class MatchState:
         cur = self.current
         if cur is not None and not cur.ended:
             self._end(cur)
+
+    def reopen_period(self, name: str) -> None:
+        """The current period ``name`` goes on after all (an ended match reopened by a period start):
+        its later frames count in it again, as after a flush."""
+        cur = self.current
+        if cur is not None and cur.ended and cur.name == name:
+            cur.ended = False
 
     def finish(self) -> None:
         """End of the recording: finalise everything still pending."""

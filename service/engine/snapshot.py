@@ -351,16 +351,22 @@ def _health(state: MatchState, now: float | None, extra_reasons: list[dict[str, 
     cov_r = np.round(cov, 3).tolist()
     roster = state.roster
     heart = state.heart
+    speed = h.speed(clock)
     health = {
         "state": status,
         "reasons": reasons,
         "fps_observed": round(h.fps_observed(clock), 2),
         "fps_nominal": state.fps,
+        "feed_speed": None if speed is None else round(speed, 1),
+        "rate_clock": "frames" if h.fast(clock) else "wall",
         "dropout": round(dropout, 3),
         "lag_s": None if lag_med is None else round(lag_med, 3),
         "lag_p95_s": None if lag_p95 is None else round(lag_p95, 3),
+        "lag_note": h.lag_note(clock),
         "late": h.late,
         "duplicates": h.duplicates,
+        "resent": h.resent,
+        "after_end": h.after_end,
         "rejected": h.rejected,
         "jumps": state.jumps,
         "frames": state.frames,

@@ -55,6 +55,8 @@ class Roster:
     # GNSS pitch calibration as set up (compared), and the projection built from it (docs/wearables.md)
     gnss_pitch: Any = None
     projection: Any = field(default=None, repr=False, compare=False)
+    # the periods the set-up lists (meta.match.periods), in match order: the match ends after the last
+    periods: tuple[str, ...] = field(default=(), compare=False)
     index: dict[str, int] = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import asyncio
+import math
 import time
 from pathlib import Path
 from typing import Any
@@ -10,7 +11,7 @@ from pacewire.analyze import figures_at
 from pacewire.api.backend import Send
 from pacewire.api.errors import ApiError, unknown_match
 from pacewire.api.requests import StreamParams
-from pacewire.engine.types import Roster
+from pacewire.engine.types import PERIODS, Roster
 from pacewire.errors import NotStored
 from pacewire.live.broadcaster import Subscriber
 from pacewire.live.matches import Matches
@@ -45,6 +46,16 @@ class LocalWriter:
 
     def clock(self) -> tuple[float, str | None]:
         return self.runner.state.match_time_s(), self.runner.state.period_name()
+
+    async def position(self) -> dict[str, Any]:
+        r = self.runner
+        gate = r.decoder.gate  # what the recording holds: accepted frames, applied or still queued
+        hr_t = r.intake.hr_decoder.gate.last_t
+        hr_last = float(hr_t.max()) if len(hr_t) and math.isfinite(hr_t.max()) else None
+        return {"last_frame_id": gate.last_id if gate.last_id >= 0 else None,
+                "last_timestamp": gate.last_t if math.isfinite(gate.last_t) else None,
+                "period": PERIODS[gate.period] if gate.period >= 0 else None,
+                "hr_last_timestamp": hr_last, "match_status": r.status.told}
 
 
 class LocalSubscription:

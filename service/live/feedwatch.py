@@ -2,7 +2,10 @@
 
 Once no frame has come for ``health.stall_s``, subscribers are shown a copy of
 the state whose tail is finalised (nothing waits uncounted for frames that may
-never come); the next applied frame or match event drops the copy.
+never come); the next applied frame or match event drops the copy. A period
+over by its timeout (a break, :mod:`pacewire.live.status`) is shown ended in
+that copy: nobody on the pitch, its last second counted. The watch's clock
+also judges the match status.
 """
 from __future__ import annotations
 
@@ -15,6 +18,7 @@ from pacewire.engine.health import STALLED
 from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_health
 from pacewire.live.broadcaster import Broadcaster
+from pacewire.live.status import BREAK, MatchStatus
 
 log = logging.getLogger("pacewire.feedwatch")
 SAVE_EVERY_S = 5.0  # drop counters written beside the recording at most this often
@@ -26,8 +30,11 @@ class Watched(Protocol):
     match_id: str
     state: MatchState
     broadcaster: Broadcaster
+    status: MatchStatus
 
     def extra_reasons(self) -> list[dict[str, str]]: ...
+
+    def check_status(self, now: float | None = None) -> None: ...
 
     def save_counters(self) -> None: ...
 
@@ -48,11 +55,17 @@ class FeedWatch:
 
     def shown(self, now: float) -> MatchState:
         """The state to show now: once the feed counts as stalled, a copy with its tail finalised."""
-        h = self.match.state.health
-        if self.stall_view is None and h.last_arrival is not None and now - h.last_arrival > self.stall_s:
-            self.stall_view = self.match.state.provisional()
+        state = self.match.state
+        h = state.health
+        v = self.match.status.judge(state, now)
+        closed = v.status == BREAK and v.cause == "timeout"
+        if self.stall_view is None and (closed or h.last_arrival is not None and now - h.last_arrival > self.stall_s):
+            self.stall_view = state.provisional()
             self._stall_told = False
-        return self.stall_view or self.match.state
+        view = self.stall_view
+        if closed and view is not None and view.current is not None and not view.current.ended:
+            view.end_period()  # as its whistle would: nobody on the pitch during the break
+        return view or state
 
     def health_body(self) -> dict[str, Any]:
         """The snapshot's ``health`` now, without building the figures."""
@@ -76,6 +89,7 @@ class FeedWatch:
         while True:
             await asyncio.sleep(self.check_s)
             try:
+                self.match.check_status()
                 self.shown(time.time())
                 if self.stall_view is not None and not self._stall_told:
                     self._stall_told = True

@@ -3,9 +3,11 @@
 A :class:`Followup` belongs to one MatchRunner, which calls it at three
 points: ``after_apply()`` after each applied block (alerts, once per
 completed second), ``period_ended(name)`` when it announces a period end (a
-``period_end`` event or the frames moving to the next period), and the
-``watch()`` task (a period whose frames stopped ``reports.period_timeout_s``
-ago, once its nominal length is played, counts as ended for its report).
+``period_end`` event or the frames moving to the next period), and
+``period_over(name)`` when the match status puts a break after a period whose
+feed went silent once its nominal length was played (:mod:`pacewire.live.status`;
+after the last period that end is recorded as an event, so it comes through
+``period_ended``).
 
 Whatever reads the engine state runs on the event loop and is cheap: one
 snapshot and the per-block sums (a stalled period is first copied with its
@@ -145,6 +147,11 @@ class Followup:
         """The runner announced the end of ``period`` (an event, or the frames moved on)."""
         self._check_ended()
 
+    def period_over(self, period: str) -> None:
+        """The status put a break after ``period`` by its timeout: its report, on a copy whose period is over."""
+        if self.settings.reports.enabled:
+            self._spawn(self.build_for(period))
+
     def _check_ended(self) -> None:
         """Start building each report whose period has ended since it was last built: the latest
         ended period decides (a block may span the half-time break, so look at every period)."""
@@ -163,24 +170,8 @@ class Followup:
         task.add_done_callback(self._tasks.discard)
 
     async def watch(self) -> None:
-        """Baselines at start; then a period whose frames stopped long enough gets its report."""
+        """The players' baselines, once at start (for the drop-off rules)."""
         await self._load_baselines()
-        timeout = self.settings.reports.period_timeout_s
-        while True:
-            await asyncio.sleep(min(1.0, timeout / 4))
-            try:
-                state = self.runner.state
-                cur, h = state.current, state.health
-                if (cur is None or cur.ended or h.last_arrival is None or not self.settings.reports.enabled
-                        or time.time() - h.last_arrival < timeout):
-                    continue
-                nominal_s = int(getattr(self.settings.periods, cur.name)) * 60
-                if cur.last_slot / state.fps < nominal_s:
-                    continue  # a stall inside the period, not its end
-                if self._built.get(report_kind(cur.name)) != (cur.index, cur.last_slot):
-                    await self.build_for(cur.name)
-            except Exception:
-                log.exception("%s: report watch failed", self.runner.match_id)
 
     async def _load_baselines(self) -> None:
         if not any(isinstance(r, DropOffBaseline) for r in self.alerter.rules) or not self.db.exists():

@@ -1,7 +1,8 @@
 """Data into one match: decode, then record, then queue for the engine.
 
 The order for every batch: decode (bad frames answered, nothing of them kept)
-→ the recorder writes the accepted lines to the OS → the engine's queue. If
+→ the recorder writes the accepted lines to the OS → the engine's queue. Once
+the match has ended, a batch is refused whole (``match_ended``) and counted. If
 the recording cannot be written, nothing of the batch is applied and the
 decoder forgets it, so the provider can send it again. Heart-rate samples
 (docs/wearables.md) take the same path with their own decoder and file.
@@ -15,7 +16,7 @@ import orjson
 
 from pacewire.engine.types import Roster
 from pacewire.live.recorder import Recorder, RecorderError
-from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, parse_message
+from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, count_frames, parse_message
 from pacewire.wire.heart import HrDecoder, HrResult
 from pacewire.wire.outcome import IngestOutcome
 
@@ -33,6 +34,15 @@ class IntakeSink(Protocol):
 
     def recorded(self, frames: int) -> None:
         """``frames`` frames are in the recording (the operator's counter)."""
+
+    def frames_coming(self, now: float) -> None:
+        """A batch of frames is being taken in: the feed is not silent."""
+
+    def ended(self, now: float) -> bool:
+        """The match has ended: frames are refused."""
+
+    def refused_after_end(self, frames: int) -> str:
+        """Count ``frames`` refused after the end; the message to answer with."""
 
     def unstored(self) -> None:
         """A recorder failed: health shows it at once."""
@@ -52,9 +62,14 @@ class Intake:
         """JSON Lines (HTTP, a list of lines) or one websocket message (a frame or a JSON array of
         frames): answered once the accepted frames are recorded."""
         arrival = time.time()
+        if self.sink.ended(arrival):
+            n, first = count_frames(data)
+            return IngestOutcome(0, 0, 0, 0, [FrameError("match_ended", self.sink.refused_after_end(n), first)],
+                                 after_end=n)
+        self.sink.frames_coming(arrival)
         cp = self.decoder.gate.checkpoint()
         res, raw = self.decoder.decode_for_record(data)
-        out = IngestOutcome(len(res.block), res.rejected, res.duplicates, res.late, res.errors)
+        out = IngestOutcome(len(res.block), res.rejected, res.duplicates, res.late, res.errors, resent=res.resent)
         self.sink.count_frames(res)
         if not raw:
             return out
@@ -63,7 +78,8 @@ class Intake:
         except RecorderError:
             self.decoder.gate.restore(cp)
             self.sink.unstored()
-            return IngestOutcome(0, out.rejected, out.duplicates, out.late, out.errors, stored=False)
+            return IngestOutcome(0, out.rejected, out.duplicates, out.late, out.errors, stored=False,
+                                 resent=out.resent)
         self.sink.recorded(len(res.block))
         return out
 

@@ -82,6 +82,8 @@ def _counters(runner: MatchRunner) -> None:
         h.rejected += int(c.get("rejected", 0))
         h.duplicates += int(c.get("duplicates", 0))
         h.late += int(c.get("late", 0))
+        h.resent += int(c.get("resent", 0))
+        h.after_end += int(c.get("after_end", 0))
         st.hr_rejected += int(c.get("hr_rejected", 0))
         st.hr_duplicates += int(c.get("hr_duplicates", 0))
         st.hr_late += int(c.get("hr_late", 0))

@@ -4,20 +4,26 @@ One coroutine per match drains whatever the intake has queued into one block
 and steps the engine, so live it is usually one frame and in a fast replay
 hundreds. The Redis aggregator drives the same runner from a stream instead
 of the intake, through the same public methods (``apply_lines``,
-``apply_event``, ``add_heart``, ``after_block``).
+``apply_event``, ``add_heart``, ``after_block``, ``check_status``).
+
+A ``period_end`` event placed at a frame the engine has not reached yet (sent
+on another connection than the frames, so it may overtake them) waits for that
+frame. The match status (:mod:`pacewire.live.status`) is judged after every
+block and event and on the feed watch's clock.
 """
 from __future__ import annotations
 
 import asyncio
 import logging
 import time
+from collections.abc import Awaitable, Callable
 from pathlib import Path
 from typing import Any
 
 from pacewire.config import Settings
 from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
-from pacewire.engine.types import Roster
+from pacewire.engine.types import PERIOD_INDEX, PERIODS, Roster
 from pacewire.events import apply_event, check_event
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.feedwatch import FeedWatch
@@ -26,10 +32,12 @@ from pacewire.live.intake import Intake, Queued
 from pacewire.live.metrics import Hooks
 from pacewire.live.periods import PeriodAnnouncer
 from pacewire.live.recorder import Recorder, write_json_atomic
+from pacewire.live.status import BREAK, ENDED, MatchStatus
 from pacewire.params import match_params
 from pacewire.tasks import cancel
 from pacewire.wire.cdf import DecodeResult, FrameDecoder
 from pacewire.wire.heart import HrDecoder, HrResult
+from pacewire.wire.outcome import after_end_message
 
 log = logging.getLogger("pacewire.runner")
 
@@ -61,6 +69,13 @@ class MatchRunner:
         self.last_frame_arrival: dict[int, float] = {}  # frame id -> arrival, for the latency benchmark
         self.followup = Followup(self)  # reports at period ends, alerts, history
         self.periods = PeriodAnnouncer(self.broadcaster, self.followup.period_ended)
+        self.status = MatchStatus(roster, settings.reports.period_timeout_s,
+                                  {name: int(getattr(settings.periods, name)) for name in PERIODS})
+        self.parked: list[tuple[dict[str, Any], bool]] = []  # period ends waiting for their frame
+        # records the period_end that makes the last period's timeout final (the aggregator's goes through Redis)
+        self.record_end: Callable[[dict[str, Any]], Awaitable[bool]] = self._record_end
+        self._closing: tuple[int, int] | None = None  # (period, last slot) whose timeout end is being recorded
+        self._side: set[asyncio.Task[Any]] = set()
 
     # -- life cycle ------------------------------------------------------------------
     def start(self) -> None:
@@ -71,7 +86,7 @@ class MatchRunner:
                        asyncio.create_task(self.followup.watch(), name=f"followup:{self.match_id}")]
 
     async def stop(self) -> None:
-        await cancel(self._tasks)
+        await cancel([*self._tasks, *self._side])
         await self.recorder.stop()
         await self.hr_recorder.stop()
 
@@ -84,6 +99,7 @@ class MatchRunner:
         h.rejected += res.rejected
         h.duplicates += res.duplicates
         h.late += res.late
+        h.resent += res.resent
         if res.rejected:
             self.hooks.rejected(res.rejected)
 
@@ -98,6 +114,17 @@ class MatchRunner:
 
     def recorded(self, frames: int) -> None:
         self.hooks.frames_in(frames)
+
+    def frames_coming(self, now: float) -> None:
+        self.status.frames_in(now)
+
+    def ended(self, now: float) -> bool:
+        return self.status.judge(self.state, now).status == ENDED
+
+    def refused_after_end(self, frames: int) -> str:
+        self.state.health.after_end += frames
+        self.broadcaster.invalidate()
+        return after_end_message(frames, f" ({self.state.period_name()}, {self.state.match_time_s() / 60:.1f} min)")
 
     def unstored(self) -> None:
         self.feed.check()
@@ -117,7 +144,7 @@ class MatchRunner:
                     self.broadcaster.tick()
                     continue
             merged = DecodeResult.merge([r for r, _ in frames])
-            merged.rejected = merged.duplicates = merged.late = 0  # counted at decode time
+            merged.rejected = merged.duplicates = merged.late = merged.resent = 0  # counted at decode time
             t0 = time.perf_counter()
             try:
                 self.state.ingest(merged, now=time.time())
@@ -125,17 +152,19 @@ class MatchRunner:
                 log.exception("%s: engine failed on a block; block skipped", self.match_id)
                 continue
             self.last_frame_arrival = {int(merged.block.frame_id[-1]): frames[-1][1]}
+            self._release()
             self.after_block(len(merged.block), t0)
 
     def apply_lines(self, lines: list[bytes], now: float | None = None) -> int:
         """Recorded frame lines (a recording, a stream) into the engine; their drops were counted
         when they arrived. Returns the frames applied."""
         res = self.decoder.decode_lines(lines)
-        res.rejected = res.duplicates = res.late = 0
+        res.rejected = res.duplicates = res.late = res.resent = 0
         try:
             self.state.ingest(res, now=now)
         except Exception:  # the engine must never take the match down
             log.exception("%s: engine failed on a block; block skipped", self.match_id)
+        self._release()
         return len(res.block)
 
     def add_heart(self, res: HrResult) -> None:
@@ -151,8 +180,10 @@ class MatchRunner:
         """After a block of ``frames`` was applied (``started``: perf_counter before it): periods,
         deltas to subscribers, reports and alerts."""
         self.applied_frames += frames
+        self.status.frames_in(time.time())
         self.feed.moved_on()
         self.periods.observe(self.state)
+        self.check_status()
         self.broadcaster.invalidate()
         self.broadcaster.tick(frames=self.state.frames)
         self.followup.after_apply()
@@ -164,6 +195,9 @@ class MatchRunner:
         h = self.state.health
         h.first_arrival = h.last_arrival = None  # rebuilt frames carry no arrival time
         self.periods.rebuilt(self.state)
+        self.status.frames_in(time.time())  # the silence before a period's timeout counts from the rebuild
+        self.status.told = self.status.judge(self.state, time.time()).status  # told before the restart
+        h.finished = self.status.told == ENDED
         self.broadcaster.invalidate()
 
     # -- match events -------------------------------------------------------------------
@@ -176,8 +210,12 @@ class MatchRunner:
 
     def apply_event(self, ev: dict[str, Any], announce: bool) -> None:
         """A checked event into the figures and the score; ``announce``: tell subscribers now."""
+        if self._ahead(ev):
+            self.parked.append((ev, announce))
+            return
         self.events.append(ev)
         apply_event(self.state, ev)
+        self.status.event(ev, time.time())
         if ev["type"] == "goal":
             self.score[self.roster.team_ids.index(ev["team_id"])] += 1
         self.feed.moved_on()  # a stalled feed's copy predates the event: the next read copies anew
@@ -185,7 +223,74 @@ class MatchRunner:
         if announce:
             if ev["type"] in ("period_start", "period_end"):
                 self.periods.announce(ev["type"].split("_")[1], ev["period"], ev.get("frame_id"))
+            self.check_status()
             self.broadcaster.tick(force=True)
+
+    def _ahead(self, ev: dict[str, Any]) -> bool:
+        """A period end placed at a frame of its period the engine has not reached yet."""
+        if ev["type"] != "period_end" or type(ev.get("frame_id")) is not int:
+            return False
+        cur, last = self.state.current, self.state.last_frame_id
+        if cur is not None and PERIOD_INDEX[ev["period"]] < cur.index:
+            return False  # the frames have moved past its period: it ends nothing that is not over
+        return last is None or ev["frame_id"] > last
+
+    def _release(self) -> None:
+        """Apply the parked period ends whose frame has now been applied."""
+        if self.parked and not all(self._ahead(ev) for ev, _ in self.parked):
+            due = [(ev, a) for ev, a in self.parked if not self._ahead(ev)]
+            self.parked = [(ev, a) for ev, a in self.parked if self._ahead(ev)]
+            for ev, announce in due:
+                self.apply_event(ev, announce)
+
+    # -- the match status ------------------------------------------------------------------
+    def check_status(self, now: float | None = None) -> None:
+        """Judge the status; on a change tell subscribers (a ``status`` message, the delta, feed
+        health) and start what it calls for: a break's report, the record of a last period's end."""
+        now = time.time() if now is None else now
+        st = self.status
+        v = st.judge(self.state, now)
+        if v.close:
+            self._close_last_period()
+        if v.status == st.told:
+            return
+        st.told = v.status
+        self.state.health.finished = v.status == ENDED
+        self.broadcaster.invalidate()
+        self.broadcaster.publish("status", match_status=v.status, cause=v.cause, message=st.message(v, self.state))
+        self.broadcaster.tick(force=True)
+        if v.status == BREAK and v.cause == "timeout" and v.period is not None:
+            self.followup.period_over(v.period)
+        self.feed.check()
+
+    def _close_last_period(self) -> None:
+        cur = self.state.current
+        assert cur is not None
+        key = (cur.index, cur.last_slot)
+        if self._closing == key:
+            return
+        self._closing = key
+        task = asyncio.get_running_loop().create_task(self._close(key, self.status.timeout_end(self.state)))
+        self._side.add(task)
+        task.add_done_callback(self._side.discard)
+
+    async def _close(self, key: tuple[int, int], ev: dict[str, Any]) -> None:
+        try:
+            done = await self.record_end(ev)
+        except Exception:
+            log.exception("%s: recording the end of %s failed", self.match_id, ev["period"])
+            done = False
+        if not done and self._closing == key:
+            await asyncio.sleep(1.0)  # frames came meanwhile, or the store failed: judge again later
+            self._closing = None
+
+    async def _record_end(self, ev: dict[str, Any]) -> bool:
+        try:
+            self.add_event(ev)
+        except OSError as exc:
+            log.error("%s: cannot record the end of %s: %s", self.match_id, ev["period"], exc)
+            return False
+        return True
 
     # -- what is shown ---------------------------------------------------------------------
     def extra_reasons(self) -> list[dict[str, str]]:
@@ -196,6 +301,7 @@ class MatchRunner:
         snap = build_snapshot(self.feed.shown(now), now=now, extra_reasons=self.extra_reasons())
         for k, tid in enumerate(self.roster.team_ids):
             snap["teams"][tid]["score"] = self.score[k]
+        snap["match_status"] = self.status.told
         return snap
 
     def summary(self) -> dict[str, Any]:
@@ -204,7 +310,7 @@ class MatchRunner:
                 "teams": {tid: {"name": r.team_names[k], "side": ("home", "away")[k], "score": self.score[k]}
                           for k, tid in enumerate(r.team_ids)},
                 "period": self.state.period_name(), "match_time_s": round(self.state.match_time_s(), 2),
-                "frames": self.state.frames, "health": self.feed.state,
+                "status": self.status.told, "frames": self.state.frames, "health": self.feed.state,
                 "subscribers": self.broadcaster.subscriber_count, "last_frame_at": self.state.health.last_arrival}
 
     def save_counters(self) -> None:
@@ -213,6 +319,7 @@ class MatchRunner:
         try:
             write_json_atomic(self.folder / "counters.json",
                               {"rejected": h.rejected, "duplicates": h.duplicates, "late": h.late,
+                               "resent": h.resent, "after_end": h.after_end,
                                "hr_rejected": st.hr_rejected, "hr_duplicates": st.hr_duplicates,
                                "hr_late": st.hr_late})
         except OSError:

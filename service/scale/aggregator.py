@@ -34,6 +34,7 @@ from pacewire.config import Settings
 from pacewire.live.broadcaster import Group, Subscriber
 from pacewire.live.metrics import Hooks
 from pacewire.live.runner import MatchRunner
+from pacewire.live.status import ENDED
 from pacewire.scale import keys
 from pacewire.scale.settings import ScaleSettings
 from pacewire.wire.cdf import parse_setup
@@ -80,6 +81,32 @@ for g = 1, (#KEYS - 1) / 2 do
   end
   redis.call('SET', snap, snaptext, 'EX', {SNAP_TTL_S})
 end
+return 1
+"""
+
+
+# The period_end that makes a silent last period final, appended after the stream's top entry only
+# if that entry is the one this owner applied last (no frame came meanwhile), and the ended flag set
+# in the same step, so no ingest node appends a frame after it. KEYS: frames stream, ended flag,
+# lease. ARGV: the entry id applied last, the event, the owner.
+_END = """
+if redis.call('GET', KEYS[3]) ~= ARGV[3] then return 0 end
+local top = redis.call('XREVRANGE', KEYS[1], '+', '-', 'COUNT', 1)
+if #top == 0 or top[1][1] ~= ARGV[1] then return 0 end
+local ms = string.match(top[1][1], '^(%d+)-')
+redis.call('XADD', KEYS[1], ms .. '-*', 'e', ARGV[2])
+redis.call('SET', KEYS[2], '1')
+return 1
+"""
+
+# The ended flag follows the status: set once the match has ended, if the entry applied last is the
+# stream's top (an unread period_start may already have reopened it); cleared once it has reopened.
+# KEYS: frames stream, ended flag. ARGV: '1' set or '0' clear, the entry id applied last.
+_FLAG = """
+if ARGV[1] == '0' then redis.call('DEL', KEYS[2]) return 1 end
+local top = redis.call('XREVRANGE', KEYS[1], '+', '-', 'COUNT', 1)
+if #top > 0 and top[1][1] ~= ARGV[2] then return 0 end
+redis.call('SET', KEYS[2], '1')
 return 1
 """
 
@@ -134,6 +161,8 @@ class AggMatch:
         self.stopped = False
         self.last_checkpoint = time.monotonic()
         self.last_arrival: float | None = None  # arrival (ingest wall time) of the latest applied frame
+        self.flagged: bool | None = None  # the ended flag as this owner last set it (None: not yet)
+        runner.record_end = self.record_end
 
     # -- rebuild ------------------------------------------------------------------------------
     async def rebuild(self) -> int:
@@ -146,6 +175,7 @@ class AggMatch:
             except Exception:  # an unreadable checkpoint: the whole stream will do
                 log.warning("%s: checkpoint unreadable, replaying the whole stream", self.match_id)
                 self.runner = r = _fresh_runner(self.agg, self.match_id, r.roster)
+                r.record_end = self.record_end
                 self.last_id = self.hr_last_id = b"0-0"
         n = 0
         count = self.agg.scale.read_count
@@ -178,12 +208,14 @@ class AggMatch:
     def _checkpoint_state(self) -> dict[str, Any]:
         r = self.runner
         return {"state": r.state, "gate": r.decoder.gate, "score": r.score, "events": r.events,
-                "told": r.periods.told, "last_id": self.last_id, "hr_last_id": self.hr_last_id}
+                "told": r.periods.told, "last_id": self.last_id, "hr_last_id": self.hr_last_id,
+                "status": r.status, "parked": r.parked}
 
     def _restore(self, cp: dict[str, Any]) -> None:
         r = self.runner
         r.state, r.decoder.gate, r.score, r.events = cp["state"], cp["gate"], cp["score"], cp["events"]
         r.periods.told = set(cp["told"])
+        r.status, r.parked = cp.get("status", r.status), cp.get("parked", [])
         self.last_id = cp["last_id"]
         self.hr_last_id = cp.get("hr_last_id", b"0-0")  # a checkpoint from before the heart-rate stream
 
@@ -293,6 +325,8 @@ class AggMatch:
         h.rejected = int(c.get(b"rejected", 0))
         h.duplicates = int(c.get(b"duplicates", 0))
         h.late = int(c.get(b"late", 0))
+        h.resent = int(c.get(b"resent", 0))
+        h.after_end = int(c.get(b"after_end", 0))
         hr = tuple(int(c.get(k, 0)) for k in (b"hr_rejected", b"hr_duplicates", b"hr_late"))
         for st in (r.state, r.feed.stall_view):  # a stalled feed's copy holds its own heart-rate counters
             if st is not None and (st.hr_rejected, st.hr_duplicates, st.hr_late) != hr:
@@ -306,6 +340,7 @@ class AggMatch:
             await asyncio.sleep(1.0)
             try:
                 await self._read_counts()
+                await self._sync_ended()
                 msg = snapshot_message(self.match_id, r.broadcaster.snapshot())
                 summary = r.summary()
                 summary["aggregator"] = self.agg.owner
@@ -317,6 +352,24 @@ class AggMatch:
                 log.warning("%s: status write failed: %s", self.match_id, exc)
             except Exception:
                 log.exception("%s: status loop failed", self.match_id)
+
+    # -- the end of the match ---------------------------------------------------------------------
+    async def record_end(self, ev: dict[str, Any]) -> bool:
+        """The runner's hook for a silent last period: the end goes into the stream (read back and
+        applied like any event) unless a frame came after the one applied last."""
+        done = await self.agg.end_script(keys=[self.key, keys.ended(self.match_id), keys.lease(self.match_id)],
+                                         args=[self.last_id, orjson.dumps(ev), self.agg.owner])
+        return bool(int(done))
+
+    async def _sync_ended(self) -> None:
+        """Keep the ended flag (ingest refuses frames while it is set) in step with the status."""
+        ended = self.runner.status.told == ENDED
+        if self.flagged is ended:
+            return
+        done = await self.agg.flag_script(keys=[self.key, keys.ended(self.match_id)],
+                                          args=["1" if ended else "0", self.last_id])
+        if int(done):
+            self.flagged = ended
 
     # -- output streams -----------------------------------------------------------------------------
     async def want(self, stream: str, until: float) -> None:
@@ -425,7 +478,7 @@ class AggMatch:
 
 def _restore_group(g: Group, msg: dict[str, Any]) -> None:
     g.seq = int(msg["seq"])
-    g.state = {k: msg[k] for k in ("players", "teams", "health") if k in msg}
+    g.state = {k: msg[k] for k in ("players", "teams", "health", "match_status") if k in msg}
     g.meta = (msg["match_time_s"], msg["period"])
 
 
@@ -448,6 +501,8 @@ class Aggregator:
         self.publish = redis.register_script(_PUBLISH)
         self._renew = redis.register_script(_RENEW)
         self._release = redis.register_script(_RELEASE)
+        self.end_script = redis.register_script(_END)
+        self.flag_script = redis.register_script(_FLAG)
         self._tasks: list[asyncio.Task[None]] = []
 
     async def run(self) -> None:

@@ -392,7 +392,8 @@ class RedisReads:
             raise unavailable(exc) from None
         out = []
         for mid, raw in zip(ids, raws, strict=True):
-            s = orjson.loads(raw) if raw is not None else {"match_id": mid, "health": "stalled", "frames": 0}
+            unknown = {"match_id": mid, "status": "not_started", "health": "stalled", "frames": 0}
+            s = orjson.loads(raw) if raw is not None else unknown
             s["subscribers"] = self.gw.subscriber_count(mid)  # on this gateway
             out.append(s)
         return out

@@ -20,7 +20,7 @@ from typing import Any
 
 import numpy as np
 import orjson
-from redis.exceptions import RedisError, ResponseError
+from redis.exceptions import RedisError
 
 from pacewire.config import Settings
 from pacewire.engine.types import Roster
@@ -29,18 +29,60 @@ from pacewire.events import check_event
 from pacewire.live.matches import SetupConflict
 from pacewire.params import heart_params
 from pacewire.scale import keys
-from pacewire.wire.cdf import DecodeResult, FrameDecoder, FrameError, GateCheckpoint, parse_message, parse_setup
+from pacewire.wire.cdf import (
+    DecodeResult,
+    FrameDecoder,
+    FrameError,
+    GateCheckpoint,
+    count_frames,
+    parse_message,
+    parse_setup,
+    parse_timestamp,
+)
 from pacewire.wire.heart import HrDecoder, HrGate
-from pacewire.wire.outcome import IngestOutcome
+from pacewire.wire.outcome import IngestOutcome, after_end_message
 
 log = logging.getLogger("pacewire.scale.ingest")
 
-# An event entry goes right after the stream's top entry (same millisecond part, next sequence number).
+# An event entry goes right after the stream's top entry (same millisecond part, next sequence number);
+# a period start reopens an ended match at once (KEYS[2]: the ended flag; ARGV[2] '1' for a period start).
 _ADD_EVENT = """
 local top = redis.call('XREVRANGE', KEYS[1], '+', '-', 'COUNT', 1)
 local ms = '0'
 if #top > 0 then ms = string.match(top[1][1], '^(%d+)-') end
+if ARGV[2] == '1' then redis.call('DEL', KEYS[2]) end
 return redis.call('XADD', KEYS[1], ms .. '-*', 'e', ARGV[1])
+"""
+
+# Accepted frames in, unless the match has ended (then the whole batch is counted and refused: -1).
+# KEYS: frames stream, ended flag, counts hash. ARGV: arrival, frames in the batch, rejected,
+# duplicates, late, resent, then (entry id, line) per frame. Returns 1 (stored) or 0 (Redis refused
+# the id: stored before, or a later one is) per frame.
+_APPEND = """
+if redis.call('EXISTS', KEYS[2]) == 1 then
+  redis.call('HINCRBY', KEYS[3], 'after_end', ARGV[2])
+  return -1
+end
+local names = {'rejected', 'duplicates', 'late', 'resent'}
+for k = 1, 4 do
+  if tonumber(ARGV[2 + k]) > 0 then redis.call('HINCRBY', KEYS[3], names[k], ARGV[2 + k]) end
+end
+local out = {}
+for a = 7, #ARGV, 2 do
+  local r = redis.pcall('XADD', KEYS[1], ARGV[a], 'f', ARGV[a + 1], 'a', ARGV[1])
+  if type(r) == 'table' and r.err then out[#out + 1] = 0 else out[#out + 1] = 1 end
+end
+return out
+"""
+
+# Which of these entry ids the stream holds (ARGV), 1 or 0 each: a frame the decoder calls late that
+# the stream has is a resend.
+_HELD = """
+local out = {}
+for i = 1, #ARGV do
+  if #redis.call('XRANGE', KEYS[1], ARGV[i], ARGV[i], 'COUNT', 1) > 0 then out[i] = 1 else out[i] = 0 end
+end
+return out
 """
 
 # Heart-rate samples go in only if the gate they passed is still the stored one (its version), then the
@@ -104,6 +146,8 @@ class StreamIngest:
         self.error: str | None = None
         self._add_event = redis.register_script(_ADD_EVENT)
         self._append_hr = redis.register_script(_APPEND_HR)
+        self._append_frames = redis.register_script(_APPEND)
+        self._held = redis.register_script(_HELD)
 
     def _new(self, roster: Roster, raw: bytes) -> IngestMatch:
         d = self.settings.decode
@@ -172,10 +216,31 @@ class StreamIngest:
                 return self._unstored(match_id, exc)
             cp = m.decoder.gate.checkpoint()
             res, raw = m.decoder.decode_for_record(data)
+            try:
+                await self._resent(match_id, res)
+            except RedisError as exc:
+                m.decoder.gate.restore(cp)
+                return self._unstored(match_id, exc)
             if not raw:
                 await self._count(match_id, res)
-                return IngestOutcome(0, res.rejected, res.duplicates, res.late, list(res.errors))
-            return await self._append(match_id, m, res, raw, cp)
+                return IngestOutcome(0, res.rejected, res.duplicates, res.late, list(res.errors), resent=res.resent)
+            return await self._append(match_id, m, res, raw, cp, count_frames(data)[0])
+
+    async def _resent(self, match_id: str, res: DecodeResult) -> None:
+        """Frames the decoder calls late (it knows only what this node took) that the stream holds
+        were sent again: count them as resent."""
+        late = [i for i, e in enumerate(res.errors) if e.code == "late" and e.frame_id is not None]
+        if not late:
+            return
+        held = await self._held(keys=[keys.frames(match_id)],
+                                args=[keys.frame_entry_id(int(res.errors[i].frame_id or 0)) for i in late])
+        for i, h in zip(late, held, strict=True):
+            if int(h):
+                e = res.errors[i]
+                res.errors[i] = FrameError("resent", f"frame {e.frame_id} is already held (sent again)", e.frame_id,
+                                           e.line)
+                res.late -= 1
+                res.resent += 1
 
     async def _count(self, match_id: str, res: DecodeResult) -> None:
         try:
@@ -185,7 +250,7 @@ class StreamIngest:
 
     @staticmethod
     def _count_pipe(p: Any, match_id: str, res: DecodeResult) -> Any:
-        for name in ("rejected", "duplicates", "late"):
+        for name in ("rejected", "duplicates", "late", "resent"):
             if getattr(res, name):
                 p.hincrby(keys.counts(match_id), name, getattr(res, name))
         return p
@@ -196,29 +261,28 @@ class StreamIngest:
         return IngestOutcome.unstored()
 
     async def _append(self, match_id: str, m: IngestMatch, res: DecodeResult, raw: list[bytes],
-                      cp: GateCheckpoint) -> IngestOutcome:
-        out = IngestOutcome(len(res.block), res.rejected, res.duplicates, res.late, list(res.errors))
+                      cp: GateCheckpoint, batch: int) -> IngestOutcome:
+        """Append the accepted frames in one script, which refuses the whole batch (``batch`` frames)
+        once the match has ended."""
+        out = IngestOutcome(len(res.block), res.rejected, res.duplicates, res.late, list(res.errors),
+                            resent=res.resent)
         key = keys.frames(match_id)
-        arrival = b"%.6f" % time.time()
-        p = self.redis.pipeline(transaction=False)
         fids = [int(f) for f in res.block.frame_id]
+        args: list[Any] = [b"%.6f" % time.time(), batch, res.rejected, res.duplicates, res.late, res.resent]
         for fid, line in zip(fids, raw, strict=True):
-            p.xadd(key, {"f": line, "a": arrival}, id=keys.frame_entry_id(fid))
-        self._count_pipe(p, match_id, res)
-        if not len(p):
-            return out
+            args += [keys.frame_entry_id(fid), line]
         try:
-            answers = await p.execute(raise_on_error=False)
+            answers = await self._append_frames(keys=[key, keys.ended(match_id), keys.counts(match_id)], args=args)
         except RedisError as exc:
             m.decoder.gate.restore(cp)
             return self._unstored(match_id, exc)
-        refused = []
-        for fid, ans in zip(fids, answers, strict=False):  # the counters' replies follow the frames'
-            if isinstance(ans, ResponseError):
-                refused.append(fid)
-            elif isinstance(ans, Exception):  # the connection broke mid-batch: the provider resends
-                m.decoder.gate.restore(cp)
-                return self._unstored(match_id, ans)
+        if answers == -1:
+            m.decoder.gate.restore(cp)
+            first = count_frames([raw[0]])[1] if raw else None
+            self.error = None
+            return IngestOutcome(0, 0, 0, 0, [FrameError("match_ended", after_end_message(batch), first)],
+                                 after_end=batch)
+        refused = [fid for fid, ans in zip(fids, answers, strict=True) if not int(ans)]
         if refused:
             # another node (or an earlier attempt) stored these ids, or later ones: Redis refused them
             dup = late = 0
@@ -310,10 +374,31 @@ class StreamIngest:
         """Check (as the single process does) and append one match event after the latest frame."""
         ev = check_event(m.roster, event)
         try:
-            await self._add_event(keys=[keys.frames(match_id)], args=[orjson.dumps(ev)])
+            await self._add_event(keys=[keys.frames(match_id), keys.ended(match_id)],
+                                  args=[orjson.dumps(ev), "1" if ev["type"] == "period_start" else "0"])
         except RedisError as exc:
             raise StoreUnavailable(f"Redis unavailable: {exc}") from exc
         return ev
+
+    async def position(self, match_id: str) -> dict[str, Any]:
+        """Where the stream stands: its latest frame and heart-rate sample, and the match status the
+        aggregator last published (``ended`` while the ended flag is set)."""
+        try:
+            top = await self.redis.xrevrange(keys.frames(match_id), "+", "-", count=64)
+            hr = await self.redis.xrevrange(keys.hr(match_id), "+", "-", count=1)
+            summary, ended = await self.redis.mget([keys.summary(match_id), keys.ended(match_id)])
+        except RedisError as exc:
+            raise StoreUnavailable(f"Redis unavailable: {exc}") from exc
+        out: dict[str, Any] = {"last_frame_id": None, "last_timestamp": None, "period": None,
+                               "hr_last_timestamp": float(hr[0][1][b"t"]) if hr else None,
+                               "match_status": "ended" if ended else
+                               (orjson.loads(summary).get("status") if summary else None)}
+        line = next((f[b"f"] for _, f in top if b"f" in f), None)
+        if line is not None:
+            obj = orjson.loads(line)
+            out.update(last_frame_id=obj["frame_id"], last_timestamp=parse_timestamp(obj["timestamp"]),
+                       period=obj["period"])
+        return out
 
 
 class RedisWriter:
@@ -336,6 +421,9 @@ class RedisWriter:
 
     def clock(self) -> tuple[float, str | None]:
         return 0.0, None  # the ingest role does not run the engine
+
+    async def position(self) -> dict[str, Any]:
+        return await self.store.position(self.match_id)
 
 
 class RedisIngest:

@@ -30,7 +30,11 @@ def hr_gate(m: str) -> str:
 
 
 def counts(m: str) -> str:
-    return f"{PREFIX}:counts:{m}"  # hash: rejected / duplicates / late (and hr_ ones) counted at ingest
+    return f"{PREFIX}:counts:{m}"  # hash: rejected / duplicates / late / resent / after_end (and hr_ ones) at ingest
+
+
+def ended(m: str) -> str:
+    return f"{PREFIX}:ended:{m}"  # set while the match has ended: ingest refuses frames (a period_start clears it)
 
 
 def lease(m: str) -> str:

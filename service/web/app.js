@@ -18,7 +18,7 @@
     first_half: "1st half", second_half: "2nd half",
     first_half_extratime: "Extra time 1", second_half_extratime: "Extra time 2", shootout: "Penalties",
   };
-  const STATE_WORDS = { ok: "Feed OK", degraded: "Feed degraded", stalled: "Feed stalled" };
+  const STATE_WORDS = { ok: "Feed OK", degraded: "Feed degraded", stalled: "Feed stalled", finished: "Feed finished" };
 
   // Columns of the player table. `win`: how the column reads in a rolling/peak window.
   const COLUMNS = [
@@ -422,20 +422,22 @@
       el.dataset.value = raw == null || typeof raw === "object" ? "" : raw;
     };
     if (!h) return;
-    set("fps_observed", h.fps_observed == null ? "–" : fmt1(h.fps_observed));
+    const fast = h.rate_clock === "frames";
+    set("fps_observed", h.fps_observed == null ? "–" : fmt1(h.fps_observed) + (fast && h.feed_speed ? ` · replay ${fmt1(h.feed_speed)}×` : ""),
+      fast ? "Counted per second of the frames' own time: they arrive faster than real time" : "Frames received per second");
     set("fps_nominal", h.fps_nominal ?? "–");
     const lagText = (v) => (v == null ? "–" : Math.abs(v) < 120 ? fmtSeconds(v) : "other clock");
     const lagTitle = h.lag_s != null && Math.abs(h.lag_s) >= 120
       ? `Frames are stamped ${fmtDuration(h.lag_s)} ${h.lag_s > 0 ? "behind" : "ahead of"} this server's clock (a replay, or a provider clock that is not synchronised); late delivery is judged against that offset.`
       : "Median time from a frame's timestamp to its arrival here";
-    set("lag_s", lagText(h.lag_s), lagTitle);
+    set("lag_s", lagText(h.lag_s), h.lag_note || lagTitle);
     set("lag_p95_s", lagText(h.lag_p95_s), lagTitle);
     document.querySelector('[data-health="lag_p95_s"]').parentElement.hidden = h.lag_p95_s == null || Math.abs(h.lag_p95_s) >= 120;
     const cov = playedCoverage();
     set("coverage", cov ? fmtPct(cov.mean) : "–", "Average share of frames in which each player on the pitch was seen");
     set("coverage_low", cov && cov.low ? `${cov.low} under ${Math.round(COVERAGE_LOW * 100)} %` : "");
     set("dropout", h.dropout == null ? "–" : fmtPct(h.dropout), "Share of expected player samples missing over the last few seconds");
-    for (const k of ["frames", "late", "duplicates", "rejected", "jumps"]) set(k, h[k] == null ? "0" : fmtInt(h[k]));
+    for (const k of ["frames", "late", "duplicates", "resent", "rejected", "jumps"]) set(k, h[k] == null ? "0" : fmtInt(h[k]));
     const hrBox = $("#feed-hr");
     const hrOn = "hr_coverage" in h || "hr_rejected" in h;
     hrBox.hidden = !hrOn;
@@ -501,6 +503,11 @@
       text = S.state
         ? `Lost contact with pacewire; reconnecting. The figures shown are ${Math.floor(age || 0)} s old.`
         : "Cannot reach pacewire yet; retrying.";
+    } else if (h && h.state === "finished") {
+      // full time: no frame is due, the figures are final
+      kind = "break";
+      title = "Full time";
+      text = "The match has ended; the figures are final.";
     } else if (h && h.state === "stalled" && periodOver() && (h.reasons || []).every((r) => r.code === "no_frames")) {
       // a break between periods: no frames are expected, the figures are final for the period
       kind = "break";

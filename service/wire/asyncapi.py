@@ -27,9 +27,10 @@ _SUMMARY = {
     "delta": "Only the leaves that changed since the previous message to this view.",
     "health": "The feed-health state (or the kinds of its reasons) changed.",
     "period": "A period started or ended.",
+    "status": "The match status changed: not_started, live, break, ended.",
     "alert": "A player crossed a configured rule.",
     "report": "A half-time or full-time report is ready.",
-    "error": "A bad frame (ingest) or a refused subscription (live, then closed with 1008).",
+    "error": "A bad frame (ingest) or a refused subscription (live, then closed with 1008 and a reason).",
 }
 
 _MATCH_ID = {"description": "Match id, as set up with PUT /api/matches/{match_id}: 1-64 characters of "
@@ -127,7 +128,9 @@ def _channels(live_query: dict[str, Any]) -> dict[str, Any]:
             "title": "Live stream of a match",
             "description": "Opens with a snapshot (or, resuming with since, the messages missed), then deltas "
                            "at the chosen cadence and event messages. A refused subscription gets one error "
-                           "message, then the socket closes with code 1008 (also without a valid token).",
+                           "message (its param names the bad query parameter), then the socket closes with code "
+                           "1008 and the message as the close reason (also without a valid token: reason "
+                           "unauthorised).",
             "parameters": {"match_id": _MATCH_ID},
             "messages": {k: {"$ref": f"#/components/messages/{k}"} for k in MESSAGES},
             "bindings": {"ws": {"method": "GET", "query": live_query, "headers": _AUTH_HEADER,
@@ -138,7 +141,10 @@ def _channels(live_query: dict[str, Any]) -> dict[str, Any]:
             "title": "Frames in",
             "description": "A provider sends one CDF frame, or a JSON array of frames, per text message. "
                            "Bad frames are answered with an error message each; good ones are recorded and "
-                           "applied. Needs the ingest token when the server has one.",
+                           "applied. Once the match has ended, a message is refused whole with one error "
+                           "(code match_ended) until a period_start event reopens it. A provider resuming asks "
+                           "GET /api/matches/{match_id}/feed where the stored feed stands. Needs the ingest "
+                           "token when the server has one.",
             "parameters": {"match_id": _MATCH_ID},
             "messages": {
                 "frame": {"$ref": "#/components/messages/frame"},

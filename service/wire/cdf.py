@@ -8,6 +8,7 @@ engine.
 from __future__ import annotations
 
 import math
+from bisect import bisect_right
 from collections import deque
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
@@ -192,6 +193,7 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
         match_id=mid, team_ids=team_ids, players=tuple(players), fps=meta.meta.tracking.fps,
         pitch_length_m=length, pitch_width_m=width,
         team_names=names, gnss_pitch=cal, projection=projection,
+        periods=tuple(sorted({p.period for p in meta.match.periods}, key=PERIOD_INDEX.__getitem__)),
     )
 
 
@@ -267,15 +269,19 @@ class FrameError:
         return d
 
 
-# last_id, last_t, period, period_t0, last_slot and the length of recent
-GateCheckpoint = tuple[int, float, int, float, int, int]
-# the same with recent and recent_set themselves
-GateState = tuple[int, float, int, float, int, deque[int], set[int]]
+# last_id, last_t, period, period_t0, last_slot, the length of recent, the number of held runs and
+# the end of the last one
+GateCheckpoint = tuple[int, float, int, float, int, int, int, int]
+# last_id ... last_slot, recent, recent_set and the held runs' starts and ends themselves
+GateState = tuple[int, float, int, float, int, deque[int], set[int], list[int], list[int]]
 
 
 @dataclass
 class FrameGate:
-    """Ordering state across decode calls: drops duplicate and late frames."""
+    """Ordering state across decode calls: drops duplicate, resent and late frames.
+
+    Every accepted frame id is kept as runs of consecutive ids (a match with a few gaps
+    is a few runs), so a frame sent again long after is told apart from a late one."""
 
     fps: int = 25
     recent_size: int = 512
@@ -286,6 +292,8 @@ class FrameGate:
     last_slot: int = -1
     recent: deque[int] = field(default_factory=deque)
     recent_set: set[int] = field(default_factory=set)
+    run_starts: list[int] = field(default_factory=list)  # accepted ids: runs [start, end], increasing
+    run_ends: list[int] = field(default_factory=list)
 
     def slot_of(self, period: int, t: float) -> int:
         """Frame slot of a frame within its period; raises Reject if it does not advance."""
@@ -299,28 +307,44 @@ class FrameGate:
         return slot
 
     def checkpoint(self) -> GateCheckpoint:
-        return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, len(self.recent))
+        return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, len(self.recent),
+                len(self.run_ends), self.run_ends[-1] if self.run_ends else -1)
 
     def restore(self, cp: GateCheckpoint) -> None:
         """Undo admissions since ``checkpoint()`` (frames that could not be recorded)."""
-        self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, n = cp
+        self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, n, runs, end = cp
         while len(self.recent) > n:
             self.recent_set.discard(self.recent.pop())
+        del self.run_starts[runs:], self.run_ends[runs:]
+        if runs:
+            self.run_ends[-1] = end
 
     def save(self) -> GateState:
         """Everything, for :meth:`load` (checkpoint/restore undo a few admissions, not a batch)."""
         return (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, deque(self.recent),
-                set(self.recent_set))
+                set(self.recent_set), list(self.run_starts), list(self.run_ends))
 
     def load(self, saved: GateState) -> None:
-        (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, recent, recent_set) = saved
+        (self.last_id, self.last_t, self.period, self.period_t0, self.last_slot, recent, recent_set, starts,
+         ends) = saved
         self.recent, self.recent_set = deque(recent), set(recent_set)
+        self.run_starts, self.run_ends = list(starts), list(ends)
+
+    def held(self, frame_id: int) -> bool:
+        """Whether ``frame_id`` was accepted before."""
+        i = bisect_right(self.run_starts, frame_id) - 1
+        return i >= 0 and frame_id <= self.run_ends[i]
 
     def admit(self, frame_id: int, t: float, period: int, slot: int) -> None:
         self.last_id, self.last_t = frame_id, t
         if period != self.period:
             self.period, self.period_t0 = period, t
         self.last_slot = slot
+        if self.run_ends and self.run_ends[-1] == frame_id - 1:
+            self.run_ends[-1] = frame_id
+        else:
+            self.run_starts.append(frame_id)
+            self.run_ends.append(frame_id)
         self.recent.append(frame_id)
         self.recent_set.add(frame_id)
         if len(self.recent) > self.recent_size:
@@ -335,6 +359,7 @@ class DecodeResult:
     duplicates: int = 0
     late: int = 0
     accepted: list[int] = field(default_factory=list)  # input positions of the accepted frames
+    resent: int = 0  # frames accepted before, sent again (not recent enough to be duplicates)
 
     @staticmethod
     def merge(results: list[DecodeResult]) -> DecodeResult:
@@ -343,7 +368,8 @@ class DecodeResult:
         blocks = [r.block for r in results if len(r.block)]
         block = Block.concat(blocks) if blocks else results[0].block
         return DecodeResult(block, [e for r in results for e in r.errors], sum(r.rejected for r in results),
-                            sum(r.duplicates for r in results), sum(r.late for r in results))
+                            sum(r.duplicates for r in results), sum(r.late for r in results),
+                            resent=sum(r.resent for r in results))
 
 
 class Reject(PacewireError):
@@ -426,6 +452,21 @@ def parse_message(data: bytes | str) -> list[Any] | FrameError:
     except orjson.JSONDecodeError as exc:
         return FrameError("bad_json", f"not valid JSON: {exc}")
     return obj if isinstance(obj, list) else [obj]
+
+
+def count_frames(data: list[bytes] | bytes | str) -> tuple[int, int | None]:
+    """How many frames a batch holds (JSON Lines: its non-blank lines; a message: its array's length)
+    and the first one's frame_id if it reads, for answering a batch refused whole."""
+    if isinstance(data, list):
+        lines = [line for line in data if line.strip()]
+        first: Any = parse_message(lines[0]) if lines else None
+        n = len(lines)
+    else:
+        first = parse_message(data)
+        n = 1 if isinstance(first, FrameError) else len(first)
+    obj = first[0] if isinstance(first, list) and first else None
+    fid = obj.get("frame_id") if isinstance(obj, dict) else None
+    return n, fid if type(fid) is int else None
 
 
 class FrameDecoder:
@@ -565,10 +606,14 @@ class FrameDecoder:
         return res
 
     def _repeated(self, res: DecodeResult, fid: int, line: int | None) -> FrameError:
-        """A frame id at or below the last one applied: a duplicate if still remembered, else late."""
+        """A frame id at or below the last one applied: a duplicate if among the recent ones, resent
+        if held from longer ago, else late (never seen, and a later frame came first)."""
         if fid in self.gate.recent_set:
             res.duplicates += 1
             return FrameError("duplicate", f"frame {fid} was already applied", fid, line)
+        if self.gate.held(fid):
+            res.resent += 1
+            return FrameError("resent", f"frame {fid} is already held (sent again)", fid, line)
         res.late += 1
         return FrameError("late", f"frame {fid} arrived after frame {self.gate.last_id}", fid, line)
 

@@ -207,15 +207,34 @@ class Reason(_Shape):
 class Health(_Shape):
     """Feed health: its state, why, and the counters behind it."""
 
-    state: Literal["ok", "degraded", "stalled"]
+    state: Literal["ok", "degraded", "stalled", "finished"] = Field(
+        description="ok, degraded (see reasons), stalled (no frame for health.stall_s), or finished: the match "
+                    "has ended, no frame is due (never stalled after full time).")
     reasons: list[Reason] = Field(description="Empty when ok.")
-    fps_observed: float = Field(ge=0, description="Frames per second received over the rate window, 1/s.")
+    fps_observed: float = Field(ge=0, description="Frames per second over the rate window, 1/s: per second of wall "
+                                                  "time, or per second of the frames' own time while rate_clock is "
+                                                  "frames (a fast replay shows its feed's rate, not the replay's).")
     fps_nominal: int = Field(gt=0, description="Frame rate of the set-up, 1/s.")
+    feed_speed: float | None = Field(description="Frame time covered per second of wall time over the rate window: "
+                                                 "1 for a live feed, 20 for a replay at 20x; 0.1 precision; null "
+                                                 "without frames in the window.")
+    rate_clock: Literal["wall", "frames"] = Field(description="The clock fps_observed is counted on: frames while "
+                                                              "feed_speed exceeds health.fast_feed_ratio.")
     dropout: float = Field(ge=0, le=1, description="Share of expected samples of players on the pitch missing.")
-    lag_s: float | None = Field(description="Median arrival lag behind the frame timestamps, s; null when unknown.")
-    lag_p95_s: float | None = Field(description="95th percentile of the arrival lag, s; null when unknown.")
-    late: int = Field(ge=0, description="Frames dropped for arriving after a later frame, count.")
-    duplicates: int = Field(ge=0, description="Frames dropped as repeats of an applied frame id, count.")
+    lag_s: float | None = Field(description="Median arrival lag behind the frame timestamps, s; null when unknown "
+                                            "or not measured (lag_note says why).")
+    lag_p95_s: float | None = Field(description="95th percentile of the arrival lag, s; null as lag_s.")
+    lag_note: str | None = Field(description="Why the lag is not measured: the timestamps are not wall-clock time "
+                                             "(a fast feed, or an offset beyond health.max_clock_offset_s); "
+                                             "null otherwise.")
+    late: int = Field(ge=0, description="Frames dropped for arriving after a later frame, never received before, "
+                                        "count.")
+    duplicates: int = Field(ge=0, description="Frames dropped as repeats of one of the recently applied frame ids "
+                                              "(decode.recent_ids), count.")
+    resent: int = Field(ge=0, description="Frames dropped because the service already held them from longer ago "
+                                          "(a provider resending a stretch), count.")
+    after_end: int = Field(ge=0, description="Frames refused because the match had ended (match_status ended), "
+                                             "count.")
     rejected: int = Field(ge=0, description="Frames refused as invalid, count.")
     jumps: int = Field(ge=0, description="Implausible position steps (> 12.5 m/s) rejected, count.")
     frames: int = Field(ge=0, description="Frames applied, count.")
@@ -229,12 +248,19 @@ class Health(_Shape):
     hr_late: int = _optional_key(ge=0, description="Heart-rate samples dropped as older than the player's last, count.")
 
 
+MatchStatus = Literal["not_started", "live", "break", "ended"]
+MATCH_STATUS = ("not_started: no frame yet; live: a period is being played; break: between periods (a period_end "
+                "event, or the period's nominal length played and no frame for reports.period_timeout_s); ended: "
+                "after the last period of the set-up (meta.match.periods; the second half when it lists none).")
+
+
 class SnapshotBody(_Shape):
     """The full state of a match (also ``GET /api/matches/{id}/snapshot``)."""
 
     players: dict[str, Player] = Field(description="Per player id.")
     teams: dict[str, Team] = Field(description="Per team id.")
     health: Health
+    match_status: MatchStatus = _optional_key(description=f"Live service only. {MATCH_STATUS}")
 
 
 # -- messages ------------------------------------------------------------------------------------
@@ -288,6 +314,17 @@ class AlertMessage(Envelope):
     message: str = Field(description="Human-readable text.")
 
 
+class StatusMessage(Envelope):
+    """The match status changed (the snapshot's match_status, and a delta, change with it)."""
+
+    type: Literal["status"]
+    match_status: MatchStatus = Field(description=MATCH_STATUS)
+    cause: Literal["frames", "period_start", "period_end", "timeout"] | None = Field(
+        description="What moved it: frames (of a period), period_start or period_end (an event), timeout (the "
+                    "period's nominal length played and a silent feed); null before any frame.")
+    message: str = Field(description="Human-readable explanation.")
+
+
 class ReportMessage(Envelope):
     """A report is ready."""
 
@@ -297,12 +334,14 @@ class ReportMessage(Envelope):
 
 
 class ErrorMessage(Envelope):
-    """A bad frame (ingest socket) or a refused subscription (live socket, then closed with 1008)."""
+    """A bad frame (ingest socket) or a refused subscription (live socket, then closed with 1008, or 1013
+    when the service is unavailable, and the message as the close reason, cut to 123 bytes)."""
 
     type: Literal["error"]
-    code: str = Field(description="Machine-readable: bad_json, duplicate, late, unknown_team, unknown_match, "
-                                  "bad_request, too_many_subscribers, not_stored, ...")
+    code: str = Field(description="Machine-readable: bad_json, duplicate, resent, late, match_ended, unknown_team, "
+                                  "unknown_match, bad_request, too_many_subscribers, not_stored, ...")
     message: str = Field(description="Human-readable explanation.")
+    param: str = _optional_key(description="The subscription's parameter that was refused (every, view, since).")
     frame_id: int = _optional_key(description="The frame's id, when it could be read.")
     line: int = _optional_key(description="Line number within an HTTP batch.")
 
@@ -358,6 +397,7 @@ class DeltaMessage(Envelope):
     players: dict[str, PlayerDelta | None] | None = None  # type: ignore[valid-type]
     teams: dict[str, TeamDelta | None] | None = None  # type: ignore[valid-type]
     health: HealthDelta | None = None  # type: ignore[valid-type]
+    match_status: MatchStatus | None = None
 
 
 MESSAGES: dict[str, type[Envelope]] = {
@@ -365,6 +405,7 @@ MESSAGES: dict[str, type[Envelope]] = {
     "delta": DeltaMessage,
     "health": HealthMessage,
     "period": PeriodMessage,
+    "status": StatusMessage,
     "alert": AlertMessage,
     "report": ReportMessage,
     "error": ErrorMessage,

@@ -257,11 +257,12 @@ def run(quick: bool) -> dict[str, dict]:
                 log = (tmp / "replay.log").read_text(errors="replace")
                 raise RuntimeError(f"replay failed ({replay.returncode}): {log[-1000:]}")
             wall = time.monotonic() - t_start
-            # the server marks the feed stalled 2 s after the last frame; then the tail is final
+            # the server marks the feed stalled 2 s after the last frame (finished, if the replay sent the
+            # recording's period ends); then the tail is final
             deadline = time.monotonic() + 30
             while time.monotonic() < deadline:
                 snap = get_json(http, f"/api/matches/{MATCH}/snapshot")
-                if snap["health"]["state"] == "stalled":
+                if snap["health"]["state"] in ("stalled", "finished"):
                     break
                 time.sleep(0.5)
             time.sleep(0.5)  # the stall's final delta reaches every subscriber

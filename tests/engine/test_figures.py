@@ -271,19 +271,33 @@ def test_block_take_and_concat_round_trip():
 def test_health_lag_rules():
     from pacewire.engine.health import FeedHealth, HealthParams
 
-    def feed(offset_fn, seconds=30):
+    def feed(offset_fn, seconds=30, speed=1):
+        """25 wall-clock ticks a second, each with ``speed`` frames 1/25 s apart in frame time."""
         h = FeedHealth(HealthParams(5.0, 0.9, 0.2, 2.0, 2.0), fps_nominal=25)
         for k in range(seconds * 25):
             now = 1000.0 + k / 25
-            h.on_frames(now, np.array([now - offset_fn(k / 25)]), 1)
-        return h.evaluate(now, 0.0)
+            stamps = now - offset_fn(k / 25) + np.arange(speed) / 25
+            h.on_frames(now, stamps, speed)
+        return h.evaluate(now, 0.0), h, now
 
-    # a provider clock 1 h off, steady: lag reported, feed fine (common practice: judge delay, not offset)
-    assert feed(lambda t: 3600.0)[0] == "ok"
-    # a 10x replay: frame time runs ahead of the wall clock, never "late"
-    assert feed(lambda t: 5000.0 - 9 * t)[0] == "ok"
+    # a provider clock 1 h off, steady: the feed is fine (common practice: judge delay, not offset), and the
+    # lag is not reported, since the timestamps are not wall-clock time (an offset beyond 60 s)
+    (state, _), h, now = feed(lambda t: 3600.0)
+    assert state == "ok" and h.lag(now) == (None, None) and "3,600 s behind" in h.lag_note(now)
+    # a provider 0.3 s behind the wall clock: the lag is reported (common practice: NTP-synced clocks)
+    (state, _), h, now = feed(lambda t: 0.3)
+    assert state == "ok" and h.lag(now)[0] == pytest.approx(0.3) and h.lag_note(now) is None
+    # a 10x replay: frame time runs ahead of the wall clock, never "late"; its rate is counted on the
+    # frames' own clock (25/s, not 250/s) and its speed shown as 10x
+    (state, _), h, now = feed(lambda t: 5000.0 - 9 * t, speed=10)
+    assert state == "ok" and h.fast(now) and h.fps_observed(now) == pytest.approx(25, rel=0.01)
+    assert h.speed(now) == pytest.approx(10, rel=0.02) and "10.0x faster" in h.lag_note(now)
+    # a 10x replay that sends one frame in ten is missing frames: low rate on the frames' clock
+    (state, reasons), h, now = feed(lambda t: 5000.0 - 9 * t)
+    assert state == "degraded" and [r["code"] for r in reasons] == ["low_rate"]
+    assert h.fps_observed(now) == pytest.approx(2.5, rel=0.02)
     # a feed falling behind by 0.5 s every second is late within seconds
-    state, reasons = feed(lambda t: 0.5 * t)
+    (state, reasons), _, _ = feed(lambda t: 0.5 * t)
     assert state == "degraded" and [r["code"] for r in reasons] == ["late_delivery"]
 
 

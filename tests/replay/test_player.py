@@ -13,23 +13,10 @@ import pytest
 from pacewire.analyze import analyze_folder
 from pacewire.replay.player import replay
 from tests.support import cdf_build as cb
+from tests.support.clips import clip
 from tests.support.live_server import LiveServer
 from tests.support.snapshots import player_figures, settled_snapshot
-from tests.support.trajectories import FPS, sway
-
-IDS = cb.player_ids(2, 2)
-
-
-def clip(tmp_path, seconds: float = 60, two_halves: bool = False, name: str = "clip"):
-    """A short fictional recording: four players moving smoothly."""
-    xy = sway(seconds, 4, (18.0, 12.0), (0.23, 0.31), y_turn=2)
-    T = len(xy)
-    if two_halves:
-        h = T // 2
-        objs = cb.frames(xy[:h], IDS, 2) + cb.frames(xy[h:], IDS, 2, period="second_half", t0=h / FPS + 900, frame0=h)
-    else:
-        objs = cb.frames(xy, IDS, 2)
-    return cb.write_folder(tmp_path / name, cb.meta(), cb.sheet(2, 2), objs, gz=True)
+from tests.support.trajectories import FPS
 
 
 def test_replay_at_max_speed_equals_analyze(server, tmp_path):
@@ -83,14 +70,16 @@ def test_ctrl_c_stops_cleanly_and_resume_completes(server, tmp_path):
     out, err = proc.communicate(timeout=30)
     assert proc.returncode == 0, err
     text = err.decode()
-    assert "stopped at" in text and "resume with --from" in text
+    assert "stopped at" in text and "resume with --from" in text and "Traceback" not in text
     where = text.rsplit("resume with --from ", 1)[1].split()[0]
     done = subprocess.run([*cmd[:-2], "--speed", "max", "--from", where], capture_output=True, timeout=120)
     assert done.returncode == 0, done.stderr
     got = settled_snapshot(server)
     want = analyze_folder(folder).snapshot()
     assert player_figures(got) == player_figures(want)
-    assert got["health"]["frames"] == 60 * FPS
+    # the resume asked the server where it stood: every frame once, none sent again, none late
+    h = got["health"]
+    assert (h["frames"], h["resent"], h["late"], h["duplicates"]) == (60 * FPS, 0, 0, 0)
 
 
 def test_bad_target_and_missing_folder(tmp_path):

@@ -13,7 +13,7 @@ import websockets
 from pacewire.wire.messages import apply_delta
 from tests.support.trajectories import FPS
 
-BODY = ("players", "teams", "health")  # the parts of a snapshot a delta updates
+BODY = ("players", "teams", "health", "match_status")  # the parts of a snapshot a delta updates
 
 
 async def recv(ws: Any, timeout: float = 10.0) -> dict[str, Any]:
@@ -65,12 +65,12 @@ def replay_state(texts: list[str]) -> tuple[dict[str, Any], list[int]]:
     """A client's view: opening snapshot, deltas applied; checks the seq never skips."""
     msgs = [orjson.loads(t) for t in texts]
     assert msgs[0]["type"] == "snapshot"
-    state = {k: msgs[0][k] for k in BODY}
+    state = {k: msgs[0][k] for k in BODY if k in msgs[0]}
     seqs = [msgs[0]["seq"]]
     for m in msgs[1:]:
         if m["type"] == "snapshot":
             assert m.get("resync") is True, "a snapshot after the first is a resync"
-            state = {k: m[k] for k in BODY}
+            state = {k: m[k] for k in BODY if k in m}
         else:
             assert m["seq"] == seqs[-1] + 1, f"seq gap: {seqs[-1]} -> {m['seq']}"
         if m["type"] == "delta":
