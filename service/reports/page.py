@@ -100,12 +100,12 @@ def team_table(snapshot: dict[str, Any], possession: dict[str, dict[str, float]]
     lines: list[tuple[str, Any]] = [
         ("players used", lambda o: num(o["players"])),
         ("distance, m", lambda o: num(o["distance_m"])),
-        ("distance per player, m", lambda o: num(o["per_player"]["distance_m"])),
-        ("m/min per player", lambda o: num(o["per_player"]["m_per_min"], 1)),
+        ("distance per player per 90 min on the pitch, m", lambda o: num(o["per_player"]["distance_m"])),
+        ("m/min per player (mean over time on the pitch)", lambda o: num(o["m_per_min"])),
         ("HSR, m", lambda o: num(o["hsr_m"])),
-        ("HSR per player, m", lambda o: num(o["per_player"]["hsr_m"])),
+        ("HSR per player per 90 min, m", lambda o: num(o["per_player"]["hsr_m"])),
         ("sprint, m", lambda o: num(o["sprint_m"])),
-        ("sprint per player, m", lambda o: num(o["per_player"]["sprint_m"])),
+        ("sprint per player per 90 min, m", lambda o: num(o["per_player"]["sprint_m"])),
         ("HSR efforts", lambda o: num(o["hsr_efforts"])),
         ("sprints", lambda o: num(o["sprints"])),
         ("accelerations", lambda o: num(o["accels"])),
@@ -130,10 +130,10 @@ def player_table(players: list[tuple[str, dict[str, Any]]], low_coverage: float)
         cov = p.get("coverage")
         rows.append([
             (num(p["jersey_number"]), ""), (esc(p.get("name") or pid) + (" (GK)" if p["is_goalkeeper"] else ""), "l"),
-            (num(p["minutes"], 1), ""), (num(p["distance_m"]), ""), (num(p["m_per_min"], 1), ""),
+            (num(p["minutes"], 1), ""), (num(p["distance_m"]), ""), (num(p["m_per_min"]), ""),
             (num(p["hsr_m"]), ""), (num(p["sprint_m"]), ""), (num(p["hsr_efforts"]), ""), (num(p["sprints"]), ""),
             (num(p["accels"]), ""), (num(p["decels"]), ""), (num(p["max_speed_ms"], 2), ""),
-            (num(p["high_power_m"]), ""), (num(p["metabolic_power_wkg"], 2), ""),
+            (num(p["high_power_m"]), ""), (num(p["metabolic_power_wkg"], 1), ""),
             (f"{cov:.0%}" if cov is not None else "–", "low" if cov is not None and cov < low_coverage else ""),
         ])
     return _table(head, rows)
@@ -149,7 +149,7 @@ def peak_table(players: list[tuple[str, dict[str, Any]]], windows: list[int]) ->
         for w in windows:
             win = (p.get("windows") or {}).get(f"peak_{w}min")
             if win:
-                r += [(num(win["m_per_min"], 1), ""), (num(win["hsr_m"]), ""), (clock(win.get("start_s")), "")]
+                r += [(num(win["m_per_min"]), ""), (num(win["hsr_m"]), ""), (clock(win.get("start_s")), "")]
             else:
                 r += [("–", ""), ("–", ""), ("–", "")]
         rows.append(r)

@@ -552,7 +552,7 @@
       ["sprint_m", "Sprinting", "m", fmtInt],
       ["hsr_efforts", "High-speed runs", "", fmtInt],
       ["sprints", "Sprints", "", fmtInt],
-      ["m_per_min", "Work rate, team", "m/min", fmtInt],
+      ["m_per_min", "Work rate, per player", "m/min", fmtInt],
     ];
     const side = t.side === "away" ? "away" : "home";
     const cell = (win, src, key, fmt, unit, main) => {
@@ -570,7 +570,7 @@
         <tbody>
         ${rows.map(([key, label, unit, fmt]) => `<tr><th scope="row">${label}</th>${cols.map((c, i) => cell(c[0], c[1], key, fmt, unit, i === 0)).join("")}</tr>`).join("")}
         <tr><th scope="row">Per player</th>
-          <td class="per-player" colspan="${cols.length}"><span data-window="per_player" data-field="distance_m" data-value="${pp.distance_m ?? ""}">${pp.distance_m == null ? "–" : fmtInt(pp.distance_m)} m</span> ·
+          <td class="per-player" colspan="${cols.length}"><span data-window="per_player" data-field="distance_m" data-value="${pp.distance_m ?? ""}">${pp.distance_m == null ? "–" : fmtInt(pp.distance_m)} m per 90 min on the pitch</span> ·
           <span data-window="per_player" data-field="m_per_min" data-value="${pp.m_per_min ?? ""}">${pp.m_per_min == null ? "–" : fmtInt(pp.m_per_min)} m/min</span></td></tr>
         </tbody>
       </table>
