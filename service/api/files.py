@@ -1,6 +1,7 @@
 """A match's files: half-/full-time reports, per-player load budgets, per-player exports.
 
-* ``GET /api/matches/{id}/reports/{kind}/{file}``: ``report.html``, ``report.csv``, ``snapshot.json``
+* ``GET /api/matches/{id}/reports/{kind}/{file}``: ``report.html``, ``report.csv``, ``snapshot.json``,
+  ``alerts.csv``
 * ``GET``/``PUT /api/matches/{id}/budgets``: caps per player (validated; kept with the match)
 * ``GET /api/matches/{id}/export.json`` and ``export.csv``: one row of figures per player, now,
   or with ``?at=MATCH_TIME_S`` as they were at that match time (the engine re-runs over the
@@ -25,7 +26,7 @@ from pacewire.reports.export import export_csv, export_table
 from pacewire.wire.messages import CONTRACT_VERSION
 
 MEDIA = {"report.html": "text/html; charset=utf-8", "report.csv": "text/csv; charset=utf-8",
-         "snapshot.json": "application/json"}
+         "snapshot.json": "application/json", "alerts.csv": "text/csv; charset=utf-8"}
 
 
 def file_routes(backend: FilesBackend, tokens: Tokens, limits: Server) -> APIRouter:

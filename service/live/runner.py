@@ -196,6 +196,7 @@ class MatchRunner:
         snap = build_snapshot(self.feed.shown(now), now=now, extra_reasons=self.extra_reasons())
         for k, tid in enumerate(self.roster.team_ids):
             snap["teams"][tid]["score"] = self.score[k]
+        snap["alerts"] = self.followup.alerts()  # a new list each time: a delta compares it by value
         return snap
 
     def summary(self) -> dict[str, Any]:

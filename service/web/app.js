@@ -275,6 +275,10 @@
     if (msg.type === "snapshot") {
       S.state = { players: msg.players || {}, teams: msg.teams || {}, health: msg.health || {} };
       S.lastSeq = msg.seq;
+      if (Array.isArray(msg.alerts)) { // the alerts raised so far, oldest first: newest first here
+        S.alerts = msg.alerts.slice(-50).reverse();
+        renderAlerts();
+      }
     } else {
       if (S.state === null) { S.lastSeq = null; connect(); return; } // no base to apply to: start afresh
       if (msg.seq <= S.lastSeq) return; // already applied

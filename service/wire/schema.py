@@ -317,12 +317,37 @@ class Health(_Shape):
     hr_late: int = _optional_key(ge=0, description="Heart-rate samples dropped as older than the player's last, count.")
 
 
+class AlertFields(_Shape):
+    """What an alert says: the rule, the player, the figure, its value and the limit it crossed."""
+
+    rule: str = Field(description="Rule id from the configuration ([alerts] rules).")
+    kind: str = Field(description="Kind of rule: drop_off_peak, drop_off_baseline, load_budget, ...")
+    player_id: ID
+    team_id: ID
+    figure: str = Field(description="The figure the rule watches.")
+    value: float = Field(description="The player's value of that figure (its unit).")
+    limit: float = Field(description="The limit it crossed (same unit).")
+    level: float = _optional_key(description="Load budgets only: the share of the budget this alert marks.")
+    message: str = Field(description="Human-readable text.")
+
+
+class Alert(AlertFields):
+    """An alert raised earlier in the match, as its ``alert`` message said it."""
+
+    match_time_s: float = Field(ge=0, description="Match clock when it was raised, s.")
+    period: Period | None = Field(description="Period when it was raised.")
+
+
 class SnapshotBody(_Shape):
     """The full state of a match (also ``GET /api/matches/{id}/snapshot``)."""
 
     players: dict[str, Player] = Field(description="Per player id.")
     teams: dict[str, Team] = Field(description="Per team id.")
     health: Health
+    alerts: list[Alert] = _optional_key(description="Every alert raised so far, oldest first (a view gets those about "
+                                                    "the players it shows); the live service and reports only. A "
+                                                    "delta carries the whole list when it grew; each new alert "
+                                                    "also comes as an alert message.")
 
 
 # -- messages ------------------------------------------------------------------------------------
@@ -361,19 +386,10 @@ class PeriodMessage(Envelope):
     frame_id: int | None = Field(description="Frame that started (or ended) the period, when known.")
 
 
-class AlertMessage(Envelope):
-    """A player crossed a configured rule."""
+class AlertMessage(AlertFields, Envelope):
+    """A player crossed a configured rule; match_time_s and period are the alert's own."""
 
     type: Literal["alert"]
-    rule: str = Field(description="Rule id from the configuration ([alerts] rules).")
-    kind: str = Field(description="Kind of rule: drop_off_peak, drop_off_baseline, load_budget, ...")
-    player_id: ID
-    team_id: ID
-    figure: str = Field(description="The figure the rule watches.")
-    value: float = Field(description="The player's value of that figure (its unit).")
-    limit: float = Field(description="The limit it crossed (same unit).")
-    level: float = _optional_key(description="Load budgets only: the share of the budget this alert marks.")
-    message: str = Field(description="Human-readable text.")
 
 
 class ReportMessage(Envelope):
@@ -446,6 +462,7 @@ class DeltaMessage(Envelope):
     players: dict[str, PlayerDelta | None] | None = None  # type: ignore[valid-type]
     teams: dict[str, TeamDelta | None] | None = None  # type: ignore[valid-type]
     health: HealthDelta | None = None  # type: ignore[valid-type]
+    alerts: list[Alert] | None = Field(None, description="The snapshot's alerts, whole, when they changed.")
 
 
 MESSAGES: dict[str, type[Envelope]] = {

@@ -40,15 +40,22 @@ class View:
         raise ViewError(f"view {text!r} is not 'all', 'team:ID' or 'players:ID,ID'")
 
     def body(self, snap: dict[str, Any]) -> dict[str, Any]:
-        """The part of a snapshot this view shows."""
+        """The part of a snapshot this view shows (its ``alerts``, when the snapshot has them, are those
+        about the players it shows, as the ``alert`` messages it gets)."""
         if self.kind == "all":
-            return {"players": snap["players"], "teams": snap["teams"], "health": snap["health"]}
-        if self.kind == "team":
+            out = {"players": snap["players"], "teams": snap["teams"], "health": snap["health"]}
+        elif self.kind == "team":
             tid = self.ids[0]
             players = {k: v for k, v in snap["players"].items() if v["team_id"] == tid}
-            return {"players": players, "teams": {tid: snap["teams"][tid]}, "health": snap["health"]}
-        players = {k: snap["players"][k] for k in self.ids}
-        return {"players": players, "teams": snap["teams"], "health": snap["health"]}
+            out = {"players": players, "teams": {tid: snap["teams"][tid]}, "health": snap["health"]}
+        else:
+            players = {k: snap["players"][k] for k in self.ids}
+            out = {"players": players, "teams": snap["teams"], "health": snap["health"]}
+        if "alerts" in snap:
+            alerts = snap["alerts"]
+            out["alerts"] = alerts if self.kind == "all" else [
+                a for a in alerts if self.shows_player(a.get("player_id"), a.get("team_id"))]
+        return out
 
     def shows_player(self, player_id: str | None, team_id: str | None) -> bool:
         if self.kind == "all" or player_id is None:
