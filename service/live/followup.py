@@ -23,6 +23,7 @@ from typing import Any, Protocol
 
 import orjson
 
+from pacewire.analyze import FiguresIndex
 from pacewire.config import Settings
 from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
@@ -75,6 +76,8 @@ class Followup:
                 log.error("%s: alerts off: %s", runner.match_id, exc)
         self.alerter = new_alerter(s, rules, ids)
         self.alerter.restore(self._stored_alerts())
+        # figures at an earlier match time (export ?at=): checkpoints over the recording, warmed at each report
+        self.rewind = FiguresIndex(runner.folder, s, runner.match_id)
         self.alerter.set_budgets(self._initial_budgets())
 
     # -- budgets -----------------------------------------------------------------------------------
@@ -273,7 +276,14 @@ class Followup:
         log.info("%s: %s report ready in %.2f s", r.match_id, kind, time.time() - now)
         if blocks is not None:
             await asyncio.to_thread(self._store, inp, blocks, kickoff)
+        await asyncio.to_thread(self._warm)
         return entry
+
+    def _warm(self) -> None:
+        try:
+            self.rewind.extend()
+        except Exception as exc:  # the report stands; a later export ?at= reads the recording itself
+            log.error("%s: figures index not warmed: %s", self.runner.match_id, exc)
 
     def _store(self, inp: ReportInput, blocks: Any, kickoff: float) -> None:
         try:
