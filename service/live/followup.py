@@ -276,7 +276,7 @@ class Followup:
         log.info("%s: %s report ready in %.2f s", r.match_id, kind, time.time() - now)
         if blocks is not None:
             await asyncio.to_thread(self._store, inp, blocks, kickoff)
-        await asyncio.to_thread(self._warm)
+        self._spawn(asyncio.to_thread(self._warm))  # outside the lock: the next report never waits for it
         return entry
 
     def _warm(self) -> None:
