@@ -134,10 +134,10 @@ def test_one_team_feed_has_no_opponent_figures_and_players_join_and_leave():
     assert home["tracked"] is True and home["outfield"]["players"] == 3
     players = snap["players"]
     assert all("possession" not in p for p in players.values())  # no ball: no possession split
-    # minutes on the pitch count the time seen (by construction)
-    assert players["h1"]["minutes"] == pytest.approx(2.0, abs=0.02)
-    assert players["h2"]["minutes"] == pytest.approx(80 / 60, abs=0.02)
-    assert players["h3"]["minutes"] == pytest.approx(70 / 60, abs=0.02)
+    # minutes on the pitch count the time seen (by construction), to 0.1 min on the wire (half a step of slack)
+    assert players["h1"]["minutes"] == pytest.approx(2.0, abs=0.07)
+    assert players["h2"]["minutes"] == pytest.approx(80 / 60, abs=0.07)
+    assert players["h3"]["minutes"] == pytest.approx(70 / 60, abs=0.07)
     # m/min per minute seen: the same jog for all three (by construction, 3 m/s with turns)
     assert players["h2"]["m_per_min"] == pytest.approx(players["h1"]["m_per_min"], rel=0.03)
     assert players["h3"]["m_per_min"] == pytest.approx(players["h1"]["m_per_min"], rel=0.03)

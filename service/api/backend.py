@@ -92,8 +92,9 @@ class FilesBackend(Protocol):
 
     def set_budgets(self, match_id: str, data: Any) -> dict[str, Any]: ...
 
-    async def figures(self, match_id: str, at_s: float | None) -> dict[str, Any]:
-        """The snapshot body now, or as it was at match time ``at_s``."""
+    async def figures(self, match_id: str, at_s: float | None, period: str | None = None) -> dict[str, Any]:
+        """The snapshot body now, or as it was at match clock ``at_s`` (of ``period``, or of the one period
+        whose recorded clock holds it)."""
 
 
 class MetricsSource(Protocol):

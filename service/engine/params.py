@@ -15,6 +15,7 @@ from pacewire.engine.exertion import ExertionParams
 from pacewire.engine.health import HealthParams
 from pacewire.engine.heart import HeartParams, HeartProfile
 from pacewire.engine.kinematics import KinematicParams
+from pacewire.engine.precision import WIRE, Precision
 
 
 @dataclass(frozen=True, eq=False)
@@ -51,6 +52,8 @@ class MatchParams:
     windows: WindowParams
     period_min: tuple[int, ...]  # nominal length of each period in PERIODS order, minutes (Laws of the Game); 0: none
     on_pitch_timeout_s: float  # s: a longer gap in a player's samples counts as off the pitch (common practice)
+    # digits of the snapshot's figures: the wire contract (service/wire/schema.py states them), not a setting
+    precision: Precision = WIRE
 
     def fits(self, n_players: int, fps: int) -> bool:
         """Built for a roster of ``n_players`` at ``fps`` frames per second."""

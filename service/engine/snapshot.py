@@ -20,41 +20,60 @@ from pacewire.engine import exertion as ex
 from pacewire.engine.heart import HR_N
 from pacewire.engine.match import CLOCK_START_MIN, CONTEXTS, MatchState
 from pacewire.engine.period import Period
+from pacewire.engine.precision import Precision
 
 _U = 1e-6
 _WINDOW_KEYS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",
                 "high_power_m", "m_per_min", "metabolic_power_wkg")
 _COUNTS = [ex.N_HSR, ex.N_SPR, ex.N_ACC, ex.N_DEC]
-_WINDOW_ND = (1, 1, 1, 1, 1, 1, 2)  # decimals: distance, hsr, sprint, energy, high power, m/min, W/kg
-_SCALES: dict[tuple[int, ...], np.ndarray] = {}
 _Rows = list[dict[str, Any]]  # one object per player, roster order
 _PeriodRows = list[tuple[str, _Rows]]  # (period name, its rows) per period
+_Extra = tuple[tuple[str, np.ndarray, int], ...]  # (key, column, decimals) added to window rows
+_TeamLast = dict[int, np.ndarray]  # last-N minutes -> sums (P, F) of the current period
 
 
-def _rounded(cols: list[np.ndarray], nd: tuple[int, ...]) -> list[list[float]]:
-    """Rows of the columns, column j rounded to nd[j] decimals in one pass, the way np.round rounds
-    (x * 10**d, rint, / 10**d), so the values are the same to the bit."""
-    scale = _SCALES.get(nd)
-    if scale is None:
-        scale = _SCALES[nd] = np.array([10.0 ** d for d in nd])
+def _rounded(cols: list[np.ndarray], nd: tuple[int, ...]) -> list[list[Any]]:
+    """Rows of the columns, column j rounded to nd[j] decimals in one pass (x * 10**d, rint, / 10**d);
+    a column of nd[j] <= 0 holds whole numbers and comes back as ints (100 for 1e2 steps)."""
     m = np.empty((len(cols[0]), len(cols)))
     for j, c in enumerate(cols):
         m[:, j] = c
-    return (np.rint(m * scale) / scale).tolist()
+    whole = [j for j, d in enumerate(nd) if d <= 0]
+    if len(whole) < len(nd):
+        scale = np.array([10.0 ** max(d, 0) for d in nd])
+        rows = (np.rint(m * scale) / scale).tolist()
+    else:
+        rows = [[0] * len(nd) for _ in range(m.shape[0])]
+    if whole:
+        step = np.array([10.0 ** -nd[j] for j in whole])
+        ints = (np.rint(m[:, whole] / step) * step).astype(np.int64).tolist()
+        for row, vals in zip(rows, ints, strict=True):
+            for j, v in zip(whole, vals, strict=True):
+                row[j] = v
+    return rows
 
 
-def _window_rows(sums: np.ndarray, span_s: np.ndarray, extra: tuple[tuple[str, np.ndarray, int], ...] = ()
-                 ) -> list[dict[str, Any]]:
+def _round_list(a: np.ndarray, decimals: int) -> list[Any]:
+    """``a`` rounded to ``decimals`` as nested lists, ints when ``decimals`` <= 0 (see _rounded)."""
+    if decimals > 0:
+        return np.round(a, decimals).tolist()
+    step = 10.0 ** -decimals
+    return (np.rint(a / step) * step).astype(np.int64).tolist()
+
+
+def _window_rows(sums: np.ndarray, span_s: np.ndarray, prec: Precision, extra: _Extra = ()) -> list[dict[str, Any]]:
     """Figures of one window for every row of ``sums`` (rows, F) in micro-units; span_s (rows,);
     ``extra``: (key, column, decimals) added after the window figures."""
     dist = sums[:, ex.DIST] * _U
     energy = sums[:, ex.ENERGY] * _U
     ok = span_s > 0
     safe = np.where(ok, span_s, 1.0)
+    d = prec.distance
+    nd = (d, d, d, prec.energy, d, prec.rate, prec.power)
     f = _rounded([dist, sums[:, ex.HSR] * _U, sums[:, ex.SPRINT] * _U, energy, sums[:, ex.HIPOW] * _U,
                   dist / (safe / 60.0), energy / safe, *(c for _, c, _ in extra)],
-                 _WINDOW_ND + tuple(d for _, _, d in extra))
-    keys = [(k, j) for j, (k, _, _) in enumerate(extra, len(_WINDOW_ND))]
+                 nd + tuple(d for _, _, d in extra))
+    keys = [(k, j) for j, (k, _, _) in enumerate(extra, len(nd))]
     out = []
     for r, c, o in zip(f, sums[:, _COUNTS].tolist(), ok.tolist(), strict=True):
         row = {"distance_m": r[0], "hsr_m": r[1], "sprint_m": r[2], "hsr_efforts": c[0], "sprints": c[1],
@@ -66,17 +85,17 @@ def _window_rows(sums: np.ndarray, span_s: np.ndarray, extra: tuple[tuple[str, n
     return out
 
 
-def _windows(sums: np.ndarray, span_s: np.ndarray, extra: tuple[tuple[str, np.ndarray, int], ...] = ()
-             ) -> list[dict[str, Any]]:
-    return _window_rows(sums, span_s, (("span_s", span_s, 1), *extra))
+def _windows(sums: np.ndarray, span_s: np.ndarray, prec: Precision, extra: _Extra = ()) -> list[dict[str, Any]]:
+    return _window_rows(sums, span_s, prec, (("span_s", span_s, prec.seconds), *extra))
 
 
 def _figures(sums: np.ndarray, zones: np.ndarray, zone_names: tuple[str, ...], onpitch_s: np.ndarray,
-             max_speed: np.ndarray, coverage: np.ndarray) -> list[dict[str, Any]]:
+             max_speed: np.ndarray, coverage: np.ndarray, prec: Precision) -> list[dict[str, Any]]:
     """Scalar figures + zones per player over one stretch (match or period)."""
-    rows = _window_rows(sums, onpitch_s, (("minutes", onpitch_s / 60.0, 2), ("max_speed_ms", max_speed, 2),
-                                          ("coverage", coverage, 3)))
-    for row, z in zip(rows, np.round(zones * _U, 1).tolist(), strict=True):
+    rows = _window_rows(sums, onpitch_s, prec, (("minutes", onpitch_s / 60.0, prec.minutes),
+                                                ("max_speed_ms", max_speed, prec.speed),
+                                                ("coverage", coverage, prec.share)))
+    for row, z in zip(rows, _round_list(zones * _U, prec.distance), strict=True):
         row["zones"] = dict(zip(zone_names, z, strict=True))
     return rows
 
@@ -123,8 +142,9 @@ def _cached_figures(cache: dict[Any, Any], name: Any, state: MatchState, sums: n
         cache[name] = hit
         return hit[1]
     names = state.params.zones.names
+    prec = state.params.precision
     return _reuse(cache, name, inputs,
-                  lambda r: _figures(sums[r], zones[r], names, onpitch_s[r], max_speed[r], coverage[r]))
+                  lambda r: _figures(sums[r], zones[r], names, onpitch_s[r], max_speed[r], coverage[r], prec))
 
 
 def _rows(cols: dict[str, list[Any]], n: int) -> list[dict[str, Any]]:
@@ -157,7 +177,7 @@ def _cache(state: MatchState) -> dict[Any, Any]:
     return c
 
 
-def _player_windows(state: MatchState) -> tuple[list[dict[str, Any]], dict[int, np.ndarray]]:
+def _player_windows(state: MatchState) -> tuple[list[dict[str, Any]], _TeamLast]:
     """windows per player, and the last-N sums of the current period; cached per completed second.
     A player's windows object, and each window in it, stays the same object while unchanged. The
     last-N and block windows of every player are one row set (one pass when a second completes), the
@@ -175,8 +195,9 @@ def _player_windows(state: MatchState) -> tuple[list[dict[str, Any]], dict[int, 
     rows: list[Any] = []
     if names:
         all_sums, all_spans = np.concatenate(sums), np.concatenate(spans)
+        prec = state.params.precision
         rows = _reuse(cache, ("windows", tuple(names)), _stack(all_sums, all_spans),
-                      lambda r: _windows(all_sums[r], all_spans[r]), rebuilt)
+                      lambda r: _windows(all_sums[r], all_spans[r], prec), rebuilt)
     peak_names, peak_rows = _peak_rows(state, cache, rebuilt)
     n_last = len(team_last)
     # the contract's order: last-N, peaks, blocks
@@ -188,7 +209,7 @@ def _player_windows(state: MatchState) -> tuple[list[dict[str, Any]], dict[int, 
     return per_player, team_last
 
 
-def _window_sums(state: MatchState) -> tuple[list[str], list[np.ndarray], list[np.ndarray], dict[int, np.ndarray]]:
+def _window_sums(state: MatchState) -> tuple[list[str], list[np.ndarray], list[np.ndarray], _TeamLast]:
     """Names, sums (P, N_FIG) and spans (P,) s of the last-N windows of the current period, then of
     the fixed blocks of every period that hold data; and the last-N sums by minutes."""
     n, fps = state.n, state.fps
@@ -196,7 +217,7 @@ def _window_sums(state: MatchState) -> tuple[list[str], list[np.ndarray], list[n
     names: list[str] = []  # last-N, then blocks: rows k * n .. k * n + n - 1 of the row set
     sums: list[np.ndarray] = []
     spans: list[np.ndarray] = []
-    team_last: dict[int, np.ndarray] = {}
+    team_last: _TeamLast = {}
     if cur is not None:
         b = cur.bins
         stop = b.complete
@@ -241,7 +262,8 @@ def _peak_rows(state: MatchState, cache: dict[Any, Any], rebuilt: list[np.ndarra
     span = np.repeat(np.array([float(w_s) for w_s in state.peak_s]), n)
 
     def build_peaks(r: Any) -> list[Any]:
-        made = _windows(np.maximum(best[r], 0), span[r], (("start_s", start_clock[r], 1),))
+        prec = state.params.precision
+        made = _windows(np.maximum(best[r], 0), span[r], prec, (("start_s", start_clock[r], prec.seconds),))
         return [w if ok else None for w, ok in zip(made, (best[r][:, ex.DIST] >= 0).tolist(), strict=True)]
 
     return peak_names, _reuse(cache, ("peaks", tuple(peak_names)), _stack(best, start_clock), build_peaks, rebuilt)
@@ -348,7 +370,7 @@ def _health(state: MatchState, now: float | None, extra_reasons: list[dict[str, 
     dropout = state.dropout()
     status, reasons = h.evaluate(clock, dropout, extra_reasons)
     lag_med, lag_p95 = h.lag(clock)
-    cov_r = np.round(cov, 3).tolist()
+    cov_r = _round_list(cov, state.params.precision.share)
     roster = state.roster
     heart = state.heart
     speed = h.speed(clock)
@@ -381,7 +403,7 @@ def _health(state: MatchState, now: float | None, extra_reasons: list[dict[str, 
     return health
 
 
-def _team_windows(state: MatchState, masks: list[np.ndarray], team_last: dict[int, np.ndarray]) -> list[dict[str, Any]]:
+def _team_windows(state: MatchState, masks: list[np.ndarray], team_last: _TeamLast) -> list[dict[str, Any]]:
     """Each team's last-N outfield windows, all in one pass; the same objects until a second completes
     or the players counted change (``team_last`` comes from the windows cache, whose key says when)."""
     cache = _cache(state)
@@ -396,11 +418,45 @@ def _team_windows(state: MatchState, masks: list[np.ndarray], team_last: dict[in
         names = [f"last_{m}min" for m in team_last]
         spans = [cur.bins.covered_s(stop - m * 60, stop) for m in team_last]
         sums = np.array([s[mask].sum(axis=0) for mask in masks for s in team_last.values()], np.int64)
-        rows = _windows(sums.reshape(-1, ex.N_FIG), np.array(spans * len(masks), float))
+        # players' credited seconds in the window: a player substituted off stops counting when he left
+        player_s = sums[:, ex.VALID] / state.fps
+        prec = state.params.precision
+        rows = _team_rows(sums.reshape(-1, ex.N_FIG), player_s, prec,
+                          (("span_s", np.array(spans * len(masks), float), prec.seconds),))
         for k in range(len(masks)):
             out[k] = dict(zip(names, rows[k * len(names):(k + 1) * len(names)], strict=True))
     cache["team_windows"] = (key, out)
     return out
+
+
+def _team_rows(sums: np.ndarray, player_s: np.ndarray, prec: Precision, extra: _Extra = ()) -> list[dict[str, Any]]:
+    """Team figures over a stretch from the outfield sums (T, F) and the players' seconds on the pitch
+    in it (T,): distances and counts summed; m_per_min and metabolic_power_wkg per player-second, i.e.
+    the time-weighted means of the players' own figures; energy_jkg none (a sum of per-kilogram figures
+    means nothing)."""
+    rows = _window_rows(sums, player_s, prec, extra)
+    for row in rows:
+        row["energy_jkg"] = None
+    return rows
+
+
+_AVG_FIGS = (("distance_m", ex.DIST, _U), ("hsr_m", ex.HSR, _U), ("sprint_m", ex.SPRINT, _U),
+             ("high_power_m", ex.HIPOW, _U), ("energy_jkg", ex.ENERGY, _U), ("hsr_efforts", ex.N_HSR, 1.0),
+             ("sprints", ex.N_SPR, 1.0), ("accels", ex.N_ACC, 1.0), ("decels", ex.N_DEC, 1.0))
+
+
+def _averages(sums: np.ndarray, player_min: np.ndarray, prec: Precision) -> tuple[list[Any], list[Any]]:
+    """Per-player averages of each team (T, F sums; T player-minutes): per 90 minutes on the pitch and
+    per minute on the pitch, None before any time on the pitch."""
+    cols = [sums[:, j] * u / np.where(player_min > 0, player_min, 1.0) for _, j, u in _AVG_FIGS]
+    d, c = prec.distance, prec.per_90_count
+    per_90 = _rounded([x * 90.0 for x in cols], (d, d, d, d, prec.energy, c, c, c, c))
+    d, c = prec.per_min_distance, prec.per_min_count
+    per_min = _rounded(cols, (d, d, d, d, prec.per_min_energy, c, c, c, c))
+    names = [k for k, _, _ in _AVG_FIGS]
+    ok = (player_min > 0).tolist()
+    return ([dict(zip(names, r, strict=True)) if o else None for r, o in zip(per_90, ok, strict=True)],
+            [dict(zip(names, r, strict=True)) if o else None for r, o in zip(per_min, ok, strict=True)])
 
 
 def build_health(state: MatchState, now: float | None, extra_reasons: list[dict[str, str]] | None) -> dict[str, Any]:
@@ -430,7 +486,7 @@ def build_snapshot(state: MatchState, now: float | None = None,
     if state.heart is not None:
         windows, per_figs, hr_rows = _with_heart(state, windows, per_figs, onp_s)
     speed = _speeds(state)
-    poss_rows = _possession_rows(cache, poss) if state.has_ball else None
+    poss_rows = _possession_rows(cache, poss, state.params.precision) if state.has_ball else None
     players = _players(state, cache, on_pitch, speed, figs, windows, per_figs, poss_rows, hr_rows)
     teams = _teams(state, total, onp, onp_s, team_last)
     health = _health(state, now, extra_reasons, on_pitch, cov)
@@ -487,16 +543,16 @@ def _speeds(state: MatchState) -> list[float | None]:
     if cur is None:
         return [None] * state.n
     recent = (cur.last_valid >= 0) & (cur.track.fin - cur.last_valid <= state.fps)
-    sp = np.round(cur.last_speed, 2).tolist()
+    sp = _round_list(cur.last_speed, state.params.precision.speed)
     return [s if r else None for s, r in zip(sp, recent.tolist(), strict=True)]
 
 
-def _possession_rows(cache: dict[Any, Any], poss: np.ndarray) -> _Rows:
+def _possession_rows(cache: dict[Any, Any], poss: np.ndarray, prec: Precision) -> _Rows:
     """Each player's distance and HSR per ball context, from ``poss`` (P, 3, 2) µm (see _reuse)."""
     flat = poss.reshape(poss.shape[0], -1)
 
     def poss_build(r: Any) -> list[dict[str, Any]]:
-        pm = np.round(poss[r] * _U, 1).tolist()
+        pm = _round_list(poss[r] * _U, prec.distance)
         return [{ctx: {"distance_m": p[k][0], "hsr_m": p[k][1]} for k, ctx in enumerate(CONTEXTS)} for p in pm]
 
     return _reuse(cache, "possession", flat.astype(float), poss_build)
@@ -542,36 +598,37 @@ def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], spe
 
 
 def _teams(state: MatchState, total: np.ndarray, onp: np.ndarray, onp_s: np.ndarray,
-           team_last: dict[int, np.ndarray]) -> dict[str, Any]:
-    """The snapshot's ``teams``: each tracked team's outfield sums, per-player means and windows."""
+           team_last: _TeamLast) -> dict[str, Any]:
+    """The snapshot's ``teams``: each tracked team's outfield totals, per-player averages over time on the
+    pitch (service/wire/schema.py defines each figure) and windows."""
     roster = state.roster
     periods = state.periods
     fps = state.fps
+    prec = state.params.precision
     elapsed_s = sum((max(p.last_slot, 0) + 1) / fps for p in periods) if periods else 0.0
     teams: dict[str, Any] = {}
     tracked = roster.tracked()
     masks = [(state.team == k) & ~state.gk & (onp > 0) for k in range(len(roster.team_ids))]
     tsums = np.array([total[m].sum(axis=0) for m in masks], np.int64).reshape(len(masks), ex.N_FIG)
-    outfields = _window_rows(tsums, np.full(len(masks), elapsed_s))  # both teams in one pass
+    player_s = np.array([onp_s[m].sum() for m in masks], float)
+    outfields = _team_rows(tsums, player_s, prec)  # both teams in one pass
+    per_90, per_min = _averages(tsums, player_s / 60.0, prec)
+    player_min = _round_list(player_s / 60.0, prec.minutes)
     team_windows = _team_windows(state, masks, team_last)
     for k, tid in enumerate(roster.team_ids):
         if not tracked[k]:
             # one-team feed: the other team's figures are absent, not zeros
             teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": False}
             continue
-        mask = masks[k]
-        tsum = tsums[k].tolist()
-        minutes = float(onp_s[mask].sum()) / 60.0
-        count = int(mask.sum())
         outfield = outfields[k]
-        outfield["players"] = count
-        outfield["minutes"] = round(elapsed_s / 60.0, 2)
-        outfield["per_player"] = {
-            "distance_m": round(tsum[ex.DIST] * _U / count, 1) if count else None,
-            "hsr_m": round(tsum[ex.HSR] * _U / count, 1) if count else None,
-            "sprint_m": round(tsum[ex.SPRINT] * _U / count, 1) if count else None,
-            "m_per_min": round(tsum[ex.DIST] * _U / minutes, 1) if minutes > 0 else None,
-        }
+        outfield["players"] = int(masks[k].sum())
+        outfield["minutes"] = round(elapsed_s / 60.0, prec.minutes)
+        outfield["player_minutes"] = player_min[k]
+        outfield["per_90min"] = per_90[k]
+        outfield["per_min"] = per_min[k]
+        p90 = per_90[k] or {}
+        outfield["per_player"] = {"distance_m": p90.get("distance_m"), "hsr_m": p90.get("hsr_m"),
+                                  "sprint_m": p90.get("sprint_m"), "m_per_min": outfield["m_per_min"]}
         outfield["windows"] = team_windows[k]
         teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": True, "outfield": outfield}
     return teams

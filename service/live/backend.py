@@ -7,7 +7,7 @@ import time
 from pathlib import Path
 from typing import Any
 
-from pacewire.analyze import figures_at
+from pacewire.analyze import MatchTimeError
 from pacewire.api.backend import Send
 from pacewire.api.errors import ApiError, unknown_match
 from pacewire.api.requests import StreamParams
@@ -143,14 +143,15 @@ class LocalBackend:
         except OSError as exc:
             raise ApiError(503, "storage", f"cannot store the budgets: {exc.strerror or exc}") from None
 
-    async def figures(self, match_id: str, at_s: float | None) -> dict[str, Any]:
+    async def figures(self, match_id: str, at_s: float | None, period: str | None = None) -> dict[str, Any]:
         runner = self._runner(match_id)
         if at_s is None:
             runner.broadcaster.invalidate()
             return runner.broadcaster.snapshot()
         try:
-            return await asyncio.to_thread(figures_at, runner.folder, self.matches.settings, match_id, at_s,
-                                           list(runner.events))
+            return await asyncio.to_thread(runner.followup.rewind.figures, at_s, list(runner.events), period)
+        except MatchTimeError as exc:
+            raise ApiError.of(exc) from None
         except (OSError, ValueError) as exc:
             raise ApiError(503, "no_recording", f"cannot read the recording: {exc}") from None
 

@@ -25,13 +25,14 @@ from typing import Any, Protocol
 
 import orjson
 
+from pacewire.analyze import FiguresIndex
 from pacewire.config import Settings
-from pacewire.engine.blocks import block_series, clock_block, window_coverage
+from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
-from pacewire.engine.types import Roster
+from pacewire.engine.types import PERIOD_INDEX, Roster
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.recorder import write_json_atomic
-from pacewire.reports.alerts import Alerter, rules_from_settings
+from pacewire.reports.alerts import evaluate_state, new_alerter, rules_from_settings
 from pacewire.reports.builder import ReportInput, build_report, list_reports, report_kind
 from pacewire.reports.offline import report_input, state_until
 from pacewire.store import history
@@ -75,7 +76,10 @@ class Followup:
                 rules = rules_from_settings(s)
             except RulesError as exc:  # the config loaded, but a rule asks for a window that is not computed
                 log.error("%s: alerts off: %s", runner.match_id, exc)
-        self.alerter = Alerter(rules, ids, s.alerts.rearm_margin)
+        self.alerter = new_alerter(s, rules, ids)
+        self.alerter.restore(self._stored_alerts())
+        # figures at an earlier match time (export ?at=): checkpoints over the recording, warmed at each report
+        self.rewind = FiguresIndex(runner.folder, s, runner.match_id)
         self.alerter.set_budgets(self._initial_budgets())
 
     # -- budgets -----------------------------------------------------------------------------------
@@ -132,16 +136,53 @@ class Followup:
             log.exception("%s: alert evaluation failed", self.runner.match_id)
 
     def _alerts(self) -> None:
-        state = self.runner.state
         snap = self.runner.broadcaster.snapshot()
-        windows = {r.window_min for r in self.alerter.rules if hasattr(r, "window_min")}
-        cov = {w: window_coverage(state, w) for w in windows}
-        period = state.period_name()
-        length = int(getattr(self.settings.periods, period)) if period else 0
-        block = clock_block(period, state.match_time_s(), self.settings.history.block_min, length)
-        for alert in self.alerter.evaluate(snap, cov, block):
-            body = alert.body()
-            self.runner.broadcaster.publish("alert", **body)
+        alerts = evaluate_state(self.alerter, self.runner.state, snap, self.settings)
+        if not alerts:
+            return
+        self._keep_alerts([a.body() for a in alerts])
+        self.runner.broadcaster.invalidate()  # the snapshot's alerts changed
+        for alert in alerts:
+            self.runner.broadcaster.publish("alert", **alert.body())
+
+    @property
+    def alerts_path(self) -> Path:
+        return self.runner.folder / "alerts.jsonl"
+
+    def _stored_alerts(self) -> list[dict[str, Any]]:
+        """The alerts raised before a restart (one JSON object a line; a torn last line is skipped)."""
+        try:
+            lines = self.alerts_path.read_bytes().splitlines()
+        except FileNotFoundError:
+            return []
+        except OSError as exc:
+            log.error("%s: cannot read %s: %s", self.runner.match_id, self.alerts_path, exc)
+            return []
+        out = []
+        for line in lines:
+            try:
+                body = orjson.loads(line)
+            except orjson.JSONDecodeError:
+                continue
+            if isinstance(body, dict):
+                out.append(body)
+        return out
+
+    def _keep_alerts(self, bodies: list[dict[str, Any]]) -> None:
+        """Append alerts to the match folder, so a restarted server still shows them."""
+        try:
+            with self.alerts_path.open("ab") as fh:
+                fh.write(b"".join(orjson.dumps(b) + b"\n" for b in bodies))
+        except OSError as exc:  # the alerts still go out; only a restart would forget them
+            log.error("%s: cannot keep alerts in %s: %s", self.runner.match_id, self.alerts_path, exc)
+
+    def alerts(self, until_period: int | None = None) -> list[dict[str, Any]]:
+        """Every alert raised so far (a new list), oldest first; with ``until_period``, those raised
+        up to the end of that period (PERIOD_INDEX)."""
+        raised = self.alerter.raised
+        if until_period is None:
+            return list(raised)
+        return [a for a in raised if PERIOD_INDEX.get(a.get("period") or "", 0) <= until_period]
 
     def period_ended(self, period: str) -> None:
         """The runner announced the end of ``period`` (an event, or the frames moved on)."""
@@ -213,7 +254,8 @@ class Followup:
         now = time.time()
         inp = report_input(base, per.index, "live", now, self.settings.reports.intensity_block_min, now=now,
                            extra_reasons=r.extra_reasons(), score=list(r.score))
-        inp = replace(inp, snapshot=orjson.loads(orjson.dumps(inp.snapshot)))  # nothing shared with the live state
+        # nothing shared with the live state
+        inp = replace(inp, snapshot=orjson.loads(orjson.dumps(inp.snapshot)), alerts=self.alerts(per.index))
         blocks = None
         if kind == "full_time" and self.settings.history.enabled:
             blocks = block_series(state_until(base, per.index), self.settings.history.block_min, "merge")
@@ -225,7 +267,14 @@ class Followup:
         log.info("%s: %s report ready in %.2f s", r.match_id, kind, time.time() - now)
         if blocks is not None:
             await asyncio.to_thread(self._store, inp, blocks, kickoff)
+        self._spawn(asyncio.to_thread(self._warm))  # outside the lock: the next report never waits for it
         return entry
+
+    def _warm(self) -> None:
+        try:
+            self.rewind.extend()
+        except Exception as exc:  # the report stands; a later export ?at= reads the recording itself
+            log.error("%s: figures index not warmed: %s", self.runner.match_id, exc)
 
     def _store(self, inp: ReportInput, blocks: Any, kickoff: float) -> None:
         try:
@@ -238,4 +287,5 @@ class Followup:
 
     def listing(self) -> list[dict[str, Any]]:
         return [{**e, "url": self.url(e["kind"], "report.html"), "csv": self.url(e["kind"], "report.csv"),
-                 "json": self.url(e["kind"], "snapshot.json")} for e in list_reports(self.root)]
+                 "json": self.url(e["kind"], "snapshot.json"), "alerts_csv": self.url(e["kind"], "alerts.csv")}
+                for e in list_reports(self.root)]

@@ -302,6 +302,7 @@ class MatchRunner:
         for k, tid in enumerate(self.roster.team_ids):
             snap["teams"][tid]["score"] = self.score[k]
         snap["match_status"] = self.status.told
+        snap["alerts"] = self.followup.alerts()  # a new list each time: a delta compares it by value
         return snap
 
     def summary(self) -> dict[str, Any]:

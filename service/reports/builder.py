@@ -11,7 +11,7 @@ from __future__ import annotations
 import os
 import tempfile
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -21,12 +21,13 @@ import orjson
 from pacewire.engine import exertion as ex
 from pacewire.engine.blocks import BlockSeries
 from pacewire.reports import charts
+from pacewire.reports.alert_log import alerts_csv
 from pacewire.reports.page import page, zone_names
 from pacewire.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
 from pacewire.wire.messages import envelope
 
 KINDS = ("half_time", "full_time")
-FILES = ("report.html", "report.csv", "snapshot.json")
+FILES = ("report.html", "report.csv", "snapshot.json", "alerts.csv")
 SOURCES = ("live", "replay", "offline")
 
 
@@ -42,6 +43,7 @@ class ReportInput:
     series: BlockSeries  # intensity blocks (reports.intensity_block_min)
     source: str  # live | replay | offline: where the figures came from
     created_at: float  # epoch s
+    alerts: list[dict[str, Any]] = field(default_factory=list)  # raised up to the report, oldest first
 
 
 def _write_atomic(path: Path, data: bytes) -> None:
@@ -121,11 +123,13 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
     per_min = {pid: [None if not np.isfinite(v) else round(float(v), 1) for v in rate[:, i]]
                for i, pid in enumerate(ser.player_ids)}
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,
-                [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min)
+                [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min,
+                inp.alerts)
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
-                   players=snap["players"], teams=snap["teams"], health=snap["health"])
+                   players=snap["players"], teams=snap["teams"], health=snap["health"], alerts=inp.alerts)
     _write_atomic(folder / "report.html", text.encode("utf-8"))
     _write_atomic(folder / "report.csv", to_csv(snap).encode("utf-8"))
+    _write_atomic(folder / "alerts.csv", alerts_csv(snap, inp.alerts).encode("utf-8"))
     _write_atomic(folder / "snapshot.json", orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
     entry = {"kind": inp.kind, "created_at": round(inp.created_at, 3), "match_time_s": snap["match_time_s"],
              "period": snap["period"], "source": inp.source, "build_s": round(time.perf_counter() - t0, 3),

@@ -11,6 +11,7 @@ import argparse
 import copy
 import sys
 import time
+from dataclasses import replace
 from pathlib import Path
 from typing import Any, TextIO
 
@@ -18,9 +19,11 @@ from pacewire.config import Settings
 from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
-from pacewire.engine.types import PERIOD_INDEX
+from pacewire.engine.types import PERIOD_INDEX, Roster
+from pacewire.reports.alerts import Alerter, evaluate_state, new_alerter, rules_from_settings
 from pacewire.reports.builder import ReportInput, build_report, report_kind
 from pacewire.wire.recording import Recording, open_recording
+from pacewire.wire.rules import load_budgets
 
 
 class ProgressBar:
@@ -65,27 +68,48 @@ def _size(rec: Recording) -> int:
     return rec.tracking.stat().st_size
 
 
-def run_recording(folder: str | Path, settings: Settings, progress: bool = True,
-                  batch: int = 1500) -> tuple[MatchState, Recording, int]:
+def run_recording(folder: str | Path, settings: Settings, progress: bool = True, batch: int = 1500,
+                  alerts: bool = False) -> tuple[MatchState, Recording, int, list[dict[str, Any]]]:
     """Run a recording through the engine (as ``pacewire analyze`` does) with a progress
-    bar on stderr. Returns (finished state, recording, bad lines skipped). Heart-rate samples
-    (hr.jsonl) go in first: they count as tracking reaches their time, as live."""
+    bar on stderr. Returns (finished state, recording, bad lines skipped, alerts). Heart-rate
+    samples (hr.jsonl) go in first: they count as tracking reaches their time, as live. With
+    ``alerts`` (and alerts enabled in the settings), the config's rules and budgets are evaluated
+    at every completed second, as live (no history baselines offline), the frames going in a
+    second at a time."""
     from pacewire.analyze import add_heart_rate, new_match
 
     rec = open_recording(folder)
     state, decoder = new_match(rec.meta, rec.sheet, settings)
+    alerter = offline_alerter(settings, state.roster) if alerts else None
     bad = len(add_heart_rate(state, rec))
     bar = ProgressBar(_size(rec), f"{state.roster.match_id}: frames") if progress else None
-    for first, lines in rec.batches(batch):
+    second: tuple[int, int] | None = None
+    for first, lines in rec.batches(state.fps if alerter is not None else batch):
         res = decoder.decode_lines(lines, first_line=first)
         bad += len(res.errors)
         state.ingest(res)
+        cur = state.current
+        if alerter is not None and cur is not None and (cur.index, cur.bins.complete) != second:
+            second = (cur.index, cur.bins.complete)
+            evaluate_state(alerter, state, build_snapshot(state), settings)
         if bar is not None:
             bar.update(sum(len(line) for line in lines))
     state.finish()
     if bar is not None:
         bar.close(f"{state.frames} frames, {bad} bad lines skipped")  # tracking and heart-rate lines
-    return state, rec, bad
+    return state, rec, bad, list(alerter.raised) if alerter is not None else []
+
+
+def offline_alerter(settings: Settings, roster: Roster) -> Alerter | None:
+    """The alerter a recording gets offline: the config's rules and budgets file (None when alerts are off)."""
+    if not settings.alerts.enabled:
+        return None
+    alerter = new_alerter(settings, rules_from_settings(settings), tuple(p.id for p in roster.players))
+    if settings.alerts.budgets_file:
+        ids = set(roster.index)
+        alerter.set_budgets({pid: c for pid, c in load_budgets(settings.alerts.budgets_file).players.items()
+                             if pid in ids})
+    return alerter
 
 
 def state_until(state: MatchState, period_index: int) -> MatchState:
@@ -132,7 +156,7 @@ def source_of(meta: dict[str, Any]) -> str:
 def build_offline(folder: str | Path, out: str | Path, settings: Settings, progress: bool = True
                   ) -> list[dict[str, Any]]:
     """Write the half-time and full-time reports of a recording under ``out``."""
-    state, rec, _ = run_recording(folder, settings, progress)
+    state, rec, _, alerts = run_recording(folder, settings, progress, alerts=True)
     source = source_of(rec.meta)
     out = Path(out)
     entries = []
@@ -145,6 +169,7 @@ def build_offline(folder: str | Path, out: str | Path, settings: Settings, progr
     for idx in wanted:
         t0 = time.perf_counter()
         inp = report_input(state, idx, source, time.time(), settings.reports.intensity_block_min)
+        inp = replace(inp, alerts=[a for a in alerts if PERIOD_INDEX.get(a.get("period") or "", 0) <= idx])
         entry = build_report(inp, out, settings.reports.low_coverage)
         entries.append(entry)
         if progress:

@@ -5,6 +5,7 @@ import html
 import time
 from typing import Any
 
+from pacewire.reports.alert_log import alert_rows, counts
 from pacewire.reports.table import has_heart_rate, one_team, player_order, tracked_teams
 
 HEALTH_CAUTION = ("Figures are estimates from positional data; decisions on injury, return-to-play and "
@@ -100,12 +101,12 @@ def team_table(snapshot: dict[str, Any], possession: dict[str, dict[str, float]]
     lines: list[tuple[str, Any]] = [
         ("players used", lambda o: num(o["players"])),
         ("distance, m", lambda o: num(o["distance_m"])),
-        ("distance per player, m", lambda o: num(o["per_player"]["distance_m"])),
-        ("m/min per player", lambda o: num(o["per_player"]["m_per_min"], 1)),
+        ("distance per player per 90 min on the pitch, m", lambda o: num(o["per_player"]["distance_m"])),
+        ("m/min per player (mean over time on the pitch)", lambda o: num(o["per_player"]["m_per_min"])),
         ("HSR, m", lambda o: num(o["hsr_m"])),
-        ("HSR per player, m", lambda o: num(o["per_player"]["hsr_m"])),
+        ("HSR per player per 90 min, m", lambda o: num(o["per_player"]["hsr_m"])),
         ("sprint, m", lambda o: num(o["sprint_m"])),
-        ("sprint per player, m", lambda o: num(o["per_player"]["sprint_m"])),
+        ("sprint per player per 90 min, m", lambda o: num(o["per_player"]["sprint_m"])),
         ("HSR efforts", lambda o: num(o["hsr_efforts"])),
         ("sprints", lambda o: num(o["sprints"])),
         ("accelerations", lambda o: num(o["accels"])),
@@ -130,10 +131,10 @@ def player_table(players: list[tuple[str, dict[str, Any]]], low_coverage: float)
         cov = p.get("coverage")
         rows.append([
             (num(p["jersey_number"]), ""), (esc(p.get("name") or pid) + (" (GK)" if p["is_goalkeeper"] else ""), "l"),
-            (num(p["minutes"], 1), ""), (num(p["distance_m"]), ""), (num(p["m_per_min"], 1), ""),
+            (num(p["minutes"], 1), ""), (num(p["distance_m"]), ""), (num(p["m_per_min"]), ""),
             (num(p["hsr_m"]), ""), (num(p["sprint_m"]), ""), (num(p["hsr_efforts"]), ""), (num(p["sprints"]), ""),
             (num(p["accels"]), ""), (num(p["decels"]), ""), (num(p["max_speed_ms"], 2), ""),
-            (num(p["high_power_m"]), ""), (num(p["metabolic_power_wkg"], 2), ""),
+            (num(p["high_power_m"]), ""), (num(p["metabolic_power_wkg"], 1), ""),
             (f"{cov:.0%}" if cov is not None else "–", "low" if cov is not None and cov < low_coverage else ""),
         ])
     return _table(head, rows)
@@ -149,7 +150,7 @@ def peak_table(players: list[tuple[str, dict[str, Any]]], windows: list[int]) ->
         for w in windows:
             win = (p.get("windows") or {}).get(f"peak_{w}min")
             if win:
-                r += [(num(win["m_per_min"], 1), ""), (num(win["hsr_m"]), ""), (clock(win.get("start_s")), "")]
+                r += [(num(win["m_per_min"]), ""), (num(win["hsr_m"]), ""), (clock(win.get("start_s")), "")]
             else:
                 r += [("–", ""), ("–", ""), ("–", "")]
         rows.append(r)
@@ -381,6 +382,23 @@ def _heart_section(teams: list[tuple[str, dict[str, Any]]], charts: dict[str, st
     return parts
 
 
+def _alerts_section(snapshot: dict[str, Any], alerts: list[dict[str, Any]]) -> list[str]:
+    """Every alert raised up to the report, oldest first, after a count per rule."""
+    parts = ['<section id="alerts"><h2>Alerts <span class="n">as the bench received them; a prompt to look, '
+             'not a verdict</span></h2>']
+    if not alerts:
+        return [*parts, '<p class="note">No alerts.</p>', "</section>"]
+    summary = [[(esc(rule), "l"), (num(c["alerts"]), ""), (num(c["players"]), ""), (num(c["most"]), "")]
+               for rule, c in counts(alerts).items()]
+    parts.append(_table([("rule", "l"), ("alerts", ""), ("players", ""), ("most for one player", "")], summary))
+    rows = [[(clock(r["match_time_s"]), ""), (esc(r["period"] or ""), "l"), (num(r["jersey_number"]), ""),
+             (esc(r["name"] or r["player_id"]), "l"), (esc(r["rule"]), "l"), (num(r["value"], 1), ""),
+             (num(r["limit"], 1), ""), (esc(r["message"]), "l")] for r in alert_rows(snapshot, alerts)]
+    parts.append(_table([("clock", ""), ("period", "l"), ("#", ""), ("player", "l"), ("rule", "l"), ("value", ""),
+                         ("limit", ""), ("message", "l")], rows))
+    return [*parts, "</section>"]
+
+
 def _feed_section(health: dict[str, Any]) -> list[str]:
     """The feed's health counters at build time (heart-rate ones when the match had a strap channel)."""
     rows = [
@@ -403,9 +421,11 @@ def _feed_section(health: dict[str, Any]) -> list[str]:
 
 def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession: dict[str, dict[str, float]],
          source: str, created_at: float, low_coverage: float,
-         blocks: list[tuple[str, str]] | None = None, per_min: dict[str, list[float | None]] | None = None) -> str:
+         blocks: list[tuple[str, str]] | None = None, per_min: dict[str, list[float | None]] | None = None,
+         alerts: list[dict[str, Any]] | None = None) -> str:
     """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``:
-    (label, period) of each block; ``per_min``: each player's distance per minute in them."""
+    (label, period) of each block; ``per_min``: each player's distance per minute in them;
+    ``alerts``: those raised up to the report."""
     teams = tracked_teams(snapshot)
     heart = has_heart_rate(snapshot)
     players = snapshot["players"]
@@ -422,6 +442,7 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
         *_peaks_section(snapshot, charts, played_by_team),
         *(_possession_section(teams, played_by_team) if possession else []),
         *(_heart_section(teams, charts, played_by_team, low_coverage) if heart else []),
+        *_alerts_section(snapshot, alerts or []),
         *_feed_section(snapshot["health"]),
         f"<footer>{esc(HEALTH_CAUTION)} Report by pacewire; CSV and JSON copies sit beside this file.</footer>",
         "</main>", "</body>", "</html>",

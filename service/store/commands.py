@@ -26,7 +26,7 @@ def _import(args: argparse.Namespace, settings: Settings) -> int:
     from pacewire.wire.recording import RecordingError
 
     try:
-        state, rec, _ = run_recording(args.folder, settings, progress=not args.quiet)
+        state, rec, _, _ = run_recording(args.folder, settings, progress=not args.quiet)
     except (RecordingError, SetupError, OSError) as exc:
         print(f"pacewire: {exc}", file=sys.stderr)
         return 2

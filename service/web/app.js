@@ -275,6 +275,10 @@
     if (msg.type === "snapshot") {
       S.state = { players: msg.players || {}, teams: msg.teams || {}, health: msg.health || {} };
       S.lastSeq = msg.seq;
+      if (Array.isArray(msg.alerts)) { // the alerts raised so far, oldest first: newest first here
+        S.alerts = msg.alerts.slice(-50).reverse();
+        renderAlerts();
+      }
     } else {
       if (S.state === null) { S.lastSeq = null; connect(); return; } // no base to apply to: start afresh
       if (msg.seq <= S.lastSeq) return; // already applied
@@ -559,7 +563,7 @@
       ["sprint_m", "Sprinting", "m", fmtInt],
       ["hsr_efforts", "High-speed runs", "", fmtInt],
       ["sprints", "Sprints", "", fmtInt],
-      ["m_per_min", "Work rate, team", "m/min", fmtInt],
+      ["m_per_min", "Work rate, per player", "m/min", fmtInt],
     ];
     const side = t.side === "away" ? "away" : "home";
     const cell = (win, src, key, fmt, unit, main) => {
@@ -577,7 +581,7 @@
         <tbody>
         ${rows.map(([key, label, unit, fmt]) => `<tr><th scope="row">${label}</th>${cols.map((c, i) => cell(c[0], c[1], key, fmt, unit, i === 0)).join("")}</tr>`).join("")}
         <tr><th scope="row">Per player</th>
-          <td class="per-player" colspan="${cols.length}"><span data-window="per_player" data-field="distance_m" data-value="${pp.distance_m ?? ""}">${pp.distance_m == null ? "–" : fmtInt(pp.distance_m)} m</span> ·
+          <td class="per-player" colspan="${cols.length}"><span data-window="per_player" data-field="distance_m" data-value="${pp.distance_m ?? ""}">${pp.distance_m == null ? "–" : fmtInt(pp.distance_m)} m per 90 min on the pitch</span> ·
           <span data-window="per_player" data-field="m_per_min" data-value="${pp.m_per_min ?? ""}">${pp.m_per_min == null ? "–" : fmtInt(pp.m_per_min)} m/min</span></td></tr>
         </tbody>
       </table>

@@ -19,7 +19,7 @@ def envelope(kind: str, match_id: str, seq: int, match_time_s: float, period: st
 
 def snapshot_message(match_id: str, snap: dict[str, Any]) -> dict[str, Any]:
     """The ``snapshot`` message of a snapshot body, outside any stream (REST reads, ``analyze --json``)."""
-    body = {k: snap[k] for k in ("players", "teams", "health", "match_status") if k in snap}
+    body = {k: snap[k] for k in ("players", "teams", "health", "match_status", "alerts") if k in snap}
     return envelope("snapshot", match_id, 0, snap["match_time_s"], snap["period"], **body)
 
 

@@ -37,6 +37,7 @@ class _DropOff(_Model):
     min_on_pitch_min: float = Field(ge=0, le=150)
     min_coverage: float = Field(ge=0, le=1)  # the feed-quality guard: coverage in the window
     goalkeepers: bool = False
+    rearm_margin: float | None = Field(default=None, ge=0, le=2)  # this rule's own; None: [alerts] rearm_margin
 
 
 class DropOffPeak(_DropOff):
@@ -86,6 +87,9 @@ class AlertsSection(_Model):
     rules_file: str
     budgets_file: str
     rearm_margin: float = Field(ge=0, le=1)
+    rearm_hold_s: float = Field(ge=0, le=3600)
+    cap_count: int = Field(ge=1, le=1000)
+    cap_window_min: int = Field(ge=1, le=150)
     rules: list[Rule] = Field(max_length=50)
 
     @model_validator(mode="before")

@@ -30,6 +30,7 @@ from typing import Annotated, Any, Literal, Union
 
 from pydantic import BaseModel, ConfigDict, Field, create_model
 
+from pacewire.engine.precision import WIRE
 from pacewire.engine.types import PERIODS
 from pacewire.wire.messages import CONTRACT_VERSION
 
@@ -40,6 +41,12 @@ WINDOW_KEY = r"^(last_[0-9]+min|peak_[0-9]+min|block_[0-9]+_[0-9]+)$"
 LAST_WINDOW_KEY = r"^last_[0-9]+min$"
 ZONE_KEY = r"^[0-9]+(\.[0-9]+)?(-[0-9]+(\.[0-9]+)?%?|%?\+)$"
 ID = Annotated[str, Field(min_length=1)]
+
+
+def _to(kind: str, unit: str) -> str:
+    """The precision a kind of figure carries on the wire (pacewire.engine.precision), for a description:
+    ``to 1 m``, ``to 0.1 W/kg``; ``to 0.01`` for a share. Digits below it are never sent."""
+    return f"to {WIRE.unit(kind):g}{' ' + unit if unit else ''}"
 
 
 def _optional_key(description: str, **bounds: Any) -> Any:
@@ -56,25 +63,27 @@ class _Shape(BaseModel):
 
 # -- the snapshot body -------------------------------------------------------------------------
 class WindowFigures(_Shape):
-    """Distance and effort figures over a stretch of play (window, block, period, team)."""
+    """Distance and effort figures over a stretch of play (window, block, period, team). Each figure
+    carries the precision its description states; a delta sends it only when it changed at it."""
 
-    distance_m: float = Field(ge=0, description="Distance covered, m.")
+    distance_m: float = Field(ge=0, description=f"Distance covered, m, {_to('distance', 'm')}.")
     hsr_m: float = Field(ge=0, description="High-speed running distance, 5.5-7.0 m/s (19.8-25.2 km/h), m "
-                                           "(Bradley et al. 2009; Di Salvo et al. 2009).")
-    sprint_m: float = Field(ge=0, description="Sprint distance, >= 7.0 m/s (25.2 km/h), m (Di Salvo et al. 2009).")
+                                           f"(Bradley et al. 2009; Di Salvo et al. 2009), {_to('distance', 'm')}.")
+    sprint_m: float = Field(ge=0, description="Sprint distance, >= 7.0 m/s (25.2 km/h), m (Di Salvo et al. 2009), "
+                                              f"{_to('distance', 'm')}.")
     hsr_efforts: int = Field(ge=0, description="High-speed efforts: >= 5.5 m/s held >= 1 s (a sprint is one too), "
                                                "count.")
     sprints: int = Field(ge=0, description="Sprint efforts: >= 7.0 m/s held >= 1 s, count.")
     accels: int = Field(ge=0, description="Accelerations above +3 m/s^2 held >= 0.5 s, count (Akenhead et al. 2013).")
     decels: int = Field(ge=0, description="Decelerations below -3 m/s^2 held >= 0.5 s, count (Akenhead et al. 2013).")
-    energy_jkg: float = Field(ge=0, description="Metabolic energy spent, J/kg "
-                                                "(di Prampero et al. 2005; Osgnach et al. 2010).")
+    energy_jkg: float = Field(ge=0, description="Metabolic energy spent, J/kg (di Prampero et al. 2005; "
+                                                f"Osgnach et al. 2010), {_to('energy', 'J/kg')}.")
     high_power_m: float = Field(ge=0, description="Distance covered while metabolic power exceeded 20 W/kg, m "
-                                                  "(Osgnach et al. 2010).")
-    m_per_min: float | None = Field(description="Distance per minute on the pitch, m/min; "
+                                                  f"(Osgnach et al. 2010), {_to('distance', 'm')}.")
+    m_per_min: float | None = Field(description=f"Distance per minute on the pitch, m/min, {_to('rate', 'm/min')}; "
                                                 "null before any time on the pitch.")
-    metabolic_power_wkg: float | None = Field(description="Mean metabolic power, W/kg; "
-                                                          "null before any time on the pitch.")
+    metabolic_power_wkg: float | None = Field(description="Mean metabolic power, W/kg, "
+                                                          f"{_to('power', 'W/kg')}; null before any time on the pitch.")
 
 
 HR_ZONE_KEY = r"^[0-9]+(\.[0-9]+)?-[0-9]+(\.[0-9]+)?%$"
@@ -110,29 +119,34 @@ class HeartFigures(HeartWindow):
 class Window(WindowFigures, HeartWindow):
     """A rolling window (``last_Nmin``), a fixed block (``block_A_B``) or a peak (``peak_Nmin``)."""
 
-    span_s: float = Field(ge=0, description="Seconds of play the window covers (shorter than N minutes early on).")
-    start_s: float = _optional_key(description="Peak windows only: match clock at the window's start, s.")
+    span_s: float = Field(ge=0, description="Seconds of play the window covers (shorter than N minutes early on), "
+                                            f"{_to('seconds', 's')}.")
+    start_s: float = _optional_key(description=f"Peak windows only: match clock at the window's start, s, "
+                                               f"{_to('seconds', 's')}.")
 
 
 class Zones(_Shape):
     """Distance per speed band, m; band names come from the configured edges, e.g. ``0.0-2.0`` (m/s)
     and ``7.0+``, or ``0-30%`` and ``85%+`` (share of the player's max speed)."""
 
-    model_config = ConfigDict(json_schema_extra={"patternProperties": {ZONE_KEY: {"type": "number", "minimum": 0}}})
+    model_config = ConfigDict(json_schema_extra={"patternProperties": {ZONE_KEY: {
+        "type": "number", "minimum": 0, "description": f"Distance in the band, m, {_to('distance', 'm')}."}}})
 
 
 class PeriodFigures(WindowFigures, HeartFigures):
     """A player's figures over one stretch of the match (the whole match, or one period)."""
 
-    minutes: float = Field(ge=0, description="Minutes on the pitch.")
-    max_speed_ms: float = Field(ge=0, description="Top speed, m/s.")
-    coverage: float = Field(ge=0, le=1, description="Credited samples / samples on the pitch (1 = no gaps).")
+    minutes: float = Field(ge=0, description=f"Minutes on the pitch, {_to('minutes', 'min')}.")
+    max_speed_ms: float = Field(ge=0, description=f"Top speed, m/s, {_to('speed', 'm/s')}.")
+    coverage: float = Field(ge=0, le=1, description="Credited samples / samples on the pitch (1 = no gaps), "
+                                                    f"{_to('share', '')}.")
     zones: Zones = Field(description="Distance per speed band, m.")
 
 
 class ContextFigures(_Shape):
-    distance_m: float = Field(ge=0, description="Distance covered in this ball context, m.")
-    hsr_m: float = Field(ge=0, description="High-speed running distance in this ball context, m.")
+    distance_m: float = Field(ge=0, description=f"Distance covered in this ball context, m, {_to('distance', 'm')}.")
+    hsr_m: float = Field(ge=0, description="High-speed running distance in this ball context, m, "
+                                           f"{_to('distance', 'm')}.")
 
 
 class Possession(_Shape):
@@ -152,7 +166,8 @@ class Player(PeriodFigures):
     is_goalkeeper: bool = Field(description="position_group GK in the match sheet; "
                                             "goalkeepers are left out of team figures.")
     on_pitch: bool = Field(description="On the pitch now (seen recently, or brought on by a substitution event).")
-    speed_ms: float | None = Field(description="Current speed, m/s; null when not seen in the last second.")
+    speed_ms: float | None = Field(description=f"Current speed, m/s, {_to('speed', 'm/s')}; "
+                                               "null when not seen in the last second.")
     windows: dict[Annotated[str, Field(pattern=WINDOW_KEY)], Window | None] = Field(
         description="last_Nmin: rolling windows of the current period; peak_Nmin: the best N-minute window so far "
                     "(null until N minutes were played; Fereday et al. 2020); block_A_B: fixed blocks of the "
@@ -168,26 +183,98 @@ class Player(PeriodFigures):
 
 
 class PerPlayer(_Shape):
-    """Team outfield figures per outfield player who played."""
+    """Kept for clients of the first version: ``per_90min``'s distances and the team's ``m_per_min``."""
 
-    distance_m: float | None = Field(description="Distance per outfield player, m.")
-    hsr_m: float | None = Field(description="High-speed running distance per outfield player, m.")
-    sprint_m: float | None = Field(description="Sprint distance per outfield player, m.")
-    m_per_min: float | None = Field(description="Outfield distance per outfield player-minute, m/min.")
+    distance_m: float | None = Field(description="per_90min.distance_m: distance per outfield player per 90 minutes "
+                                                  f"on the pitch, m, {_to('distance', 'm')}.")
+    hsr_m: float | None = Field(description=f"per_90min.hsr_m, m, {_to('distance', 'm')}.")
+    sprint_m: float | None = Field(description=f"per_90min.sprint_m, m, {_to('distance', 'm')}.")
+    m_per_min: float | None = Field(description=f"The team's m_per_min, m/min, {_to('rate', 'm/min')}.")
+
+
+class Per90Min(_Shape):
+    """Per outfield player per 90 minutes on the pitch: the team's outfield total divided by its outfield
+    players' minutes on the pitch, x 90 (the weights of the team's m_per_min)."""
+
+    distance_m: float = Field(ge=0, description=f"Distance per 90 minutes on the pitch, m, {_to('distance', 'm')}.")
+    hsr_m: float = Field(ge=0, description=f"HSR distance per 90 minutes on the pitch, m, {_to('distance', 'm')}.")
+    sprint_m: float = Field(ge=0, description="Sprint distance per 90 minutes on the pitch, m, "
+                                              f"{_to('distance', 'm')}.")
+    high_power_m: float = Field(ge=0, description="High-power distance per 90 minutes on the pitch, m, "
+                                                  f"{_to('distance', 'm')}.")
+    energy_jkg: float = Field(ge=0, description="Metabolic energy per 90 minutes on the pitch, J/kg, "
+                                                f"{_to('energy', 'J/kg')}.")
+    hsr_efforts: float = Field(ge=0, description=f"HSR efforts per 90 minutes on the pitch, {_to('per_90_count', '')}.")
+    sprints: float = Field(ge=0, description=f"Sprints per 90 minutes on the pitch, {_to('per_90_count', '')}.")
+    accels: float = Field(ge=0, description=f"Accelerations per 90 minutes on the pitch, {_to('per_90_count', '')}.")
+    decels: float = Field(ge=0, description=f"Decelerations per 90 minutes on the pitch, {_to('per_90_count', '')}.")
+
+
+class PerMin(_Shape):
+    """Per outfield player per minute on the pitch: the team's outfield total divided by its outfield
+    players' minutes on the pitch."""
+
+    distance_m: float = Field(ge=0, description="Distance per minute on the pitch, m, "
+                                                f"{_to('per_min_distance', 'm')}.")
+    hsr_m: float = Field(ge=0, description=f"HSR distance per minute on the pitch, m, {_to('per_min_distance', 'm')}.")
+    sprint_m: float = Field(ge=0, description="Sprint distance per minute on the pitch, m, "
+                                              f"{_to('per_min_distance', 'm')}.")
+    high_power_m: float = Field(ge=0, description="High-power distance per minute on the pitch, m, "
+                                                  f"{_to('per_min_distance', 'm')}.")
+    energy_jkg: float = Field(ge=0, description="Metabolic energy per minute on the pitch, J/kg, "
+                                                f"{_to('per_min_energy', 'J/kg')}.")
+    hsr_efforts: float = Field(ge=0, description=f"HSR efforts per minute on the pitch, {_to('per_min_count', '')}.")
+    sprints: float = Field(ge=0, description=f"Sprints per minute on the pitch, {_to('per_min_count', '')}.")
+    accels: float = Field(ge=0, description=f"Accelerations per minute on the pitch, {_to('per_min_count', '')}.")
+    decels: float = Field(ge=0, description=f"Decelerations per minute on the pitch, {_to('per_min_count', '')}.")
+
+
+_NO_TEAM_ENERGY = ("Always null for a team: a sum of per-kilogram figures means nothing (per_90min.energy_jkg and "
+                   "metabolic_power_wkg give the team's energy per player).")
 
 
 class TeamWindow(WindowFigures):
-    span_s: float = Field(ge=0, description="Seconds of play the window covers.")
+    """A rolling window of the current period over the team's outfield players: distances and counts are
+    totals; the rates are means per outfield player over the seconds each was credited in the window (a
+    player substituted off stops counting when he left)."""
+
+    energy_jkg: None = Field(description=_NO_TEAM_ENERGY)  # type: ignore[assignment]
+    m_per_min: float | None = Field(description="Outfield distance / outfield players' credited minutes in the "
+                                                f"window: the mean per player, m/min, {_to('rate', 'm/min')}; "
+                                                "null before any.")
+    metabolic_power_wkg: float | None = Field(description="Outfield energy / outfield players' credited seconds in "
+                                                          "the window: the time-weighted mean of the players, W/kg, "
+                                                          f"{_to('power', 'W/kg')}; null before any.")
+    span_s: float = Field(ge=0, description=f"Seconds of play the window covers, {_to('seconds', 's')}.")
 
 
 class Outfield(WindowFigures):
-    """A team's outfield totals (goalkeepers excluded); rates per minute of match time."""
+    """A team's outfield players (goalkeepers excluded; every outfield player who has been on the pitch).
+    distance_m, hsr_m, sprint_m, high_power_m and the four counts are the team's totals; m_per_min and
+    metabolic_power_wkg are means per player weighted by time on the pitch; per_90min and per_min are
+    per-player averages over time on the pitch. No per-kilogram figure is summed."""
 
-    players: int = Field(ge=0, description="Outfield players who have played.")
-    minutes: float = Field(ge=0, description="Minutes of match time played.")
-    per_player: PerPlayer
+    energy_jkg: None = Field(description=_NO_TEAM_ENERGY)  # type: ignore[assignment]
+    m_per_min: float | None = Field(description="Outfield distance / outfield players' minutes on the pitch: the "
+                                                "time-weighted mean of the players' m_per_min (the work rate of the "
+                                                f"average player, not a sum of rates), m/min, {_to('rate', 'm/min')}; "
+                                                "null before any time on the pitch.")
+    metabolic_power_wkg: float | None = Field(description="Outfield energy / outfield players' seconds on the pitch: "
+                                                          "the time-weighted mean of the players' mean metabolic "
+                                                          f"power, W/kg, {_to('power', 'W/kg')}; null before any "
+                                                          "time on the pitch.")
+    players: int = Field(ge=0, description="Outfield players who have been on the pitch.")
+    minutes: float = Field(ge=0, description=f"Minutes of match time played, {_to('minutes', 'min')}.")
+    player_minutes: float = Field(ge=0, description="The outfield players' minutes on the pitch, summed (the "
+                                                    f"weights of every average here), {_to('minutes', 'min')}.")
+    per_90min: Per90Min | None = Field(description="Per outfield player per 90 minutes on the pitch; null before "
+                                                   "any time on the pitch.")
+    per_min: PerMin | None = Field(description="Per outfield player per minute on the pitch; null before any time "
+                                               "on the pitch.")
+    per_player: PerPlayer = Field(description="Kept for clients of the first version: per_90min's distances and "
+                                              "m_per_min (its distance was the total divided by the players used).")
     windows: dict[Annotated[str, Field(pattern=LAST_WINDOW_KEY)], TeamWindow] = Field(
-        description="Rolling windows of the current period, summed over outfield players.")
+        description="Rolling windows of the current period over the outfield players.")
 
 
 class Team(_Shape):
@@ -238,7 +325,8 @@ class Health(_Shape):
     rejected: int = Field(ge=0, description="Frames refused as invalid, count.")
     jumps: int = Field(ge=0, description="Implausible position steps (> 12.5 m/s) rejected, count.")
     frames: int = Field(ge=0, description="Frames applied, count.")
-    coverage: dict[str, float] = Field(description="Per player id: credited samples / samples on the pitch, 0-1.")
+    coverage: dict[str, float] = Field(description="Per player id: credited samples / samples on the pitch, 0-1, "
+                                                   f"{_to('share', '')}.")
     hr_coverage: dict[str, float | None] = _optional_key(description="Per player on the pitch: heart-rate samples "
                                                                      "over the last minute / expected "
                                                                      "(a strap dropping out shows here).")
@@ -254,6 +342,27 @@ MATCH_STATUS = ("not_started: no frame yet; live: a period is being played; brea
                 "after the last period of the set-up (meta.match.periods; the second half when it lists none).")
 
 
+class AlertFields(_Shape):
+    """What an alert says: the rule, the player, the figure, its value and the limit it crossed."""
+
+    rule: str = Field(description="Rule id from the configuration ([alerts] rules).")
+    kind: str = Field(description="Kind of rule: drop_off_peak, drop_off_baseline, load_budget, ...")
+    player_id: ID
+    team_id: ID
+    figure: str = Field(description="The figure the rule watches.")
+    value: float = Field(description="The player's value of that figure (its unit).")
+    limit: float = Field(description="The limit it crossed (same unit).")
+    level: float = _optional_key(description="Load budgets only: the share of the budget this alert marks.")
+    message: str = Field(description="Human-readable text.")
+
+
+class Alert(AlertFields):
+    """An alert raised earlier in the match, as its ``alert`` message said it."""
+
+    match_time_s: float = Field(ge=0, description="Match clock when it was raised, s.")
+    period: Period | None = Field(description="Period when it was raised.")
+
+
 class SnapshotBody(_Shape):
     """The full state of a match (also ``GET /api/matches/{id}/snapshot``)."""
 
@@ -261,6 +370,10 @@ class SnapshotBody(_Shape):
     teams: dict[str, Team] = Field(description="Per team id.")
     health: Health
     match_status: MatchStatus = _optional_key(description=f"Live service only. {MATCH_STATUS}")
+    alerts: list[Alert] = _optional_key(description="Every alert raised so far, oldest first (a view gets those about "
+                                                    "the players it shows); the live service and reports only. A "
+                                                    "delta carries the whole list when it grew; each new alert "
+                                                    "also comes as an alert message.")
 
 
 # -- messages ------------------------------------------------------------------------------------
@@ -299,19 +412,10 @@ class PeriodMessage(Envelope):
     frame_id: int | None = Field(description="Frame that started (or ended) the period, when known.")
 
 
-class AlertMessage(Envelope):
-    """A player crossed a configured rule."""
+class AlertMessage(AlertFields, Envelope):
+    """A player crossed a configured rule; match_time_s and period are the alert's own."""
 
     type: Literal["alert"]
-    rule: str = Field(description="Rule id from the configuration ([alerts] rules).")
-    kind: str = Field(description="Kind of rule: drop_off_peak, drop_off_baseline, load_budget, ...")
-    player_id: ID
-    team_id: ID
-    figure: str = Field(description="The figure the rule watches.")
-    value: float = Field(description="The player's value of that figure (its unit).")
-    limit: float = Field(description="The limit it crossed (same unit).")
-    level: float = _optional_key(description="Load budgets only: the share of the budget this alert marks.")
-    message: str = Field(description="Human-readable text.")
 
 
 class StatusMessage(Envelope):
@@ -398,6 +502,7 @@ class DeltaMessage(Envelope):
     teams: dict[str, TeamDelta | None] | None = None  # type: ignore[valid-type]
     health: HealthDelta | None = None  # type: ignore[valid-type]
     match_status: MatchStatus | None = None
+    alerts: list[Alert] | None = Field(None, description="The snapshot's alerts, whole, when they changed.")
 
 
 MESSAGES: dict[str, type[Envelope]] = {

@@ -40,7 +40,8 @@ class View:
         raise ViewError(f"view {text!r} is not 'all', 'team:ID' or 'players:ID,ID'")
 
     def body(self, snap: dict[str, Any]) -> dict[str, Any]:
-        """The part of a snapshot this view shows (the match status, when the snapshot has one, in every view)."""
+        """The part of a snapshot this view shows (the match status, when the snapshot has one, in every view;
+        its ``alerts`` are those about the players it shows, as the ``alert`` messages it gets)."""
         if self.kind == "all":
             out = {"players": snap["players"], "teams": snap["teams"], "health": snap["health"]}
         elif self.kind == "team":
@@ -52,6 +53,10 @@ class View:
             out = {"players": players, "teams": snap["teams"], "health": snap["health"]}
         if "match_status" in snap:
             out["match_status"] = snap["match_status"]
+        if "alerts" in snap:
+            alerts = snap["alerts"]
+            out["alerts"] = alerts if self.kind == "all" else [
+                a for a in alerts if self.shows_player(a.get("player_id"), a.get("team_id"))]
         return out
 
     def shows_player(self, player_id: str | None, team_id: str | None) -> bool:

@@ -3,6 +3,8 @@ the low-coverage guard; bad rule and budget data get clear errors; alerts reach 
 from __future__ import annotations
 
 import asyncio
+import csv
+import io
 import math
 import time
 
@@ -148,6 +150,76 @@ def test_a_drop_that_recovers_and_drops_again_fires_twice():
     speeds = steps((360, 4.0), (330, 2.6), (420, 4.0), (330, 2.6))
     got = evaluate([peak_rule()], run({H2: circle(speeds)}))
     assert len(got) == 2 and got[1][0] - got[0][0] > 400
+
+
+# -- alerts worth reading: a clear recovery before the next one, a cap per window -------------------------
+def evaluate_with(rules, frames, **kw):
+    """Alerts with the re-arm and cap rules given (the dataclass defaults otherwise)."""
+    a = Alerter(list(rules), tuple(IDS), **kw)
+    return [(snap["match_time_s"], x) for snap, cov, block in frames for x in a.evaluate(snap, cov, block)], a
+
+
+@pytest.fixture(scope="module")
+def recovering_runs():
+    """After 9 min at 4 m/s (240 m/min, the peak 5-min window; clear of the limit from minute 5, when the
+    window is full, so the rule arms), a drop to 2.6 m/s (156 m/min: below 75 % of the peak, 180), a recovery
+    at 4 m/s, and a second drop. The recovery lasts 7 min in one run and 3 min in the other, which is too
+    short for the last-5-min rate to climb clear of the limit by 20 % (216 m/min) at all (after 3 min of 4 m/s
+    it is 156 + (240 - 156) x 3/5 = 206 m/min). Arithmetic on the constructed speeds."""
+    long_rest = steps((540, 4.0), (330, 2.6), (420, 4.0), (330, 2.6))
+    short_rest = steps((540, 4.0), (330, 2.6), (180, 4.0), (330, 2.6))
+    return run({H2: circle(long_rest)}), run({H2: circle(short_rest)})
+
+
+def test_a_rule_rearms_only_after_a_clear_recovery_held_long_enough(recovering_runs):
+    long_rest, short_rest = recovering_runs
+    rules = [peak_rule()]
+    got, _ = evaluate_with(rules, long_rest, rearm_margin=0.2, rearm_hold_s=180)
+    assert [a.player_id for _, a in got] == ["h2", "h2"] and got[1][0] - got[0][0] > 600  # two falls, two alerts
+    got, _ = evaluate_with(rules, short_rest, rearm_margin=0.2, rearm_hold_s=180)
+    assert [a.player_id for _, a in got] == ["h2"]  # a short recovery is part of the same drop
+    # the same short recovery re-arms a rule that asks for less (5 % above the limit at once, as before)
+    got, _ = evaluate_with(rules, short_rest, rearm_margin=0.05, rearm_hold_s=0)
+    assert len(got) == 2
+    # a rule's own margin wins over the default
+    got, _ = evaluate_with([peak_rule(rearm_margin=0.5)], long_rest, rearm_margin=0.05, rearm_hold_s=0)
+    assert got == []  # 240 m/min never reaches 1.5 x 180 = 270: the rule never arms
+
+
+def test_the_cap_allows_so_many_alerts_per_rule_player_and_window(recovering_runs):
+    long_rest, _ = recovering_runs
+    rules = [peak_rule()]
+    # both drops fall in the first 45 minutes: one alert with a cap of 1 per 45-minute window ...
+    got, a = evaluate_with(rules, long_rest, rearm_margin=0.2, rearm_hold_s=180, cap_count=1, cap_window_min=45,
+                           period_min={"first_half": 45})
+    assert len(got) == 1
+    # ... and the rule was disarmed by the second crossing all the same: the log holds the one alert, with its clock
+    assert [(x["rule"], x["player_id"], x["period"]) for x in a.raised] == [("distance_peak", "h2", "first_half")]
+    assert a.raised[0]["match_time_s"] == got[0][0]
+    # with 15-minute windows the second drop (after minute 15) is in a window of its own
+    assert got[0][0] < 900
+    got, _ = evaluate_with(rules, long_rest, rearm_margin=0.2, rearm_hold_s=180, cap_count=1, cap_window_min=15)
+    assert len(got) == 2 and got[1][0] >= 900
+
+
+def test_a_drop_from_the_start_is_no_fall_against_the_peak():
+    """A player who never ran clearly above the limit gives no peak alert (the rule arms on a clear stretch);
+    the 75 % of peak limit is met from the start by constant running at the peak itself: no alert either."""
+    flat = run({H2: circle(steps((720, 3.0)))})
+    got, _ = evaluate_with([peak_rule()], flat, rearm_margin=0.2, rearm_hold_s=180)
+    assert got == []
+
+
+def test_alerts_raised_before_a_restart_count_against_the_cap_and_disarm(recovering_runs):
+    long_rest, _ = recovering_runs
+    first, a = evaluate_with([peak_rule()], long_rest, rearm_margin=0.2, rearm_hold_s=180)
+    assert len(first) == 2
+    b = Alerter([peak_rule()], tuple(IDS), rearm_margin=0.2, rearm_hold_s=180, cap_count=1, cap_window_min=45)
+    b.restore(a.raised[:1])  # the first alert was kept with the match; the server restarts after it
+    assert b.raised == a.raised[:1]
+    later = [x for snap, cov, block in long_rest if snap["match_time_s"] > first[0][0]
+             for x in b.evaluate(snap, cov, block)]
+    assert later == []  # the second drop is in the same 45-minute window: capped
 
 
 # -- the feed-quality guard -------------------------------------------------------------------------
@@ -396,3 +468,99 @@ def test_budget_caps_take_numbers_only():
             parse_budgets({"players": {"h1": {"minutes": bad}}})
     assert parse_budgets({"players": {"h1": {"minutes": 60, "hsr_m": 450.5}}}).players["h1"].items() == [
         ("minutes", 60.0), ("hsr_m", 450.5)]
+
+
+def _wait(get, pred, timeout: float, what: str):
+    """Poll ``get()`` until ``pred`` holds of its result; fails naming ``what``."""
+    deadline = time.monotonic() + timeout
+    while True:
+        got = get()
+        if pred(got):
+            return got
+        if time.monotonic() > deadline:
+            raise AssertionError(f"timed out waiting for {what}; last: {got!r}"[:2000])
+        time.sleep(0.2)
+
+
+@pytest.mark.slow
+def test_alerts_stay_in_the_snapshot_the_reports_and_across_a_restart(tmp_path):
+    """Two budget alerts (a one-minute budget, 80 % and 100 %) on a real server: the snapshot holds them
+    (REST, a new subscriber's opening snapshot; a view of the other team holds none), the half-time report
+    lists them (HTML, alerts.csv, snapshot.json), and a restarted server still shows them."""
+    srv = LiveServer(tmp_path / "data").start()
+    mid = "m_keep"
+    base = f"{srv.http}/api/matches/{mid}"
+    try:
+        assert httpx.put(base, json={"meta": cb.meta(mid), "sheet": cb.sheet(N_HOME, N_AWAY)},
+                         timeout=10).status_code == 201
+        assert httpx.put(f"{base}/budgets", json={"players": {"h2": {"minutes": 1.0}}}, timeout=10).status_code == 200
+        xy = np.full((70 * FPS, len(IDS), 2), np.nan)
+        xy[:, H2] = circle(np.full(70 * FPS, 3.0))
+        xy[:, IDS.index("a2")] = circle(np.full(70 * FPS, 2.0), 15.0)
+        objs = cb.frames(xy, IDS, N_HOME, match_id=mid)
+        for i in range(0, len(objs), 250):
+            r = httpx.post(f"{base}/frames", content=b"\n".join(cb.lines(objs[i:i + 250])), timeout=30)
+            assert r.status_code == 200, r.text
+        snap = _wait(lambda: httpx.get(f"{base}/snapshot", timeout=10).json(), lambda s: len(s.get("alerts", [])) == 2,
+                     15, "two alerts in the snapshot")
+        alerts = snap["alerts"]
+        assert [(a["rule"], a["player_id"], a["level"], a["period"]) for a in alerts] == [
+            ("load_budget", "h2", 0.8, "first_half"), ("load_budget", "h2", 1.0, "first_half")]
+        # raised at 80 % and 100 % of one minute on the pitch: 48 and 60 s into the match (the budget's levels)
+        assert 47 <= alerts[0]["match_time_s"] <= 50 and 59 <= alerts[1]["match_time_s"] <= 62
+
+        async def openers() -> tuple[dict, dict]:
+            async with websockets.connect(f"{srv.ws}/live/{mid}?every=1") as everyone, \
+                    websockets.connect(f"{srv.ws}/live/{mid}?every=1&view=team:{cb.AWAY}") as away:
+                return orjson.loads(await everyone.recv()), orjson.loads(await away.recv())
+
+        everyone, away = asyncio.run(openers())
+        assert everyone["type"] == "snapshot" and everyone["alerts"] == alerts  # a page opened later shows them
+        assert away["type"] == "snapshot" and away["alerts"] == []  # a view shows its players' alerts only
+
+        # the half-time whistle: the report lists the alerts in each of its forms
+        r = httpx.post(f"{base}/events", json=[{"type": "period_end", "period": "first_half",
+                                                "frame_id": objs[-1]["frame_id"]}], timeout=10)
+        assert r.status_code == 200, r.text
+        listed = _wait(lambda: httpx.get(f"{base}/reports", timeout=10).json()["reports"],
+                       lambda rs: any(x["kind"] == "half_time" for x in rs), 60, "the half-time report")
+        entry = next(x for x in listed if x["kind"] == "half_time")
+        rows = list(csv.DictReader(io.StringIO(httpx.get(srv.http + entry["alerts_csv"], timeout=10).text)))
+        assert [(x["rule"], x["player_id"], x["jersey_number"], x["level"]) for x in rows] == [
+            ("load_budget", "h2", "2", "0.8"), ("load_budget", "h2", "2", "1.0")]
+        assert orjson.loads(httpx.get(srv.http + entry["json"], timeout=10).content)["alerts"] == alerts
+        html = httpx.get(srv.http + entry["url"], timeout=10).text
+        section = html[html.index('<section id="alerts">'):]
+        section = section[:section.index("</section>")]
+        assert section.count("<tr") == 2 + 1 + 2  # two heads, the count of the one rule, the two alerts
+        assert "load_budget" in section and "reached 80%" in section and "reached 100%" in section
+
+        # a restart: the match comes back from its folder with the alerts it had raised
+        srv.stop()
+        srv = LiveServer(tmp_path / "data")
+        srv.start()
+        base = f"{srv.http}/api/matches/{mid}"
+        back = _wait(lambda: httpx.get(f"{base}/snapshot", timeout=10), lambda r: r.status_code == 200, 30,
+                     "the match back after the restart").json()
+        assert back["alerts"] == alerts
+    finally:
+        srv.stop()
+
+
+@pytest.mark.slow
+def test_the_demo_match_gives_alerts_worth_reading(tmp_path):
+    """The fictional 95-minute demo match (``pacewire synth --minutes 95``) with the default rules, evaluated at
+    every second as live: no player gets more than 3 alerts of one rule, and the match at most one alert per
+    outfield player who played, on average (pacewire's targets for alerts the bench reads: common practice,
+    a few prompts a match, never a stream)."""
+    from pacewire.replay.synth import write_match
+    from pacewire.reports.alert_log import counts
+    from pacewire.reports.offline import run_recording
+
+    folder = write_match(tmp_path / "demo", minutes=95)
+    state, _, _, alerts = run_recording(folder, load_settings(), progress=False, alerts=True)
+    outfield = [p for p in state.roster.players if not p.is_goalkeeper
+                and sum(int(per.onpitch_slots()[state.roster.index[p.id]]) for per in state.periods) > 0]
+    per_rule = counts(alerts)
+    assert alerts and all(c["most"] <= 3 for c in per_rule.values()), per_rule
+    assert len(alerts) <= len(outfield), (len(alerts), len(outfield), per_rule)

@@ -491,6 +491,11 @@ def test_alerts_and_report_links_as_they_arrive(bench):
     assert limits == [0.8, 1.0]  # the 80 % and 100 % levels of a 1-minute budget
     assert "Caspar Lunde" in page.inner_text("#alerts")
     bench.join()
+    # a page opened later (here: reloaded) shows the alerts raised so far, from its opening snapshot
+    page.reload()
+    page.wait_for_selector("#conn[data-conn='open']", timeout=12_000)
+    wait_for(lambda: page.locator(sel).count() == 2, 10, "the alerts on the reloaded page")
+    assert sorted(float(v) for v in page.eval_on_selector_all(sel, "els => els.map(e => e.dataset.limit)")) == limits
     # full time: the period ends, the report is built, and its link shows up by itself
     last = bench.feed.frames[bench.feed.cursor - 1]["frame_id"]
     r = httpx.post(f"{base}/events", json=[{"type": "period_end", "period": "second_half", "frame_id": last}],
