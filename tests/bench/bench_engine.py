@@ -294,7 +294,7 @@ def run(quick: bool) -> dict[str, dict]:
     one = synth_match(4.0 if quick else 10.0, seed=8)
     one_bl = blocks(one, per_block=1)
     single_s, _ = best_of(lambda: feed_engine(one, settings, one_bl))
-    snap_s, snap = best_of(state.snapshot)
+    snap_s, snap = best_of(lambda: build_snapshot(state))
     numpy_s, ref = best_of(lambda: numpy_pass(m, settings))
     cols = np.flatnonzero(m.seen)
     fl_arrays = [np.ascontiguousarray(xy[:, cols].reshape(xy.shape[0], -1)) for xy in m.halves]
