@@ -15,8 +15,10 @@ G = 9.81  # m/s^2
 
 # Columns of the per-sample figure matrix (see ``Exertion.step``, which relies on HSR, SPRINT
 # and the four counts being adjacent and in this order).
-DIST, HSR, SPRINT, ENERGY, HIPOW, N_HSR, N_SPR, N_ACC, N_DEC, VALID, SEEN = range(11)
-N_FIG = 11
+# VALID counts samples credited from the player's own kept samples or bridges over plain gaps (coverage);
+# ARTEFACT the seen samples removed as tracking artefacts.
+DIST, HSR, SPRINT, ENERGY, HIPOW, N_HSR, N_SPR, N_ACC, N_DEC, VALID, SEEN, ARTEFACT = range(12)
+N_FIG = 12
 MICRO = 1_000_000
 
 # Minetti et al. 2002, J Appl Physiol 93:1039: cost of running on a slope i,
@@ -54,6 +56,7 @@ class ExertionParams:
     air_k: float
     flat_cost: float
     high_power_wkg: float
+    top_hold_n: int = 1  # samples a speed must be held to count as the top speed
 
 
 def minetti_cost(es: np.ndarray) -> np.ndarray:
@@ -182,10 +185,12 @@ class Exertion:
         self.unit_scale = self.unit_scale and bool((zone_scale == 1.0).all())
         self.efforts.grow(len(zone_scale))
 
-    def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray, full: bool = False
-             ) -> tuple[np.ndarray, np.ndarray]:
+    def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray, full: bool = False,
+             artefact: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Returns (figures (N_FIG, n, P) float64 holding integers: micro-units or counts,
         zone index (n, P)). ``full``: every sample valid and seen (the masks are not read).
+        ``artefact``: seen samples removed as tracking artefacts (None: none); a sample bridged over
+        one still credits its interpolated figures but not coverage.
         Figure-major, so each figure is one contiguous (n, P) array."""
         p = self.p
         n = speed.shape[0]
@@ -212,8 +217,14 @@ class Exertion:
         self.efforts.step(conds.transpose(1, 0, 2), out=fig[N_HSR:N_DEC + 1].transpose(1, 0, 2))
         if full:
             fig[VALID:SEEN + 1] = 1.0
-        else:
+            fig[ARTEFACT] = 0.0
+        elif artefact is None:
             fig[VALID] = valid
             fig[SEEN] = seen
+            fig[ARTEFACT] = 0.0
+        else:
+            np.greater(valid, artefact, out=fig[VALID])  # valid and not an artefact
+            fig[SEEN] = seen
+            fig[ARTEFACT] = artefact
         zone = self.zone_edges.searchsorted(speed if self.unit_scale else speed * self.inv_scale, side="right")
         return fig, zone

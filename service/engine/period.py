@@ -41,7 +41,9 @@ class Period:
     c_off_slots: np.ndarray  # (C,) slots in gaps long enough to mean "off the pitch"
     c_last_valid: np.ndarray  # (C,) slot of the latest credited sample, -1 never
     c_last_speed: np.ndarray  # (C,) m/s at last_valid
+    c_speed_tail: np.ndarray  # (top hold - 1, C) m/s of the latest final samples (0 where not credited)
     last_slot: int = -1  # latest slot received
+    tail_end: int = -1  # slot after the last row of c_speed_tail
     ended: bool = False
     full_upto: int = -1  # end slot of the latest final samples if every column was seen in all of them
     in_order: bool = False  # the columns are the whole roster in roster order
