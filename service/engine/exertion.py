@@ -15,10 +15,9 @@ G = 9.81  # m/s^2
 
 # Columns of the per-sample figure matrix (see ``Exertion.step``, which relies on HSR, SPRINT
 # and the four counts being adjacent and in this order).
-# VALID counts samples credited from the player's own kept samples or bridges over plain gaps (coverage);
-# ARTEFACT the seen samples removed as tracking artefacts.
-DIST, HSR, SPRINT, ENERGY, HIPOW, N_HSR, N_SPR, N_ACC, N_DEC, VALID, SEEN, ARTEFACT = range(12)
-N_FIG = 12
+# VALID counts samples credited from the player's own kept samples or bridges over plain gaps (coverage).
+DIST, HSR, SPRINT, ENERGY, HIPOW, N_HSR, N_SPR, N_ACC, N_DEC, VALID, SEEN = range(11)
+N_FIG = 11
 MICRO = 1_000_000
 
 # Minetti et al. 2002, J Appl Physiol 93:1039: cost of running on a slope i,
@@ -217,14 +216,11 @@ class Exertion:
         self.efforts.step(conds.transpose(1, 0, 2), out=fig[N_HSR:N_DEC + 1].transpose(1, 0, 2))
         if full:
             fig[VALID:SEEN + 1] = 1.0
-            fig[ARTEFACT] = 0.0
-        elif artefact is None:
-            fig[VALID] = valid
-            fig[SEEN] = seen
-            fig[ARTEFACT] = 0.0
         else:
-            np.greater(valid, artefact, out=fig[VALID])  # valid and not an artefact
+            if artefact is None:
+                fig[VALID] = valid
+            else:
+                np.greater(valid, artefact, out=fig[VALID])  # valid and not an artefact
             fig[SEEN] = seen
-            fig[ARTEFACT] = artefact
         zone = self.zone_edges.searchsorted(speed if self.unit_scale else speed * self.inv_scale, side="right")
         return fig, zone

@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -33,6 +34,9 @@ from numpy.lib.stride_tricks import sliding_window_view
 from pacewire.engine import artefacts
 from pacewire.engine.arrays import BIG, gather, next_true, prev_true, shift_up
 from pacewire.engine.artefacts import ArtefactParams
+
+
+_HALF_SQRT2 = math.sqrt(0.5)
 
 
 def savgol_weights(window: int, order: int, deriv: int, delta: float, pos: int) -> np.ndarray:
@@ -104,10 +108,16 @@ class KinematicParams:
     def half(self) -> int:
         return self.window // 2
 
-    @property
+    @cached_property
     def context(self) -> int:
         """Slots kept before the first unfinished slot so every rule sees its inputs."""
-        return self.window + 3 * (self.bridge + 1) + 2 + 2 * self.artefacts.lookback
+        return self.clean_after + 2 * self.artefacts.lookback
+
+    @cached_property
+    def clean_after(self) -> int:
+        """Slots into a stretch after which a player seen in every slot with no jump has every run
+        decided: the cheap path (``Track._clean``) may take over."""
+        return self.window + 3 * (self.bridge + 1) + 2
 
     @staticmethod
     def make(fps: int, *, window_s: float, order: int, bridge_s: float, still_ms: float, max_speed_ms: float,
@@ -326,7 +336,7 @@ class Track:
                 return None
             out = self._smooth_clean(self.fin - self.base, stop - self.base, clean)
             self.fin = stop
-            self._trim()
+            self._trim(all_seen=self._clean_all)
             return out
         valid, kept, run_s, run_e, xyb, doubt, jumps, removed = self._classify(closed)
         if closed:
@@ -343,12 +353,12 @@ class Track:
         self._trim()
         return out
 
-    def _trim(self) -> None:
-        """Keep only the context the rules need."""
+    def _trim(self, all_seen: bool = False) -> None:
+        """Keep only the context the rules need. ``all_seen``: every player was seen in every buffered slot."""
         keep_from = max(self.fin - self.p.context, self.base)
         if keep_from > self.base:
             drop = keep_from - self.base
-            if not np.isnan(self.buf[drop - 1, :, 0]).any():  # the usual case: everyone seen in the last row dropped
+            if all_seen or not np.isnan(self.buf[drop - 1, :, 0]).any():  # usual: all seen in the last row dropped
                 self._seen_before.fill(self.base + drop - 1)
             else:
                 last = prev_true(~np.isnan(self.buf[:drop, :, 0]))[-1]
@@ -362,7 +372,7 @@ class Track:
         buffered slot with no jump, or not seen at all; the stretch started long
         enough ago. Returns the per-player seen mask, or None for the full rules."""
         p = self.p
-        if self.fin - p.half - max(self.cut, self.base) < 0 or self.end - self.cut < p.context:
+        if self.fin - p.half - max(self.cut, self.base) < 0 or self.end - self.cut < p.clean_after:
             return None
         buf = self.buf
         # only rows not checked before (and the one before them, for the step)
@@ -458,18 +468,28 @@ class Track:
         dot += vel[..., 1] * acc[..., 1]
         tang = np.zeros(speed.shape)
         np.divide(dot, speed, out=tang, where=moving)
-        over = speed > p.max_speed_ms
-        over |= np.hypot(acc[..., 0], acc[..., 1]) > p.max_accel_ms2
-        over |= tang > p.max_accel_ms2 - speed * (p.max_accel_ms2 / p.max_speed_ms)
+        fv = speed * (p.max_accel_ms2 / p.max_speed_ms)
+        fv += tang
         artefact = removed if removed is not None and removed.any() else None
         if kept is None:
             kept = v
-        if over.any():
+        # maxima decide the usual case (nothing beyond a bound) without a mask: no speed above the bound,
+        # no acceleration component above bound / sqrt 2 (so no vector above the bound), no F-v excess;
+        # fmax skips the NaN of players not seen
+        a_lim = p.max_accel_ms2
+        if speed.size and (np.fmax.reduce(speed, axis=None) > p.max_speed_ms or np.fmax.reduce(fv, axis=None) > a_lim
+                           or np.fmax.reduce(np.abs(acc), axis=None) > a_lim * _HALF_SQRT2):
+            a2 = acc[..., 0] * acc[..., 0]
+            a2 += acc[..., 1] * acc[..., 1]
+            over = speed > p.max_speed_ms
+            over |= a2 > a_lim * a_lim
+            over |= fv > a_lim
             if not full:
                 over &= v
-            full = False
-            v = v & ~over
-            artefact = over if artefact is None else artefact | over
+            if over.any():
+                full = False
+                v = v & ~over
+                artefact = over if artefact is None else artefact | over
         if not full:
             speed = np.where(v, speed, 0.0)
             tang = np.where(v, tang, 0.0)
