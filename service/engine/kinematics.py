@@ -35,7 +35,6 @@ from pacewire.engine import artefacts
 from pacewire.engine.arrays import BIG, gather, next_true, prev_true, shift_up
 from pacewire.engine.artefacts import ArtefactParams
 
-
 _HALF_SQRT2 = math.sqrt(0.5)
 
 
