@@ -4,7 +4,7 @@
   player the track re-locks onto him from 3-8 m away and glides back over 0.4-0.8 s,
   in steps that shrink (the first ones several metres per 0.1 s at 10 fps); plus
   0.15 m of position jitter on every sample.
-* ``camera_gaps``: the player leaves the camera view for 2-6 s every 30-90 s and is
+* ``camera_gaps``: the player leaves the camera view for 2-6 s every 45-120 s and is
   picked up again 3-8 m off, gliding back as above; the same jitter.
 * ``gnss``: GNSS units at 10 Hz: white jitter, a slowly wandering error of about 0.7 m
   RMS (position RMSE about 0.96 m for GPS; Linke et al. 2018, PLoS ONE 13:e0199519) and
@@ -30,7 +30,7 @@ SLIDE_EVERY_S = (12.0, 28.0)  # time between two re-acquisition slides of a play
 SLIDE_OFFSET_M = (3.0, 8.0)  # how far off the track re-locks
 SLIDE_GLIDE_S = (0.4, 0.8)  # how long it takes to glide back onto the player
 BROADCAST_JITTER_M = 0.15  # sd per axis of broadcast-derived positions
-CAMERA_GAP_EVERY_S = (30.0, 90.0)  # time between two camera-view gaps of a player
+CAMERA_GAP_EVERY_S = (45.0, 120.0)  # time between two camera-view gaps of a player (about 5 % of his time hidden)
 CAMERA_GAP_S = (2.0, 6.0)  # how long the player is out of the camera view
 GNSS_JITTER_M = 0.10  # sd per axis of the white part of a 10 Hz GNSS position
 GNSS_WANDER_M = 0.5  # sd per axis of the slowly wandering part (about 0.7 m RMS in all)

@@ -16,22 +16,29 @@ the whole is not a path a player can run. The rules, vectorised over rows
    settled: the path ``horizon`` samples later, extrapolated back with its own
    velocity. Samples from the re-entry up to the last one off that path
    (beyond a tolerance growing with time, below) are removed.
-3. **Excursions.** After a jump, the samples up to the first one back on the
-   path of the track before it (the anchor, the last settled sample, moved on
-   with its velocity) are removed, if that return comes within ``horizon``
-   samples of the anchor; an isolated outlier is the one-sample case. A jump
-   with no return is a split: the track starts afresh there, and its first
+3. **Excursions.** After a jump, the samples from it up to the first one back on
+   the path of the track before it are removed, if that return comes within
+   ``horizon`` samples of the jump; an isolated outlier is the one-sample case.
+   The path starts at the anchor, the last settled sample at least half a
+   ``span`` before the jump (a track may drift off in short steps before it
+   jumps), with the anchor's velocity (mean over ``span`` samples). A sample is
+   back on it when the chord from the anchor runs at the mean of the
+   velocities either side (the anchor's, and its own over the ``span`` samples
+   after it): exact for a player speeding up or turning at a constant rate,
+   while a sample still gliding back is off twice over. It must also be off by
+   under half the jump's own offset: a track that stays offset (a multipath
+   reflection held) never returns. A jump with no return is a split: the
+   track starts afresh there (nothing is bridged across it), and its first
    samples are checked as a re-entry.
 
-"On the path" means within ``tolerance_m + tolerance_ms2 * t^2 / 2`` of the
-extrapolated position, t seconds from the anchor: position noise at the
-anchor, plus what a plausible change of velocity moves a player in t (common
-practice: a constant-velocity prediction with an acceleration bound). Velocity
-at an anchor is the mean over ``span`` samples. Without a velocity (no
+The tolerance is ``tolerance_m + tolerance_ms2 * t^2 / 2``, t seconds from
+the anchor: position noise, plus the error of velocities estimated over a few
+noisy samples and of changes of acceleration (common practice: a kinematic
+prediction with an acceleration allowance). Without an anchor velocity (no
 samples before the anchor), the return is judged by the step rule over the
 samples skipped.
 
-Each decision reads a bounded stretch of later samples (``horizon + span``), so
+Each decision reads a bounded stretch of later samples (``horizon + 2 span``), so
 it becomes final a bounded time after the samples it removes: ``open_at`` says
 from which row a player's decisions may still change.
 """
@@ -52,16 +59,21 @@ class ArtefactParams:
     reach: int  # a step is tested against a previous seen sample at most this many samples back
     step_speed_ms: float
     step_tolerance_m: float
-    horizon: int  # longest excursion from its anchor; anchor of a re-entry this far on
+    horizon: int  # longest excursion from its jump; anchor of a re-entry this far on
     span: int  # samples of a velocity estimate
     tolerance_m: float
     tolerance_ms2: float
     reentry_gap: int  # a gap at least this long before a sample makes it a re-entry
 
     @property
+    def lead(self) -> int:
+        """The anchor of an excursion lies at least this many samples before its jump (half a span)."""
+        return max(self.span // 2, 1)
+
+    @property
     def lookback(self) -> int:
         """Rows before a row that its decisions may read (anchor, its velocity, the step, the gap)."""
-        return self.horizon + 2 * self.span + self.reach + self.reentry_gap + 1
+        return self.horizon + 3 * self.span + self.reach + self.reentry_gap + 1
 
     @property
     def lookahead(self) -> int:
@@ -95,7 +107,15 @@ def classify(buf: np.ndarray, seen: np.ndarray, p: ArtefactParams, closed: bool,
     ex_removed, split, counted = _excursions(buf, ok, jump & ok, p, closed, frontier)
     removed |= ex_removed
     ok &= ~ex_removed
-    removed |= _settle(buf, ok, split, p, closed, frontier)
+    settled = _settle(buf, ok, split, p, closed, frontier)
+    if settled.any():
+        removed |= settled
+        ok &= ~settled
+        # the track starts afresh at the first sample kept after a split: nothing is bridged across it
+        sr, sc = np.nonzero(split & settled)
+        to = next_true(ok)[sr, sc]
+        split[sr, sc] = False
+        split[to[to < BIG], sc[to < BIG]] = True
     return Artefacts(removed, split, counted, frontier)
 
 
@@ -175,9 +195,12 @@ def _excursions(buf: np.ndarray, ok: np.ndarray, jump: np.ndarray, p: ArtefactPa
     jr, jc = np.nonzero(jump & (np.arange(n)[:, None] < frontier[None, :]))
     if not jr.size:
         return removed, split, counted
+    # anchor: the last settled sample at least ``lead`` before the jump (a track may drift off in steps
+    # short of a jump before it jumps, a reflection building up: those samples do not set the path; they
+    # stay, as deciding on them would need a longer lag)
     settled = ok & ~jump
-    a = shift_down(prev_true(settled), -1)[jr, jc]  # anchor: last settled sample before the jump
-    has_a = (a >= 0) & (jr - a <= p.horizon)
+    a = np.where(jr >= p.lead, prev_true(settled)[np.maximum(jr - p.lead, 0), jc], -1)
+    has_a = (a >= 0) & (jr - a <= p.horizon + p.lead)
     ac = np.maximum(a, 0)
     back = prev_true(ok)[np.maximum(ac - p.span, 0), jc]  # velocity sample, ``span`` before the anchor
     has_v = has_a & (ac >= p.span) & (back >= 0) & (ac - back <= 2 * p.span)
@@ -187,16 +210,41 @@ def _excursions(buf: np.ndarray, ok: np.ndarray, jump: np.ndarray, p: ArtefactPa
     k = np.arange(1, p.horizon + 1)[:, None]
     r = jr[None, :] + k  # (horizon, events): candidate returns
     rc = np.minimum(r, n - 1)
+    cols = jc[None, :]
     steps = (r - ac[None, :]).astype(float)
-    cand = (r < n) & ok[rc, jc[None, :]] & (steps <= p.horizon) & has_a[None, :]
-    off = norm(buf[rc, jc[None, :]] - pa[None] - vel[None] * (steps * p.dt)[..., None])
-    tol = np.where(has_v[None, :], _tolerance(p, steps), p.step_speed_ms * p.dt * steps + p.step_tolerance_m)
-    good = cand & (off <= tol)
+    cand = (r < n) & ok[rc, cols] & (steps <= p.horizon + p.lead) & has_a[None, :]
+    pr = buf[rc, cols]
+    t = (steps * p.dt)[..., None]
+    # velocity after a candidate, over the ``span`` samples that follow it
+    c = _first_ok(next_true(ok), r + p.span, cols)
+    has_vr = (c < BIG) & (c - r <= 2 * p.span)
+    cc = np.minimum(c, n - 1)
+    vr = (buf[cc, cols] - pr) / (np.maximum(cc - r, 1) * p.dt)[..., None]
+    # back on the path: the chord from the anchor runs at the mean of the velocities on either side (exact
+    # at a constant acceleration, so a player turning or speeding up is not an excursion), while a sample
+    # still gliding back is off it twice over (its offset and its glide point the same way along the chord)
+    # ... and it is back only once off by under half the jump's own offset: a track that stays offset
+    # (a multipath reflection held) never returns, it splits
+    t_jump = ((jr - ac) * p.dt)[:, None]
+    tol = np.minimum(_tolerance(p, steps), 0.5 * norm(buf[jr, jc] - pa - vel * t_jump)[None, :])
+    trap = norm(pr - pa[None] - 0.5 * (vel[None] + vr) * t) <= tol
+    fwd = norm(pr - pa[None] - vel[None] * t)
+    known_v = has_v[None, :]
+    good = cand & np.where(known_v & has_vr, trap, np.where(known_v, fwd <= tol,
+                                                              fwd <= p.step_speed_ms * p.dt * steps + p.step_tolerance_m))
+    # a candidate whose following samples may still come is undecided
+    unknown = cand & known_v & (c >= BIG) & (r + 2 * p.span >= n) & (not closed)
+    good &= ~unknown
     found = good.any(axis=0)
-    ret = jr + 1 + np.argmax(good, axis=0)
-    # a return read from a row whose status may change, an anchor there, or a search not over: open
-    waiting = (found & (ret >= frontier[jc])) | (has_a & (ac >= frontier[jc]))
+    first = np.where(found, np.argmax(good, axis=0), p.horizon)
+    ret = jr + 1 + first
+    undecided = unknown.any(axis=0) & (np.argmax(unknown, axis=0) < first)
+    # a return read from a row whose status may change (up to its velocity sample), an anchor there,
+    # a candidate still undecided, or a search not over: open
+    reads = np.maximum(ret, cc[np.minimum(first, p.horizon - 1), np.arange(len(jr))])
+    waiting = (found & (reads >= frontier[jc])) | (has_a & (ac >= frontier[jc])) | undecided
     waiting |= ~found & has_a & (ac + p.horizon >= n) & (not closed)
+    found &= ~undecided
     # jumps inside an earlier excursion, or at its return, belong to it
     ends = np.full((n, m), -1, np.int64)
     ends[jr[found], jc[found]] = ret[found]
