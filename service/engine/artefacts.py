@@ -230,8 +230,8 @@ def _excursions(buf: np.ndarray, ok: np.ndarray, jump: np.ndarray, p: ArtefactPa
     trap = norm(pr - pa[None] - 0.5 * (vel[None] + vr) * t) <= tol
     fwd = norm(pr - pa[None] - vel[None] * t)
     known_v = has_v[None, :]
-    good = cand & np.where(known_v & has_vr, trap, np.where(known_v, fwd <= tol,
-                                                              fwd <= p.step_speed_ms * p.dt * steps + p.step_tolerance_m))
+    skip = fwd <= p.step_speed_ms * p.dt * steps + p.step_tolerance_m  # no anchor velocity: the step rule
+    good = cand & np.where(known_v & has_vr, trap, np.where(known_v, fwd <= tol, skip))
     # a candidate whose following samples may still come is undecided
     unknown = cand & known_v & (c >= BIG) & (r + 2 * p.span >= n) & (not closed)
     good &= ~unknown
