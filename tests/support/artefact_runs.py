@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+import orjson
 
 from pacewire.analyze import analyze_folder
 from pacewire.config import load_settings
@@ -56,6 +57,58 @@ def analyse(folder: pathlib.Path, profile: str | None = None) -> Run:
     return Run(players, snap["health"])
 
 
+def positions(folder: pathlib.Path) -> tuple[list[str], list[np.ndarray]]:
+    """The recording's player ids and, per period, positions (frames, players, 2), NaN where not seen
+    (frames in frame-id order; the synthetic match has no frame missing here)."""
+    periods: dict[str, dict[int, dict[str, tuple[float, float]]]] = {}
+    for line in (folder / "tracking.jsonl").read_bytes().splitlines():
+        f = orjson.loads(line)
+        rows = periods.setdefault(f["period"], {})
+        rows[f["frame_id"]] = {p["id"]: (p["x"], p["y"]) for side in ("home", "away")
+                               for p in f["teams"][side]["players"]}
+    ids = sorted({pid for rows in periods.values() for row in rows.values() for pid in row})
+    out = []
+    for rows in periods.values():
+        xy = np.full((len(rows), len(ids), 2), np.nan)
+        for k, fid in enumerate(sorted(rows)):
+            for j, pid in enumerate(ids):
+                if pid in rows[fid]:
+                    xy[k, j] = rows[fid][pid]
+        out.append(xy)
+    return ids, out
+
+
+def floodlight_figures(folder: pathlib.Path, fps: int, players: list[str], hold_s: float) -> dict[str, dict]:
+    """floodlight 1.2.0 over the same recording: Butterworth low-pass (order 3, 1 Hz) on the positions, then
+    its distance and central-difference velocity; top speed as its one-sample peak and as the highest speed
+    held ``hold_s``; sprint distance where its speed is 7 m/s or more (Di Salvo et al. 2009)."""
+    from floodlight import XY
+    from floodlight.models.kinematics import DistanceModel, VelocityModel
+    from floodlight.transforms.filter import butterworth_lowpass
+    from pacewire.engine.topspeed import rolling_min
+
+    ids, periods = positions(folder)
+    hold = max(int(round(hold_s * fps)), 1)
+    out = {pid: {"distance_m": 0.0, "sprint_m": 0.0, "max_speed_ms": 0.0, "held_speed_ms": 0.0} for pid in players}
+    for xy in periods:
+        fl = butterworth_lowpass(XY(xy=xy.reshape(len(xy), -1), framerate=fps), order=3, Wn=1)
+        dm, vm = DistanceModel(), VelocityModel()
+        dm.fit(fl, difference="central")
+        vm.fit(fl, difference="central")
+        step, speed = dm.distance_covered().property, vm.velocity().property
+        for j, pid in enumerate(ids):
+            if pid not in out:
+                continue
+            v = np.nan_to_num(speed[:, j])
+            row = out[pid]
+            row["distance_m"] += float(np.nansum(step[:, j]))
+            row["sprint_m"] += float(np.nansum(np.where(v >= 7.0, step[:, j], 0.0)))
+            row["max_speed_ms"] = max(row["max_speed_ms"], float(v.max()))
+            if len(v) >= hold:
+                row["held_speed_ms"] = max(row["held_speed_ms"], float(rolling_min(v, hold).max()))
+    return out
+
+
 def compare(clean: Run, faulted: Run) -> dict[str, np.ndarray]:
     """Per outfield player (clean run's order): top-speed excess (m/s), distance ratio - 1,
     sprint-distance difference (m), and the faulted top speed and the clean sprint distance."""
@@ -77,11 +130,30 @@ def summary(d: dict[str, np.ndarray]) -> str:
             f"{np.median(sd):+6.1f} m median, {worst_sd:+6.1f} m worst")
 
 
+def floodlight_comparison(root: pathlib.Path, clean_folder: pathlib.Path, model: str, players: list[str],
+                          fps: int) -> str:
+    """floodlight's figures on the faulted recording against its own on the clean one, as a report line."""
+    hold = load_settings().speed.top_speed_hold_s
+    clean = floodlight_figures(clean_folder, fps, players, hold)
+    faulted = floodlight_figures(root / model, fps, players, hold)
+    peak = np.array([faulted[p]["max_speed_ms"] - clean[p]["max_speed_ms"] for p in players])
+    held = np.array([faulted[p]["held_speed_ms"] - clean[p]["held_speed_ms"] for p in players])
+    top = np.array([faulted[p]["max_speed_ms"] for p in players])
+    dist = np.array([faulted[p]["distance_m"] / clean[p]["distance_m"] - 1 for p in players])
+    spr = np.array([faulted[p]["sprint_m"] - clean[p]["sprint_m"] for p in players])
+    return (f"top speed {np.median(top):5.2f} median, {top.max():5.2f} max m/s; peak vs clean "
+            f"{np.median(peak):+5.2f} median, {peak.max():+5.2f} worst; held {hold:g} s vs clean "
+            f"{np.median(held):+5.2f} median, {held.max():+5.2f} worst m/s | distance {100 * np.median(dist):+5.1f}% "
+            f"median, {100 * dist[np.argmax(np.abs(dist))]:+5.1f}% worst | sprint {np.median(spr):+6.1f} m median, "
+            f"{spr[np.argmax(np.abs(spr))]:+6.1f} m worst")
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(prog="python -m tests.support.artefact_runs", description=__doc__)
     ap.add_argument("--minutes", type=float, default=12.0)
     ap.add_argument("--fps", type=int, default=10)
     ap.add_argument("--seed", type=int, default=2026)
+    ap.add_argument("--floodlight", action="store_true", help="also floodlight 1.2.0 on the same recordings")
     args = ap.parse_args(argv)
     with tempfile.TemporaryDirectory() as tmp:
         root = pathlib.Path(tmp)
@@ -96,6 +168,9 @@ def main(argv: list[str] | None = None) -> int:
             art = {"samples": faulted.health.get("artefact_samples")}
             print(f"{model:12} ({profile}, {len(d['distance_rel'])} players): {summary(d)}; "
                   f"artefact samples {art.get('samples', '-')}")
+            if args.floodlight:
+                fl = floodlight_comparison(root, clean_folder, model, sorted(cleans[profile].players), args.fps)
+                print(f"{'':12} floodlight: {fl}")
     return 0
 
 
