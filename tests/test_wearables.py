@@ -22,7 +22,7 @@ from pacewire.wire.cdf import SetupError, parse_setup
 from pacewire.wire.heart import HrDecoder
 from pacewire.wire.schema import json_schemas, strict
 from tests.support import cdf_build as cb
-from tests.support.trajectories import FPS, distance, ramped, speeds
+from tests.support.trajectories import FPS, distance, ramped
 from tests.support.wearables import (
     calibration,
     hr_figures,

@@ -85,6 +85,7 @@ def floodlight_figures(folder: pathlib.Path, fps: int, players: list[str], hold_
     from floodlight import XY
     from floodlight.models.kinematics import DistanceModel, VelocityModel
     from floodlight.transforms.filter import butterworth_lowpass
+
     from pacewire.engine.topspeed import rolling_min
 
     ids, periods = positions(folder)
