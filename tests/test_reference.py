@@ -487,6 +487,8 @@ def test_kloppy_sample_against_provider_figures(hawkeye, record_property):
     print(summary)
     record_property("kloppy_reference", summary)
     assert len(d_rel) == 22  # the sample has all 22 players throughout (kloppy's test_hawkeye)
+    # real optical data, clean: no sample of it is taken for a tracking artefact (no loss on clean data)
+    assert snap["health"]["jumps"] == 0 and snap["health"]["artefact_samples"] == 0
 
     # Distance: a 5% tolerance is the usual starting point; the provider integrates a 0.02 s difference of its own
     # smoothed track, pacewire a 1 s Savitzky-Golay fit of the same track, so the two differ only by
