@@ -50,7 +50,8 @@ def kinematic_params(settings: Settings, fps: int, profile: FeedProfile | None =
         fps, window_s=k.smooth_window_s, order=k.smooth_order, bridge_s=k.bridge_gap_s, still_ms=k.still_speed_ms,
         max_speed_ms=k.max_speed_ms, max_accel_ms2=k.max_accel_ms2, step_speed_ms=k.max_step_speed_ms,
         step_tolerance_ms=k.jump_tolerance_ms, excursion_s=k.excursion_s, velocity_span_s=k.velocity_span_s,
-        tolerance_m=k.excursion_tolerance_m, tolerance_ms2=k.excursion_accel_ms2, reentry_gap_s=k.reentry_gap_s)
+        tolerance_m=k.excursion_tolerance_m, tolerance_ms2=k.excursion_accel_ms2, reentry_gap_s=k.reentry_gap_s,
+        bridge_speed_ms=k.bridge_speed_ms)
 
 
 def heart_params(settings: Settings) -> HeartParams:

@@ -12,7 +12,8 @@ Steps, each vectorised over slots and players:
    and re-entry slides are removed (the gap they leave is bridged like any
    other); a jump with no return splits the track.
 2. bridging: gaps up to ``bridge_gap_s`` between kept samples are filled by
-   linear interpolation unless a split lies at their end (common practice).
+   linear interpolation unless a split lies at their end (common practice) or
+   the line across runs faster than ``bridge_speed_ms``.
 3. runs of valid samples shorter than the smoothing window are dropped.
 4. centred Savitzky-Golay fit (window ~1 s, order 3; derivatives from the same
    fit; Savitzky & Golay 1964); at the ends of a run the window is shifted
@@ -102,6 +103,7 @@ class KinematicParams:
     max_speed_ms: float  # a smoothed speed above this is no running (physical bound)
     max_accel_ms2: float  # nor a smoothed acceleration (vector length) above this
     artefacts: ArtefactParams
+    bridge_speed_ms: float = math.inf  # a gap is bridged only if the line across it is no faster than this
 
     @property
     def half(self) -> int:
@@ -121,8 +123,8 @@ class KinematicParams:
     @staticmethod
     def make(fps: int, *, window_s: float, order: int, bridge_s: float, still_ms: float, max_speed_ms: float,
              max_accel_ms2: float, step_speed_ms: float, step_tolerance_ms: float, excursion_s: float,
-             velocity_span_s: float, tolerance_m: float, tolerance_ms2: float, reentry_gap_s: float
-             ) -> KinematicParams:
+             velocity_span_s: float, tolerance_m: float, tolerance_ms2: float, reentry_gap_s: float,
+             bridge_speed_ms: float = math.inf) -> KinematicParams:
         """From the settings' units (s, m/s) to samples at ``fps``."""
         w = max(int(round(window_s * fps)), order + 2)
         if w % 2 == 0:
@@ -132,7 +134,7 @@ class KinematicParams:
                              step_tolerance_m=step_tolerance_ms / fps, horizon=max(int(round(excursion_s * fps)), 1),
                              span=max(int(round(velocity_span_s * fps)), 1), tolerance_m=tolerance_m,
                              tolerance_ms2=tolerance_ms2, reentry_gap=max(int(round(reentry_gap_s * fps)), 1))
-        return KinematicParams(fps, w, order, bridge, still_ms, max_speed_ms, max_accel_ms2, art)
+        return KinematicParams(fps, w, order, bridge, still_ms, max_speed_ms, max_accel_ms2, art, bridge_speed_ms)
 
 
 @dataclass
@@ -276,8 +278,10 @@ class Track:
 
     def _bridge(self, buf: np.ndarray, kept: np.ndarray, split: np.ndarray, rows: np.ndarray
                 ) -> tuple[np.ndarray, np.ndarray]:
-        """Bridging gaps of up to ``bridge`` slots between kept samples: the mask of kept or
-        bridged slots, and the positions with bridged slots interpolated linearly."""
+        """Bridging gaps of up to ``bridge`` slots between kept samples whose straight line runs no
+        faster than ``bridge_speed_ms`` (a faster one is a position the track re-acquired off the player,
+        not a run): the mask of kept or bridged slots, and the positions with bridged slots interpolated
+        linearly. Decided from the gap's two ends alone, so it never changes once both are in."""
         n_rows = buf.shape[0]
         pk = prev_true(kept)
         nk = next_true(kept)
@@ -286,10 +290,11 @@ class Track:
         xyb = np.where(kept[..., None], buf, np.nan)  # removed samples are gaps
         if bridged.any():
             pk_c = np.clip(pk, 0, n_rows - 1)
-            frac = ((rows - pk_c) / np.maximum(nk_c - pk_c, 1))[..., None]
+            span = np.maximum(nk_c - pk_c, 1)
             a = gather(buf, pk_c)
             b = gather(buf, nk_c)
-            xyb = np.where(bridged[..., None], a + (b - a) * frac, xyb)
+            bridged &= np.hypot(*np.moveaxis(b - a, -1, 0)) <= self.p.bridge_speed_ms * span * self.dt
+            xyb = np.where(bridged[..., None], a + (b - a) * (rows - pk_c)[..., None] / span[..., None], xyb)
         return kept | bridged, xyb
 
     def _doubt(self, kept: np.ndarray, valid1: np.ndarray, run_s: np.ndarray, frontier: np.ndarray) -> np.ndarray:

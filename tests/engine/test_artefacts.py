@@ -94,6 +94,27 @@ def test_a_reentry_slide_after_a_camera_gap_is_removed():
     assert faulted["health"]["artefacts"]["h1"]["samples"] >= 3
 
 
+def test_a_gap_is_bridged_only_at_a_speed_a_player_can_hold():
+    # jogging at 2 m/s, out of the camera view for 2 s, picked up again either where the run took him
+    # or 18 m further on and tracked from there (a re-detection off the player that then holds): the
+    # straight line across the second gap runs at about 11 m/s, below the 12.5 m/s physical bound and
+    # within the step rule's reach, so only the bridge rule (config bridge_speed_ms, 9 m/s) keeps it
+    # from becoming the player's top speed
+    speed = np.full(400, 2.0)
+    xy = lap(speed)[:, None, :]
+    xy[200:220] = np.nan
+    off = xy.copy()
+    off[220:] = lap(speed, phase=18.0 / RADIUS)[220:, None, :]
+    chord = [float(np.hypot(*(x[220, 0] - x[199, 0]))) / 2.1 for x in (xy, off)]
+    assert chord[0] < 2.5 and 9.0 < chord[1] < 12.5  # the set-up does what it says
+    seen, moved = player(run(xy)), player(run(off))
+    assert seen["coverage"] == pytest.approx(1.0)  # a plausible gap is bridged (broadcast: up to 3 s)
+    assert seen["max_speed_ms"] == pytest.approx(2.0, abs=0.1)
+    assert moved["max_speed_ms"] == pytest.approx(2.0, abs=0.1)  # not 11 m/s
+    assert moved["sprint_m"] == 0.0 and moved["hsr_m"] == 0.0
+    assert moved["coverage"] < seen["coverage"] - 0.04  # the 2 s not seen are not covered (of 40 s)
+
+
 def test_a_held_offset_is_split_off_never_bridged_as_running():
     # a GNSS receiver on a reflected signal: the fix jumps 1.5 m ahead of the runner, stays 2 s, eases back
     speed = ramped([(8.0, 60.0)], tau_s=1.0, fps=FPS)
