@@ -116,9 +116,13 @@ def test_the_broadcast_tracking_sample_in_kloppys_wheel_gives_top_speeds_a_playe
     outfield = [p for p in snap["players"].values() if not p["is_goalkeeper"] and (p["minutes"] or 0) >= 10]
     assert len(outfield) >= 20
     top = np.array([p["max_speed_ms"] for p in outfield])
-    # elite footballers' peak speeds are about 9-10 m/s (common practice); measured 7.8-9.7, median 8.6
-    assert top.max() <= 10.5 and np.median(top) <= 9.5
     health = snap["health"]
+    print(f"\nSkillCorner sample (kloppy 3.19.1), {len(outfield)} outfield players >= 10 min: top speed "
+          f"{top.min():.2f}-{top.max():.2f} m/s, median {np.median(top):.2f}; coverage median "
+          f"{np.median([p['coverage'] for p in outfield]):.2f}; jumps {health['jumps']}, artefact samples "
+          f"{health['artefact_samples']} ({health['artefact_s']} s)")
+    # elite footballers' peak speeds are about 9-10 m/s (common practice); measured 7.0-9.7, median 8.6
+    assert top.max() <= 10.5 and np.median(top) <= 9.5
     assert health["artefact_samples"] > 0 and health["jumps"] > 0  # counted, not hidden
     # the camera shows part of the pitch: every player is seen about half his time, and marked so
     assert max(p["coverage"] for p in outfield) < 0.9
