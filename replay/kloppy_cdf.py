@@ -31,6 +31,9 @@ CDF_PERIODS = {1: "first_half", 2: "second_half", 3: "first_half_extratime", 4: 
                5: "shootout"}
 # kloppy position groups → CDF position_group values.
 CDF_POSITION_GROUPS = {"Goalkeeper": "GK", "Defender": "DF", "Midfielder": "MF", "Attacker": "FW"}
+# kloppy providers whose tracking is derived from the broadcast video (SkillCorner's own description of its
+# data): the recording names the broadcast feed profile.
+BROADCAST_PROVIDERS = frozenset({"skillcorner"})
 # Used when a provider gives periods relative to an unknown kick-off (a fictional date).
 _FALLBACK_KICKOFF = datetime(2000, 1, 1, tzinfo=UTC)
 
@@ -177,6 +180,11 @@ def meta(dataset: TrackingDataset, match_id: str | None = None) -> dict[str, Any
             entry["end_time"] = _stamp(_utc(per.end_timestamp))
         periods.append(entry)
     kickoff = _utc(md.periods[0].start_timestamp) if md.periods else _FALLBACK_KICKOFF
+    provider = str(md.provider.value if md.provider else "unknown")
+    tracking: dict[str, Any] = {"version": "unknown", "name": provider, "fps": int(round(md.frame_rate)),
+                                "collection_timing": "post_match"}
+    if provider in BROADCAST_PROVIDERS:
+        tracking["feed_profile"] = "broadcast"  # its smoothing and artefact settings (config/default.toml)
     teams = {side: {"id": str(t.team_id), "name": t.name, "players": _players(t)} for side, t in _sides(dataset)}
     return {
         "competition": {"id": "unknown"}, "season": {"id": "unknown"},
@@ -184,8 +192,7 @@ def meta(dataset: TrackingDataset, match_id: str | None = None) -> dict[str, Any
         "teams": teams,
         "venue": {"id": "unknown", "pitch_length": length, "pitch_width": width},
         "meta": {"video": None,
-                 "tracking": {"version": "unknown", "name": str(md.provider.value if md.provider else "unknown"),
-                              "fps": int(round(md.frame_rate)), "collection_timing": "post_match"},
+                 "tracking": tracking,
                  "event": None, "landmarks": None, "meta": None, "ball": None, "cdf": {"version": CDF_VERSION}},
     }
 

@@ -12,6 +12,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
 from pacewire.errors import PacewireError, describe_validation
+from pacewire.wire.cdf import FeedProfile
 from pacewire.wire.datafile import read_data_file
 from pacewire.wire.rules import AlertsSection  # alert rules arrive as files and HTTP bodies: wire models
 
@@ -97,18 +98,55 @@ def load_heart_profiles(path: str | Path) -> HeartProfiles:
         raise ConfigError(f"invalid heart-rate profiles file {path}: {describe_validation(exc, limit=5)}") from None
 
 
+class KinematicsValues(_Section):
+    """Smoothing and artefact settings of one feed profile (every key optional: what it overrides)."""
+
+    smooth_window_s: float | None = Field(None, gt=0, le=5)
+    smooth_order: int | None = Field(None, ge=1, le=5)
+    bridge_gap_s: float | None = Field(None, ge=0, le=10)
+    bridge_speed_ms: float | None = Field(None, gt=0, le=50)
+    max_step_speed_ms: float | None = Field(None, gt=0, le=50)
+    jump_tolerance_ms: float | None = Field(None, ge=0, le=100)
+    still_speed_ms: float | None = Field(None, ge=0, le=1)
+    max_speed_ms: float | None = Field(None, gt=0, le=50)
+    max_accel_ms2: float | None = Field(None, gt=0, le=100)
+    excursion_s: float | None = Field(None, gt=0, le=5)
+    velocity_span_s: float | None = Field(None, gt=0, le=2)
+    excursion_tolerance_m: float | None = Field(None, ge=0, le=10)
+    excursion_accel_ms2: float | None = Field(None, ge=0, le=50)
+    reentry_gap_s: float | None = Field(None, gt=0, le=60)
+
+
 class Kinematics(_Section):
+    feed_profile: FeedProfile
     smooth_window_s: float = Field(gt=0, le=5)
     smooth_order: int = Field(ge=1, le=5)
     bridge_gap_s: float = Field(ge=0, le=10)
+    bridge_speed_ms: float = Field(gt=0, le=50)
     max_step_speed_ms: float = Field(gt=0, le=50)
-    jump_tolerance_m: float = Field(ge=0, le=10)
+    jump_tolerance_ms: float = Field(ge=0, le=100)
     still_speed_ms: float = Field(ge=0, le=1)
+    max_speed_ms: float = Field(gt=0, le=50)
+    max_accel_ms2: float = Field(gt=0, le=100)
+    excursion_s: float = Field(gt=0, le=5)
+    velocity_span_s: float = Field(gt=0, le=2)
+    excursion_tolerance_m: float = Field(ge=0, le=10)
+    excursion_accel_ms2: float = Field(ge=0, le=50)
+    reentry_gap_s: float = Field(gt=0, le=60)
+    profiles: dict[FeedProfile, KinematicsValues] = Field(default_factory=dict)
+
+    def resolved(self, profile: FeedProfile | None = None) -> Kinematics:
+        """These settings with ``profile``'s table (default: ``feed_profile``'s) applied over them."""
+        name = profile or self.feed_profile
+        over = self.profiles.get(name)
+        changes = over.model_dump(exclude_none=True) if over is not None else {}
+        return self.model_copy(update={**changes, "feed_profile": name})
 
 
 class Speed(_Section):
     hsr_ms: float = Field(gt=0, le=15)
     sprint_ms: float = Field(gt=0, le=15)
+    top_speed_hold_s: float = Field(ge=0, le=5)
 
     @model_validator(mode="after")
     def _ordered(self) -> Speed:

@@ -15,23 +15,21 @@ from pacewire.engine.health import HealthParams
 from pacewire.engine.heart import HeartParams, HeartProfile
 from pacewire.engine.kinematics import KinematicParams
 from pacewire.engine.params import MatchParams, SpeedZones, WindowParams
-from pacewire.engine.types import PERIODS, Roster
+from pacewire.engine.types import PERIODS, FeedProfile, Roster
 
 
 def match_params(settings: Settings, roster: Roster) -> MatchParams:
     """The parameters of a :class:`pacewire.engine.match.MatchState` for ``roster``."""
     s = settings
     fps = roster.fps
-    k = s.kinematics
     return MatchParams(
-        kinematics=KinematicParams.make(fps, k.smooth_window_s, k.smooth_order, k.bridge_gap_s, k.max_step_speed_ms,
-                                        k.jump_tolerance_m, k.still_speed_ms),
+        kinematics=kinematic_params(s, fps, roster.feed_profile),
         exertion=ExertionParams(
             fps=fps, hsr_ms=s.speed.hsr_ms, sprint_ms=s.speed.sprint_ms,
             speed_min_n=int(round(s.efforts.speed_min_s * fps)), accel_min_n=int(round(s.efforts.accel_min_s * fps)),
             accel_ms2=s.efforts.accel_ms2, decel_ms2=s.efforts.decel_ms2, model=s.metabolic.model,
             kt=s.metabolic.kt, air_k=s.metabolic.air_k, flat_cost=s.metabolic.flat_cost_jkgm,
-            high_power_wkg=s.metabolic.high_power_wkg,
+            high_power_wkg=s.metabolic.high_power_wkg, top_hold_n=max(int(round(s.speed.top_speed_hold_s * fps)), 1),
         ),
         health=HealthParams(s.health.rate_window_s, s.health.min_rate_share, s.health.max_dropout,
                             s.health.max_lag_s, s.health.stall_s, fast_feed_ratio=s.health.fast_feed_ratio,
@@ -44,6 +42,17 @@ def match_params(settings: Settings, roster: Roster) -> MatchParams:
         period_min=tuple(int(getattr(s.periods, name)) for name in PERIODS),
         on_pitch_timeout_s=s.health.on_pitch_timeout_s,
     )
+
+
+def kinematic_params(settings: Settings, fps: int, profile: FeedProfile | None = None) -> KinematicParams:
+    """Smoothing and artefact rules at ``fps`` for a feed profile (None: the config's ``feed_profile``)."""
+    k = settings.kinematics.resolved(profile)
+    return KinematicParams.make(
+        fps, window_s=k.smooth_window_s, order=k.smooth_order, bridge_s=k.bridge_gap_s, still_ms=k.still_speed_ms,
+        max_speed_ms=k.max_speed_ms, max_accel_ms2=k.max_accel_ms2, step_speed_ms=k.max_step_speed_ms,
+        step_tolerance_ms=k.jump_tolerance_ms, excursion_s=k.excursion_s, velocity_span_s=k.velocity_span_s,
+        tolerance_m=k.excursion_tolerance_m, tolerance_ms2=k.excursion_accel_ms2, reentry_gap_s=k.reentry_gap_s,
+        bridge_speed_ms=k.bridge_speed_ms)
 
 
 def heart_params(settings: Settings) -> HeartParams:

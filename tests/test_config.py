@@ -39,6 +39,10 @@ def test_user_file_overrides_one_key(tmp_path):
     ("[zones]\nedges_ms = [4.0, 2.0]\n", "zones"),
     ("[speed]\nhrs_ms = 5.0\n", "speed.hrs_ms"),
     ('[windows]\nlast_min = "five"\n', "windows.last_min"),
+    ('[kinematics]\nfeed_profile = "satellite"\n', "kinematics.feed_profile"),
+    ("[kinematics.profiles.broadcast]\nsmooth_widow_s = 1.0\n", "kinematics.profiles.broadcast.smooth_widow_s"),
+    ("[kinematics.profiles.drone]\nsmooth_window_s = 1.0\n", "kinematics.profiles.drone"),
+    ("[kinematics]\njump_tolerance_m = 0.5\n", "kinematics.jump_tolerance_m"),
 ])
 def test_invalid_value_names_the_key(tmp_path, text, key):
     f = tmp_path / "bad.toml"
@@ -47,6 +51,17 @@ def test_invalid_value_names_the_key(tmp_path, text, key):
         load_settings(f)
     assert key in str(exc.value)
     assert str(f) in str(exc.value)
+
+
+def test_a_feed_profile_overrides_only_what_it_names(tmp_path):
+    f = tmp_path / "club.toml"
+    f.write_text('[kinematics]\nsmooth_window_s = 1.2\n[kinematics.profiles.broadcast]\nbridge_gap_s = 2.5\n')
+    k = load_settings(f).kinematics
+    # the base table is the optical profile (config/default.toml); a profile's table wins over it
+    assert k.resolved("optical").smooth_window_s == 1.2 and k.resolved("optical").bridge_gap_s == 1.0
+    b = k.resolved("broadcast")
+    assert (b.smooth_window_s, b.bridge_gap_s, b.smooth_order, b.feed_profile) == (1.2, 2.5, 2, "broadcast")
+    assert k.resolved().feed_profile == "optical"
 
 
 def test_unreadable_or_broken_file(tmp_path):

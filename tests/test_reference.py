@@ -413,8 +413,14 @@ def hawkeye():
     res = dec.decode_lines([orjson.dumps(f) for f in frames])
     state.ingest(res)
     state.finish()
+    speeds: dict[str, np.ndarray] = {}  # the provider's own per-sample speed, m/s (0 where it gives none)
+    for k, fr in enumerate(metric.frames):
+        for player, pdata in fr.players_data.items():
+            row = speeds.setdefault(str(player.player_id), np.zeros(len(metric.frames)))
+            row[k] = pdata.speed if pdata.speed is not None else 0.0
     return {"meta": meta, "frames": frames, "decode": res, "snapshot": build_snapshot(state),
-            "provider": kc.provider_figures(metric), "centroids": centroids, "n_frames": len(dataset.frames)}
+            "provider": kc.provider_figures(metric), "provider_speeds": speeds, "centroids": centroids,
+            "n_frames": len(dataset.frames), "fps": meta["meta"]["tracking"]["fps"]}
 
 
 def test_kloppy_sample_converts_to_valid_cdf(hawkeye, tmp_path: Path):
@@ -481,6 +487,8 @@ def test_kloppy_sample_against_provider_figures(hawkeye, record_property):
     print(summary)
     record_property("kloppy_reference", summary)
     assert len(d_rel) == 22  # the sample has all 22 players throughout (kloppy's test_hawkeye)
+    # real optical data, clean: no sample of it is taken for a tracking artefact (no loss on clean data)
+    assert snap["health"]["jumps"] == 0 and snap["health"]["artefact_samples"] == 0
 
     # Distance: a 5% tolerance is the usual starting point; the provider integrates a 0.02 s difference of its own
     # smoothed track, pacewire a 1 s Savitzky-Golay fit of the same track, so the two differ only by
@@ -488,13 +496,23 @@ def test_kloppy_sample_against_provider_figures(hawkeye, record_property):
     assert np.all(np.abs(d_rel) < 0.02)
     assert tot_e == pytest.approx(tot_p, rel=0.01)
 
-    # Max speed: the provider's per-sample speed is that 0.02 s difference; pacewire's 1 s centred
-    # window (config/default.toml, common practice) averages over a brief peak, so it reads lower, by more the
-    # shorter the peak (measured -1.5% to -7%, worst on peaks lasting ~0.2 s). Allowed: down to
-    # -10% (or -0.3 m/s for a slow goalkeeper) and never more than 2% above (smoothing cannot raise a
-    # peak; 2% for position noise); the mean shortfall under 6%.
-    for (_pid, _j, _t, seen, _dp, _de, vp, ve) in rows:
+    # Max speed: pacewire's top speed is the highest speed held 0.5 s (config/default.toml, speed.top_speed_hold_s),
+    # the provider's per-sample maximum a one-sample peak of its 0.02 s difference, which a speed held over
+    # 0.5 s of a 1 s fit never exceeds (2% for position noise) and reads below by more the shorter the peak
+    # (measured -3% to -13%). Held against held (the provider's own speeds through the same 0.5 s hold), the
+    # two agree: measured -1.0% to +4.3% per player, mean +1.4% (the provider's noisier speed dips more, so
+    # its held value reads a little lower). Allowed: within 6% per player, the mean within 3%.
+    hold = int(round(load_settings().speed.top_speed_hold_s * hawkeye["fps"]))
+    held_rel = []
+    for (pid, _j, _t, seen, _dp, _de, vp, ve) in rows:
         if seen == n_frames:
             assert ve <= vp * 1.02
-            assert ve >= vp - max(0.10 * vp, 0.3)
-    assert -0.06 < v_rel.mean() < 0.0
+            held_p = float(np.minimum.reduce(np.lib.stride_tricks.sliding_window_view(
+                hawkeye["provider_speeds"][pid], hold), axis=-1).max())
+            held_rel.append(ve / held_p - 1)
+    held_rel = np.array(held_rel)
+    print(f"top speed held {hold} samples vs the provider's held the same: mean {100 * held_rel.mean():+.2f}% "
+          f"(range {100 * held_rel.min():+.2f}..{100 * held_rel.max():+.2f}%)")
+    assert np.all(np.abs(held_rel) < 0.06)
+    assert abs(held_rel.mean()) < 0.03
+    assert v_rel.mean() < 0.0  # below the one-sample peaks on average

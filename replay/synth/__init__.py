@@ -45,6 +45,7 @@ Modules, in the order the match is made
 * ``steering``   the second-order steering model that integrates them into paths
 * ``match``      SynthMatch and simulate_match, which puts it all together
 * ``faults``     the injected feed faults (faults.json)
+* ``artefacts``  tracking artefacts, off by default: re-acquisition slides, camera-view gaps, GNSS errors
 * ``wearables``  the wearables variant: units, heart rate and its faults, GNSS
 * ``documents``  meta.json and match.json
 * ``lines``      the JSON lines of tracking.jsonl and hr.jsonl

@@ -26,6 +26,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--no-duplicates", action="store_true", help="no duplicated frames")
     p.add_argument("--no-out-of-order", action="store_true", help="no swapped adjacent frames")
     p.add_argument("--no-jumps", action="store_true", help="no single-frame position jumps")
+    p.add_argument("--slides", action="store_true",
+                   help="add re-acquisition slides and broadcast jitter (tracking artefacts, off by default)")
+    p.add_argument("--camera-gaps", action="store_true",
+                   help="add camera-view gaps of 2-6 s ending in a slide at re-entry, and broadcast jitter")
+    p.add_argument("--gnss-errors", action="store_true",
+                   help="add GNSS jitter, a wandering position error and multipath excursions")
     p.add_argument("--no-compress", action="store_true", help="write tracking.jsonl instead of .jsonl.gz")
     p.add_argument("--wearables", action="store_true",
                    help="the one-team GNSS + heart-rate variant (docs/wearables.md): home players only with "
@@ -41,7 +47,8 @@ def main(argv: list[str] | None = None) -> int:
     folder = write_match(args.out, minutes=args.minutes, fps=args.fps, seed=args.seed, faults=not args.no_faults,
                          compress=not args.no_compress, outage=not args.no_outage, dropouts=not args.no_dropouts,
                          duplicates=not args.no_duplicates, out_of_order=not args.no_out_of_order,
-                         jumps=not args.no_jumps, wearables=args.wearables)
+                         jumps=not args.no_jumps, wearables=args.wearables, slides=args.slides,
+                         camera_gaps=args.camera_gaps, gnss=args.gnss_errors)
     n_faults = len(orjson.loads((folder / "faults.json").read_bytes())["faults"])
     kind = "the wearables variant in " if args.wearables else ""
     print(f"wrote {kind}{folder} ({args.minutes:g} min at {args.fps} fps, seed {args.seed}, {n_faults} faults) "

@@ -4,6 +4,10 @@ faults.json with its kind, period, time, duration_s, frame_ids and player_id.
 
 When the outage is on, its slots are simply not written, so ``frame_id`` skips
 over it (timestamps jump by the same amount).
+
+Tracking artefacts (off by default, see :mod:`pacewire.replay.synth.artefacts`)
+move the written positions off the players (``FaultPlan.shift``) or hide them
+(camera-view gaps); they are listed in faults.json the same way.
 """
 
 from __future__ import annotations
@@ -13,6 +17,8 @@ from typing import Any
 
 import numpy as np
 
+from pacewire.replay.synth import artefacts as models
+from pacewire.replay.synth.artefacts import ArtefactPlanner
 from pacewire.replay.synth.match import SynthMatch
 
 OUTAGE_S = 20.0
@@ -29,6 +35,7 @@ class FaultPlan:
     duplicates: set[int] = field(default_factory=set)
     swaps: set[int] = field(default_factory=set)  # frame f: written as f+1 then f
     records: list[FaultRecord] = field(default_factory=list)
+    shift: np.ndarray | None = None  # (slots, 22) complex, m: tracking artefacts added to the written positions
 
 
 def fault_record(kind: str, period: str, time: str, duration_s: float, frame_ids: list[int],
@@ -49,8 +56,11 @@ def _fault_counts(minutes: float) -> dict[str, int]:
 
 
 def plan_faults(rng: np.random.Generator, m: SynthMatch, minutes: float, *, outage: bool, dropouts: bool,
-                duplicates: bool, out_of_order: bool, jumps: bool) -> FaultPlan:
-    """Choose non-overlapping fault windows (at least 1 s apart, away from period edges and subs)."""
+                duplicates: bool, out_of_order: bool, jumps: bool, slides: bool = False, camera_gaps: bool = False,
+                gnss: bool = False) -> FaultPlan:
+    """Choose non-overlapping fault windows (at least 1 s apart, away from period edges and subs);
+    then the tracking artefacts switched on (``slides``, ``camera_gaps``, ``gnss``; see
+    :mod:`pacewire.replay.synth.artefacts`), per player, clear of those windows."""
     planner = _Planner(rng, m)
     if outage:
         planner.outage()
@@ -63,8 +73,10 @@ def plan_faults(rng: np.random.Generator, m: SynthMatch, minutes: float, *, outa
         planner.duplicates(counts["duplicate"])
     if out_of_order:
         planner.out_of_order(counts["out_of_order"])
+    if slides or camera_gaps or gnss:
+        planner.artefacts(slides=slides, camera_gaps=camera_gaps, gnss=gnss)
     fp = planner.plan
-    fp.records.sort(key=lambda r: (r["frame_ids"][0], r["kind"]))
+    fp.records.sort(key=lambda r: (r["frame_ids"][0] if r["frame_ids"] else -1, r["kind"]))  # whole-match first
     return fp
 
 
@@ -103,6 +115,21 @@ class _Planner:
         """List a fault that starts at slot ``f`` (faults.json)."""
         self.plan.records.append(fault_record(kind, self.tl.period(f), self.ts[f], duration_s, frame_ids, player,
                                               **extra))
+
+    def artefacts(self, *, slides: bool, camera_gaps: bool, gnss: bool) -> None:
+        """The tracking artefacts switched on, into the plan's ``shift`` and ``hidden``."""
+        art = ArtefactPlanner(self.rng, self.m, self.busy, self.record)
+        if slides or camera_gaps:
+            art.jitter(models.BROADCAST_JITTER_M, "broadcast")
+        if slides:
+            art.slides()
+        if camera_gaps:
+            art.camera_gaps()
+        if gnss:
+            art.gnss()
+        self.plan.shift = art.shift
+        for f, cols in art.hidden.items():
+            self.plan.hidden.setdefault(f, set()).update(cols)
 
     def outage(self) -> None:
         """The feed outage (OUTAGE_S), in a half long enough for it, clear of the

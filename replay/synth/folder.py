@@ -30,7 +30,8 @@ from pacewire.replay.synth.wearables import gnss_calibration, plan_wearables
 
 def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int = 0, faults: bool = True,
                 compress: bool = True, *, outage: bool = True, dropouts: bool = True, duplicates: bool = True,
-                out_of_order: bool = True, jumps: bool = True, wearables: bool = False) -> pathlib.Path:
+                out_of_order: bool = True, jumps: bool = True, wearables: bool = False, slides: bool = False,
+                camera_gaps: bool = False, gnss: bool = False) -> pathlib.Path:
     """Write the fictional demo match as a CDF folder and return the folder.
 
     out: folder (created). minutes: total playing time (95 = 45+2 and 45+4 min;
@@ -38,7 +39,11 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
     ended). fps: frames per second (integer). seed: numpy Generator seed; the
     same arguments give byte-identical files. faults: master switch of the
     injected feed faults; each kind can also be switched off on its own
-    (outage, dropouts, duplicates, out_of_order, jumps). compress: write
+    (outage, dropouts, duplicates, out_of_order, jumps). The tracking artefacts
+    (replay/synth/artefacts.py) are off unless asked for: slides (re-acquisition
+    slides and broadcast jitter), camera_gaps (camera-view gaps with a slide at
+    re-entry, and the jitter), gnss (GNSS jitter, wandering error, multipath);
+    the master switch turns them off too. compress: write
     ``tracking.jsonl.gz`` (gzip level 6, no name or time in the header) instead
     of ``tracking.jsonl``.
 
@@ -56,20 +61,37 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
     rng = np.random.default_rng([seed, 1])
     on = bool(faults)
     fp = plan_faults(rng, m, minutes, outage=on and outage, dropouts=on and dropouts,
-                     duplicates=on and duplicates, out_of_order=on and out_of_order, jumps=on and jumps)
+                     duplicates=on and duplicates, out_of_order=on and out_of_order, jumps=on and jumps,
+                     slides=on and slides, camera_gaps=on and camera_gaps, gnss=on and gnss)
     for stale in ("tracking.jsonl", "tracking.jsonl.gz", "hr.jsonl", "hr.jsonl.gz"):
         (out / stale).unlink(missing_ok=True)
+    profile = feed_profile(on and (slides or camera_gaps), on and gnss)
     if wearables:
-        return write_wearables_files(out, m, fp, seed, minutes, compress, faults=on)
-    _write_json(out / "meta.json", build_meta(m))
+        return write_wearables_files(out, m, fp, seed, minutes, compress, faults=on, profile=profile)
+    _write_json(out / "meta.json", with_profile(build_meta(m), profile))
     _write_json(out / "match.json", build_sheet(m))
     _write_json(out / "faults.json", _faults_doc(m, seed, minutes, fp.records))
     write_lines(_tracking_path(out, compress), frame_lines(m, fp), compress)
     return out
 
 
+def feed_profile(broadcast: bool, gnss: bool) -> str | None:
+    """The feed profile the artefacts switched on stand for (written as meta.tracking.feed_profile,
+    a pacewire extension), None when none is: the recording then reads as the config says."""
+    if gnss:
+        return "wearable"
+    return "broadcast" if broadcast else None
+
+
+def with_profile(meta: dict[str, Any], profile: str | None) -> dict[str, Any]:
+    """The meta with ``meta.tracking.feed_profile`` set when ``profile`` is given."""
+    if profile is not None:
+        meta["meta"]["tracking"]["feed_profile"] = profile
+    return meta
+
+
 def write_wearables_files(out: pathlib.Path, m: SynthMatch, fp: FaultPlan, seed: int, minutes: float,
-                          compress: bool, faults: bool = True) -> pathlib.Path:
+                          compress: bool, faults: bool = True, profile: str | None = None) -> pathlib.Path:
     """Write the one-team GNSS + heart-rate variant of match ``m`` into ``out``.
 
     meta.json with ``venue.gnss_pitch``; match.json with heart-rate profiles and
@@ -90,7 +112,7 @@ def write_wearables_files(out: pathlib.Path, m: SynthMatch, fp: FaultPlan, seed:
     away = {player_id(AWAY, j) for j, _, _, _ in AWAY.squad}
     records = [r for r in fp.records if r["player_id"] not in away] + wear.records
     records.sort(key=lambda r: (r["time"], r["kind"]))
-    _write_json(out / "meta.json", build_wearables_meta(m, cal))
+    _write_json(out / "meta.json", with_profile(build_wearables_meta(m, cal), profile))
     _write_json(out / "match.json", build_wearables_sheet(m, wear.profiles))
     _write_json(out / "faults.json", _faults_doc(m, seed, minutes, records, variant="wearables"))
     gnss = PitchProjection.from_calibration(cal)

@@ -10,6 +10,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import orjson
 
+from pacewire.replay.synth.artefacts import clip_to_validator
 from pacewire.replay.synth.clubs import CLUBS, player_id
 from pacewire.replay.synth.documents import MATCH_ID
 from pacewire.replay.synth.faults import FaultPlan
@@ -33,8 +34,9 @@ def frame_lines(m: SynthMatch, fp: FaultPlan, block: int = 4096,
     """
     tl = m.timeline
     ts = tl.timestamps()
-    xs = np.round(m.positions.real, 2)
-    ys = np.round(m.positions.imag, 2)
+    pos = m.positions if fp.shift is None else clip_to_validator(m.positions + fp.shift)
+    xs = np.round(pos.real, 2)
+    ys = np.round(pos.imag, 2)
     for f, (col, p) in fp.jumps.items():
         xs[f, col] = round(p.real, 2)
         ys[f, col] = round(p.imag, 2)

@@ -15,6 +15,7 @@ G = 9.81  # m/s^2
 
 # Columns of the per-sample figure matrix (see ``Exertion.step``, which relies on HSR, SPRINT
 # and the four counts being adjacent and in this order).
+# VALID counts samples credited from the player's own kept samples or bridges over plain gaps (coverage).
 DIST, HSR, SPRINT, ENERGY, HIPOW, N_HSR, N_SPR, N_ACC, N_DEC, VALID, SEEN = range(11)
 N_FIG = 11
 MICRO = 1_000_000
@@ -54,6 +55,7 @@ class ExertionParams:
     air_k: float
     flat_cost: float
     high_power_wkg: float
+    top_hold_n: int = 1  # samples a speed must be held to count as the top speed
 
 
 def minetti_cost(es: np.ndarray) -> np.ndarray:
@@ -182,10 +184,12 @@ class Exertion:
         self.unit_scale = self.unit_scale and bool((zone_scale == 1.0).all())
         self.efforts.grow(len(zone_scale))
 
-    def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray, full: bool = False
-             ) -> tuple[np.ndarray, np.ndarray]:
+    def step(self, valid: np.ndarray, seen: np.ndarray, speed: np.ndarray, accel: np.ndarray, full: bool = False,
+             artefact: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
         """Returns (figures (N_FIG, n, P) float64 holding integers: micro-units or counts,
         zone index (n, P)). ``full``: every sample valid and seen (the masks are not read).
+        ``artefact``: seen samples removed as tracking artefacts (None: none); a sample bridged over
+        one still credits its interpolated figures but not coverage.
         Figure-major, so each figure is one contiguous (n, P) array."""
         p = self.p
         n = speed.shape[0]
@@ -213,7 +217,10 @@ class Exertion:
         if full:
             fig[VALID:SEEN + 1] = 1.0
         else:
-            fig[VALID] = valid
+            if artefact is None:
+                fig[VALID] = valid
+            else:
+                np.greater(valid, artefact, out=fig[VALID])  # valid and not an artefact
             fig[SEEN] = seen
         zone = self.zone_edges.searchsorted(speed if self.unit_scale else speed * self.inv_scale, side="right")
         return fig, zone

@@ -1,34 +1,42 @@
-"""Streaming kinematics for one period: jumps, gap bridging, smoothing, speed, acceleration.
+"""Streaming kinematics for one period: artefacts, gap bridging, smoothing, speed, acceleration.
 
 The track is a deterministic function of the period's samples: feeding them one
 frame at a time, in blocks, or all at once gives the same figures. Samples
 become final a lag after they arrive: half the smoothing window when the data
-is clean, a little more while a player's gap or a jump is still undecided.
+is clean, more while a player's gap, jump, excursion or re-entry is still
+undecided (up to about the excursion horizon plus a velocity span).
 
 Steps, each vectorised over slots and players:
 
-1. jumps: a sample whose step from the previous sample is longer than
-   ``max_step_speed_ms`` allows (plus ``jump_tolerance_m`` for position noise)
-   is a jump. An isolated outlier (the steps into and
-   out of it are both jumps, the step over it is not) is removed; otherwise
-   the track splits there (common practice).
-2. bridging: gaps up to ``bridge_gap_s`` between seen samples are filled by
-   linear interpolation unless a split lies at their end (common practice).
+1. artefacts (:mod:`pacewire.engine.artefacts`): implausible steps, excursions
+   and re-entry slides are removed (the gap they leave is bridged like any
+   other); a jump with no return splits the track.
+2. bridging: gaps up to ``bridge_gap_s`` between kept samples are filled by
+   linear interpolation unless a split lies at their end (common practice) or
+   the line across runs faster than ``bridge_speed_ms``.
 3. runs of valid samples shorter than the smoothing window are dropped.
 4. centred Savitzky-Golay fit (window ~1 s, order 3; derivatives from the same
    fit; Savitzky & Golay 1964); at the ends of a run the window is shifted
    inside the run (one-sided fit), like scipy's ``mode="interp"``.
+5. physical bounds: a sample whose smoothed speed exceeds ``max_speed_ms`` or
+   whose acceleration (vector length) exceeds ``max_accel_ms2`` is a gap: it
+   credits no figure and counts as an artefact (never clipped to the bound).
 """
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Any
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-_BIG = np.iinfo(np.int64).max // 4
+from pacewire.engine import artefacts
+from pacewire.engine.arrays import BIG, gather, next_true, prev_true, shift_up
+from pacewire.engine.artefacts import ArtefactParams
+
+_HALF_SQRT2 = math.sqrt(0.5)
 
 
 def savgol_weights(window: int, order: int, deriv: int, delta: float, pos: int) -> np.ndarray:
@@ -91,26 +99,42 @@ class KinematicParams:
     window: int  # samples, odd
     order: int
     bridge: int  # longest bridged gap, samples
-    max_step_speed_ms: float
-    jump_tolerance_m: float
     still_speed_ms: float
+    max_speed_ms: float  # a smoothed speed above this is no running (physical bound)
+    max_accel_ms2: float  # nor a smoothed acceleration (vector length) above this
+    artefacts: ArtefactParams
+    bridge_speed_ms: float = math.inf  # a gap is bridged only if the line across it is no faster than this
 
     @property
     def half(self) -> int:
         return self.window // 2
 
-    @property
+    @cached_property
     def context(self) -> int:
         """Slots kept before the first unfinished slot so every rule sees its inputs."""
+        return self.clean_after + 2 * self.artefacts.lookback
+
+    @cached_property
+    def clean_after(self) -> int:
+        """Slots into a stretch after which a player seen in every slot with no jump has every run
+        decided: the cheap path (``Track._clean``) may take over."""
         return self.window + 3 * (self.bridge + 1) + 2
 
     @staticmethod
-    def make(fps: int, window_s: float, order: int, bridge_s: float, max_step: float, tolerance: float,
-             still: float) -> KinematicParams:
+    def make(fps: int, *, window_s: float, order: int, bridge_s: float, still_ms: float, max_speed_ms: float,
+             max_accel_ms2: float, step_speed_ms: float, step_tolerance_ms: float, excursion_s: float,
+             velocity_span_s: float, tolerance_m: float, tolerance_ms2: float, reentry_gap_s: float,
+             bridge_speed_ms: float = math.inf) -> KinematicParams:
+        """From the settings' units (s, m/s) to samples at ``fps``."""
         w = max(int(round(window_s * fps)), order + 2)
         if w % 2 == 0:
             w += 1
-        return KinematicParams(fps, w, order, int(round(bridge_s * fps)), max_step, tolerance, still)
+        bridge = int(round(bridge_s * fps))
+        art = ArtefactParams(dt=1.0 / fps, reach=bridge + 1, step_speed_ms=step_speed_ms,
+                             step_tolerance_m=step_tolerance_ms / fps, horizon=max(int(round(excursion_s * fps)), 1),
+                             span=max(int(round(velocity_span_s * fps)), 1), tolerance_m=tolerance_m,
+                             tolerance_ms2=tolerance_ms2, reentry_gap=max(int(round(reentry_gap_s * fps)), 1))
+        return KinematicParams(fps, w, order, bridge, still_ms, max_speed_ms, max_accel_ms2, art, bridge_speed_ms)
 
 
 @dataclass
@@ -118,65 +142,16 @@ class Final:
     """Samples that became final in one call, shaped (n, players)."""
 
     slot0: int  # slot of the first row
-    valid: np.ndarray  # bool: credited (seen or bridged, in a long-enough run)
-    seen: np.ndarray  # bool: a raw sample was kept (not a jump)
+    valid: np.ndarray  # bool: credited (seen or bridged, in a long-enough run, within the physical bounds)
+    seen: np.ndarray  # bool: a raw sample was kept (not an artefact)
     xy: np.ndarray  # (n, P, 2) smoothed position, m
     speed: np.ndarray  # m/s (0 where not valid)
     accel: np.ndarray  # m/s^2, tangential: d|v|/dt (0 where not valid)
-    full: bool = False  # every sample valid and seen (valid and seen are all True)
+    full: bool = False  # every sample valid and seen (valid and seen are all True), no artefact
+    artefact: np.ndarray | None = None  # bool: a seen sample removed as an artefact (None: none)
 
     def __len__(self) -> int:
         return int(self.valid.shape[0])
-
-
-def _prev_true(mask: np.ndarray) -> np.ndarray:
-    """Index of the last True at or before each row (per column), -1 if none."""
-    idx = np.where(mask, np.arange(mask.shape[0])[:, None], -1)
-    return np.maximum.accumulate(idx, axis=0)
-
-
-def _next_true(mask: np.ndarray) -> np.ndarray:
-    """Index of the first True at or after each row (per column), _BIG if none."""
-    idx = np.where(mask, np.arange(mask.shape[0])[:, None], _BIG)
-    return np.minimum.accumulate(idx[::-1], axis=0)[::-1]
-
-
-def _shift_down(a: np.ndarray, fill: int) -> np.ndarray:
-    out = np.empty_like(a)
-    out[0] = fill
-    out[1:] = a[:-1]
-    return out
-
-
-def _shift_up(a: np.ndarray, fill: int) -> np.ndarray:
-    out = np.empty_like(a)
-    out[-1] = fill
-    out[:-1] = a[1:]
-    return out
-
-
-def _gather(a: np.ndarray, idx: np.ndarray) -> np.ndarray:
-    """a[idx[i, p], p] for a (N, P) or (N, P, 2) array; idx must be in range."""
-    return _take(a, _flat(idx))
-
-
-def _flat(idx: np.ndarray) -> np.ndarray:
-    """Row indices (N, P) as flat indices into an (N, P, ...) array."""
-    return idx * idx.shape[1] + np.arange(idx.shape[1])
-
-
-def _take(a: np.ndarray, flat: np.ndarray) -> np.ndarray:
-    """_gather with flat indices (a gather used more than once); np.take is the fastest gather."""
-    if a.ndim == 3:
-        return np.take(a.reshape(-1, a.shape[2]), flat, axis=0)
-    return np.take(a.reshape(-1), flat)
-
-
-def _norm(d: np.ndarray) -> np.ndarray:
-    """Length of (..., 2) vectors: the sum of squares of np.linalg.norm, without a reduction over an axis of two."""
-    s = d[..., 0] * d[..., 0]
-    s += d[..., 1] * d[..., 1]
-    return np.sqrt(s, out=s)
 
 
 class Track:
@@ -200,6 +175,7 @@ class Track:
         self.fin = 0  # first slot not yet final
         self.jumps = 0  # jumps counted in final slots
         self.cut = 0  # slots below this belong to an earlier, closed stretch
+        self._seen_before = np.full(n_players, -BIG, np.int64)  # each player's last seen slot before buf, -BIG none
 
     # -- input -----------------------------------------------------------------
     def feed(self, slots: np.ndarray, xy: np.ndarray) -> list[Final]:
@@ -240,6 +216,7 @@ class Track:
         store = np.full((self._store.shape[0], self.n + k, 2), np.nan)
         store[:, : self.n] = self._store
         self._store = store
+        self._seen_before = np.concatenate([self._seen_before, np.full(k, -BIG, np.int64)])
         self.n += k
         if self._clean_cols is not None:
             self._clean_cols = np.concatenate([self._clean_cols, np.zeros(k, bool)])
@@ -271,8 +248,8 @@ class Track:
 
     # -- classification ----------------------------------------------------------
     def _classify(self, closed: bool) -> tuple[np.ndarray, ...]:
-        """Per buffered slot: valid mask, run bounds, bridged positions and the
-        first slot per player whose status may still change (``doubt``)."""
+        """Per buffered slot: valid mask, kept mask, run bounds, bridged positions, the first slot per
+        player whose status may still change (``doubt``), the jumps counted and the artefacts removed."""
         p = self.p
         buf = self.buf
         n_rows = buf.shape[0]
@@ -282,89 +259,61 @@ class Track:
         lo = max(self.cut - self.base, 0)
         if lo:
             seen[:lo] = False
-        prev_s, jprev, spike, split = self._jumps(buf, seen, rows)
-        kept = seen & ~spike
-        valid1, xyb = self._bridge(buf, kept, split, rows)
+        prior = np.where(self._seen_before >= max(self.cut, 0), self._seen_before - self.base, -BIG)
+        art = artefacts.classify(buf, seen, p.artefacts, closed, prior)
+        kept = seen & ~art.removed
+        valid1, xyb = self._bridge(buf, kept, art.split, rows)
 
         # runs: bounded by invalid slots and by splits
-        run_s = np.maximum(_prev_true(~valid1) + 1, _prev_true(split))
-        nsplit = _shift_up(_next_true(split), _BIG)
-        run_e = np.minimum(_next_true(~valid1) - 1, nsplit - 1)
+        run_s = np.maximum(prev_true(~valid1) + 1, prev_true(art.split))
+        nsplit = shift_up(next_true(art.split), BIG)
+        run_e = np.minimum(next_true(~valid1) - 1, nsplit - 1)
         run_e = np.minimum(run_e, n_rows - 1)
 
-        doubt = np.full(self.n, n_rows, np.int64) if closed else self._doubt(seen, prev_s, jprev, valid1, run_s)
+        doubt = np.full(self.n, n_rows, np.int64) if closed else self._doubt(kept, valid1, run_s, art.open_at)
         # a run's length counts only its decided part
         run_e_dec = np.minimum(run_e, doubt[None, :] - 1)
         valid = valid1 & (run_e_dec - run_s + 1 >= p.window) & (rows < doubt[None, :])
-        jumps = spike | split
-        return valid, kept, run_s, run_e, xyb, doubt, jumps
-
-    def _jumps(self, buf: np.ndarray, seen: np.ndarray, rows: np.ndarray
-               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """Per slot: the previous seen slot (-1 none), whether the step into it is a jump, isolated
-        outliers (``spike``: removed) and the other jumps (``split``: the track splits there)."""
-        p = self.p
-        n_rows = buf.shape[0]
-        reach = p.bridge + 1
-        vmax_step = p.max_step_speed_ms * self.dt
-        tol = p.jump_tolerance_m
-        prev_s = _shift_down(_prev_true(seen), -1)  # previous seen, strictly before
-        next_s = _shift_up(_next_true(seen), _BIG)  # next seen, strictly after
-        has_prev = seen & (prev_s >= 0) & (rows - prev_s <= reach)
-        prev_c = np.clip(prev_s, 0, n_rows - 1)
-        prev_f = _flat(prev_c)
-        buf_prev = _take(buf, prev_f)
-        step = _norm(buf - buf_prev)
-        jprev = has_prev & (step > vmax_step * (rows - prev_c) + tol)
-        has_next = seen & (next_s < _BIG) & (next_s - rows <= reach)
-        next_c = np.clip(next_s, 0, n_rows - 1)
-        jnext = has_next & _gather(jprev, next_c)
-        skip = _norm(_gather(buf, next_c) - buf_prev)
-        jskip = skip > vmax_step * (next_c - prev_c) + tol
-        spike = jprev & jnext & ~jskip
-        split = jprev & ~spike & ~_take(spike, prev_f)
-        return prev_s, jprev, spike, split
+        return valid, kept, run_s, run_e, xyb, doubt, art.jumps, art.removed
 
     def _bridge(self, buf: np.ndarray, kept: np.ndarray, split: np.ndarray, rows: np.ndarray
                 ) -> tuple[np.ndarray, np.ndarray]:
-        """Bridging gaps of up to ``bridge`` slots between kept samples: the mask of kept or
-        bridged slots, and the positions with bridged slots interpolated linearly."""
+        """Bridging gaps of up to ``bridge`` slots between kept samples whose straight line runs no
+        faster than ``bridge_speed_ms`` (a faster one is a position the track re-acquired off the player,
+        not a run): the mask of kept or bridged slots, and the positions with bridged slots interpolated
+        linearly. Decided from the gap's two ends alone, so it never changes once both are in."""
         n_rows = buf.shape[0]
-        pk = _prev_true(kept)
-        nk = _next_true(kept)
+        pk = prev_true(kept)
+        nk = next_true(kept)
         nk_c = np.clip(nk, 0, n_rows - 1)
-        bridged = ~kept & (pk >= 0) & (nk < _BIG) & (nk - pk - 1 <= self.p.bridge) & ~_gather(split, nk_c)
-        xyb = buf.copy()
+        bridged = ~kept & (pk >= 0) & (nk < BIG) & (nk - pk - 1 <= self.p.bridge) & ~gather(split, nk_c)
+        xyb = np.where(kept[..., None], buf, np.nan)  # removed samples are gaps
         if bridged.any():
             pk_c = np.clip(pk, 0, n_rows - 1)
-            frac = ((rows - pk_c) / np.maximum(nk_c - pk_c, 1))[..., None]
-            a = _gather(buf, pk_c)
-            b = _gather(buf, nk_c)
-            xyb = np.where(bridged[..., None], a + (b - a) * frac, xyb)
+            span = np.maximum(nk_c - pk_c, 1)
+            a = gather(buf, pk_c)
+            b = gather(buf, nk_c)
+            bridged &= np.hypot(*np.moveaxis(b - a, -1, 0)) <= self.p.bridge_speed_ms * span * self.dt
+            xyb = np.where(bridged[..., None], a + (b - a) * (rows - pk_c)[..., None] / span[..., None], xyb)
         return kept | bridged, xyb
 
-    def _doubt(self, seen: np.ndarray, prev_s: np.ndarray, jprev: np.ndarray, valid1: np.ndarray,
-               run_s: np.ndarray) -> np.ndarray:
+    def _doubt(self, kept: np.ndarray, valid1: np.ndarray, run_s: np.ndarray, frontier: np.ndarray) -> np.ndarray:
         """Per player, the first slot whose status future samples may still change (the slot count
-        when none): a trailing jump awaiting its successor, a trailing gap that may yet be bridged,
-        or a run too short so far."""
+        when none): an artefact verdict not yet final (``frontier``) and the gap before it, a trailing
+        gap that may yet be bridged, or a run too short so far."""
         p = self.p
-        n_rows = seen.shape[0]
-        reach = p.bridge + 1
-        doubt = np.full(self.n, n_rows, np.int64)
-        last_seen = _prev_true(seen)[-1]  # per player, -1 if none
+        n_rows = kept.shape[0]
         e = n_rows - 1
-        have = last_seen >= 0
-        ls = np.clip(last_seen, 0, e)
         cols = np.arange(self.n)
-        trailing = e - ls
-        # last seen sample is a jump still awaiting its successor
-        j_open = have & jprev[ls, cols] & (trailing < reach)
-        prev_of_ls = np.clip(prev_s[ls, cols], 0, e)
-        doubt = np.where(j_open, prev_of_ls + 1, doubt)
+        rows = np.arange(n_rows)[:, None]
+        last_k = prev_true(kept & (rows < frontier[None, :]))[-1]  # last decided kept slot, -1 if none
+        have = last_k >= 0
+        open_art = frontier < n_rows
+        # the gap after the last decided kept sample is bridged or not once the verdict is in
+        doubt = np.where(open_art & have, np.minimum(frontier, last_k + 1), frontier)
         # a short trailing gap may yet be bridged
-        gap_open = have & ~j_open & (trailing > 0) & (trailing <= p.bridge)
-        doubt = np.where(gap_open, ls + 1, doubt)
+        gap_open = ~open_art & have & (e - last_k > 0) & (e - last_k <= p.bridge)
+        doubt = np.where(gap_open, last_k + 1, doubt)
         # the run that reaches the doubt slot must already be long enough
         last_row = np.clip(doubt - 1, 0, e)
         in_run = valid1[last_row, cols] & (doubt > 0)
@@ -391,9 +340,9 @@ class Track:
                 return None
             out = self._smooth_clean(self.fin - self.base, stop - self.base, clean)
             self.fin = stop
-            self._trim()
+            self._trim(all_seen=self._clean_all)
             return out
-        valid, kept, run_s, run_e, xyb, doubt, jumps = self._classify(closed)
+        valid, kept, run_s, run_e, xyb, doubt, jumps, removed = self._classify(closed)
         if closed:
             stop = self.end
         else:
@@ -401,18 +350,23 @@ class Track:
             stop = min(self.end - h, self.base + (int(doubt.min()) if doubt.size else self.end - self.base) - h)
         if stop <= self.fin:
             return None
-        out = self._smooth(self.fin - self.base, stop - self.base, valid, kept, run_s, run_e, xyb, jumps)
+        out = self._smooth(self.fin - self.base, stop - self.base, valid, kept, run_s, run_e, xyb, jumps, removed)
         self.fin = stop
         if closed:
             self.cut = self.end
         self._trim()
         return out
 
-    def _trim(self) -> None:
-        """Keep only the context the rules need."""
+    def _trim(self, all_seen: bool = False) -> None:
+        """Keep only the context the rules need. ``all_seen``: every player was seen in every buffered slot."""
         keep_from = max(self.fin - self.p.context, self.base)
         if keep_from > self.base:
             drop = keep_from - self.base
+            if all_seen or not np.isnan(self.buf[drop - 1, :, 0]).any():  # usual: all seen in the last row dropped
+                self._seen_before.fill(self.base + drop - 1)
+            else:
+                last = prev_true(~np.isnan(self.buf[:drop, :, 0]))[-1]
+                self._seen_before = np.where(last >= 0, self.base + last, self._seen_before)
             self._off += drop
             self._rows -= drop
             self.base = keep_from
@@ -422,13 +376,13 @@ class Track:
         buffered slot with no jump, or not seen at all; the stretch started long
         enough ago. Returns the per-player seen mask, or None for the full rules."""
         p = self.p
-        if self.fin - p.half - max(self.cut, self.base) < 0 or self.end - self.cut < p.context:
+        if self.fin - p.half - max(self.cut, self.base) < 0 or self.end - self.cut < p.clean_after:
             return None
         buf = self.buf
         # only rows not checked before (and the one before them, for the step)
         start = max(self._clean_upto - 1 - self.base, 0) if self._clean_cols is not None else 0
         part = buf[start:]
-        lim = p.max_step_speed_ms * self.dt + p.jump_tolerance_m
+        lim = p.artefacts.step_speed_ms * self.dt + p.artefacts.step_tolerance_m
         d = part[1:] - part[:-1]  # unseen players give NaN, which compares False
         if start > 0 and self._clean_all and (not d.size or np.maximum.reduce(np.abs(d), axis=None) <= 0.7 * lim):
             # everyone seen in every slot so far, and no step component above 0.7 lim, so no step
@@ -480,7 +434,7 @@ class Track:
         return self._finish(r0, r1, np.broadcast_to(cols, (r1 - r0, self.n)), res)
 
     def _smooth(self, r0: int, r1: int, valid: np.ndarray, kept: np.ndarray, run_s: np.ndarray,
-                run_e: np.ndarray, xyb: np.ndarray, jumps: np.ndarray) -> Final:
+                run_e: np.ndarray, xyb: np.ndarray, jumps: np.ndarray, removed: np.ndarray) -> Final:
         p = self.p
         w, h = p.window, p.half
         rows = np.arange(r0, r1)[:, None]
@@ -501,12 +455,15 @@ class Track:
             ew = win[w0[ei, ep] + h, ep]  # (m, 2, W)
             ec = self._fit.coef[:, j[ei, ep], :]  # (3, m, W)
             res[:, ei, ep] = np.einsum("mcw,dmw->dmc", ew, ec)
-        return self._finish(r0, r1, v, res, kept[r0:r1])
+        return self._finish(r0, r1, v, res, kept[r0:r1], removed=removed[r0:r1])
 
     def _finish(self, r0: int, r1: int, v: np.ndarray, res: np.ndarray, kept: np.ndarray | None = None,
-                full: bool = False) -> Final:
+                full: bool = False, removed: np.ndarray | None = None) -> Final:
         """Speed and tangential acceleration (v·a/|v|, 0 below the still speed) from the fit.
-        ``full``: ``v`` is all True."""
+        ``full``: ``v`` is all True. A sample beyond the physical bounds is a gap, never a figure:
+        not credited, counted as an artefact. The bounds: speed ``max_speed_ms``; acceleration (vector
+        length) ``max_accel_ms2``; tangential acceleration ``max_accel_ms2 (1 - speed / max_speed_ms)``,
+        as a sprinter's largest acceleration falls linearly with speed (Samozino et al. 2016)."""
         p = self.p
         vel, acc = res[1], res[2]
         speed = np.hypot(vel[..., 0], vel[..., 1])
@@ -514,7 +471,30 @@ class Track:
         dot = vel[..., 0] * acc[..., 0]
         dot += vel[..., 1] * acc[..., 1]
         tang = np.zeros(speed.shape)
-        np.divide(dot, speed, out=tang, where=moving if full else v & moving)
+        np.divide(dot, speed, out=tang, where=moving)
+        fv = speed * (p.max_accel_ms2 / p.max_speed_ms)
+        fv += tang
+        artefact = removed if removed is not None and removed.any() else None
+        if kept is None:
+            kept = v
+        # maxima decide the usual case (nothing beyond a bound) without a mask: no speed above the bound,
+        # no acceleration component above bound / sqrt 2 (so no vector above the bound), no F-v excess;
+        # fmax skips the NaN of players not seen
+        a_lim = p.max_accel_ms2
+        if speed.size and (np.fmax.reduce(speed, axis=None) > p.max_speed_ms or np.fmax.reduce(fv, axis=None) > a_lim
+                           or np.fmax.reduce(np.abs(acc), axis=None) > a_lim * _HALF_SQRT2):
+            a2 = acc[..., 0] * acc[..., 0]
+            a2 += acc[..., 1] * acc[..., 1]
+            over = speed > p.max_speed_ms
+            over |= a2 > a_lim * a_lim
+            over |= fv > a_lim
+            if not full:
+                over &= v
+            if over.any():
+                full = False
+                v = v & ~over
+                artefact = over if artefact is None else artefact | over
         if not full:
             speed = np.where(v, speed, 0.0)
-        return Final(self.base + r0, v, v if kept is None else kept, res[0], speed, tang, full)
+            tang = np.where(v, tang, 0.0)
+        return Final(self.base + r0, v, kept, res[0], speed, tang, full, artefact)

@@ -21,6 +21,7 @@ from pacewire.engine.heart import HeartRate
 from pacewire.engine.kinematics import Final, Track
 from pacewire.engine.params import MatchParams
 from pacewire.engine.period import Period
+from pacewire.engine.topspeed import TopSpeed
 from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, Block, Roster
 from pacewire.engine.windows import SecondBins
 
@@ -175,7 +176,8 @@ class MatchState:
             ball_poss=np.full((1024, 2), (BALL_UNKNOWN, NO_TEAM), np.int8),
             cols=np.zeros(0, np.int64), unseen=np.arange(self.n), order=np.arange(self.n), team=self.team[:0],
             c_sums=np.zeros((ex.N_FIG, 0), np.int64), c_zones=np.zeros((0, zones.edges.shape[0] + 1), np.int64),
-            c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64), c_max_speed=np.zeros(0),
+            c_poss=np.zeros((0, 4, 2), np.int64), poss_pend=np.zeros((2, 0), np.int64),
+            top=TopSpeed(self.params.exertion.top_hold_n, 0), c_artefacts=np.zeros(0, np.int64),
             c_first_seen=np.zeros(0, np.int64), c_last_seen=np.zeros(0, np.int64), c_off_slots=np.zeros(0, np.int64),
             c_last_valid=np.zeros(0, np.int64), c_last_speed=np.zeros(0),
         )
@@ -195,12 +197,13 @@ class MatchState:
         per.c_zones = _widen(per.c_zones, k, 0)
         per.c_poss = _widen(per.c_poss, k, 0)
         per.poss_pend = _widen(per.poss_pend, k, 0, axis=1)
-        per.c_max_speed = _widen(per.c_max_speed, k, 0.0)
+        per.top.grow(k)
         per.c_first_seen = _widen(per.c_first_seen, k, -1)
         per.c_last_seen = _widen(per.c_last_seen, k, -1)
         per.c_off_slots = _widen(per.c_off_slots, k, 0)
         per.c_last_valid = _widen(per.c_last_valid, k, -1)
         per.c_last_speed = _widen(per.c_last_speed, k, 0.0)
+        per.c_artefacts = _widen(per.c_artefacts, k, 0)
         per.full_upto = -1
         per.order = np.concatenate([per.cols, per.unseen])
         per.zone_bin = np.arange(len(per.cols)) * per.c_zones.shape[1]
@@ -261,7 +264,9 @@ class MatchState:
         n = len(fin)
         end = fin.slot0 + n
         full = fin.full
-        fig, zone = per.exertion.step(fin.valid, fin.seen, fin.speed, fin.accel, full)
+        fig, zone = per.exertion.step(fin.valid, fin.seen, fin.speed, fin.accel, full, fin.artefact)
+        if fin.artefact is not None:
+            per.c_artefacts += np.add.reduce(fin.artefact, axis=0)
         total = per.bins.add(fin.slot0, fig)
         per.c_sums += total
         m = len(per.cols)
@@ -269,7 +274,7 @@ class MatchState:
         zone += per.zone_bin  # one bin per (player, band)
         per.c_zones += np.bincount(zone.ravel(), weights=fig[ex.DIST].ravel(), minlength=nz * m
                                    ).reshape(m, nz).astype(np.int64)
-        np.maximum(per.c_max_speed, np.maximum.reduce(fin.speed, axis=0), out=per.c_max_speed)
+        per.top.add(fin.slot0, fin.speed)
         # latest credited sample
         if full:
             per.c_last_valid.fill(end - 1)
@@ -390,6 +395,10 @@ class MatchState:
         if on is not None:
             i = self.roster.index[on]
             self.forced_on[i], self.forced_off[i] = True, False
+
+    def artefacts(self) -> np.ndarray:
+        """Seen samples removed as tracking artefacts, whole match, per player."""
+        return sum((p.artefacts for p in self.periods), np.zeros(self.n, np.int64))
 
     def coverage(self) -> np.ndarray:
         """Credited samples ÷ samples on the pitch, whole match, per player."""

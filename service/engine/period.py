@@ -8,6 +8,7 @@ import numpy as np
 
 from pacewire.engine.exertion import Exertion
 from pacewire.engine.kinematics import Track
+from pacewire.engine.topspeed import TopSpeed
 from pacewire.engine.types import PERIODS
 from pacewire.engine.windows import SecondBins
 
@@ -35,12 +36,13 @@ class Period:
     c_zones: np.ndarray  # (C, Z) int64 µm
     c_poss: np.ndarray  # (C, 4, 2) int64 µm: context (the contract's three, then unknown) × (distance, hsr)
     poss_pend: np.ndarray  # (2, C) int64 µm: distance, hsr since the ball context last changed
-    c_max_speed: np.ndarray  # (C,) m/s
+    top: TopSpeed  # (C,) top speed held, m/s
     c_first_seen: np.ndarray  # (C,) slot, -1 never
     c_last_seen: np.ndarray  # (C,) slot, -1 never
     c_off_slots: np.ndarray  # (C,) slots in gaps long enough to mean "off the pitch"
     c_last_valid: np.ndarray  # (C,) slot of the latest credited sample, -1 never
     c_last_speed: np.ndarray  # (C,) m/s at last_valid
+    c_artefacts: np.ndarray  # (C,) seen samples removed as tracking artefacts
     last_slot: int = -1  # latest slot received
     ended: bool = False
     full_upto: int = -1  # end slot of the latest final samples if every column was seen in all of them
@@ -86,7 +88,11 @@ class Period:
 
     @property
     def max_speed(self) -> np.ndarray:
-        return self._roster(self.c_max_speed, 0.0)
+        return self._roster(self.top.value, 0.0)
+
+    @property
+    def artefacts(self) -> np.ndarray:
+        return self._roster(self.c_artefacts, 0)
 
     @property
     def first_seen(self) -> np.ndarray:

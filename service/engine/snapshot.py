@@ -362,6 +362,16 @@ def _hr_health(state: MatchState, on_pitch: list[bool]) -> dict[str, float | Non
     return out
 
 
+def _artefacts(state: MatchState) -> dict[str, Any]:
+    """Samples removed as tracking artefacts: per player (samples, seconds) and in all."""
+    n = state.artefacts()
+    secs = np.round(n / state.fps, 1).tolist()
+    total = int(n.sum())
+    return {"artefacts": {pl.id: {"samples": c, "seconds": s}
+                          for pl, c, s in zip(state.roster.players, n.tolist(), secs, strict=True)},
+            "artefact_samples": total, "artefact_s": round(total / state.fps, 1)}
+
+
 def _health(state: MatchState, now: float | None, extra_reasons: list[dict[str, str]] | None,
             on_pitch: list[bool], cov: np.ndarray) -> dict[str, Any]:
     """The snapshot's ``health`` object at wall-clock ``now`` (None: the last frame's time)."""
@@ -393,6 +403,7 @@ def _health(state: MatchState, now: float | None, extra_reasons: list[dict[str, 
         "jumps": state.jumps,
         "frames": state.frames,
         "coverage": {pl.id: cov_r[i] for i, pl in enumerate(roster.players)},
+        **_artefacts(state),
     }
     if heart is not None:
         health["hr_coverage"] = _hr_health(state, on_pitch)

@@ -25,6 +25,8 @@ BALL_UNKNOWN, BALL_OUT, BALL_IN = -1, 0, 1
 NO_TEAM = -1
 
 Sex = Literal["male", "female"]
+# Kinds of tracking source, each with its own smoothing and artefact settings (config/default.toml).
+FeedProfile = Literal["optical", "broadcast", "wearable"]
 
 
 @dataclass(frozen=True)
@@ -52,6 +54,8 @@ class Roster:
     pitch_length_m: float = 105.0
     pitch_width_m: float = 68.0
     team_names: tuple[str, str] = ("", "")
+    # the set-up's feed profile ("optical", "broadcast", "wearable"); None: the config's
+    feed_profile: FeedProfile | None = None
     # GNSS pitch calibration as set up (compared), and the projection built from it (docs/wearables.md)
     gnss_pitch: Any = None
     projection: Any = field(default=None, repr=False, compare=False)

@@ -409,6 +409,7 @@ def _feed_section(health: dict[str, Any]) -> list[str]:
         [("duplicates", "l"), (num(health.get("duplicates")), "")],
         [("late frames", "l"), (num(health.get("late")), "")],
         [("position jumps removed", "l"), (num(health.get("jumps")), "")],
+        [("tracking artefacts removed, s", "l"), (num(health.get("artefact_s"), 1), "")],
     ]
     if any(k in health for k in ("hr_rejected", "hr_duplicates", "hr_late")):
         rows += [

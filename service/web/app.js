@@ -39,7 +39,7 @@
     { key: "max_speed_ms", label: "Top speed", unit: "km/h", fmt: (v) => fmt1(v * 3.6), bar: true, tip: "Highest speed (match or period only)" },
     { key: "speed_ms", label: "Speed now", unit: "km/h", fmt: (v) => fmt1(v * 3.6), bar: true, tip: "Current speed" },
     { key: "minutes", label: "Time", unit: "min", fmt: fmt1, tip: "Minutes on the pitch; in a window, the window's length" },
-    { key: "coverage", label: "Seen", unit: "% frames", fmt: fmtPct, cls: "cov", tip: "Share of frames on the pitch in which the player was seen" },
+    { key: "coverage", label: "Seen", unit: "% frames", fmt: fmtPct, cls: "cov", tip: "Share of frames on the pitch in which the player was seen, tracking artefacts taken out" },
     // heart rate (docs/wearables.md): shown only once the match has heart-rate samples
     { key: "hr_bpm", label: "HR now", unit: "bpm", fmt: fmtInt, hr: true, tip: "Latest heart rate (live, whatever the window)" },
     { key: "hr_pct_max", label: "% HRmax", unit: "%", fmt: fmtInt, hr: true, tip: "Latest heart rate as a share of the player's maximum (live)" },
@@ -735,7 +735,7 @@
     const cov = v.coverage;
     const uncertain = played && cov != null && cov < COVERAGE_LOW;
     const side = S.state.teams[p.team_id] && S.state.teams[p.team_id].side === "away" ? "away" : "home";
-    const covTip = uncertain ? `Seen in only ${fmtPct(cov)} of frames on the pitch: this figure is likely too low.` : "";
+    const covTip = uncertain ? `Seen in only ${fmtPct(cov)} of frames on the pitch (gaps, or tracking artefacts taken out): this figure is likely too low.` : "";
     // a strap that drops out is low heart-rate coverage, never a low heart rate
     const hrCov = v.hr_coverage;
     const gaps = played && hrCov != null && hrCov < COVERAGE_LOW;

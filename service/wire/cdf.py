@@ -21,7 +21,18 @@ import numpy as np
 import orjson
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
-from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, PERIOD_INDEX, PERIODS, Block, Player, Roster
+from pacewire.engine.types import (
+    BALL_IN,
+    BALL_OUT,
+    BALL_UNKNOWN,
+    NO_TEAM,
+    PERIOD_INDEX,
+    PERIODS,
+    Block,
+    FeedProfile as FeedProfile,  # re-exported for the settings, which read the engine through wire
+    Player,
+    Roster,
+)
 from pacewire.errors import PacewireError, describe_validation
 from pacewire.wire.gnss import CalibrationError, PitchProjection, check_venue, parse_calibration
 
@@ -36,6 +47,8 @@ class _Open(BaseModel):
 
 class MetaTracking(_Open):
     fps: int = Field(ge=1, le=1000)
+    # pacewire extension: the kind of source, whose smoothing and artefact settings apply (config/default.toml)
+    feed_profile: FeedProfile | None = None
 
 
 class MetaVendors(_Open):
@@ -192,7 +205,7 @@ def roster_from_setup(setup: MatchSetup, match_id: str | None = None,
     return Roster(
         match_id=mid, team_ids=team_ids, players=tuple(players), fps=meta.meta.tracking.fps,
         pitch_length_m=length, pitch_width_m=width,
-        team_names=names, gnss_pitch=cal, projection=projection,
+        team_names=names, feed_profile=meta.meta.tracking.feed_profile, gnss_pitch=cal, projection=projection,
         periods=tuple(sorted({p.period for p in meta.match.periods}, key=PERIOD_INDEX.__getitem__)),
     )
 

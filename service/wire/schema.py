@@ -291,6 +291,14 @@ class Reason(_Shape):
     message: str = Field(description="Human-readable explanation.")
 
 
+class ArtefactCount(_Shape):
+    """Seen samples taken out as tracking artefacts (excursions, re-entry slides, implausible steps,
+    samples beyond the physical bounds): they credit no figure and lower ``coverage``."""
+
+    samples: int = Field(ge=0, description="Samples removed, count.")
+    seconds: float = Field(ge=0, description="Their duration at the nominal frame rate, s.")
+
+
 class Health(_Shape):
     """Feed health: its state, why, and the counters behind it."""
 
@@ -323,10 +331,14 @@ class Health(_Shape):
     after_end: int = Field(ge=0, description="Frames refused because the match had ended (match_status ended), "
                                              "count.")
     rejected: int = Field(ge=0, description="Frames refused as invalid, count.")
-    jumps: int = Field(ge=0, description="Implausible position steps (> 12.5 m/s) rejected, count.")
+    jumps: int = Field(ge=0, description="Implausible position steps (> 12.5 m/s plus noise) that started an "
+                                         "excursion removed or split the track, count.")
     frames: int = Field(ge=0, description="Frames applied, count.")
     coverage: dict[str, float] = Field(description="Per player id: credited samples / samples on the pitch, 0-1, "
-                                                   f"{_to('share', '')}.")
+                                                   f"{_to('share', '')}; samples removed as artefacts are not credited.")
+    artefacts: dict[str, ArtefactCount] = Field(description="Per player id: samples removed as tracking artefacts.")
+    artefact_samples: int = Field(ge=0, description="Samples removed as tracking artefacts, all players, count.")
+    artefact_s: float = Field(ge=0, description="Their duration, all players, s.")
     hr_coverage: dict[str, float | None] = _optional_key(description="Per player on the pitch: heart-rate samples "
                                                                      "over the last minute / expected "
                                                                      "(a strap dropping out shows here).")

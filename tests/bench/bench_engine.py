@@ -264,8 +264,15 @@ def agreement(snap: dict, ref: dict[str, np.ndarray], m: SynthMatch) -> list[str
         tot_e, tot_r = eng[key].sum(), ref[key].sum()
         if tot_r > 0 and abs(tot_e / tot_r - 1) > 0.02:
             warn.append(f"WARNING engine vs numpy {key} totals differ by {100 * (tot_e / tot_r - 1):+.2f}% (> 2%)")
-    if np.abs(eng["max_speed_ms"] - ref["max_speed_ms"]).max() > 0.02:
-        warn.append("WARNING engine vs numpy max speed differ by more than 0.02 m/s")
+    # the engine's top speed is held speed.top_speed_hold_s, the numpy pass's a one-sample peak: never above it
+    if (eng["max_speed_ms"] - ref["max_speed_ms"]).max() > 0.02:
+        warn.append("WARNING engine top speed above the numpy pass's one-sample peak by more than 0.02 m/s")
+    art = snap["health"]
+    if art["artefact_samples"]:
+        # the summed sinusoids and erf runs speed up, in places, faster than a sprinter can at that speed
+        # (kinematics.max_accel_ms2, falling with speed): the engine credits those samples to no figure
+        print(f"  engine took {art['artefact_samples']} samples ({art['artefact_s']} s) out as artefacts: "
+              "HSR and sprint totals run below the numpy pass's by what they carried")
     unseen = [p for p in ids if p not in on and snap["players"][p]["distance_m"] != 0]
     if unseen:
         warn.append(f"WARNING bench players credited distance: {unseen[:3]}")
@@ -294,7 +301,7 @@ def run(quick: bool) -> dict[str, dict]:
     one = synth_match(4.0 if quick else 10.0, seed=8)
     one_bl = blocks(one, per_block=1)
     single_s, _ = best_of(lambda: feed_engine(one, settings, one_bl))
-    snap_s, snap = best_of(state.snapshot)
+    snap_s, snap = best_of(lambda: build_snapshot(state))
     numpy_s, ref = best_of(lambda: numpy_pass(m, settings))
     cols = np.flatnonzero(m.seen)
     fl_arrays = [np.ascontiguousarray(xy[:, cols].reshape(xy.shape[0], -1)) for xy in m.halves]

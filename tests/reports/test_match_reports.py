@@ -228,3 +228,40 @@ def test_synthetic_match_report(tmp_path):
             assert html.escape(name) in text, p["id"]
     assert_csv_equals_snapshot((tmp_path / "r" / "full_time" / "report.csv").read_text(), snap)
     assert Path(tmp_path / "r" / "full_time" / "index.json").exists()
+
+
+def test_a_player_with_many_tracking_artefacts_is_marked_as_low_coverage(tmp_path):
+    """A track that re-locks 6 m off every 2.5 s and glides back over 0.6 s (the shape of the synthetic
+    feed's re-acquisition slides): its samples are taken out, so the player's coverage falls below the
+    report's low-coverage mark like a player not seen, and the feed section gives the seconds removed."""
+    from pacewire.analyze import new_match
+    from pacewire.engine.blocks import block_series
+    from pacewire.reports.builder import ReportInput, build_report
+
+    xy = trajectory(90, 5)
+    glide = 15  # frames: 0.6 s at 25 fps
+    u = np.arange(glide) / glide
+    for start in range(2 * FPS, len(xy) - glide, int(2.5 * FPS)):
+        xy[start:start + glide, 2] += np.array([6.0, 0.0]) * ((1.0 - u) ** 2)[:, None]
+    settings = load_settings()
+    state, dec = new_match(cb.meta("m_art"), cb.sheet(N_HOME, N_AWAY), settings)
+    state.ingest(dec.decode_lines(cb.lines(cb.frames(xy, IDS, N_HOME, match_id="m_art"))))
+    state.finish()
+    snap = build_snapshot(state)
+    health, players = snap["health"], snap["players"]
+    assert health["artefacts"][IDS[2]]["samples"] > 0.1 * len(xy)  # a slide's first frames at least
+    assert health["artefact_samples"] == health["artefacts"][IDS[2]]["samples"]  # nobody else's
+    build_report(ReportInput("full_time", snap, block_series(state, 1, "split"), "replay", time.time()), tmp_path,
+                 settings.reports.low_coverage)
+    doc = parse_strict((tmp_path / "full_time" / "report.html").read_text())
+    low = {}
+    for row in doc.findall(".//section[@id='players']//tbody/tr"):
+        cells = row.findall("td")
+        low[cells[1].text.removesuffix(" (GK)")] = cells[-1].get("class") == "low"
+    names = {pid: p.get("name") or pid for pid, p in players.items() if p["minutes"]}
+    assert low[names[IDS[2]]] and players[IDS[2]]["coverage"] < settings.reports.low_coverage
+    assert not any(low[names[pid]] for pid in names if pid != IDS[2])  # everyone else seen throughout
+    feed = {r.findall("td")[0].text: r.findall("td")[1].text
+            for r in doc.findall(".//section[@id='feed']//tbody/tr")}
+    assert float(feed["tracking artefacts removed, s"]) == pytest.approx(health["artefact_s"], abs=0.05)
+    assert health["artefact_s"] == pytest.approx(health["artefact_samples"] / FPS, abs=0.05)

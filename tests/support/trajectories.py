@@ -15,6 +15,21 @@ def speeds(parts: Iterable[tuple[float, float]], fps: int = FPS) -> np.ndarray:
     return np.concatenate([np.full(int(round(seconds * fps)), v) for v, seconds in parts])
 
 
+def ramped(parts: Iterable[tuple[float, float]], tau_s: float = 1.0, fps: int = FPS) -> np.ndarray:
+    """Speed per frame (m/s) that follows piecewise-constant target speeds ``[(m/s, seconds), ...]``
+    through a first-order lag of time constant ``tau_s``: a sprint start v = v_max (1 - exp(-t/tau))
+    (Furusawa et al. 1927), whose acceleration (v_target - v) / tau falls linearly with speed as a
+    sprinter's does (Samozino et al. 2016): a path a player can run, unlike a step in speed."""
+    target = speeds(parts, fps)
+    k = 1.0 - np.exp(-1.0 / (tau_s * fps))
+    out = np.empty_like(target)
+    v = 0.0 if not len(target) else target[0]
+    for i, goal in enumerate(target.tolist()):  # a few thousand frames per test path
+        v += (goal - v) * k
+        out[i] = v
+    return out
+
+
 def distance(v: np.ndarray, fps: int = FPS) -> np.ndarray:
     """Path length (m) of a run at speeds ``v`` (m/s per frame): 0 at its start, then one value
     after each frame (len(v) + 1 values)."""
