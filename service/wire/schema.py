@@ -335,7 +335,8 @@ class Health(_Shape):
                                          "excursion removed or split the track, count.")
     frames: int = Field(ge=0, description="Frames applied, count.")
     coverage: dict[str, float] = Field(description="Per player id: credited samples / samples on the pitch, 0-1, "
-                                                   f"{_to('share', '')}; samples removed as artefacts are not credited.")
+                                                   f"{_to('share', '')}; samples removed as artefacts are not "
+                                                   "credited.")
     artefacts: dict[str, ArtefactCount] = Field(description="Per player id: samples removed as tracking artefacts.")
     artefact_samples: int = Field(ge=0, description="Samples removed as tracking artefacts, all players, count.")
     artefact_s: float = Field(ge=0, description="Their duration, all players, s.")
