@@ -25,7 +25,7 @@ MATCH_DROP = 0.2  # intensity lost by the end of 95 minutes played (quadratic in
 HALF_DROP = 0.14  # further loss at the end of a 47-minute half (quadratic in its minutes)
 FULL_MATCH_MIN = 95.0
 HALF_MIN = 47.5
-SUB_FRESH = 0.2  # substitutes' extra intensity when they come on
+SUB_FRESH = 0.25  # substitutes' extra intensity when they come on
 # Transient fatigue, two compartments: each run adds to a fast "load" (RESERVE_LOAD_TAU_S),
 # which feeds a slow "fatigue" (RESERVE_TAU_S); the chance to set off on a planned run is
 # 1 / (1 + (fatigue / (RESERVE_HALF intensity))^RESERVE_STEEP). The fatigue lags the load, so an intense
@@ -34,8 +34,9 @@ SUB_FRESH = 0.2  # substitutes' extra intensity when they come on
 RESERVE_LOAD_TAU_S = 120.0
 RESERVE_TAU_S = 300.0
 RESERVE_COST = {"sprint": 1.0, "hsr": 0.4}  # load units a run adds
-RESERVE_HALF = 1.3  # fatigue at which the chance is halved
-RESERVE_STEEP = 6.0
+RESERVE_HALF = 1.7  # fatigue at which the chance is halved
+RESERVE_STEEP = 4.0  # steeper (6) cut the running after a peak to about a third of the match mean
+
 
 def intensity(minutes_on: np.ndarray, half_minutes_on: np.ndarray, substitute: np.ndarray) -> np.ndarray:
     """Sustainable intensity (n, 22), 1 for a fresh player.
