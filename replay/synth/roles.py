@@ -40,7 +40,7 @@ class RoleProfile:
 # ranges tests/replay/test_synth.py checks.
 ROLES: dict[str, RoleProfile] = {
     "GK": RoleProfile((0.42, 0.48, 0.09, 0.01), 0.90, 1.5, 13.0, 25.0),
-    "CB": RoleProfile((0.14, 0.50, 0.28, 0.08), 0.97, 22.0, 74.0, 31.5),
+    "CB": RoleProfile((0.14, 0.50, 0.28, 0.08), 1.0, 22.0, 74.0, 31.5),
     "FB": RoleProfile((0.10, 0.48, 0.31, 0.11), 0.95, 38.0, 123.0, 32.3),
     "CM": RoleProfile((0.07, 0.45, 0.35, 0.13), 0.88, 29.0, 125.0, 31.3),
     "WM": RoleProfile((0.09, 0.46, 0.33, 0.12), 0.92, 45.0, 151.0, 32.8),
