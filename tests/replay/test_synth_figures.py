@@ -133,3 +133,23 @@ def test_substitutes_run_more_per_minute_than_the_players_they_replace(matches):
         assert len(subs) == 5, seed
         for sub, replaced, sub_rate, replaced_rate in subs:
             assert sub_rate > replaced_rate, (seed, sub, replaced, sub_rate, replaced_rate)
+
+
+def test_every_position_has_believable_peaks_and_sprint_distance(matches):
+    for seed, (rows, _) in matches.items():
+        by_role: dict[str, list[PlayerFigures]] = {}
+        for r in full_match(rows):
+            by_role.setdefault(r.role, []).append(r)
+        assert set(by_role) == {"GK", "CB", "FB", "CM", "WM", "FW"}, (seed, sorted(by_role))
+        for role, members in by_role.items():
+            for r in members:
+                if role == "GK":
+                    assert r.sprint_m == 0.0, (seed, r)  # common practice: keepers almost never sprint
+                    continue
+                # common practice (from memory): the fastest match peaks recorded in top leagues are about
+                # 36-37 km/h; Sonderegger et al. 2016 and the 100 m record (12.4 m/s) bound them far above
+                assert 26.0 <= r.top_speed_kmh <= 36.0, (seed, r)
+                # Di Salvo et al. 2009 (from memory): even the most sprint-heavy players cover well under
+                # 900 m above 25.2 km/h in a match
+                assert r.sprint_m <= 900.0, (seed, r)
+                assert r.sprints <= 45, (seed, r)  # Di Salvo et al. 2009 (from memory): up to about 40 per match
