@@ -25,19 +25,24 @@ The ball is generated first as a chain of actions (passes, carries, shots,
 stoppages). Each team's formation anchors follow the (lagged) ball and the
 possession state; every player then steers, at ``fps``, towards a moving
 target (anchor + personal wander, or a run target during a burst) with a
-commanded speed drawn from a role-specific locomotor profile plus random
-high-speed and sprint bursts. Velocity follows the command through a
-second-order model (see steering); velocity commands ramp up and down at
-kick-off, the whistle and substitutions. The nearest outfield player of each
-team goes to the ball (receiver/carrier and presser). Intensity falls late in
-each half (Mohr et al. 2003). Role targets: total distance (Bradley et al.
-2009; Osgnach et al. 2010), sprint counts (Di Salvo et al. 2009).
+commanded speed drawn from his position's locomotor profile plus runs (bursts)
+at a share of his own top speed. Velocity follows the command through a
+second-order model whose forward acceleration falls with speed (see steering);
+velocity commands ramp up and down at kick-off, the whistle and substitutions.
+The nearest outfield player of each team goes to the ball (receiver/carrier and
+presser). Intensity falls over the match, late in each half and for some minutes
+after a cluster of runs; substitutes come on fresh (fatigue; Mohr et al. 2003;
+Bradley & Noakes 2013). Position targets: total distance (Bradley et al. 2009;
+Osgnach et al. 2010), high-speed running and sprints (Di Salvo et al. 2009).
 
 Modules, in the order the match is made
 ---------------------------------------
 * ``clubs``      the fictional clubs, squads, formations, officials, venue and pitch
 * ``timeline``   kick-off, the halves as frame slots, their times
-* ``roles``      locomotor profiles of the playing roles
+* ``roles``      locomotor profiles of the playing positions
+* ``athletes``   each squad member's own top speed, acceleration capacity and work rate
+* ``fatigue``    intensity over the match and each half, transient fatigue, fresh substitutes
+* ``bursts``     the sprints and high-speed runs of a half, and how they start and stop
 * ``anchors``    formation anchors: the team shape around the ball
 * ``events``     substitutions, goals and cards, planned first
 * ``ball``       the ball's action chain of a half, sampled per frame
@@ -51,6 +56,7 @@ Modules, in the order the match is made
 * ``lines``      the JSON lines of tracking.jsonl and hr.jsonl
 * ``folder``     write_match: the recording folder on disk
 * ``stats``      per-role movement statistics (``--stats``)
+* ``positions``  the engine's figures of a written match by position (what the tests check)
 * ``cli``        ``pacewire synth``
 
 The random draws come from one numpy Generator per stream (the match, the

@@ -37,6 +37,15 @@ class BallTrack:
 
 
 BALL_RADIUS_Z = 0.11
+# Spells of play end in a throw-in or a foul at fairly regular intervals (gamma-distributed
+# spells, shape SPELL_SHAPE); with goal kicks, goals and substitutions the ball is in play for
+# about 57-62 of 95 minutes (Altmann et al. 2023: 52-55 effective minutes).
+SPELL_MEAN_S = 35.0
+SPELL_LATE_SHORTER = 0.25  # share by which spells are shorter at the end of a half (common practice)
+SPELL_SHAPE = 8.0
+THROW_IN_SHARE = 0.65  # of the spells, the rest end in a foul
+THROW_IN_S = (10.0, 26.0)
+FREE_KICK_S = (12.0, 28.0)
 
 
 def _clip_pitch(p: complex, mx: float = 52.4, my: float = 33.9) -> complex:
@@ -59,6 +68,7 @@ class BallScript:
         self.t = 0.0
         self.p = 0j
         self.poss = 0
+        self.spell_end = self._spell()
 
     def add(self, dur: float, kind: str, p1: complex, in_play: bool, z_peak: float = 0.0) -> None:
         """Append a segment of ``dur`` seconds from the current ball position."""
@@ -72,13 +82,21 @@ class BallScript:
         share = np.array([1.0 if team == self.poss else 0.0])
         return team_anchors(np.array([self.p]), share, self.dirs[team], self.offsets[team])[0]
 
+    def _spell(self) -> float:
+        """When the spell of play starting now ends in a throw-in or a foul, s of the half:
+        spells grow shorter late in a half (SPELL_LATE_SHORTER)."""
+        mean = SPELL_MEAN_S * (1.0 - SPELL_LATE_SHORTER * self.t / self.half_s)
+        return self.t + float(self.rng.gamma(SPELL_SHAPE, mean / SPELL_SHAPE))
+
     def stoppage(self, dur: float, restart: complex | None = None) -> None:
-        """Ball out of play for ``dur`` s; optionally carried to a restart spot."""
+        """Ball out of play for ``dur`` s; optionally carried to a restart spot. A new spell of
+        play starts after it."""
         if restart is not None and abs(restart - self.p) > 1.0:
             carry = min(dur * 0.5, abs(restart - self.p) / 3.0 + 1.0)
             self.add(carry, "carry", restart, False)
             dur -= carry
         self.add(max(dur, 0.5), "still", self.p, False)
+        self.spell_end = self._spell()
 
     def pass_(self) -> None:
         """A pass to a team-mate, possibly out of play or intercepted, then a carry."""
@@ -90,8 +108,9 @@ class BallScript:
         w = np.exp(-dist / 14.0) * np.where(fwd > 0, 1.7, 1.0) * np.where(dist < 4.0, 0.15, 1.0)
         j = int(rng.choice(len(an), p=w / w.sum()))
         dest = an[j] + complex(rng.normal(0, 4.0), rng.normal(0, 4.0))
-        late = self.t / self.half_s  # more and longer stoppages late in a half
-        out = rng.random() < 0.05 + 0.04 * late
+        late = self.t / self.half_s  # longer stoppages late in a half
+        due = self.t >= self.spell_end
+        out = due and rng.random() < THROW_IN_SHARE
         if out:
             side = np.sign(dest.imag) if dest.imag != 0 else 1.0
             dest = complex(dest.real, side * 33.9)
@@ -106,7 +125,10 @@ class BallScript:
             self.add(max(dur, 0.3), "roll", dest, True)
         if out:
             self.poss = 1 - team
-            self.stoppage(rng.uniform(6.0, 22.0) * (1.0 + 0.4 * late))
+            self.stoppage(rng.uniform(*THROW_IN_S) * (1.0 + 0.2 * late))
+            return
+        if due:  # a foul on the receiver: a free kick to his team
+            self.stoppage(rng.uniform(*FREE_KICK_S) * (1.0 + 0.2 * late))
             return
         attacking_third = d * self.p.real > 17.5
         if rng.random() < 0.14 + (0.10 if attacking_third else 0.0):
@@ -164,6 +186,7 @@ class BallScript:
                 start, end = forced.pop(0)
                 if end > self.t:
                     self.add(end - self.t, "still", self.p, False)
+                    self.spell_end = self._spell()
                 continue
             if goals and goals[0][0] <= self.t:
                 _, team = goals.pop(0)

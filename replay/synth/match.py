@@ -20,6 +20,7 @@ from pacewire.replay.synth.events import (
     plan_goals,
     plan_substitutions,
 )
+from pacewire.replay.synth.fatigue import on_pitch
 from pacewire.replay.synth.plans import plan_half
 from pacewire.replay.synth.roles import slot_roles
 from pacewire.replay.synth.steering import integrate
@@ -49,14 +50,22 @@ class SynthMatch:
 
 
 def simulate_match(minutes: float = 95, fps: int = 25, seed: int = 0) -> SynthMatch:
-    """Simulate the fictional match (no files). Deterministic for a seed."""
+    """Simulate the fictional match (no files). Deterministic for a seed: the match's events and
+    ball come from one random stream, the players' movement from another, so a change to how
+    players move leaves the ball's script as it was."""
     rng = np.random.default_rng(seed)
+    moves = np.random.default_rng([seed, 3])
     tl = make_timeline(minutes, fps)
     scale = duration_scale(minutes)
     subs = plan_substitutions(tl)
     goal_plan = plan_goals(rng, tl, subs)
     offsets = (formation_offsets(HOME), formation_offsets(AWAY))
     positions = np.empty((tl.n_slots, 22), complex)
+    squad_index = np.tile(np.arange(11), (tl.n_slots, 2))
+    entry = np.zeros((tl.n_slots, 22), np.int64)  # slot where the player in each slot came on
+    for s in subs:
+        squad_index[s.frame:, 11 * s.team + s.slot] = s.in_index
+        entry[s.frame:, 11 * s.team + s.slot] = s.frame
     ball_parts = []
     scored: list[tuple[int, int]] = []
     plans = []
@@ -68,13 +77,10 @@ def simulate_match(minutes: float = 95, fps: int = 25, seed: int = 0) -> SynthMa
         segs = script.run(kickoff_team=h, forced=forced, goals=half_goals)
         scored += [(team, min(start + int(round(t * fps)), start + n - 1)) for t, team in script.goal_times]
         ball = rasterize_ball(segs, n, fps)
-        plans.append(plan_half(rng, n, fps, ball, dirs, h, walkoffs))
+        plans.append(plan_half(moves, n, fps, ball, dirs, on_pitch(squad_index, entry, start, n, fps), walkoffs))
         ball_parts.append(ball)
     for (start, n), part in zip(tl.halves, integrate(plans, fps), strict=True):
         positions[start:start + n] = part
-    squad_index = np.tile(np.arange(11), (tl.n_slots, 2))
-    for s in subs:
-        squad_index[s.frame:, 11 * s.team + s.slot] = s.in_index
     goals = goal_events(rng, sorted(scored, key=lambda g: g[1]), squad_index)
     cards = plan_cards(rng, tl)
     return SynthMatch(

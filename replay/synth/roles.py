@@ -1,5 +1,6 @@
-"""Locomotor profiles of the playing roles: how much each role stands, walks, jogs,
-runs and sprints, and which role each formation position plays."""
+"""Locomotor profiles of the playing positions: how much each position stands, walks, jogs
+and runs, how often it sprints and runs at high speed, how fast its players are, and which
+position each formation slot plays."""
 
 from __future__ import annotations
 
@@ -9,48 +10,49 @@ import numpy as np
 
 from pacewire.replay.synth.clubs import CLUBS, FORMATIONS
 
-# Locomotor categories: stand, walk, jog, run (speed ranges in m/s).
-CATEGORY_SPEEDS_MS = np.array([[0.1, 0.6], [1.0, 1.9], [2.1, 3.6], [3.8, 5.3]])
+# Locomotor categories: stand, walk, jog, run (speed ranges in m/s, before a role's speed_scale).
+CATEGORY_SPEEDS_MS = np.array([[0.1, 0.6], [1.0, 1.9], [2.1, 3.6], [3.8, 5.0]])
 STOPPAGE_PROBS = np.array([0.35, 0.57, 0.08, 0.0])
-SPRINT_SPEED_MS = (7.6, 9.3)
-SPRINT_COMMAND_S = (4.0, 7.0)  # 2-5 s at speed plus ~2 s to get there
-HSR_SPEED_MS = (5.7, 6.8)
-HSR_COMMAND_S = (2.5, 5.0)
 
 
 @dataclass(frozen=True)
 class RoleProfile:
-    """Per-role locomotor profile (in play).
+    """Per-position locomotor profile (in play).
 
     probs: time share of stand/walk/jog/run segments; speed_scale multiplies the
-    category speeds; sprints_per90 and hsr_per90 are burst counts per 90 min.
+    category speeds; sprints_per90 and hsr_per90 are the planned sprint and
+    high-speed runs per 90 min of a fresh player (fatigue and recovery thin them
+    out); top_speed_kmh is the mean of the players' own maximal speeds.
     """
 
     probs: tuple[float, float, float, float]
     speed_scale: float
     sprints_per90: float
     hsr_per90: float
+    top_speed_kmh: float
 
 
-# Role differences: central midfielders cover most distance, centre-backs least
-# (Bradley et al. 2009); wide players sprint most (Di Salvo et al. 2009), every
-# outfield role at least ~25 sprints per 90 min. speed_scale was calibrated so
-# that full-match outfield players land at 10.2-11.9 km per 90 min (Osgnach et
-# al. 2010: 10,950 +- 1,044 m) when measured with a centred 1 s cubic
-# Savitzky-Golay fit, as pacewire's engine does; goalkeepers at ~5 km.
+# Central midfielders cover the most distance, centre-backs the least; wide midfielders run
+# the most at high speed and sprint the most, centre-backs the least (Bradley et al. 2009;
+# Di Salvo et al. 2009). Players' maximal speeds: outfielders about 29-35 km/h, wide players
+# and forwards the fastest, goalkeepers slower (common practice; from memory). The burst
+# rates and speed scales were calibrated so that pacewire's engine measures the per-position
+# ranges tests/replay/test_synth.py checks.
 ROLES: dict[str, RoleProfile] = {
-    "GK": RoleProfile((0.42, 0.48, 0.09, 0.01), 0.90, 1.5, 4.0),
-    "CB": RoleProfile((0.14, 0.50, 0.28, 0.08), 0.93, 31.0, 15.0),
-    "FB": RoleProfile((0.10, 0.48, 0.31, 0.11), 0.92, 34.0, 25.0),
-    "CM": RoleProfile((0.07, 0.45, 0.35, 0.13), 0.835, 32.0, 28.0),
-    "WM": RoleProfile((0.09, 0.46, 0.33, 0.12), 0.84, 38.0, 28.0),
-    "W": RoleProfile((0.10, 0.47, 0.31, 0.12), 0.81, 40.0, 25.0),
-    "CF": RoleProfile((0.13, 0.50, 0.28, 0.09), 0.78, 34.0, 22.0),
+    "GK": RoleProfile((0.42, 0.48, 0.09, 0.01), 0.90, 1.5, 13.0, 25.0),
+    "CB": RoleProfile((0.14, 0.50, 0.28, 0.08), 1.0, 22.0, 74.0, 31.5),
+    "FB": RoleProfile((0.10, 0.48, 0.31, 0.11), 0.95, 38.0, 123.0, 32.3),
+    "CM": RoleProfile((0.07, 0.45, 0.35, 0.13), 0.88, 29.0, 125.0, 31.3),
+    "WM": RoleProfile((0.09, 0.46, 0.33, 0.12), 0.92, 45.0, 151.0, 32.8),
+    "FW": RoleProfile((0.13, 0.50, 0.28, 0.09), 0.83, 40.0, 118.0, 32.7),
 }
+POSITION_NAMES = {"GK": "goalkeeper", "CB": "centre-back", "FB": "full-back", "CM": "central midfielder",
+                  "WM": "wide midfielder", "FW": "forward"}
+# The wingers of a 4-3-3 play the wide midfielders' running role (common practice: one wide role).
 POSITION_ROLE = {
     "GK": "GK", "LCB": "CB", "RCB": "CB", "CB": "CB", "LB": "FB", "RB": "FB",
     "LCM": "CM", "RCM": "CM", "CM": "CM", "CDM": "CM", "LM": "WM", "RM": "WM",
-    "LW": "W", "RW": "W", "LCF": "CF", "RCF": "CF", "CF": "CF",
+    "LW": "WM", "RW": "WM", "LCF": "FW", "RCF": "FW", "CF": "FW",
 }
 
 

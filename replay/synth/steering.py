@@ -1,10 +1,11 @@
 """The steering model: integrates the players' commands (plans) into paths.
 
 Velocity follows the command through a second-order model: a first-order
-velocity response (time constant TAU_S), a speed-dependent forward
-acceleration limit (linear force-velocity profile; Samozino et al. 2016), a
-deceleration limit, a total acceleration limit and a hard speed cap; planned
-braking and a stopping rule keep everyone inside the lines. The nearest
+velocity response (time constant TAU_S), a forward acceleration limit that falls
+with speed (each player's linear force-velocity profile, Samozino et al. 2016,
+scaled by how hard he means to go), a deceleration limit (how hard he means to
+brake, up to DECEL_MAX_MS2), a total acceleration limit and a hard speed cap;
+planned braking and a stopping rule keep everyone inside the lines. The nearest
 outfield player of each team goes to the ball (receiver/carrier and presser).
 """
 
@@ -21,17 +22,16 @@ from pacewire.replay.synth.plans import HalfPlan
 
 # Kinematic limits of the steering model (m/s, m/s^2, s)
 TAU_S = 0.35  # velocity response time constant
-A0_MS2 = 5.5  # forward acceleration from standstill (force-velocity intercept)
-V0_MS = 10.0  # force-velocity speed intercept
 DECEL_MAX_MS2 = 5.0
 TURN_RESERVE_MS2 = 3.0  # share of the acceleration budget kept for turning
 ACCEL_MAX_MS2 = 5.5  # total |a| of the model (checks allow 6)
-SPEED_CAP_MS = 9.7  # hard cap (checks allow 10.5)
-CATCH_UP_MAX_MS = 5.5  # below the 7.0 m/s sprint threshold on purpose
+SPEED_CAP_MS = 9.9  # hard cap (checks allow 10.5); each player's own top speed bounds his commands
+CATCH_UP_MAX_MS = 5.0  # below the 5.5 m/s high-speed band on purpose: high speed comes from the runs
 CATCH_UP_GAIN = 0.30  # 1/s: extra speed per metre beyond CATCH_UP_FROM_M from the target
 CATCH_UP_FROM_M = 8.0
-CHASE_MAX_MS = 6.0
-PRESS_MAX_MS = 5.5
+CHASE_MAX_MS = 5.2
+PRESS_MAX_MS = 5.0
+CHASE_DRIVE_MS2 = 3.2  # force-velocity intercept a player uses going to the ball
 BRAKE_MS2 = 2.5  # planned braking towards the touchlines / goal lines
 X_SOFT_M = 51.4  # where braking aims to stop (inside the pitch)
 Y_SOFT_M = 33.0
@@ -115,6 +115,9 @@ class _Columns:
     chase_ok: np.ndarray  # (n, 22 h) bool, may go to the ball
     noise: np.ndarray  # (n, 22 h) heading noise, rad per frame
     vscale: np.ndarray  # (n, 22 h) velocity command multiplier
+    drive: np.ndarray  # (n, 22 h) force-velocity intercept used, m/s^2
+    brake: np.ndarray  # (n, 22 h) deceleration allowed, m/s^2
+    inv_v0: np.ndarray  # (n, 22 h) 1 / force-velocity speed intercept, s/m
     ball_target: np.ndarray  # (n, h) complex: where the ball will next be controlled
     col_half: np.ndarray  # (22 h,) the half of each player column
     c_goal: np.ndarray  # (n, 2 h) chase_commands: goal point, complex
@@ -133,7 +136,8 @@ def _columns(plans: list[HalfPlan], n: int, dt: float) -> _Columns:
     return _Columns(
         target=cat(lambda p: p.target), speed=cat(lambda p: p.speed), kdt=cat(lambda p: p.kappa * dt),
         gcatch=cat(lambda p: p.catch * CATCH_UP_GAIN), chase_ok=cat(lambda p: p.chase),
-        noise=cat(lambda p: p.heading_noise), vscale=cat(lambda p: p.vscale),
+        noise=cat(lambda p: p.heading_noise), vscale=cat(lambda p: p.vscale), drive=cat(lambda p: p.drive),
+        brake=cat(lambda p: np.minimum(p.brake, DECEL_MAX_MS2)), inv_v0=cat(lambda p: p.inv_v0),
         ball_target=np.stack([_pad(p.ball.target, n) for p in plans], axis=1),
         col_half=np.repeat(np.arange(len(plans)), 22),
         c_goal=c_goal, c_vmax=c_vmax, c_ff=c_ff, c_active=c_active,
@@ -164,9 +168,9 @@ def integrate(plans: list[HalfPlan], fps: int) -> list[np.ndarray]:
         vd, theta, h = _steer(pos, theta, h, cols.target[t], cols.kdt[t], cols.noise[t], cols.speed[t],
                               cols.gcatch[t])
         chasers.pick(pos, cols.ball_target[t][cols.col_half], cols.chase_ok[t], cols.c_active[t])
-        chasers.steer(pos, vd, theta, h, cols.c_goal[t], cols.c_vmax[t], cols.c_ff[t])
+        drive = chasers.steer(pos, vd, theta, h, cols.c_goal[t], cols.c_vmax[t], cols.c_ff[t], cols.drive[t])
         vd, xp, yp = _brake_room(vd, pos, vel, room)
-        a = _bounded_accel(vd * cols.vscale[t], vel)
+        a = _bounded_accel(vd * cols.vscale[t], vel, drive, cols.brake[t], cols.inv_v0[t])
         pos, vel = _move(pos, vel, a, xp, yp, dt)
         out[t] = pos
     # safety only: braking keeps players inside, this clip should never bite
@@ -213,11 +217,12 @@ class _BallChasers:
         self.have = active & (db[ar, self.cur] < np.inf)
 
     def steer(self, pos: np.ndarray, vd: np.ndarray, theta: np.ndarray, h: np.ndarray, goal: np.ndarray,
-              vmax: np.ndarray, ff: np.ndarray) -> None:
+              vmax: np.ndarray, ff: np.ndarray, drive: np.ndarray) -> np.ndarray:
         """Send the chasers to their team's chase goal (chase_commands), in place: their desired
-        velocity, and their heading when they move."""
+        velocity, and their heading when they move. Returns the drive (force-velocity intercept,
+        m/s^2) of every player: a chaser's is at least CHASE_DRIVE_MS2."""
         if not self.have.any():
-            return
+            return drive
         g = self.ar[self.have]
         cols = g * 11 + self.cur[self.have]
         e = goal[g] - pos[cols]
@@ -228,6 +233,9 @@ class _BallChasers:
         turn = np.abs(v) > 0.2
         theta[cols[turn]] = np.angle(v[turn])
         h[cols[turn]] = v[turn] / np.abs(v[turn])
+        drive = drive.copy()
+        drive[cols] = np.maximum(drive[cols], CHASE_DRIVE_MS2)
+        return drive
 
 
 def _brake_room(vd: np.ndarray, pos: np.ndarray, vel: np.ndarray,
@@ -246,11 +254,13 @@ def _brake_room(vd: np.ndarray, pos: np.ndarray, vel: np.ndarray,
     return vx + 1j * vy, xp, yp
 
 
-def _bounded_accel(vd: np.ndarray, vel: np.ndarray) -> np.ndarray:
+def _bounded_accel(vd: np.ndarray, vel: np.ndarray, drive: np.ndarray, brake: np.ndarray,
+                   inv_v0: np.ndarray) -> np.ndarray:
     """Acceleration (complex m/s^2) towards the desired velocity, bounded.
 
-    A force-velocity limit forward, a deceleration limit and the total limit;
-    speed changes get the budget first, except a reserve for turning.
+    Forward: the player's force-velocity line, ``drive`` (1 - speed / V0), so the
+    acceleration he can reach falls as his speed rises; braking: ``brake``; and the
+    total limit. Speed changes get the budget first, except a reserve for turning.
     """
     a = (vd - vel) * _INV_TAU
     sp = np.abs(vel)
@@ -259,8 +269,8 @@ def _bounded_accel(vd: np.ndarray, vel: np.ndarray) -> np.ndarray:
     an = a - at * uv
     # turning (and braking along a touchline) always keeps up to TURN_RESERVE_MS2
     at_room = np.sqrt(_AMAX2 - np.minimum(np.abs(an), TURN_RESERVE_MS2) ** 2)
-    forward = np.minimum(A0_MS2 * np.maximum(1.0 - sp * (1.0 / V0_MS), 0.0), at_room)
-    at = np.minimum(np.maximum(at, -np.minimum(DECEL_MAX_MS2, at_room)), forward)
+    forward = np.minimum(drive * np.maximum(1.0 - sp * inv_v0, 0.0), at_room)
+    at = np.minimum(np.maximum(at, -np.minimum(brake, at_room)), forward)
     an_max = np.sqrt(np.maximum(_AMAX2 - at * at, 0.0))
     an = an * np.minimum(1.0, an_max / (np.abs(an) + 1e-12))
     return at * uv + an

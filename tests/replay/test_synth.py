@@ -22,6 +22,7 @@ import pytest
 from cdf.validators.custom import ValidationWarning
 
 from pacewire.replay import synth
+from pacewire.replay.synth import athletes
 from tests.support.paths import DEMO_CLIP
 
 FPS = 25
@@ -388,47 +389,53 @@ def full_match() -> synth.SynthMatch:
     return synth.simulate_match(minutes=95, fps=FPS, seed=0)
 
 
-def _per_player(m: synth.SynthMatch) -> list[dict]:
-    """Per player stint: role, minutes, km per 90 min, sprints per 90; plain numpy, 1 s cubic fit."""
-    rows = []
-    for col in range(22):
-        for who in np.unique(m.squad_index[:, col]):
-            dist = secs = sprints = 0.0
-            for start, n in m.timeline.halves:
-                sel = m.squad_index[start:start + n, col] == who
-                if sel.sum() < 3 * FPS:
-                    continue
-                p = m.positions[start:start + n, col][sel]
-                speed = np.hypot(*_derivative(np.column_stack([p.real, p.imag]), 1).T)
-                dist += speed.sum() / FPS
-                secs += len(speed) / FPS
-                fast = np.concatenate([[0], (speed >= SPRINT_MS).astype(int), [0]])
-                edges = np.flatnonzero(np.diff(fast))
-                sprints += int(((edges[1::2] - edges[::2]) >= FPS).sum())  # held >= 1 s (common practice)
-            rows.append({"role": m.slot_roles[col], "minutes": secs / 60, "km90": dist / secs * 5.4,
-                         "sprints90": sprints / secs * 5400})
-    return rows
+def _kinematics(m: synth.SynthMatch) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Speed (m/s) and tangential acceleration (m/s^2) of every slot, plain numpy from the
+    positions with the 1 s cubic fit, and the own top speed (m/s) of the slot's player, all
+    (frames, 22) over both halves (each half's 'valid' part)."""
+    top = athletes.capacities(m.squad_index, m.slot_roles).top_speed_ms
+    speeds, accels, tops = [], [], []
+    for start, n in m.timeline.halves:
+        p = m.positions[start:start + n]
+        v = [_derivative(np.column_stack([c.real, c.imag]), 1) for c in p.T]
+        a = [_derivative(np.column_stack([c.real, c.imag]), 2) for c in p.T]
+        sp = np.column_stack([np.hypot(*x.T) for x in v])
+        tangential = np.column_stack([(x * y).sum(axis=1) for x, y in zip(v, a, strict=True)]) / np.maximum(sp, 0.05)
+        speeds.append(sp)
+        accels.append(tangential)
+        tops.append(top[start + FPS // 2:start + n - FPS // 2])
+    return np.concatenate(speeds), np.concatenate(accels), np.concatenate(tops)
 
 
 @pytest.mark.slow
-def test_full_match_distances_and_sprints_look_like_football(full_match):
-    rows = _per_player(full_match)
-    full = [r for r in rows if r["minutes"] > 90]
-    outfield = [r for r in full if r["role"] != "GK"]
-    assert len(outfield) >= 12
-    for r in outfield:
-        assert 10.0 <= r["km90"] <= 12.0, r  # Osgnach et al. 2010: 10,950 +- 1,044 m per match
-        assert 20 <= r["sprints90"] <= 60, r  # after Di Salvo et al. 2009
-    for r in full:
-        if r["role"] == "GK":
-            assert 4.0 <= r["km90"] <= 6.0, r  # goalkeepers ~4-6 km (Di Salvo et al. 2008)
+def test_full_match_players_have_their_own_top_speed_and_seldom_come_near_it(full_match):
+    m = full_match
+    speed, _, top = _kinematics(m)
+    outfield = np.array([r != "GK" for r in m.slot_roles])
+    own = athletes.capacities(np.tile(np.arange(11), (1, 2)), m.slot_roles).top_speed_ms[0]  # the 22 starters
+    # common practice (from memory): outfielders' maximal speeds roughly 29-35 km/h, goalkeepers slower
+    assert (28.5 <= own[outfield] * 3.6).all() and (own[outfield] * 3.6 <= 36.0).all(), own * 3.6
+    assert own[~outfield].max() < own[outfield].min()
+    assert np.ptp(own[outfield]) * 3.6 >= 3.0  # players differ
+    share = speed / top
+    # players seldom exceed 90 % of their own maximum in a match (common practice, from memory):
+    # seconds above it per player, and a match peak a little below the maximum
+    above_s = (share > 0.9).sum(axis=0) / FPS
+    assert (above_s <= 15.0).all(), above_s
+    assert (share.max(axis=0) <= 1.0).all()
+    assert 0.85 <= float(np.median(share.max(axis=0)[outfield])) <= 0.97
 
-    def mean(role: str) -> float:
-        return float(np.mean([r["km90"] for r in rows if r["role"] == role and r["minutes"] > 30]))
 
-    # Bradley et al. 2009: central midfielders cover the most, centre-backs the least
-    assert mean("CM") > max(mean(x) for x in ("CB", "FB", "CF", "W"))
-    assert mean("CB") < min(mean(x) for x in ("FB", "CM", "WM", "W", "CF"))
+@pytest.mark.slow
+def test_full_match_acceleration_capacity_falls_with_speed(full_match):
+    speed, accel, _ = _kinematics(full_match)
+    # Sonderegger et al. 2016: the largest acceleration reached falls as the starting speed rises
+    bands = [(2.0, 3.5), (3.5, 5.0), (5.0, 6.5), (6.5, 8.0)]
+    peak = [float(np.percentile(accel[(speed >= lo) & (speed < hi)], 99.9)) for lo, hi in bands]
+    assert all(a > b for a, b in zip(peak, peak[1:], strict=False)), peak
+    assert peak[0] > 3.0 > peak[-1], peak  # hard accelerations come from low speeds only
+    # Harper et al. 2019: hard decelerations (< -3 m/s^2) happen from high speed too
+    assert float(np.percentile(accel[speed >= 5.5], 0.1)) < -3.0
 
 
 @pytest.mark.slow
