@@ -22,6 +22,7 @@ from pacewire.engine import exertion as ex
 from pacewire.engine.blocks import BlockSeries
 from pacewire.reports import charts
 from pacewire.reports.page import page, zone_names
+from pacewire.reports.phases import phases_section
 from pacewire.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
 from pacewire.wire.messages import envelope
 
@@ -121,7 +122,8 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
     per_min = {pid: [None if not np.isfinite(v) else round(float(v), 1) for v in rate[:, i]]
                for i, pid in enumerate(ser.player_ids)}
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,
-                [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min)
+                [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min,
+                phases_section)
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
                    players=snap["players"], teams=snap["teams"], health=snap["health"])
     _write_atomic(folder / "report.html", text.encode("utf-8"))

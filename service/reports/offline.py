@@ -69,12 +69,16 @@ def run_recording(folder: str | Path, settings: Settings, progress: bool = True,
                   batch: int = 1500) -> tuple[MatchState, Recording, int]:
     """Run a recording through the engine (as ``pacewire analyze`` does) with a progress
     bar on stderr. Returns (finished state, recording, bad lines skipped). Heart-rate samples
-    (hr.jsonl) go in first: they count as tracking reaches their time, as live."""
-    from pacewire.analyze import add_heart_rate, new_match
+    (hr.jsonl) go in first: they count as tracking reaches their time, as live; so do the CDF
+    events (event.jsonl): the phases depend on the final events only."""
+    from pacewire.analyze import add_heart_rate, new_match, read_events
 
     rec = open_recording(folder)
     state, decoder = new_match(rec.meta, rec.sheet, settings)
     bad = len(add_heart_rate(state, rec))
+    events = read_events(state, rec)
+    bad += events.rejected
+    state.ingest_events(events)
     bar = ProgressBar(_size(rec), f"{state.roster.match_id}: frames") if progress else None
     for first, lines in rec.batches(batch):
         res = decoder.decode_lines(lines, first_line=first)
