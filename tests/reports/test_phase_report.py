@@ -44,7 +44,8 @@ def test_phase_page_shows_the_snapshots_figures(reports, kind):
         want = []
         for t in teams:
             f = t["outfield"]["phases"][key]
-            want += [num(f["seconds"] / 60.0, 1), num(f["per_player_m_per_min"], 1), num(f["hsr_m"]), num(f["sprint_m"])]
+            want += [num(f["seconds"] / 60.0, 1), num(f["per_player_m_per_min"], 1), num(f["hsr_m"]),
+                     num(f["sprint_m"])]
         assert rows[label] == want, label
     seq = {(r[0], r[1]): r[2:] for r in tables[1][1:]}
     for t in teams:
