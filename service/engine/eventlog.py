@@ -49,6 +49,7 @@ class EventLog:
     current: dict[int, tuple[int, int, float]] = field(default_factory=dict)  # key -> (version, period, time)
     versions: list[int] = field(default_factory=lambda: [0] * len(PERIODS))  # per period: bumps on a change
     _sorted: dict[int, tuple[int, PeriodMarks]] = field(default_factory=dict)
+    _times: tuple[int, np.ndarray] | None = None  # (_n when made, times) of times()
     _n: int = 0
 
     def __len__(self) -> int:
@@ -71,8 +72,10 @@ class EventLog:
             self._period.append(period)
 
     def times(self) -> np.ndarray:
-        """Times (UTC s) of the current version of every event."""
-        return np.fromiter((v[2] for v in self.current.values()), float, len(self.current))
+        """Times (UTC s) of the current version of every event (cached until an event comes)."""
+        if self._times is None or self._times[0] != self._n:
+            self._times = (self._n, np.fromiter((v[2] for v in self.current.values()), float, len(self.current)))
+        return self._times[1]
 
     def period(self, index: int) -> PeriodMarks:
         """The marks of a period in order (time, key, order within the event); cached per version."""

@@ -162,6 +162,16 @@ def shot_spells(labels: Labels, marks: PeriodMarks, t0: float, team: int) -> np.
     return np.unique(labels.spell[last[ok]])
 
 
+def _run_sums(bins: SecondBins, mask: np.ndarray, rows: list[int], cols: np.ndarray) -> np.ndarray:
+    """Sums of figure ``rows`` over the seconds where ``mask`` holds, summed over ``cols``: (len(rows),)."""
+    if not mask.any():
+        return np.zeros(len(rows))
+    edge = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
+    starts, stops = np.flatnonzero(edge == 1), np.flatnonzero(edge == -1)
+    cum = bins.cum(np.concatenate([starts, stops]))[:, rows][:, :, cols].sum(axis=2)  # (2 runs, len(rows))
+    return (cum[len(starts):] - cum[:len(starts)]).sum(axis=0)
+
+
 def sequence_sums(bins: SecondBins, labels: Labels, marks: PeriodMarks, t0: float, team: int,
                   outfield: np.ndarray) -> np.ndarray:
     """``team``'s possession sequences of one period by outcome: rows (shot, no shot) of [spells,
@@ -172,14 +182,13 @@ def sequence_sums(bins: SecondBins, labels: Labels, marks: PeriodMarks, t0: floa
     ours = labels.poss == team
     if n == 0 or not ours.any():
         return out
-    cum = bins.cum(np.arange(n + 1))[:, [ex.DIST, ex.HSR, ex.SEEN]][:, :, outfield].sum(axis=2)
-    per_sec = np.diff(cum, axis=0)  # (n, 3)
+    cols = np.flatnonzero(outfield)
     shot = np.isin(labels.spell, shot_spells(labels, marks, t0, team)) & ours
     short = max(n * bins.fps - bins.end_slot, 0) / bins.fps  # the part of the last second not played
     for row, sel in ((0, shot), (1, ours & ~shot)):
         out[row, 0] = len(np.unique(labels.spell[sel]))
         out[row, 1] = sel.sum() - (short if sel[-1] else 0.0)
-        out[row, 2:] = per_sec[sel].sum(axis=0)
+        out[row, 2:] = _run_sums(bins, sel, [ex.DIST, ex.HSR, ex.SEEN], cols)
     return out
 
 
