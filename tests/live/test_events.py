@@ -11,10 +11,12 @@ import warnings
 
 import cdf
 import httpx
+import jsonschema
 import orjson
 import websockets
 
 from pacewire.analyze import analyze_folder
+from pacewire.wire.schema import json_schemas, strict
 from tests.support import cdf_build as cb, cdf_events as ce
 from tests.support.live_match import frames, setup_body
 from tests.support.live_server import LiveServer
@@ -118,6 +120,10 @@ def test_event_stream_health_gap_and_recovery_after_a_restart(tmp_path):
         assert h["since_last_s"] >= 44  # 14 s to 60 s, the ball in play throughout (tests.support.live_match)
         assert h["events_per_min"] == 8.0  # eight events within the last 60 s of match time
         want = {k: snap[k] for k in ("players", "teams")}
+        # phases, sequences and the event stream's health are all described by the published schema
+        errors = [e.message[:200] for e in jsonschema.Draft202012Validator(strict(json_schemas()["snapshot"]))
+                  .iter_errors(snap)]
+        assert errors == [] and "sequences" in snap["teams"][cb.HOME]["outfield"]
     finally:
         srv.kill9()
     srv2 = LiveServer(tmp_path / "data").start()
