@@ -23,8 +23,8 @@ import pytest
 
 from pacewire.analyze import analyze_folder
 from pacewire.config import load_settings
-from pacewire.engine.eventlog import EventLog
-from pacewire.engine.phases import PHASES, period_labels
+from pacewire.engine.eventlog import SHOT, EventLog
+from pacewire.engine.phases import PHASES, period_labels, shot_spells
 from pacewire.engine.types import BALL_UNKNOWN, NO_TEAM
 from pacewire.params import match_params
 from pacewire.replay import importer
@@ -83,21 +83,27 @@ def test_statsbomb_phases_from_the_events_alone(statsbomb):
     p = match_params(load_settings(), roster).phases
     no_frames = np.full((1, 2), (BALL_UNKNOWN, NO_TEAM), np.int8)  # no tracking: the events decide everything
     seconds = np.zeros((2, 7))
+    seqs = np.zeros((2, 2), int)  # per team: possession sequences, those in which it shot
     played = 0
     for per in ds.metadata.periods:
         t0, t1 = as_utc(per.start_timestamp).timestamp(), as_utc(per.end_timestamp).timestamp()
         n = int(t1 - t0)
         played += n
-        lab = period_labels(no_frames, -1, t0, 25, n, log.period(per.id - 1), p)
+        marks = log.period(per.id - 1)
+        lab = period_labels(no_frames, -1, t0, 25, n, marks, p)
         for k in (0, 1):
             seconds[k] += np.bincount(lab.codes[:, k], minlength=7)
+            seqs[k] += (len(np.unique(lab.spell[lab.poss == k])), len(shot_spells(lab, marks, t0, k)))
     assert (seconds.sum(axis=1) == played).all()  # every second has one phase per team
     assert (seconds[0, 4] == seconds[1, 4]) and (seconds[0, 0] == seconds[1, 1])  # dead ball shared; mirror
     share = (seconds[0, 0] + seconds[0, 2]) / (seconds[0, :4].sum())
     shown = {ph: [float(seconds[k, c]) + (float(seconds[k, 6]) if c == 5 else 0.0) for k in (0, 1)]
              for c, ph in enumerate(PHASES)}
     print(f"\nStatsBomb 15986 phases (s, {roster.team_names[0]} / {roster.team_names[1]}): {shown}; "
-          f"{roster.team_names[0]} had the ball {share:.0%} of the time either team had it")
+          f"{roster.team_names[0]} had the ball {share:.0%} of the time either team had it; possession "
+          f"sequences (with a shot): {seqs.tolist()}")
+    shots = [sum(any(m[2] == SHOT and m[1] == k for m in e.marks) for e in res.events) for k in (0, 1)]
+    assert (seqs[:, 1] <= shots).all() and sum(shots) == 27  # a sequence may hold several of the 27 shots
     # Barcelona kept the ball about two thirds of the time in this match (from memory: StatsBomb's own
     # possession figure is of that order); a wide band, to catch a phase model that mixes the teams up
     assert roster.team_names[0] == "Barcelona" and 0.55 < share < 0.80
