@@ -209,3 +209,29 @@ def test_garbage_never_raises(dec, junk):
     assert len(res) + res.rejected == 1 and all(e.code in CODES for e in res.errors)
     res = dec.decode_message(orjson.dumps(junk))
     assert all(e.code in CODES for e in res.errors)
+
+
+# the kinds of BAD a JSON Schema can see alone (no match sheet needed)
+SCHEMA_BAD = ("no event", "unknown top field", "meta", "missing required", "unknown event field", "id",
+              "time not UTC", "period", "type case", "sub_type", "is_successful", "outcome null", "x bool", "x far",
+              "y far", "body part", "related not list", "tracking frame")
+
+
+def test_the_asyncapi_event_payload_is_what_the_decoder_accepts():
+    """The AsyncAPI document describes /ingest/{match_id}/events with the decoder's own fields: it takes every
+    good event (and the demo clip's stream) and refuses the malformed kinds a schema can see."""
+    from pathlib import Path
+
+    from pacewire.wire.asyncapi import asyncapi_document
+    from pacewire.wire.events import EVENT_OPTIONAL, EVENT_REQUIRED
+
+    doc = asyncapi_document()
+    assert doc["channels"]["ingest_events"]["address"] == "/ingest/{match_id}/events"
+    payload = doc["components"]["messages"]["cdf_event"]["payload"]
+    assert set(payload["properties"]["event"]["properties"]) == set(EVENT_REQUIRED + EVENT_OPTIONAL)
+    check = jsonschema.Draft202012Validator(payload)
+    clip = Path(__file__).resolve().parents[2] / "demo_feeds" / "clip" / "event.jsonl"
+    for obj in [*GOOD, *(orjson.loads(line) for line in clip.read_bytes().splitlines())]:
+        assert [e.message for e in check.iter_errors(obj)] == [], obj["event"]["id"]
+    bad = {b[0]: b[1] for b in BAD}
+    assert [name for name in SCHEMA_BAD if check.is_valid(bad[name])] == []
