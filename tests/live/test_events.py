@@ -151,3 +151,29 @@ def test_the_events_socket_refuses_an_unknown_match(server):
             assert msg["code"] == "unknown_match"
 
     asyncio.run(run())
+
+
+def test_an_event_accepted_after_a_torn_last_line_survives_the_next_restart(tmp_path):
+    """Power lost in the middle of a write leaves event.jsonl without its last newline: after the restart
+    the torn line is skipped, and an event accepted then is recorded on a line of its own, so a second
+    restart still has it (no accepted event is ever lost)."""
+    srv = LiveServer(tmp_path / "data").start()
+    try:
+        put(srv)
+        post(srv, "frames", b"\n".join(cb.lines(frames(20))))
+        assert post(srv, "events", orjson.dumps(ev("e1", 1.0))).json()["accepted"] == 1
+    finally:
+        srv.kill9()
+    path = tmp_path / "data" / "matches" / MID / "event.jsonl"
+    with open(path, "ab") as fh:
+        fh.write(orjson.dumps(ev("e2", 2.0))[:40])  # what a power cut leaves of the next write
+    for run in range(2):
+        srv = LiveServer(tmp_path / "data").start()
+        try:
+            if run == 0:
+                assert post(srv, "events", orjson.dumps(ev("e3", 3.0))).json()["accepted"] == 1
+            assert snapshot(srv)["health"]["events"]["events"] == 2  # e1 and e3; the torn e2 never counted
+        finally:
+            srv.kill9()
+    first, torn, third = path.read_bytes().splitlines()
+    assert (orjson.loads(first)["event"]["id"], len(torn), orjson.loads(third)["event"]["id"]) == ("e1", 40, "e3")
