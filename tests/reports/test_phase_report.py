@@ -67,3 +67,16 @@ def test_no_phase_page_without_possession(tmp_path):
     build_offline(folder, tmp_path / "out", load_settings(), progress=False)
     doc = parse_strict((tmp_path / "out" / "half_time" / "report.html").read_text(encoding="utf-8"))
     assert not any(s.get("id") == "phases" for s in doc.iter("section"))
+
+
+@pytest.mark.parametrize("kind", ["half_time", "full_time"])
+def test_feed_section_shows_the_event_streams_health(reports, kind):
+    snap = orjson.loads((reports / kind / "snapshot.json").read_bytes())
+    doc = parse_strict((reports / kind / "report.html").read_text(encoding="utf-8"))
+    sec = next(s for s in doc.iter("section") if s.get("id") == "feed")
+    rows = {r[0]: r[1] for r in ([["".join(c.itertext()).strip() for c in tr] for tr in sec.iter("tr")]) if len(r) == 2}
+    ev = snap["health"]["events"]
+    assert ev["events"] > 0  # the synthetic match writes its event stream
+    assert (rows["event stream at build"], rows["events"], rows["events corrected"], rows["events refused"],
+            rows["events repeated"]) == (ev["state"], num(ev["events"]), num(ev["corrections"]), num(ev["rejected"]),
+                                         num(ev["duplicates"]))
