@@ -20,7 +20,7 @@ from pacewire.engine.health import DEGRADED, OK, STALLED
 class EventHealthParams:
     gap_s: float  # degraded after this many seconds of play without an event
     stall_s: float  # stalled after this many
-    max_lag_s: float  # degraded when the median lag behind the tracking exceeds this, s
+    max_lag_s: float  # degraded when the median lag behind (or ahead of) the tracking exceeds this, s
     window_s: float  # events per minute and lag are measured over this much time, s
 
 
@@ -76,4 +76,7 @@ class EventFeed:
         if lag_s is not None and lag_s > p.max_lag_s:
             reasons.append({"code": "event_lag", "message": f"events arrive {lag_s:.1f} s behind the tracking "
                                                            f"(limit {p.max_lag_s:g} s)"})
+        elif lag_s is not None and lag_s < -p.max_lag_s:  # stamped ahead of play: a clock or time-zone fault
+            reasons.append({"code": "event_ahead", "message": f"events are stamped {-lag_s:.1f} s ahead of the "
+                                                             f"tracking (limit {p.max_lag_s:g} s)"})
         return (DEGRADED if reasons else OK), reasons

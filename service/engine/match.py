@@ -167,7 +167,7 @@ class MatchState:
         if not feed.used:
             return None
         times = self.event_log.times()
-        since = self._play_since(float(times.max())) if len(times) else None
+        since = self._play_since(self._latest_event(times)) if len(times) else None
         lag, lag95 = feed.lag(now)
         state, reasons = feed.evaluate(since, lag)
         window = feed.params.window_s
@@ -178,6 +178,14 @@ class MatchState:
                 "lag_p95_s": None if lag95 is None else round(lag95, 2),
                 "since_last_s": None if since is None else round(since, 1), "corrections": feed.corrections,
                 "duplicates": feed.duplicates, "rejected": feed.rejected}
+
+    def _latest_event(self, times: np.ndarray) -> float:
+        """Time (UTC s) of the latest event not stamped ahead of play by more than the lag limit (such an
+        event does not show the stream alive now); the start of play when every event is."""
+        if self.last_t is None or not self.periods:
+            return float(times.max())
+        shown = times[times <= self.last_t + self.event_feed.params.max_lag_s]
+        return float(shown.max()) if len(shown) else self.periods[0].t0
 
     def _play_since(self, t: float) -> float:
         """Seconds of play (the ball not known to be dead) from ``t`` (UTC s) to the latest frame: the

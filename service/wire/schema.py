@@ -262,7 +262,8 @@ class EventStreamHealth(_Shape):
     """The CDF event stream's own health."""
 
     state: Literal["ok", "degraded", "stalled"]
-    reasons: list[Reason] = Field(description="Empty when ok: no_events, event_gap, event_stall, event_lag.")
+    reasons: list[Reason] = Field(
+        description="Empty when ok: no_events, event_gap, event_stall, event_lag, event_ahead.")
     events: int = Field(ge=0, description="Distinct events accepted (by id), count.")
     events_per_min: float | None = Field(description="Events timed within the last window of match time, per minute.")
     lag_s: float | None = Field(description="Median of how far events arrive behind the tracking, s; null offline.")
