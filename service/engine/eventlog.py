@@ -4,8 +4,9 @@ each event winning.
 The wire layer (:mod:`pacewire.wire.events`) turns each CDF event into a few marks ``(time,
 team, effect)``; the engine knows nothing of event types. An event is known by its key (the
 order in which its id was first seen); a correction replaces every mark of its key. Marks sort by
-time, then key, then their order within the event, so the order depends on the final events only,
-never on how they arrived.
+time, then key, then their order within the event: the order depends on the final events and, for
+events stamped at the same instant, on the order their ids first arrived in (the provider's
+sequence, which the recorded event.jsonl keeps), never on how the stream was split or corrected.
 """
 from __future__ import annotations
 

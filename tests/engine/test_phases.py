@@ -226,3 +226,17 @@ def test_figures_per_phase_are_the_distance_run_in_those_seconds():
         out = snap["teams"][tid]["outfield"]["phases"]
         for ph, want in by_phase.items():
             assert out[ph]["distance_m"] == pytest.approx(want, abs=1.5), (tid, ph)
+
+
+def test_events_at_the_same_instant_keep_the_order_their_ids_first_came_in():
+    """A duel stamped at one instant: the provider's sequence decides who has the ball after it (the later
+    one); resending or correcting either event later does not change that order."""
+    carry = ce.event("d_home", 33.0, "carry", player="h3")
+    tackle = ce.event("d_away", 33.0, "defending", team=A, player="a1", sub_type="tackle", ok=True)
+    won = seconds_by_phase(match(60, [*SCRIPT, carry, tackle], status=None), 0)
+    kept = seconds_by_phase(match(60, [*SCRIPT, tackle, carry], status=None), 0)
+    # home attacks from the free kick at 31 s; with the tackle last, away has the ball from 33 s, so home attacks
+    # 0-11 and 31-32 only (14 s); with the carry last, home keeps it to the script's tackle at 44.6 s (26 s)
+    assert (won["attack"], kept["attack"]) == (14.0, 26.0)
+    resent = match(60, [*SCRIPT, carry, tackle, ce.with_event(carry, x=1.0)], status=None, event_chunks=3)
+    assert seconds_by_phase(resent, 0) == won  # a correction of the first keeps its place
