@@ -5,6 +5,7 @@ and checkpointed by the aggregator; the figures by phase equal the single proces
 analyze``'s over the recorder's folder, also after an aggregator is killed."""
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import io
 import time
@@ -15,6 +16,7 @@ import cdf
 import httpx
 import orjson
 import pytest
+import websockets
 
 from pacewire.analyze import analyze_folder
 from tests.support import cdf_build as cb, cdf_events as ce
@@ -22,6 +24,7 @@ from tests.support.cluster import Cluster, holder
 from tests.support.live_match import frames, setup_body
 from tests.support.live_server import LiveServer
 from tests.support.redis_server import RedisServer, cli, require_redis
+from tests.support.sockets import recv
 
 require_redis("scale event-stream tests")
 
@@ -167,3 +170,26 @@ def test_a_killed_aggregator_is_succeeded_with_the_same_phases(league):
         time.sleep(0.3)
     assert phases(snap)[1] == phases(want)[1]
     assert snap["health"]["events"]["corrections"] == 1
+
+
+def test_the_events_socket_of_an_ingest_node_stores_in_redis_and_answers_each_refusal(league):
+    """WS /ingest/{id}/events on an ingest role: one object or an array per message, a duplicate and a bad
+    event each answered with its code and event_id, the others in the match's event stream."""
+    ing = league.ingests[1]
+    mid = "m_ev_ws"
+    assert httpx.put(f"{ing.http}/api/matches/{mid}", json=setup_body(mid), timeout=10).status_code == 201
+    evs = script(mid)
+
+    async def run() -> list[dict]:
+        async with websockets.connect(f"{ing.ws}/ingest/{mid}/events") as ws:
+            await ws.send(orjson.dumps(evs[0]).decode())
+            await ws.send(orjson.dumps([evs[1], evs[0], ce.with_event(evs[2], player_id="zz"), evs[3]]).decode())
+            return [await recv(ws), await recv(ws)]
+
+    errs = asyncio.run(run())
+    assert [(e["type"], e["code"], e["event_id"]) for e in errs] == [("error", "unknown_player", "i1"),
+                                                                    ("error", "duplicate", "k0")]
+    deadline = time.monotonic() + 10
+    while time.monotonic() < deadline and cli(league.redis.port, "XLEN", f"pw:ev:{mid}") != "3":
+        time.sleep(0.1)
+    assert cli(league.redis.port, "XLEN", f"pw:ev:{mid}") == "3"  # k0, p1, p2: stored once Redis answered
