@@ -87,7 +87,7 @@ def _position_group(player: Any) -> str | None:
     return CDF_POSITION_GROUPS.get(pos.position_group.name)
 
 
-def _utc(value: Any) -> datetime:
+def as_utc(value: Any) -> datetime:
     """A kloppy period start (aware or naive UTC datetime, or a timedelta) as an aware datetime."""
     if isinstance(value, timedelta):
         return _FALLBACK_KICKOFF + value
@@ -96,7 +96,7 @@ def _utc(value: Any) -> datetime:
     return value.astimezone(UTC)
 
 
-def _stamp(dt: datetime) -> str:
+def rfc3339(dt: datetime) -> str:
     """RFC 3339 UTC with milliseconds and a trailing Z (the CDF validator's form)."""
     return dt.astimezone(UTC).strftime("%Y-%m-%dT%H:%M:%S.%f")[:-3] + "Z"
 
@@ -176,10 +176,10 @@ def meta(dataset: TrackingDataset, match_id: str | None = None) -> dict[str, Any
             left, right = (sides["home"], sides["away"]) if d == "left_right" else (sides["away"], sides["home"])
             entry["left_team_id"], entry["right_team_id"] = str(left.team_id), str(right.team_id)
         if per.start_timestamp is not None and per.end_timestamp is not None:
-            entry["start_time"] = _stamp(_utc(per.start_timestamp))
-            entry["end_time"] = _stamp(_utc(per.end_timestamp))
+            entry["start_time"] = rfc3339(as_utc(per.start_timestamp))
+            entry["end_time"] = rfc3339(as_utc(per.end_timestamp))
         periods.append(entry)
-    kickoff = _utc(md.periods[0].start_timestamp) if md.periods else _FALLBACK_KICKOFF
+    kickoff = as_utc(md.periods[0].start_timestamp) if md.periods else _FALLBACK_KICKOFF
     provider = str(md.provider.value if md.provider else "unknown")
     tracking: dict[str, Any] = {"version": "unknown", "name": provider, "fps": int(round(md.frame_rate)),
                                 "collection_timing": "post_match"}
@@ -188,7 +188,7 @@ def meta(dataset: TrackingDataset, match_id: str | None = None) -> dict[str, Any
     teams = {side: {"id": str(t.team_id), "name": t.name, "players": _players(t)} for side, t in _sides(dataset)}
     return {
         "competition": {"id": "unknown"}, "season": {"id": "unknown"},
-        "match": {"id": mid, "kickoff_time": _stamp(kickoff), "periods": periods, "whistles": []},
+        "match": {"id": mid, "kickoff_time": rfc3339(kickoff), "periods": periods, "whistles": []},
         "teams": teams,
         "venue": {"id": "unknown", "pitch_length": length, "pitch_width": width},
         "meta": {"video": None,
@@ -223,7 +223,7 @@ def frames(dataset: TrackingDataset, match_id: str | None = None, renumber: bool
     sides = _sides(dataset)
     side_of = {t.team_id: side for side, t in sides}
     team_ids = {side: str(t.team_id) for side, t in sides}
-    starts = {per.id: _utc(per.start_timestamp) for per in md.periods}
+    starts = {per.id: as_utc(per.start_timestamp) for per in md.periods}
     for k, fr in enumerate(dataset.frames):
         teams: dict[str, Any] = {side: {"id": team_ids[side], "players": []} for side, _ in sides}
         for player, pdata in fr.players_data.items():
@@ -245,7 +245,7 @@ def frames(dataset: TrackingDataset, match_id: str | None = None, renumber: bool
         if fr.ball_owning_team is not None and fr.ball_owning_team.team_id in side_of:
             ball["poss_team_id"] = str(fr.ball_owning_team.team_id)
         yield {"frame_id": k if renumber else int(fr.frame_id),
-               "timestamp": _stamp(starts[fr.period.id] + fr.timestamp),
+               "timestamp": rfc3339(starts[fr.period.id] + fr.timestamp),
                "period": CDF_PERIODS[fr.period.id], "match": {"id": mid}, "teams": teams, "ball": ball}
 
 

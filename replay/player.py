@@ -29,6 +29,13 @@ per tick; the two sockets share the ticks, so neither waits for the other, also
 through a hole in the tracking. With ``--from`` the samples before the first
 streamed frame are posted at once to ``/api/matches/MATCH/hr`` (JSON Lines
 batches), after the frames before it.
+
+CDF events (``event.jsonl``) go over a third socket, ``/ingest/MATCH/events``, on the
+same clock, in file order (the order they arrived when recorded): each line when the
+frames' clock reaches its own time, or at once if it is already past (a line that
+arrived late was recorded after later events, so it is sent late again). With
+``--from`` the event lines timed before the first streamed frame are posted at once to
+``/api/matches/MATCH/events`` (JSON Lines, in file order).
 """
 from __future__ import annotations
 
@@ -116,6 +123,23 @@ def samples_of(rec: Recording) -> list[Sample]:
     return out
 
 
+def events_of(rec: Recording) -> list[Sample]:
+    """The CDF event lines in file order with their event time; an unreadable line keeps the previous
+    line's time and goes as it is (the server judges it)."""
+    out: list[Sample] = []
+    t = float("-inf")
+    for line in rec.event_lines():
+        raw = line.rstrip(b"\r\n")
+        if not raw.strip():
+            continue
+        try:
+            t = parse_timestamp(orjson.loads(raw)["event"]["time"])
+        except Exception:  # not ours to judge
+            pass
+        out.append(Sample(raw, t))
+    return out
+
+
 def frames_of(rec: Recording, after: int | None = None) -> Iterator[Frame]:
     """Every parsable frame line with its time; unreadable lines go as they are (the server judges them).
     ``after``: the server holds every frame up to this id, so the lines up to it are skipped."""
@@ -161,6 +185,7 @@ class Progress:
         self.t0 = time.monotonic()
         self.sent = 0
         self.hr_sent = 0  # heart-rate samples
+        self.ev_sent = 0  # CDF events
 
     def show(self, fr: Frame, sent: int, force: bool = False) -> None:
         now = time.monotonic()
@@ -218,6 +243,7 @@ class _Cursor:
     pending: Frame | None = None
     hr_next: int = 0
     fatal: str | None = None
+    events: list[Sample] | None = None  # the CDF event lines still to send, in file order
 
 
 @dataclass
@@ -231,6 +257,7 @@ class _Match:
     ends: dict[int, str]  # frame id -> the period the recording's meta ends there
     rename: Callable[[bytes], bytes]
     progress: Progress | None
+    events: list[Sample]  # the recording's CDF event lines, in file order
 
     def say(self, text: str) -> None:
         (self.progress or Progress()).say(text)
@@ -270,7 +297,7 @@ async def replay(folder: Path, to: str, speed: float | None, start_s: float | No
     ws_url = to if match_id is None else to.rsplit("/", 1)[0] + "/" + mid
     async with httpx.AsyncClient(base_url=base, headers=headers, timeout=60) as http:
         m = _Match(http, mid, rec, samples_of(rec), period_ends(rec),
-                   functools.partial(_rename, mid=mid, url_match=url_match, rec=rec), progress)
+                   functools.partial(_rename, mid=mid, url_match=url_match, rec=rec), progress, events_of(rec))
         await _set_up(http, mid, rec)
         pos = await ask(http, mid)
         deadline, sent = None, -1
@@ -337,6 +364,8 @@ async def _from(m: _Match, pos: Position, ws_url: str, headers: dict[str, str], 
         raise ReplayError(f"the server's match {m.mid} has ended (it holds frames up to {pos.last_frame_id}) and "
                           "refuses more: a period_start event reopens it, or replay into another match id")
     frames = itertools.chain([first], frames)
+    # every event line again after a drop: the server answers those it holds as duplicates and keeps the rest
+    cur.events = list(m.events)
     if start_s is not None:
         await _seek(m, frames, start_s, cur)
     await _stream(m, ws_url, headers, speed, frames, until_s, cur, stop)
@@ -376,7 +405,12 @@ async def _seek(m: _Match, frames: Iterator[Frame], start_s: float, cur: _Cursor
     await _post_hr(m.http, m.mid, [s.line for s in m.samples[first:cur.hr_next]])
     if m.progress is not None:
         m.progress.hr_sent += cur.hr_next - first
-
+    events = cur.events or []  # the event lines timed before the first streamed frame (all if none is left)
+    early = [e for e in events if cur.pending is None or e.t < cur.pending.t]
+    cur.events = [e for e in events if cur.pending is not None and e.t >= cur.pending.t]
+    await _post_hr(m.http, m.mid, [m.rename(e.line) for e in early], "events")
+    if m.progress is not None:
+        m.progress.ev_sent += len(early)
 
 async def _post_frames(m: _Match, batch: list[Frame], cur: _Cursor) -> None:
     await _post(m.http, m.mid, [fr.line for fr in batch])
@@ -392,8 +426,10 @@ async def _stream(m: _Match, ws_url: str, headers: dict[str, str], speed: float 
     ``cur.hr_next`` on, over the ingest sockets until the end, ``until_s`` or ``stop``."""
     async with contextlib.AsyncExitStack() as stack:
         ws, hr_ws = await _connect(stack, ws_url, headers, heart_rate=cur.hr_next < len(m.samples))
-        drains = [asyncio.create_task(_drain(w, cur, m)) for w in (ws, hr_ws) if w is not None]
+        ev_ws = await _connect_events(stack, ws_url, headers) if cur.events else None
+        drains = [asyncio.create_task(_drain(w, cur, m)) for w in (ws, hr_ws, ev_ws) if w is not None]
         clock = _Clock(ws, hr_ws, speed, m.samples, cur.hr_next)
+        clock.add_events(ev_ws, [Sample(m.rename(e.line), e.t) for e in cur.events or []])
         counted = 0
         try:
             finished = True
@@ -416,6 +452,8 @@ async def _stream(m: _Match, ws_url: str, headers: dict[str, str], speed: float 
             cur.sent += clock.frames.sent - counted
             if clock.hr is not None and m.progress is not None:
                 m.progress.hr_sent += clock.hr.sent
+            if clock.ev is not None and m.progress is not None:
+                m.progress.ev_sent += clock.ev.sent
         finally:
             for task in drains:
                 task.cancel()
@@ -441,6 +479,18 @@ async def _connect(stack: contextlib.AsyncExitStack, ws_url: str, headers: dict[
     return ws, hr_ws
 
 
+async def _connect_events(stack: contextlib.AsyncExitStack, ws_url: str, headers: dict[str, str]) -> Any:
+    """The events socket ``ws_url``/events, closed with ``stack``."""
+    import websockets
+
+    try:
+        return await stack.enter_async_context(
+            websockets.connect(ws_url + "/events", additional_headers=headers, max_size=None))
+    except websockets.InvalidStatus as exc:
+        raise ReplayError(f"the server refused the events socket {ws_url}/events "
+                          f"({exc.response.status_code})") from None
+
+
 class _Clock:
     """Both ingest sockets on one clock: frames and heart-rate samples go when their
     timestamps are due (module docstring), the break between periods skipped."""
@@ -456,6 +506,24 @@ class _Clock:
         self.ref_t: float | None = None
         self.period: str | None = None
         self.shift = 0.0  # skipped break time, s of frame time
+        self.ev: _Paced | None = None
+        self.events: list[Sample] = []
+        self.ev_next = 0
+
+    def add_events(self, ws: Any | None, events: list[Sample]) -> None:
+        """The events socket and the event lines to send on it, in file order."""
+        if ws is not None:
+            self.ev = _Paced(ws, self.frames.wall0, self.speed)
+            self.channels.append(self.ev)
+            self.events = events
+
+    async def events_before(self, t: float) -> None:
+        # file order: a line waits for the lines before it, then goes once its own time is past
+        ev = self.ev
+        while ev is not None and self.ev_next < len(self.events) and self.events[self.ev_next].t < t:
+            e = self.events[self.ev_next]
+            await self.emit(ev, e.line, max(self.due_of(e.t), ev.due_at))
+            self.ev_next += 1
 
     def due_of(self, t: float) -> float:
         """Wall time (s after the start) at which a line of timestamp ``t`` is due."""
@@ -487,6 +555,7 @@ class _Clock:
             self.period = fr.period
         if self.hr is not None:
             await self.heart_rate_before(fr.t)
+        await self.events_before(fr.t)
         await self.emit(self.frames, line, self.due_of(fr.t))
 
     async def finish(self, finished: bool) -> None:
@@ -494,9 +563,13 @@ class _Clock:
         short), then the last message of each socket."""
         if finished and self.hr is not None:
             await self.heart_rate_before(float("inf"))
+        if finished:
+            await self.events_before(float("inf"))
         await self.frames.flush()
         if self.hr is not None:
             await self.hr.flush()
+        if self.ev is not None:
+            await self.ev.flush()
 
 
 def _rename(line: bytes, mid: str, url_match: str, rec: Recording) -> bytes:
@@ -513,24 +586,26 @@ async def _post(http: Any, mid: str, lines: list[bytes]) -> None:
         raise ReplayError(f"batch refused ({r.status_code}): {r.text[:300]}")
 
 
-async def _post_hr(http: Any, mid: str, lines: list[bytes]) -> None:
-    """Heart-rate samples as JSON Lines batches (HR_BATCH lines, MAX_BYTES at most)."""
+async def _post_hr(http: Any, mid: str, lines: list[bytes], route: str = "hr") -> None:
+    """Heart-rate samples (or CDF event lines: ``route`` "events") as JSON Lines batches (HR_BATCH lines,
+    MAX_BYTES at most)."""
     batch: list[bytes] = []
     size = 0
     for line in lines:
         if batch and (len(batch) >= HR_BATCH or size + len(line) > MAX_BYTES):
-            await _post_hr_batch(http, mid, batch)
+            await _post_hr_batch(http, mid, batch, route)
             batch, size = [], 0
         batch.append(line)
         size += len(line) + 1
     if batch:
-        await _post_hr_batch(http, mid, batch)
+        await _post_hr_batch(http, mid, batch, route)
 
 
-async def _post_hr_batch(http: Any, mid: str, lines: list[bytes]) -> None:
-    r = await http.post(f"/api/matches/{mid}/hr", content=b"\n".join(lines))
+async def _post_hr_batch(http: Any, mid: str, lines: list[bytes], route: str = "hr") -> None:
+    r = await http.post(f"/api/matches/{mid}/{route}", content=b"\n".join(lines))
     if r.status_code >= 400:
-        raise ReplayError(f"heart-rate batch refused ({r.status_code}): {r.text[:300]}")
+        what = "heart-rate" if route == "hr" else "event"
+        raise ReplayError(f"{what} batch refused ({r.status_code}): {r.text[:300]}")
 
 
 async def _send(ws: Any, lines: list[bytes], wall0: float, due: float, speed: float | None) -> int:
@@ -615,7 +690,8 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"\nstopped{_resume_hint(cur)}", file=sys.stderr)
                 return 0
             hr = f", {prog.hr_sent} heart-rate samples" if prog.hr_sent else ""
-            print(f"\nreplay of {args.folder} into {mid} done: {sent} frames{hr}", file=sys.stderr)
+            ev = f", {prog.ev_sent} events" if prog.ev_sent else ""
+            print(f"\nreplay of {args.folder} into {mid} done: {sent} frames{hr}{ev}", file=sys.stderr)
             if not args.loop:
                 return 0
             round_no += 1

@@ -23,8 +23,9 @@ from pacewire.errors import PacewireError
 from pacewire.events import applies_by, apply_event
 from pacewire.params import match_params
 from pacewire.wire.cdf import FrameDecoder, FrameError, gnss_tolerances, parse_setup
+from pacewire.wire.events import EventDecoder, EventResult
 from pacewire.wire.heart import HrDecoder
-from pacewire.wire.recording import Recording, open_recording
+from pacewire.wire.recording import EVENT_FILE, Recording, open_recording
 
 
 @dataclass
@@ -32,6 +33,7 @@ class AnalyzeResult:
     state: MatchState
     errors: list[FrameError] = field(default_factory=list)
     error_count: int = 0
+    event_errors: list[FrameError] = field(default_factory=list)  # refused lines of event.jsonl (line numbers)
 
     def snapshot(self) -> dict[str, Any]:
         return build_snapshot(self.state)
@@ -40,8 +42,8 @@ class AnalyzeResult:
 class StrictError(PacewireError, ValueError):
     """A frame refused under ``--strict``; the message names its line, code and reason."""
 
-    def __init__(self, error: FrameError) -> None:
-        super().__init__(f"line {error.line}: {error.code}: {error.message}")
+    def __init__(self, error: FrameError, file: str = "") -> None:
+        super().__init__(f"{file}line {error.line}: {error.code}: {error.message}")
         self.error = error
 
 
@@ -64,6 +66,12 @@ def add_heart_rate(state: MatchState, rec: Recording) -> list[FrameError]:
     return res.errors
 
 
+def read_events(state: MatchState, rec: Recording) -> EventResult:
+    """The recording's CDF events (event.jsonl), if any, decoded in file order (corrections after what
+    they correct, as they arrived); the phases depend on the final events only."""
+    return EventDecoder(state.roster).decode_lines(rec.event_lines())
+
+
 def analyze_folder(folder: str | Path, settings: Settings | None = None, strict: bool = False,
                    on_error: Callable[[FrameError], None] | None = None,
                    keep_errors: int = 100, batch: int = 250) -> AnalyzeResult:
@@ -84,6 +92,11 @@ def analyze_folder(folder: str | Path, settings: Settings | None = None, strict:
             result.errors.append(err)
         if on_error is not None:
             on_error(err)
+    events = read_events(state, rec)
+    if events.errors and strict:
+        raise StrictError(events.errors[0], f"{EVENT_FILE} ")
+    result.event_errors = events.errors[:keep_errors]
+    state.ingest_events(events)
     for first, lines in rec.batches(batch):
         res = decoder.decode_lines(lines, first_line=first)
         if res.errors:
@@ -136,7 +149,7 @@ def figures_at(folder: Path, settings: Settings, match_id: str, at_s: float,
                events: list[dict[str, Any]], period: str | None = None) -> dict[str, Any]:
     """The snapshot body as it was at match clock ``at_s`` (of ``period``, or of the one period whose
     recorded clock holds it): the engine over the recorded frames up to then (the tail finalised, as a
-    stalled feed shows it) plus the match events up to then. Blocking: run it in a thread. Each call
+    stalled feed shows it) plus the match events and CDF events up to then. Blocking: run it in a thread. Each call
     reads the whole recording up to then; :class:`FiguresIndex` keeps checkpoints instead."""
     return FiguresIndex(folder, settings, match_id).figures(at_s, events, period)
 
@@ -201,6 +214,9 @@ class FiguresIndex:
                         state.ingest(res)
                         break
                 state.ingest(res)
+            cdf = read_events(state, self.rec)  # those of the match time so far: what had happened by the cut
+            cdf.events = [e for e in cdf.events if state.last_t is not None and e.t <= state.last_t]
+            state.ingest_events(cdf)
         last_fid = state.last_frame_id if state.frames else None
         for ev in events:
             if _happened(ev, last_fid, period_idx, at_s):

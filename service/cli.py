@@ -24,6 +24,8 @@ def _analyze(args: argparse.Namespace) -> int:
     except StrictError as exc:
         print(f"pacewire: {exc} (--strict)", file=sys.stderr)
         return 1
+    for err in result.event_errors:
+        print(f"pacewire: event.jsonl line {err.line}: {err.code}: {err.message}", file=sys.stderr)
     snap = result.snapshot()
     if args.json:
         from pacewire.wire.messages import snapshot_message

@@ -219,6 +219,26 @@ class Health(_Section):
     max_clock_offset_s: float = Field(gt=0, le=86_400)
 
 
+class Phases(_Section):
+    transition_s: float = Field(gt=0, le=60)
+    stale_s: float = Field(gt=0, le=600)
+    dead_stale_s: float = Field(gt=0, le=3600)
+    loose_s: float = Field(ge=0, le=60)
+
+
+class EventHealth(_Section):
+    gap_s: float = Field(gt=0, le=3600)
+    stall_s: float = Field(gt=0, le=3600)
+    max_lag_s: float = Field(gt=0, le=3600)
+    window_s: float = Field(gt=0, le=3600)
+
+    @model_validator(mode="after")
+    def _ordered(self) -> EventHealth:
+        if self.stall_s <= self.gap_s:
+            raise ValueError("stall_s must be above gap_s")
+        return self
+
+
 class Server(_Section):
     max_message_bytes: int = Field(ge=1024, le=64 * 1024 * 1024)
     max_batch_frames: int = Field(ge=1, le=1_000_000)
@@ -258,6 +278,8 @@ class Settings(_Section):
     periods: Periods
     heart_rate: HeartRate
     health: Health
+    phases: Phases
+    event_health: EventHealth
     server: Server
     reports: Reports
     alerts: AlertsSection

@@ -10,11 +10,13 @@ from itertools import pairwise
 import numpy as np
 
 from pacewire.config import Settings
+from pacewire.engine.eventhealth import EventHealthParams
 from pacewire.engine.exertion import ExertionParams
 from pacewire.engine.health import HealthParams
 from pacewire.engine.heart import HeartParams, HeartProfile
 from pacewire.engine.kinematics import KinematicParams
 from pacewire.engine.params import MatchParams, SpeedZones, WindowParams
+from pacewire.engine.phases import PhaseParams
 from pacewire.engine.types import PERIODS, FeedProfile, Roster
 
 
@@ -41,6 +43,10 @@ def match_params(settings: Settings, roster: Roster) -> MatchParams:
                              block_min=s.windows.block_min),
         period_min=tuple(int(getattr(s.periods, name)) for name in PERIODS),
         on_pitch_timeout_s=s.health.on_pitch_timeout_s,
+        phases=PhaseParams(transition_s=s.phases.transition_s, stale_s=s.phases.stale_s,
+                           dead_stale_s=s.phases.dead_stale_s, loose_s=s.phases.loose_s),
+        event_health=EventHealthParams(gap_s=s.event_health.gap_s, stall_s=s.event_health.stall_s,
+                                       max_lag_s=s.event_health.max_lag_s, window_s=s.event_health.window_s),
     )
 
 

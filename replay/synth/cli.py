@@ -33,6 +33,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--gnss-errors", action="store_true",
                    help="add GNSS jitter, a wandering position error and multipath excursions")
     p.add_argument("--no-compress", action="store_true", help="write tracking.jsonl instead of .jsonl.gz")
+    p.add_argument("--no-events", action="store_true", help="write no event.jsonl (the CDF event stream)")
+    p.add_argument("--no-event-gap", action="store_true", help="no 90 s hole in the event stream")
+    p.add_argument("--no-event-lag", action="store_true", help="no 3 minutes of events arriving 20 s late")
+    p.add_argument("--no-corrections", action="store_true", help="no events sent wrong, then corrected by id")
     p.add_argument("--wearables", action="store_true",
                    help="the one-team GNSS + heart-rate variant (docs/wearables.md): home players only with "
                         "lat/long, no ball, hr.jsonl")
@@ -48,7 +52,9 @@ def main(argv: list[str] | None = None) -> int:
                          compress=not args.no_compress, outage=not args.no_outage, dropouts=not args.no_dropouts,
                          duplicates=not args.no_duplicates, out_of_order=not args.no_out_of_order,
                          jumps=not args.no_jumps, wearables=args.wearables, slides=args.slides,
-                         camera_gaps=args.camera_gaps, gnss=args.gnss_errors)
+                         camera_gaps=args.camera_gaps, gnss=args.gnss_errors, events=not args.no_events,
+                         event_gap=not args.no_event_gap, event_lag=not args.no_event_lag,
+                         corrections=not args.no_corrections)
     n_faults = len(orjson.loads((folder / "faults.json").read_bytes())["faults"])
     kind = "the wearables variant in " if args.wearables else ""
     print(f"wrote {kind}{folder} ({args.minutes:g} min at {args.fps} fps, seed {args.seed}, {n_faults} faults) "

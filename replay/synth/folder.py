@@ -1,6 +1,6 @@
-"""Writing the recording folder: meta.json, match.json, faults.json and
-tracking.jsonl[.gz] (plus hr.jsonl in the wearables variant), byte-identical for
-the same arguments."""
+"""Writing the recording folder: meta.json, match.json, faults.json,
+tracking.jsonl[.gz] and event.jsonl (the CDF event stream; hr.jsonl instead in the
+wearables variant), byte-identical for the same arguments."""
 
 from __future__ import annotations
 
@@ -22,6 +22,8 @@ from pacewire.replay.synth.documents import (
     build_wearables_meta,
     build_wearables_sheet,
 )
+from pacewire.replay.synth.event_faults import plan_event_feed
+from pacewire.replay.synth.event_stream import event_objects
 from pacewire.replay.synth.faults import FaultPlan, FaultRecord, plan_faults
 from pacewire.replay.synth.lines import frame_lines, hr_lines
 from pacewire.replay.synth.match import SynthMatch, simulate_match
@@ -31,7 +33,8 @@ from pacewire.replay.synth.wearables import gnss_calibration, plan_wearables
 def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int = 0, faults: bool = True,
                 compress: bool = True, *, outage: bool = True, dropouts: bool = True, duplicates: bool = True,
                 out_of_order: bool = True, jumps: bool = True, wearables: bool = False, slides: bool = False,
-                camera_gaps: bool = False, gnss: bool = False) -> pathlib.Path:
+                camera_gaps: bool = False, gnss: bool = False, events: bool = True, event_gap: bool = True,
+                event_lag: bool = True, corrections: bool = True) -> pathlib.Path:
     """Write the fictional demo match as a CDF folder and return the folder.
 
     out: folder (created). minutes: total playing time (95 = 45+2 and 45+4 min;
@@ -54,6 +57,11 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
 
     wearables: the one-team GNSS + heart-rate variant of the same match
     (docs/wearables.md; see write_wearables_files).
+
+    events: write ``event.jsonl``, the match's CDF event stream (event_stream), with
+    its own faults (event_faults), each switchable: event_gap, event_lag,
+    corrections (the master switch ``faults`` turns them off too). Not in the
+    wearables variant (a club's wearables come without an event feed).
     """
     out = pathlib.Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -63,14 +71,21 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
     fp = plan_faults(rng, m, minutes, outage=on and outage, dropouts=on and dropouts,
                      duplicates=on and duplicates, out_of_order=on and out_of_order, jumps=on and jumps,
                      slides=on and slides, camera_gaps=on and camera_gaps, gnss=on and gnss)
-    for stale in ("tracking.jsonl", "tracking.jsonl.gz", "hr.jsonl", "hr.jsonl.gz"):
+    for stale in ("tracking.jsonl", "tracking.jsonl.gz", "hr.jsonl", "hr.jsonl.gz", "event.jsonl"):
         (out / stale).unlink(missing_ok=True)
     profile = feed_profile(on and (slides or camera_gaps), on and gnss)
     if wearables:
         return write_wearables_files(out, m, fp, seed, minutes, compress, faults=on, profile=profile)
+    records = fp.records
+    if events:
+        ev_rng = np.random.default_rng([seed, 3])
+        feed = plan_event_feed(ev_rng, m, event_objects(m, ev_rng), minutes, gap=on and event_gap,
+                               lag=on and event_lag, corrections=on and corrections)
+        write_lines(out / "event.jsonl", (orjson.dumps(o) + b"\n" for o in feed.objects), False)
+        records = sorted(records + feed.records, key=lambda r: r["time"])
     _write_json(out / "meta.json", with_profile(build_meta(m), profile))
     _write_json(out / "match.json", build_sheet(m))
-    _write_json(out / "faults.json", _faults_doc(m, seed, minutes, fp.records))
+    _write_json(out / "faults.json", _faults_doc(m, seed, minutes, records))
     write_lines(_tracking_path(out, compress), frame_lines(m, fp), compress)
     return out
 

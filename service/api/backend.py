@@ -17,7 +17,7 @@ from typing import Any, Protocol
 
 from pacewire.api.requests import StreamParams
 from pacewire.engine.types import Roster
-from pacewire.wire.outcome import IngestOutcome
+from pacewire.wire.outcome import EventOutcome, IngestOutcome
 
 Send = Callable[[str], Coroutine[Any, Any, None]]  # a coroutine: the broadcaster may step it itself
 
@@ -33,8 +33,12 @@ class MatchWriter(Protocol):
     async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
         """Heart-rate samples: JSON Lines (a list of lines) or one message (an object or an array)."""
 
+    async def cdf_events(self, data: bytes | str | list[bytes], durable: bool) -> EventOutcome:
+        """CDF events: JSON Lines (a list of lines) or one message (an event object or an array of them):
+        answered once the accepted ones (corrections too) are stored."""
+
     async def add_event(self, event: Any) -> None:
-        """Check, store and apply one match event."""
+        """Check, store and apply one match (control) event."""
 
     def store_error(self) -> str:
         """Why the last batch was not stored."""

@@ -1,4 +1,4 @@
-"""Data in: match set-up, frames, match events and heart rate, over HTTP and websockets.
+"""Data in: match set-up, frames, CDF events, match control events and heart rate, over HTTP and websockets.
 
 Every write is answered only once what was accepted is stored (the recording,
 or Redis); a refusal names what to fix, and a batch that could not be stored is
@@ -6,6 +6,9 @@ answered ``not_stored`` so the provider sends it again.
 """
 from __future__ import annotations
 
+from typing import Any
+
+import orjson
 from fastapi import APIRouter, Request, WebSocket, WebSocketDisconnect
 from fastapi.responses import JSONResponse
 
@@ -57,16 +60,17 @@ def ingest_routes(backend: IngestBackend, tokens: Tokens, limits: Server) -> API
 
     @router.post("/api/matches/{match_id}/events")
     async def post_events(request: Request, match_id: str = MatchIdParam) -> JSONResponse:
+        """CDF events (JSON Lines, or one JSON object or array of them): counts and the first refusals,
+        answered once stored; or pacewire's control events (one JSON object or an array)."""
         writer, body = await writing(request, match_id)
-        data = parse_json(body)
-        events = data if isinstance(data, list) else [data]
-        for i, ev in enumerate(events):
-            try:
-                await writer.add_event(ev)
-            except PacewireError as exc:
-                where = f"event {i}: " if isinstance(exc, EventError) else ""
-                raise ApiError.of(exc, f"{where}{exc}", applied=i) from None
-        return JSONResponse({"applied": len(events)})
+        cdf, data = event_batch(body, limits.max_batch_frames)
+        if cdf:
+            out = await writer.cdf_events(data, durable=True)
+            if not out.stored:
+                raise ApiError(503, "not_stored", writer.store_error(), **out.as_dict())
+            return JSONResponse(out.as_dict())
+        await apply_control(writer, data)
+        return JSONResponse({"applied": len(data)})
 
     @router.post("/api/matches/{match_id}/hr")
     async def post_hr(request: Request, match_id: str = MatchIdParam) -> JSONResponse:
@@ -78,8 +82,8 @@ def ingest_routes(backend: IngestBackend, tokens: Tokens, limits: Server) -> API
             raise ApiError(503, "not_stored", writer.store_error(), **out.as_dict())
         return JSONResponse(out.as_dict())
 
-    async def ingest_socket(ws: WebSocket, match_id: str, hr: bool) -> None:
-        """A provider's socket: frames (or heart-rate samples) in, an ``error`` message per refusal out."""
+    async def ingest_socket(ws: WebSocket, match_id: str, kind: str) -> None:
+        """A provider's socket: frames (or heart-rate samples, or events) in, an ``error`` message per refusal out."""
         if not await accept(ws, tokens, write=True):
             return
         try:
@@ -88,22 +92,70 @@ def ingest_routes(backend: IngestBackend, tokens: Tokens, limits: Server) -> API
             await refuse(ws, match_id, ApiError.of(exc))
             return
         try:
-            await _read_socket(ws, writer, match_id, hr)
+            await _read_socket(ws, writer, match_id, kind)
         except WebSocketDisconnect:
             return
 
     @router.websocket("/ingest/{match_id}")
     async def ws_ingest(ws: WebSocket, match_id: str = MatchIdParam) -> None:
-        await ingest_socket(ws, match_id, hr=False)
+        await ingest_socket(ws, match_id, "frames")
 
     @router.websocket("/ingest/{match_id}/hr")
     async def ws_ingest_hr(ws: WebSocket, match_id: str = MatchIdParam) -> None:
-        await ingest_socket(ws, match_id, hr=True)
+        await ingest_socket(ws, match_id, "hr")
+
+    @router.websocket("/ingest/{match_id}/events")
+    async def ws_ingest_events(ws: WebSocket, match_id: str = MatchIdParam) -> None:
+        await ingest_socket(ws, match_id, "events")
 
     return router
 
 
-async def _read_socket(ws: WebSocket, writer: MatchWriter, match_id: str, hr: bool) -> None:
+def event_batch(body: bytes | str, limit: int) -> tuple[bool, Any]:
+    """What an events body holds: (True, what ``MatchWriter.cdf_events`` takes) for CDF events (objects
+    with an ``event``, or JSON Lines), (False, the objects) for control events."""
+    try:
+        data = orjson.loads(body)
+    except orjson.JSONDecodeError:
+        if isinstance(body, str):
+            body = body.encode()
+        return True, json_lines(body, limit, "events")  # JSON Lines: CDF events, each line judged
+    objs = data if isinstance(data, list) else [data]
+    cdf = [type(o) is dict and "event" in o for o in objs]
+    if any(cdf) and not all(cdf):
+        raise ApiError(422, "bad_event", "a batch holds either CDF event objects or control events, not both")
+    return (True, body) if any(cdf) else (False, objs)
+
+
+async def apply_control(writer: MatchWriter, events: list[Any]) -> None:
+    """Control events one by one; the first refusal stops the batch and says how many were applied."""
+    for i, ev in enumerate(events):
+        try:
+            await writer.add_event(ev)
+        except PacewireError as exc:
+            where = f"event {i}: " if isinstance(exc, EventError) else ""
+            raise ApiError.of(exc, f"{where}{exc}", applied=i) from None
+
+
+async def _receive(writer: MatchWriter, data: bytes | str, kind: str) -> list[dict[str, Any]]:
+    """One provider message in; the refusals to send back."""
+    if kind == "events":
+        try:
+            cdf, objs = event_batch(data, 1_000_000)
+            if cdf:
+                ev = await writer.cdf_events(objs if isinstance(objs, list) else data, durable=False)
+                errs = [e.as_dict() for e in ev.errors]
+                return errs if ev.stored else [*errs, {"code": "not_stored", "message": writer.store_error()}]
+            await apply_control(writer, objs)
+            return []
+        except ApiError as exc:
+            return [{"code": exc.code, "message": exc.message, **exc.extra}]
+    out = await (writer.heart_rate if kind == "hr" else writer.frames)(data, durable=False)
+    errs = [e.as_dict() for e in out.errors]
+    return errs if out.stored else [*errs, {"code": "not_stored", "message": writer.store_error()}]
+
+
+async def _read_socket(ws: WebSocket, writer: MatchWriter, match_id: str, kind: str) -> None:
     can_reply = True
     while True:
         msg = await ws.receive()
@@ -114,10 +166,7 @@ async def _read_socket(ws: WebSocket, writer: MatchWriter, match_id: str, hr: bo
             data = msg.get("bytes")
         if data is None:
             continue
-        out = await (writer.heart_rate if hr else writer.frames)(data, durable=False)
-        errs = [e.as_dict() for e in out.errors]
-        if not out.stored:
-            errs.append({"code": "not_stored", "message": writer.store_error()})
+        errs = await _receive(writer, data, kind)
         for e in errs if can_reply else ():
             try:
                 await ws.send_text(error_text(match_id, writer.clock(), **e))

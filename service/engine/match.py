@@ -8,6 +8,7 @@ turns a state into the snapshot body the service publishes: ``players``,
 from __future__ import annotations
 
 import copy
+import math
 from functools import partial
 from itertools import pairwise
 from typing import Any
@@ -15,12 +16,15 @@ from typing import Any
 import numpy as np
 
 from pacewire.engine import exertion as ex
+from pacewire.engine.eventhealth import EventFeed
+from pacewire.engine.eventlog import EventLog
 from pacewire.engine.exertion import Exertion
 from pacewire.engine.health import FeedHealth
 from pacewire.engine.heart import HeartRate
 from pacewire.engine.kinematics import Final, Track
 from pacewire.engine.params import MatchParams
 from pacewire.engine.period import Period
+from pacewire.engine.phases import DEAD_BALL, PeriodPhases, PhaseTotals, match_phases
 from pacewire.engine.topspeed import TopSpeed
 from pacewire.engine.types import BALL_IN, BALL_OUT, BALL_UNKNOWN, NO_TEAM, Block, Roster
 from pacewire.engine.windows import SecondBins
@@ -72,6 +76,10 @@ class MatchState:
         # heart rate (docs/wearables.md): made with the first accepted sample
         self.heart: HeartRate | None = None
         self.hr_rejected = self.hr_duplicates = self.hr_late = 0
+        # the CDF event stream: marks by event, its health, and the phases cached per period
+        self.event_log = EventLog()
+        self.event_feed = EventFeed(params.event_health)
+        self._phases: dict[int, tuple[tuple[int, int, int], PeriodPhases]] = {}
 
     # -- input ---------------------------------------------------------------------
     @property
@@ -131,6 +139,70 @@ class MatchState:
             self.heart = HeartRate(self.params.heart, self.params.heart_profiles)
         self.heart.add(player, t, bpm)
         self._settle_heart()
+
+    def ingest_events(self, result: Any, now: float | None = None) -> None:
+        """Count an event decoder result's refusals and apply its accepted events
+        (:class:`pacewire.wire.events.EventResult`); ``now``: arrival wall-clock time (live), which
+        measures how far the events run behind the tracking."""
+        feed = self.event_feed
+        feed.rejected += result.rejected
+        feed.duplicates += result.duplicates
+        self.add_events([(e.key, e.period, e.t, e.marks) for e in result.events])
+        feed.corrections += sum(e.correction for e in result.events)
+        if now is not None and result.events:
+            ref = self.last_t if self.last_t is not None else now
+            feed.on_events(now, [ref - e.t for e in result.events])
+
+    def add_events(self, events: list[tuple[int, int, float, Any]]) -> None:
+        """Accepted events: (key, period index, time UTC s, marks); a key seen before is replaced."""
+        for key, period, t, marks in events:
+            self.event_log.put(key, period, t, marks)
+        self.event_feed.accepted += len(events)
+
+    def phases(self) -> PhaseTotals:
+        """Figures by game phase (:mod:`pacewire.engine.phases`)."""
+        return match_phases(self.periods, self.event_log, self.params.phases, self.fps, self.n, self.gk, self._phases)
+
+    def event_stream(self, now: float | None) -> dict[str, Any] | None:
+        """The event stream's health figures (None when the match has none): state, reasons, events,
+        events per minute of play over the window, lag, seconds of play since the last event, counts."""
+        feed = self.event_feed
+        if not feed.used:
+            return None
+        times = self.event_log.times()
+        since = self._play_since(self._latest_event(times)) if len(times) else None
+        lag, lag95 = feed.lag(now)
+        state, reasons = feed.evaluate(since, lag)
+        window = feed.params.window_s
+        recent = int(((times > self.last_t - window) & (times <= self.last_t)).sum()) if self.last_t else 0
+        return {"state": state, "reasons": reasons, "events": len(self.event_log),
+                "events_per_min": round(recent * 60.0 / window, 1) if self.last_t else None,
+                "lag_s": None if lag is None else round(lag, 2),
+                "lag_p95_s": None if lag95 is None else round(lag95, 2),
+                "since_last_s": None if since is None else round(since, 1), "corrections": feed.corrections,
+                "duplicates": feed.duplicates, "rejected": feed.rejected}
+
+    def _latest_event(self, times: np.ndarray) -> float:
+        """Time (UTC s) of the latest event not stamped ahead of play by more than the lag limit (such an
+        event does not show the stream alive now); the start of play when every event is."""
+        if self.last_t is None or not self.periods:
+            return float(times.max())
+        shown = times[times <= self.last_t + self.event_feed.params.max_lag_s]
+        return float(shown.max()) if len(shown) else self.periods[0].t0
+
+    def _play_since(self, t: float) -> float:
+        """Seconds of play (the ball not known to be dead) from ``t`` (UTC s) to the latest frame: the
+        complete seconds after ``t``'s by their labels, the time beyond them as play."""
+        self.phases()  # the labels up to date
+        total = 0.0
+        for per in self.periods:
+            end = (per.last_slot + 1) / self.fps  # s after the period's first frame
+            if per.t0 + end <= t:
+                continue
+            codes = self._phases[per.index][1].labels.codes[:, 0]
+            first = max(math.floor(t - per.t0) + 1, 0)
+            total += float((codes[first:] != DEAD_BALL).sum()) + max(end - max(len(codes), first), 0.0)
+        return total
 
     def _settle_heart(self) -> None:
         if self.heart is None or self.last_t is None:

@@ -11,10 +11,12 @@ from typing import Literal
 
 import numpy as np
 
+from pacewire.engine.eventhealth import EventHealthParams
 from pacewire.engine.exertion import ExertionParams
 from pacewire.engine.health import HealthParams
 from pacewire.engine.heart import HeartParams, HeartProfile
 from pacewire.engine.kinematics import KinematicParams
+from pacewire.engine.phases import PhaseParams
 from pacewire.engine.precision import WIRE, Precision
 
 
@@ -52,6 +54,8 @@ class MatchParams:
     windows: WindowParams
     period_min: tuple[int, ...]  # nominal length of each period in PERIODS order, minutes (Laws of the Game); 0: none
     on_pitch_timeout_s: float  # s: a longer gap in a player's samples counts as off the pitch (common practice)
+    phases: PhaseParams
+    event_health: EventHealthParams
     # digits of the snapshot's figures: the wire contract (service/wire/schema.py states them), not a setting
     precision: Precision = WIRE
 

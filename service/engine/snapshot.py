@@ -20,6 +20,7 @@ from pacewire.engine import exertion as ex
 from pacewire.engine.heart import HR_N
 from pacewire.engine.match import CLOCK_START_MIN, CONTEXTS, MatchState
 from pacewire.engine.period import Period
+from pacewire.engine.phases import IN_PLAY_CODES, PHASES, PhaseTotals
 from pacewire.engine.precision import Precision
 
 _U = 1e-6
@@ -411,6 +412,9 @@ def _health(state: MatchState, now: float | None, extra_reasons: list[dict[str, 
         health["hr_rejected"] = state.hr_rejected
         health["hr_duplicates"] = state.hr_duplicates
         health["hr_late"] = state.hr_late
+    events = state.event_stream(now)
+    if events is not None:
+        health["events"] = events
     return health
 
 
@@ -498,8 +502,10 @@ def build_snapshot(state: MatchState, now: float | None = None,
         windows, per_figs, hr_rows = _with_heart(state, windows, per_figs, onp_s)
     speed = _speeds(state)
     poss_rows = _possession_rows(cache, poss, state.params.precision) if state.has_ball else None
-    players = _players(state, cache, on_pitch, speed, figs, windows, per_figs, poss_rows, hr_rows)
-    teams = _teams(state, total, onp, onp_s, team_last)
+    phases = state.phases()
+    phase_rows = _player_phase_rows(state, cache, phases)
+    players = _players(state, cache, on_pitch, speed, figs, windows, per_figs, poss_rows, hr_rows, phase_rows)
+    teams = _teams(state, total, onp, onp_s, team_last, phases)
     health = _health(state, now, extra_reasons, on_pitch, cov)
     return {
         "match_id": roster.match_id,
@@ -570,7 +576,8 @@ def _possession_rows(cache: dict[Any, Any], poss: np.ndarray, prec: Precision) -
 
 
 def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], speed: list[float | None], figs: _Rows,
-             windows: _Rows, per_figs: _PeriodRows, poss_rows: _Rows | None, hr_rows: _Rows | None) -> dict[str, Any]:
+             windows: _Rows, per_figs: _PeriodRows, poss_rows: _Rows | None, hr_rows: _Rows | None,
+             phase_rows: _Rows) -> dict[str, Any]:
     """The snapshot's ``players``. A player whose every part is the object of the last snapshot keeps
     that player object (a diff skips it)."""
     roster = state.roster
@@ -580,7 +587,7 @@ def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], spe
     period_names = [name for name, _ in per_figs]
     for i, pl in enumerate(roster.players):
         parts = (figs[i], windows[i], *(pf[i] for _, pf in per_figs),
-                 None if poss_rows is None else poss_rows[i])
+                 None if poss_rows is None else poss_rows[i], phase_rows[i])
         old = prev.get(pl.id) if prev is not None else None
         if (hr_rows is None and old is not None and old[0][0] == on_pitch[i] and old[0][1] == speed[i]
                 and old[0][2] == period_names and len(old[0][3]) == len(parts)
@@ -595,11 +602,13 @@ def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], spe
                 "on_pitch": on_pitch[i],
                 "speed_ms": speed[i],
                 **figs[i],
+                "m_per_min_in_play": phase_rows[i]["m_per_min_in_play"],
                 "windows": windows[i],
                 "periods": {name: pf[i] for name, pf in per_figs},
             }
             if poss_rows is not None:
                 obj["possession"] = poss_rows[i]
+            obj["phases"] = phase_rows[i]["phases"]
             if hr_rows is not None:
                 obj.update(hr_rows[i])
         made[pl.id] = ((on_pitch[i], speed[i], period_names, parts), obj)
@@ -609,9 +618,9 @@ def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], spe
 
 
 def _teams(state: MatchState, total: np.ndarray, onp: np.ndarray, onp_s: np.ndarray,
-           team_last: _TeamLast) -> dict[str, Any]:
+           team_last: _TeamLast, phases: PhaseTotals) -> dict[str, Any]:
     """The snapshot's ``teams``: each tracked team's outfield totals, per-player averages over time on the
-    pitch (service/wire/schema.py defines each figure) and windows."""
+    pitch (service/wire/schema.py defines each figure), windows and figures by game phase."""
     roster = state.roster
     periods = state.periods
     fps = state.fps
@@ -641,5 +650,82 @@ def _teams(state: MatchState, total: np.ndarray, onp: np.ndarray, onp_s: np.ndar
         outfield["per_player"] = {"distance_m": p90.get("distance_m"), "hsr_m": p90.get("hsr_m"),
                                   "sprint_m": p90.get("sprint_m"), "m_per_min": outfield["m_per_min"]}
         outfield["windows"] = team_windows[k]
+        outfield.update(_team_phases(state, phases, k, masks[k]))
         teams[tid] = {"name": roster.team_names[k], "side": ("home", "away")[k], "tracked": True, "outfield": outfield}
     return teams
+
+
+# -- game phases ---------------------------------------------------------------------------------
+def _merge_codes(a: np.ndarray) -> np.ndarray:
+    """(..., N_CODES) → (..., phases): the label codes as the reported phases (both unknown codes in one)."""
+    out = a[..., :len(PHASES)].copy()
+    out[..., -1] += a[..., len(PHASES):].sum(axis=-1)
+    return out
+
+
+def _phase_block(sums: np.ndarray, seconds: np.ndarray, rate_s: np.ndarray) -> list[dict[str, Any]]:
+    """Per row: {phase: {seconds, distance_m, m_per_min, hsr_m, sprint_m}} from ``sums`` (rows, phases,
+    N_FIG) µm, ``seconds`` (rows, phases) shown and ``rate_s`` (rows, phases) the m/min divides by."""
+    dist = sums[..., ex.DIST] * _U
+    ok = rate_s > 0
+    rate = np.where(ok, dist / np.where(ok, rate_s, 1.0) * 60.0, 0.0)
+    cols = [seconds, dist, rate, sums[..., ex.HSR] * _U, sums[..., ex.SPRINT] * _U]
+    vals = np.round(np.stack(cols, -1), 1).tolist()  # (rows, phases, 5)
+    oks = ok.tolist()
+    return [{ph: {"seconds": v[0], "distance_m": v[1], "m_per_min": v[2] if o else None, "hsr_m": v[3],
+                  "sprint_m": v[4]} for ph, v, o in zip(PHASES, row, okr, strict=True)}
+            for row, okr in zip(vals, oks, strict=True)]
+
+
+def _in_play_rate(sums: np.ndarray, seconds: np.ndarray) -> list[float | None]:
+    """Distance per minute of play from per-code sums (rows, N_CODES, N_FIG) and seconds (rows, N_CODES)."""
+    dist = sums[:, IN_PLAY_CODES, ex.DIST].sum(axis=1) * _U
+    secs = seconds[:, IN_PLAY_CODES].sum(axis=1)
+    return [round(d / s * 60.0, 1) if s > 0 else None for d, s in zip(dist.tolist(), secs.tolist(), strict=True)]
+
+
+def _player_phase_rows(state: MatchState, cache: dict[Any, Any], phases: PhaseTotals) -> _Rows:
+    """Each player's ``phases`` and ``m_per_min_in_play`` (seconds: his samples seen / fps), see _reuse."""
+    sums = phases.player  # (P, N_CODES, N_FIG)
+    seen_s = sums[:, :, ex.SEEN] / state.fps
+
+    def build(r: Any) -> list[dict[str, Any]]:
+        merged = _merge_codes(sums[r].transpose(0, 2, 1)).transpose(0, 2, 1)
+        secs = _merge_codes(seen_s[r])
+        blocks = _phase_block(merged, secs, secs)
+        return [{"phases": b, "m_per_min_in_play": m} for b, m in zip(blocks, _in_play_rate(sums[r], seen_s[r]),
+                                                                       strict=True)]
+
+    return _reuse(cache, "phases", sums.reshape(state.n, -1).astype(float), build)
+
+
+def _team_phases(state: MatchState, phases: PhaseTotals, k: int, mask: np.ndarray) -> dict[str, Any]:
+    """A team's outfield ``phases`` (m/min per minute of match time in the phase, as ``m_per_min``, and per
+    outfield player-minute), ``m_per_min_in_play``, ``in_play_s`` and, with events, ``sequences``."""
+    sums = phases.player[mask].sum(axis=0)[None]  # (1, N_CODES, N_FIG)
+    team_s = phases.team_s[k][None]
+    player_s = sums[:, :, ex.SEEN] / state.fps
+    merged = _merge_codes(sums.transpose(0, 2, 1)).transpose(0, 2, 1)
+    block = _phase_block(merged, _merge_codes(team_s), _merge_codes(team_s))[0]
+    per_player = _merge_codes(player_s)[0].tolist()
+    dist = (merged[0, :, ex.DIST] * _U).tolist()
+    for ph, d, ps in zip(PHASES, dist, per_player, strict=True):
+        block[ph]["per_player_m_per_min"] = round(d / ps * 60.0, 1) if ps > 0 else None
+    out: dict[str, Any] = {"phases": block, "m_per_min_in_play": _in_play_rate(sums, team_s)[0],
+                           "in_play_s": round(float(team_s[0, IN_PLAY_CODES].sum()), 1)}
+    if phases.sequences is not None:
+        out["sequences"] = _sequences(phases.sequences[k], state.fps)
+    return out
+
+
+def _sequences(rows: np.ndarray, fps: int) -> dict[str, Any]:
+    """Possession sequences by outcome from rows (shot, no shot) of [spells, seconds, distance µm, HSR µm,
+    samples seen]: count, seconds, mean seconds, the outfield players' m/min and HSR m/min."""
+    out = {}
+    for name, (count, secs, dist, hsr, seen) in zip(("shot", "no_shot"), rows.tolist(), strict=True):
+        minutes = seen / fps / 60.0
+        count = int(count)
+        out[name] = {"count": count, "seconds": round(secs, 1), "mean_s": round(secs / count, 1) if count else None,
+                     "m_per_min": round(dist * _U / minutes, 1) if minutes > 0 else None,
+                     "hsr_m_per_min": round(hsr * _U / minutes, 1) if minutes > 0 else None}
+    return out

@@ -204,6 +204,16 @@ class SecondBins:
             out[w] = s
         return out
 
+    def cum(self, idx: np.ndarray) -> np.ndarray:
+        """Column sums over the seconds before each boundary ``idx`` (clipped to the complete
+        seconds): (len(idx), N_FIG, columns), int64."""
+        return self._cs[np.minimum(idx, self.complete)]
+
+    def in_progress(self) -> np.ndarray:
+        """Column sums of the second in progress so far (N_FIG, columns): final rows not yet in a
+        complete second."""
+        return self._run - self._cs[self.complete]
+
     def covered_s(self, start: int, stop: int) -> float:
         """Seconds of final data in complete seconds [start, stop): the last
         second of an ended period may be partial."""

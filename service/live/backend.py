@@ -18,7 +18,7 @@ from pacewire.live.matches import Matches
 from pacewire.live.metrics import Metrics
 from pacewire.live.runner import MatchRunner
 from pacewire.wire.messages import dumps, snapshot_message
-from pacewire.wire.outcome import IngestOutcome
+from pacewire.wire.outcome import EventOutcome, IngestOutcome
 from pacewire.wire.rules import RulesError
 
 
@@ -34,6 +34,9 @@ class LocalWriter:
     async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
         return await self.runner.intake.heart_rate(data, durable)
 
+    async def cdf_events(self, data: bytes | str | list[bytes], durable: bool) -> EventOutcome:
+        return await self.runner.intake.events(data, durable)
+
     async def add_event(self, event: Any) -> None:
         try:
             self.runner.add_event(event)
@@ -42,7 +45,7 @@ class LocalWriter:
 
     def store_error(self) -> str:
         r = self.runner
-        return r.recorder.error or r.hr_recorder.error or "the recording cannot be written"
+        return r.recorder.error or r.hr_recorder.error or r.event_recorder.error or "the recording cannot be written"
 
     def clock(self) -> tuple[float, str | None]:
         return self.runner.state.match_time_s(), self.runner.state.period_name()

@@ -46,6 +46,7 @@ class FeedWatch:
         self.check_s = check_s
         self.state = STALLED  # the health state subscribers were last told
         self.reasons: list[str] = ["no_frames"]  # ... and its reason codes
+        self.events: tuple[str | None, list[str]] = (None, [])  # the event stream's state and reason codes
         self.stall_view: MatchState | None = None  # figures shown while the feed is stalled
         self._stall_told = False  # subscribers were sent the stalled view's figures
 
@@ -73,12 +74,15 @@ class FeedWatch:
         return build_health(self.shown(now), now, self.match.extra_reasons())
 
     def check(self) -> None:
-        """Push a health message when the state or the kinds of reasons change."""
+        """Push a health message when the state or the kinds of reasons change, the tracking's or
+        the event stream's."""
         self.match.broadcaster.invalidate()
         health = self.health_body()
         codes = sorted(r["code"] for r in health["reasons"])
-        if health["state"] != self.state or codes != self.reasons:
-            self.state, self.reasons = health["state"], codes
+        ev = health.get("events") or {}
+        events = (ev.get("state"), sorted(r["code"] for r in ev.get("reasons", [])))
+        if health["state"] != self.state or codes != self.reasons or events != self.events:
+            self.state, self.reasons, self.events = health["state"], codes, events
             self.match.broadcaster.publish("health", health=health)
 
     async def run(self) -> None:

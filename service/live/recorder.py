@@ -3,7 +3,8 @@
 Writes happen in the recorder's own task, in arrival order; a frame reaches
 the OS before the engine applies it, an fsync follows at a set interval and at
 once for HTTP batches. A write that fails is undone (the file is cut back to
-its length before the write) so a torn line never merges with a later one.
+its length before the write), and a line a crash left without its newline is
+closed before the next write, so a torn line never merges with a later one.
 """
 from __future__ import annotations
 
@@ -109,7 +110,11 @@ class Recorder:
 
     def _open(self) -> int:
         if self._fd is None:
-            self._fd = os.open(self.path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+            fd = os.open(self.path, os.O_RDWR | os.O_APPEND | os.O_CREAT, 0o644)
+            size = os.fstat(fd).st_size
+            if size and os.pread(fd, 1, size - 1) != b"\n":  # a line torn by a crash (power cut) stays alone
+                os.write(fd, b"\n")
+            self._fd = fd
         return self._fd
 
     def _write(self, lines: list[bytes]) -> None:

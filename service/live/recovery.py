@@ -1,4 +1,5 @@
-"""A match rebuilt from its folder after a restart: recording, heart rate, events, drop counts.
+"""A match rebuilt from its folder after a restart: recording, heart rate, CDF events, match events,
+drop counts.
 
 Recovery = the recording replayed through the same engine (so the figures are
 those of the live run) + the events in their order + the drop counters saved
@@ -14,6 +15,7 @@ import orjson
 from pacewire.events import EventError
 from pacewire.live.runner import MatchRunner
 from pacewire.wire.heart import HrDecoder
+from pacewire.wire.recording import EVENT_FILE
 
 log = logging.getLogger("pacewire.recovery")
 BATCH = 2000  # recorded lines decoded and applied at a time
@@ -23,6 +25,7 @@ def recover(runner: MatchRunner) -> int:
     """Rebuild ``runner`` from its folder (before it starts). Returns the frames applied."""
     n = _frames(runner)
     _heart_rate(runner)
+    _cdf_events(runner)
     _events(runner)
     _counters(runner)
     runner.rebuilt()
@@ -61,6 +64,19 @@ def _heart_rate(runner: MatchRunner) -> None:
     state.ingest_heart(res)
 
 
+def _cdf_events(runner: MatchRunner) -> None:
+    """The recorded CDF events through the live decoder, which goes on from them (ids, corrections)."""
+    path = runner.folder / EVENT_FILE
+    if not path.exists():
+        return
+    with open(path, "rb") as fh:
+        res = runner.intake.event_decoder.decode_lines(fh)
+    if res.rejected:
+        log.warning("%s: skipped %d unreadable CDF event lines", runner.match_id, res.rejected)
+    res.rejected = res.duplicates = 0  # live refusals come from counters.json
+    runner.state.ingest_events(res)
+
+
 def _events(runner: MatchRunner) -> None:
     path = runner.folder / "events.jsonl"
     if not path.exists():
@@ -87,5 +103,7 @@ def _counters(runner: MatchRunner) -> None:
         st.hr_rejected += int(c.get("hr_rejected", 0))
         st.hr_duplicates += int(c.get("hr_duplicates", 0))
         st.hr_late += int(c.get("hr_late", 0))
+        st.event_feed.rejected += int(c.get("event_rejected", 0))
+        st.event_feed.duplicates += int(c.get("event_duplicates", 0))
     except (orjson.JSONDecodeError, ValueError, TypeError):
         pass

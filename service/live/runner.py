@@ -4,7 +4,7 @@ One coroutine per match drains whatever the intake has queued into one block
 and steps the engine, so live it is usually one frame and in a fast replay
 hundreds. The Redis aggregator drives the same runner from a stream instead
 of the intake, through the same public methods (``apply_lines``,
-``apply_event``, ``add_heart``, ``after_block``, ``check_status``).
+``apply_event``, ``add_heart``, ``apply_cdf_events``, ``after_block``, ``check_status``).
 
 A ``period_end`` event placed at a frame the engine has not reached yet (sent
 on another connection than the frames, so it may overtake them) waits for that
@@ -36,8 +36,10 @@ from pacewire.live.status import BREAK, ENDED, MatchStatus
 from pacewire.params import match_params
 from pacewire.tasks import cancel
 from pacewire.wire.cdf import DecodeResult, FrameDecoder
+from pacewire.wire.events import EventResult
 from pacewire.wire.heart import HrDecoder, HrResult
 from pacewire.wire.outcome import after_end_message
+from pacewire.wire.recording import EVENT_FILE
 
 log = logging.getLogger("pacewire.runner")
 
@@ -54,8 +56,9 @@ class MatchRunner:
         srv = settings.server
         self.recorder = Recorder(folder, srv.fsync_interval_s)
         self.hr_recorder = Recorder(folder, srv.fsync_interval_s, "hr.jsonl")
+        self.event_recorder = Recorder(folder, srv.fsync_interval_s, EVENT_FILE)  # the CDF event stream
         self.intake = Intake(roster, self.decoder, HrDecoder(roster, self.state.params.heart), self.recorder,
-                             self.hr_recorder, self)
+                             self.hr_recorder, self, self.event_recorder)
         self.broadcaster = Broadcaster(self.match_id, self.snapshot_body, srv.resume_buffer_s, srv.subscriber_queue,
                                        srv.max_subscribers, on_message=self.hooks.messages_out,
                                        on_drop=self.hooks.dropped, fps=roster.fps)
@@ -81,6 +84,7 @@ class MatchRunner:
     def start(self) -> None:
         self.recorder.start()
         self.hr_recorder.start()
+        self.event_recorder.start()
         self._tasks = [asyncio.create_task(self._apply_loop(), name=f"apply:{self.match_id}"),
                        asyncio.create_task(self.feed.run(), name=f"health:{self.match_id}"),
                        asyncio.create_task(self.followup.watch(), name=f"followup:{self.match_id}")]
@@ -89,6 +93,7 @@ class MatchRunner:
         await cancel([*self._tasks, *self._side])
         await self.recorder.stop()
         await self.hr_recorder.stop()
+        await self.event_recorder.stop()
 
     # -- what the intake stores (IntakeSink) ----------------------------------------------
     def enqueue(self, item: Queued) -> None:
@@ -110,6 +115,14 @@ class MatchRunner:
                 st.hr_duplicates += duplicates
                 st.hr_late += late
         if rejected or duplicates or late:
+            self.broadcaster.invalidate()
+
+    def count_events(self, rejected: int, duplicates: int) -> None:
+        for st in (self.state, self.feed.stall_view):  # a stalled feed's copy shows the counts too
+            if st is not None:
+                st.event_feed.rejected += rejected
+                st.event_feed.duplicates += duplicates
+        if rejected or duplicates:
             self.broadcaster.invalidate()
 
     def recorded(self, frames: int) -> None:
@@ -137,6 +150,12 @@ class MatchRunner:
                 items.append(self._queue.get_nowait())
             hr = [r for r, _ in items if isinstance(r, HrResult)]
             frames = [(r, t) for r, t in items if isinstance(r, DecodeResult)]
+            for r, t in items:
+                if isinstance(r, EventResult):
+                    self.apply_cdf_events(r, now=t)  # figures depend on the final events, not on the order
+            if not hr and not frames:
+                self.broadcaster.tick()
+                continue
             if hr:
                 self.add_heart(HrResult.merge(hr))  # figures depend on timestamps only, not on order
                 if not frames:
@@ -166,6 +185,16 @@ class MatchRunner:
             log.exception("%s: engine failed on a block; block skipped", self.match_id)
         self._release()
         return len(res.block)
+
+    def apply_cdf_events(self, res: EventResult, now: float | None) -> None:
+        """Accepted CDF events into the engine (``now``: their arrival, live); a stalled feed's copy
+        predates them."""
+        try:
+            self.state.ingest_events(res, now=now)
+        except Exception:
+            log.exception("%s: engine failed on events; skipped", self.match_id)
+        self.feed.moved_on()
+        self.broadcaster.invalidate()
 
     def add_heart(self, res: HrResult) -> None:
         """Accepted heart-rate samples into the engine (and into a stalled feed's copy)."""
@@ -294,7 +323,8 @@ class MatchRunner:
 
     # -- what is shown ---------------------------------------------------------------------
     def extra_reasons(self) -> list[dict[str, str]]:
-        return [{"code": "recorder", "message": rec.error} for rec in (self.recorder, self.hr_recorder) if rec.error]
+        return [{"code": "recorder", "message": rec.error}
+                for rec in (self.recorder, self.hr_recorder, self.event_recorder) if rec.error]
 
     def snapshot_body(self) -> dict[str, Any]:
         now = time.time()
@@ -322,6 +352,7 @@ class MatchRunner:
                               {"rejected": h.rejected, "duplicates": h.duplicates, "late": h.late,
                                "resent": h.resent, "after_end": h.after_end,
                                "hr_rejected": st.hr_rejected, "hr_duplicates": st.hr_duplicates,
-                               "hr_late": st.hr_late})
+                               "hr_late": st.hr_late, "event_rejected": st.event_feed.rejected,
+                               "event_duplicates": st.event_feed.duplicates})
         except OSError:
             pass

@@ -23,6 +23,7 @@ from pacewire.engine.blocks import BlockSeries
 from pacewire.reports import charts
 from pacewire.reports.alert_log import alerts_csv
 from pacewire.reports.page import page, zone_names
+from pacewire.reports.phases import phases_section
 from pacewire.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
 from pacewire.wire.messages import envelope
 
@@ -124,7 +125,7 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
                for i, pid in enumerate(ser.player_ids)}
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,
                 [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min,
-                inp.alerts)
+                inp.alerts, phases_section)
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
                    players=snap["players"], teams=snap["teams"], health=snap["health"], alerts=inp.alerts)
     _write_atomic(folder / "report.html", text.encode("utf-8"))

@@ -72,16 +72,19 @@ def run_recording(folder: str | Path, settings: Settings, progress: bool = True,
                   alerts: bool = False) -> tuple[MatchState, Recording, int, list[dict[str, Any]]]:
     """Run a recording through the engine (as ``pacewire analyze`` does) with a progress
     bar on stderr. Returns (finished state, recording, bad lines skipped, alerts). Heart-rate
-    samples (hr.jsonl) go in first: they count as tracking reaches their time, as live. With
-    ``alerts`` (and alerts enabled in the settings), the config's rules and budgets are evaluated
-    at every completed second, as live (no history baselines offline), the frames going in a
-    second at a time."""
-    from pacewire.analyze import add_heart_rate, new_match
+    samples (hr.jsonl) go in first: they count as tracking reaches their time, as live; so do the
+    CDF events (event.jsonl): the phases depend on the final events only. With ``alerts`` (and
+    alerts enabled in the settings), the config's rules and budgets are evaluated at every completed
+    second, as live (no history baselines offline), the frames going in a second at a time."""
+    from pacewire.analyze import add_heart_rate, new_match, read_events
 
     rec = open_recording(folder)
     state, decoder = new_match(rec.meta, rec.sheet, settings)
     alerter = offline_alerter(settings, state.roster) if alerts else None
     bad = len(add_heart_rate(state, rec))
+    events = read_events(state, rec)
+    bad += events.rejected
+    state.ingest_events(events)
     bar = ProgressBar(_size(rec), f"{state.roster.match_id}: frames") if progress else None
     second: tuple[int, int] | None = None
     for first, lines in rec.batches(state.fps if alerter is not None else batch):

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import html
 import time
+from collections.abc import Callable
 from typing import Any
 
 from pacewire.reports.alert_log import alert_rows, counts
@@ -417,16 +418,27 @@ def _feed_section(health: dict[str, Any]) -> list[str]:
             [("heart-rate duplicates", "l"), (num(health.get("hr_duplicates")), "")],
             [("heart-rate late samples", "l"), (num(health.get("hr_late")), "")],
         ]
+    ev = health.get("events")
+    if ev is not None:  # the CDF event stream's own health
+        rows += [
+            [("event stream at build", "l"), (esc(ev.get("state")), "")],
+            [("events", "l"), (num(ev.get("events")), "")],
+            [("events corrected", "l"), (num(ev.get("corrections")), "")],
+            [("events refused", "l"), (num(ev.get("rejected")), "")],
+            [("events repeated", "l"), (num(ev.get("duplicates")), "")],
+        ]
     return ['<section id="feed"><h2>Feed</h2>', _table([("feed", "l"), ("value", "")], rows), "</section>"]
 
 
 def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession: dict[str, dict[str, float]],
          source: str, created_at: float, low_coverage: float,
          blocks: list[tuple[str, str]] | None = None, per_min: dict[str, list[float | None]] | None = None,
-         alerts: list[dict[str, Any]] | None = None) -> str:
+         alerts: list[dict[str, Any]] | None = None,
+         more: Callable[[list[tuple[str, dict[str, Any]]], dict[str, Played]], list[str]] | None = None) -> str:
     """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``:
     (label, period) of each block; ``per_min``: each player's distance per minute in them;
-    ``alerts``: those raised up to the report."""
+    ``alerts``: those raised up to the report; ``more``: further sections, given the tracked teams and
+    the players of each who played (game phases)."""
     teams = tracked_teams(snapshot)
     heart = has_heart_rate(snapshot)
     players = snapshot["players"]
@@ -442,6 +454,7 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
         *_players_section(snapshot, charts, played_by_team, low_coverage),
         *_peaks_section(snapshot, charts, played_by_team),
         *(_possession_section(teams, played_by_team) if possession else []),
+        *(more(teams, played_by_team) if more is not None else []),
         *(_heart_section(teams, charts, played_by_team, low_coverage) if heart else []),
         *_alerts_section(snapshot, alerts or []),
         *_feed_section(snapshot["health"]),

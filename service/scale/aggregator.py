@@ -2,10 +2,11 @@
 
 A match is claimed with a lease (``SET lease owner NX PX``, renewed at a third
 of its length). The claimant rebuilds the match from its latest checkpoint and
-the streams after it (frames and events; heart-rate samples), then reads new
-entries of both through the consumer group ``aggregators``. Heart-rate figures
-depend on timestamps only (docs/wearables.md), so the two streams are read
-independently, each from its own position in the checkpoint. Its broadcaster
+the streams after it (frames and control events; heart-rate samples; CDF
+events), then reads new entries of each through the consumer group
+``aggregators``. Heart-rate figures depend on timestamps only
+(docs/wearables.md) and the phases on the final events only, so the streams are
+read independently, each from its own position in the checkpoint. Its broadcaster
 holds one stream per (view, cadence) that some gateway asked for; every
 message of a stream goes out in one Lua call that first checks the lease (a
 lapsed owner publishes nothing), appends the message to the stream's resume
@@ -154,6 +155,8 @@ class AggMatch:
         self.last_id = b"0-0"
         self.hr_key = keys.hr(match_id)
         self.hr_last_id = b"0-0"  # heart-rate entries applied up to here
+        self.ev_key = keys.events(match_id)
+        self.ev_last_id = b"0-0"  # CDF event entries applied up to here
         self.out: asyncio.Queue[tuple[Sink, str | None]] = asyncio.Queue()
         self.sinks: dict[str, Sink] = {}
         self.tasks: list[asyncio.Task[None]] = []
@@ -176,11 +179,12 @@ class AggMatch:
                 log.warning("%s: checkpoint unreadable, replaying the whole stream", self.match_id)
                 self.runner = r = _fresh_runner(self.agg, self.match_id, r.roster)
                 r.record_end = self.record_end
-                self.last_id = self.hr_last_id = b"0-0"
+                self.last_id = self.hr_last_id = self.ev_last_id = b"0-0"
         n = 0
         count = self.agg.scale.read_count
         for key, start, apply in ((self.key, self.last_id, lambda b: self._apply(b, now=None)),
-                                  (self.hr_key, self.hr_last_id, self._apply_hr)):
+                                  (self.hr_key, self.hr_last_id, self._apply_hr),
+                                  (self.ev_key, self.ev_last_id, lambda b: self._apply_events(b, now=None))):
             while True:
                 lo = b"(" + start if start != b"0-0" else b"-"
                 batch = await self.redis.xrange(key, lo, "+", count=count)
@@ -192,7 +196,7 @@ class AggMatch:
         await self._read_counts()
         r.rebuilt()  # as after a restart: health starts afresh
         # the consumer groups: made if missing, then moved to what was rebuilt; old consumers go
-        for key, last in ((self.key, self.last_id), (self.hr_key, self.hr_last_id)):
+        for key, last in ((self.key, self.last_id), (self.hr_key, self.hr_last_id), (self.ev_key, self.ev_last_id)):
             try:
                 await self.redis.xgroup_create(key, GROUP, id="0", mkstream=True)
             except ResponseError as exc:
@@ -207,9 +211,11 @@ class AggMatch:
 
     def _checkpoint_state(self) -> dict[str, Any]:
         r = self.runner
+        ev = r.intake.event_decoder
         return {"state": r.state, "gate": r.decoder.gate, "score": r.score, "events": r.events,
                 "told": r.periods.told, "last_id": self.last_id, "hr_last_id": self.hr_last_id,
-                "status": r.status, "parked": r.parked}
+                "status": r.status, "parked": r.parked, "ev_last_id": self.ev_last_id,
+                "ev_ids": (ev.content, ev.keys)}
 
     def _restore(self, cp: dict[str, Any]) -> None:
         r = self.runner
@@ -218,6 +224,9 @@ class AggMatch:
         r.status, r.parked = cp.get("status", r.status), cp.get("parked", [])
         self.last_id = cp["last_id"]
         self.hr_last_id = cp.get("hr_last_id", b"0-0")  # a checkpoint from before the heart-rate stream
+        self.ev_last_id = cp.get("ev_last_id", b"0-0")  # ... or from before the CDF event stream
+        ev = r.intake.event_decoder
+        ev.content, ev.keys = cp.get("ev_ids", ({}, {}))
 
     async def checkpoint(self) -> None:
         """Engine state + stream position, so a successor replays only what came after."""
@@ -278,12 +287,28 @@ class AggMatch:
                                  np.asarray(bpm, np.float64), []))
         return len(player)
 
+    def _apply_events(self, entries: list[tuple[bytes, dict[bytes, bytes]]], now: float | None) -> int:
+        """Apply CDF event entries (each accepted version; ingest dropped the duplicates and counted the
+        refusals): a re-seen id corrects its event, as in the single process. ``now`` None: rebuilding,
+        else the arrival at ingest of the last entry (their lag behind the tracking)."""
+        r = self.runner
+        res = r.intake.event_decoder.decode_lines([f.get(b"e", b"") for _eid, f in entries])
+        if res.rejected:
+            log.warning("%s: skipped %d unreadable event entries", self.match_id, res.rejected)
+        res.rejected = res.duplicates = 0
+        arrival = float(entries[-1][1].get(b"a", 0.0)) if now is not None and entries else None
+        r.apply_cdf_events(res, now=arrival or None)
+        self.ev_last_id = entries[-1][0]
+        return len(res)
+
     async def _read_loop(self) -> None:
         r = self.runner
         hr_key = self.hr_key.encode()
+        ev_key = self.ev_key.encode()
         while not self.stopped:
             try:
-                resp = await self.redis.xreadgroup(GROUP, self.agg.owner, {self.key: ">", self.hr_key: ">"},
+                resp = await self.redis.xreadgroup(GROUP, self.agg.owner,
+                                                   {self.key: ">", self.hr_key: ">", self.ev_key: ">"},
                                                    count=self.agg.scale.read_count, block=500)
             except RedisError as exc:
                 log.warning("%s: stream read failed: %s", self.match_id, exc)
@@ -295,8 +320,11 @@ class AggMatch:
                 return
             got = {key: entries for key, entries in resp if entries}
             hr = got.pop(hr_key, [])
+            evs = got.pop(ev_key, [])
             entries: list[Any] = next(iter(got.values()), [])
-            if hr and self._apply_hr(hr) and not entries:
+            if evs:
+                self._apply_events(evs, now=time.time())
+            if (hr and self._apply_hr(hr) or evs) and not entries:
                 r.broadcaster.invalidate()
                 r.broadcaster.tick()
             t0 = time.perf_counter()
@@ -306,7 +334,7 @@ class AggMatch:
                 r.hooks.frames_in(n)
             try:
                 async with self.redis.pipeline(transaction=False) as p:
-                    for key, done in ((self.key, entries), (self.hr_key, hr)):
+                    for key, done in ((self.key, entries), (self.hr_key, hr), (self.ev_key, evs)):
                         if done:
                             p.xack(key, GROUP, *[e[0] for e in done])
                     await p.execute()
@@ -328,9 +356,13 @@ class AggMatch:
         h.resent = int(c.get(b"resent", 0))
         h.after_end = int(c.get(b"after_end", 0))
         hr = tuple(int(c.get(k, 0)) for k in (b"hr_rejected", b"hr_duplicates", b"hr_late"))
-        for st in (r.state, r.feed.stall_view):  # a stalled feed's copy holds its own heart-rate counters
+        ev = tuple(int(c.get(k, 0)) for k in (b"event_rejected", b"event_duplicates"))
+        for st in (r.state, r.feed.stall_view):  # a stalled feed's copy holds its own counters
             if st is not None and (st.hr_rejected, st.hr_duplicates, st.hr_late) != hr:
                 st.hr_rejected, st.hr_duplicates, st.hr_late = hr
+                r.broadcaster.invalidate()
+            if st is not None and (st.event_feed.rejected, st.event_feed.duplicates) != ev:
+                st.event_feed.rejected, st.event_feed.duplicates = ev
                 r.broadcaster.invalidate()
 
     async def _status_loop(self) -> None:

@@ -39,8 +39,9 @@ from pacewire.wire.cdf import (
     parse_setup,
     parse_timestamp,
 )
+from pacewire.wire.events import EventDecoder, EventRefusal, EventResult
 from pacewire.wire.heart import HrDecoder, HrGate
-from pacewire.wire.outcome import IngestOutcome, after_end_message
+from pacewire.wire.outcome import EventOutcome, IngestOutcome, after_end_message
 
 log = logging.getLogger("pacewire.scale.ingest")
 
@@ -105,6 +106,28 @@ return {1, nv}
 """
 HR_ATTEMPTS = 20  # compare-and-set rounds before a batch is answered not_stored (nodes racing on one match)
 
+# CDF events go in keyed by id (docs: corrections): an id with the same content is a duplicate and not
+# appended, with other content a correction. KEYS: event stream, id hash, counts hash. ARGV: arrival,
+# rejected, then 2 per event: id, line (canonical content). Returns per event 0 duplicate, 1 new, 2 correction.
+_APPEND_EVENTS = """
+local out = {}
+local dup = 0
+for a = 3, #ARGV, 2 do
+  local old = redis.call('HGET', KEYS[2], ARGV[a])
+  if old == ARGV[a + 1] then
+    out[#out + 1] = 0
+    dup = dup + 1
+  else
+    redis.call('HSET', KEYS[2], ARGV[a], ARGV[a + 1])
+    redis.call('XADD', KEYS[1], '*', 'e', ARGV[a + 1], 'a', ARGV[1])
+    out[#out + 1] = old and 2 or 1
+  end
+end
+if tonumber(ARGV[2]) > 0 then redis.call('HINCRBY', KEYS[3], 'event_rejected', ARGV[2]) end
+if dup > 0 then redis.call('HINCRBY', KEYS[3], 'event_duplicates', dup) end
+return out
+"""
+
 
 class StoreUnavailable(NotStored):
     """Redis could not be reached: nothing was kept."""
@@ -120,6 +143,7 @@ class IngestMatch:
     primed: bool = False
     hr_lock: asyncio.Lock = field(default_factory=asyncio.Lock)
     hr_version: str | None = None  # version of the stored gate that hr.gate equals; None: not loaded yet
+    events: EventDecoder | None = None  # checks CDF events; their ids live in Redis
 
 
 def gate_bytes(gate: HrGate) -> bytes:
@@ -148,6 +172,7 @@ class StreamIngest:
         self._append_hr = redis.register_script(_APPEND_HR)
         self._append_frames = redis.register_script(_APPEND)
         self._held = redis.register_script(_HELD)
+        self._append_events = redis.register_script(_APPEND_EVENTS)
 
     def _new(self, roster: Roster, raw: bytes) -> IngestMatch:
         d = self.settings.decode
@@ -369,6 +394,39 @@ class StreamIngest:
         self.error = f"heart-rate gate of match {match_id} changed {HR_ATTEMPTS} times during one batch; send it again"
         return out
 
+    # -- CDF events --------------------------------------------------------------------------------
+    async def ingest_events(self, match_id: str, m: IngestMatch, data: bytes | str | list[bytes]) -> EventOutcome:
+        """CDF events checked as the single process checks them; Redis decides, per id, duplicate or
+        correction (one script, so every node agrees) and appends the others. Answered once stored."""
+        if m.events is None:
+            m.events = EventDecoder(m.roster)
+        if isinstance(data, list):
+            good, res = m.events.checked_lines(data)
+        else:
+            objs = parse_message(data)
+            good, res = ([], EventResult(errors=[objs], rejected=1)) if isinstance(objs, FrameError) \
+                else m.events.checked(objs)
+        args: list[Any] = [f"{time.time():.6f}", res.rejected]
+        for c in good:
+            args += [c.id, c.blob]
+        try:
+            ans = await self._append_events(keys=[keys.events(match_id), keys.event_ids(match_id),
+                                                  keys.counts(match_id)], args=args)
+        except RedisError as exc:
+            self._unstored(match_id, exc)
+            return EventOutcome(0, res.rejected, 0, 0, res.errors, stored=False)
+        out = EventOutcome(0, res.rejected, 0, 0, res.errors)
+        for c, a in zip(good, ans, strict=True):
+            if int(a) == 0:
+                out.duplicates += 1
+                out.errors.append(EventRefusal("duplicate", f"event {c.id!r} was already applied with this content",
+                                               None, c.line, c.id))
+            else:
+                out.accepted += 1
+                out.corrections += int(a) == 2
+        self.error = None
+        return out
+
     # -- events -----------------------------------------------------------------------------------
     async def add_event(self, match_id: str, m: IngestMatch, event: Any) -> dict[str, Any]:
         """Check (as the single process does) and append one match event after the latest frame."""
@@ -412,6 +470,9 @@ class RedisWriter:
 
     async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
         return await self.store.ingest_hr(self.match_id, self.m, data)
+
+    async def cdf_events(self, data: bytes | str | list[bytes], durable: bool) -> EventOutcome:
+        return await self.store.ingest_events(self.match_id, self.m, data)  # stored once Redis answers
 
     async def add_event(self, event: Any) -> None:
         await self.store.add_event(self.match_id, self.m, event)

@@ -25,12 +25,21 @@ def hr(m: str) -> str:
     return f"{PREFIX}:hr:{m}"  # heart-rate log: one entry per accepted sample (docs/wearables.md)
 
 
+def events(m: str) -> str:
+    return f"{PREFIX}:ev:{m}"  # CDF event log: one entry per accepted event version (corrections too)
+
+
+def event_ids(m: str) -> str:
+    return f"{PREFIX}:evid:{m}"  # hash: event id -> its accepted content, shared by ingest nodes
+
+
 def hr_gate(m: str) -> str:
     return f"{PREFIX}:hrgate:{m}"  # hash: v (version), g (ingest's per-player heart-rate gate), shared by nodes
 
 
 def counts(m: str) -> str:
-    return f"{PREFIX}:counts:{m}"  # hash: rejected / duplicates / late / resent / after_end (and hr_ ones) at ingest
+    # hash: rejected / duplicates / late / resent / after_end (and hr_, event_ ones) counted at ingest
+    return f"{PREFIX}:counts:{m}"
 
 
 def ended(m: str) -> str:

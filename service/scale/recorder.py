@@ -2,8 +2,8 @@
 
 In scaled mode the streams are the durable log; this role turns them into the
 same folder the single process records (``meta.json``, ``match.json``,
-``tracking.jsonl``, ``events.jsonl``, and ``hr.jsonl`` once the match has
-heart-rate samples) for replay, analysis and reports. The positions read so
+``tracking.jsonl``, ``events.jsonl``, and ``hr.jsonl`` / ``event.jsonl`` once
+the match has heart-rate samples / CDF events) for replay, analysis and reports. The positions read so
 far are stored beside the files with their lengths, written after an fsync, so
 a restart cuts any unconfirmed tail and carries on with no line lost or
 doubled. Run one recorder per data folder.
@@ -39,19 +39,24 @@ class MatchFolder:
             pos = orjson.loads(self.pos_path.read_bytes())
         self.last_id: str = pos["id"]
         self.hr_last_id: str = pos.get("hr_id", "0-0")  # a position file from before the heart-rate stream
-        self.files = {name: folder / f"{name}.jsonl" for name in ("tracking", "events", "hr")}
+        self.ev_last_id: str = pos.get("ev_id", "0-0")  # ... or from before the CDF event stream
+        self.files = {name: folder / f"{name}.jsonl" for name in ("tracking", "events", "hr", "event")}
         self.sizes = {name: int(pos.get(name, 0)) for name in self.files}
         for name, path in self.files.items():
-            if name == "hr" and not path.exists():
-                continue  # made with the first sample: a match without heart rate has no hr.jsonl
+            if name in ("hr", "event") and not path.exists():
+                continue  # made with the first entry: a match without heart rate has no hr.jsonl
             with open(path, "ab") as fh:
                 fh.truncate(self.sizes[name])  # an unconfirmed tail goes; it is read again
 
-    def write(self, entries: list[tuple[bytes, dict[bytes, bytes]]], hr: bool = False) -> None:
-        """Entries of the match's frames stream (frames and events), or of its heart-rate stream."""
-        out: dict[str, list[bytes]] = {"hr": []} if hr else {"tracking": [], "events": []}
+    def write(self, entries: list[tuple[bytes, dict[bytes, bytes]]], kind: str = "frames") -> None:
+        """Entries of the match's frames stream (frames and control events), of its heart-rate stream
+        (``kind`` "hr") or of its CDF event stream ("ev")."""
+        out: dict[str, list[bytes]] = ({"hr": []} if kind == "hr" else {"event": []} if kind == "ev"
+                                       else {"tracking": [], "events": []})
         for _eid, f in entries:
-            if b"h" in f:
+            if kind == "ev":
+                out["event"].append(f[b"e"] + b"\n")
+            elif b"h" in f:
                 out["hr"].append(f[b"h"] + b"\n")
             elif b"f" in f:
                 out["tracking"].append(f[b"f"] + b"\n")
@@ -66,11 +71,15 @@ class MatchFolder:
                     fh.flush()
                     os.fsync(fh.fileno())
                 self.sizes[name] = fh.tell()
-        if hr:
-            self.hr_last_id = entries[-1][0].decode()
+        last = entries[-1][0].decode()
+        if kind == "hr":
+            self.hr_last_id = last
+        elif kind == "ev":
+            self.ev_last_id = last
         else:
-            self.last_id = entries[-1][0].decode()
-        write_json_atomic(self.pos_path, {"id": self.last_id, "hr_id": self.hr_last_id, **self.sizes})
+            self.last_id = last
+        write_json_atomic(self.pos_path, {"id": self.last_id, "hr_id": self.hr_last_id, "ev_id": self.ev_last_id,
+                                          **self.sizes})
 
 
 class StreamRecorder:
@@ -111,11 +120,12 @@ class StreamRecorder:
                 for mid, m in self.matches.items():
                     streams[keys.frames(mid)] = m.last_id
                     streams[keys.hr(mid)] = m.hr_last_id
+                    streams[keys.events(mid)] = m.ev_last_id
                 resp = await self.redis.xread(streams, count=self.scale.read_count, block=500)
                 for key, entries in resp or []:
                     _, kind, mid = key.decode().split(":", 2)
                     if entries:
-                        await asyncio.to_thread(self.matches[mid].write, entries, kind == "hr")
+                        await asyncio.to_thread(self.matches[mid].write, entries, kind)
             except asyncio.CancelledError:
                 raise
             except RedisError as exc:

@@ -19,6 +19,11 @@
     first_half_extratime: "Extra time 1", second_half_extratime: "Extra time 2", shootout: "Penalties",
   };
   const STATE_WORDS = { ok: "Feed OK", degraded: "Feed degraded", stalled: "Feed stalled", finished: "Feed finished" };
+  const EVENT_WORDS = { ok: "Events OK", degraded: "Events degraded", stalled: "Events stalled" };
+  // game phases, in the snapshot's order (README: figures by game phase)
+  const PHASES = [["attack", "Attack"], ["defence", "Defence"], ["attacking_transition", "Won the ball"],
+    ["defensive_transition", "Lost the ball"], ["dead_ball", "Dead ball"], ["unknown", "Unknown"]];
+  const PHASE_LABEL = Object.fromEntries(PHASES);
 
   // Columns of the player table. `win`: how the column reads in a rolling/peak window.
   const COLUMNS = [
@@ -111,6 +116,8 @@
     if (m) return "Last " + m[1] + " min";
     m = /^peak_(\d+)min$/.exec(key);
     if (m) return "Peak " + m[1] + " min";
+    m = /^phase:(.+)$/.exec(key);
+    if (m) return PHASE_LABEL[m[1]] || m[1];
     return key;
   }
   function bandLabel(name) {
@@ -422,7 +429,7 @@
       if (!el) return;
       el.textContent = text;
       if (title !== undefined) el.title = title;
-      const raw = h ? h[key] : null;
+      const raw = !h ? null : key.startsWith("events.") ? (h.events || {})[key.slice(7)] : h[key];
       el.dataset.value = raw == null || typeof raw === "object" ? "" : raw;
     };
     if (!h) return;
@@ -453,9 +460,27 @@
       set("hr_coverage_low", low ? `${low} with strap gaps` : "");
       for (const k of ["hr_rejected", "hr_duplicates", "hr_late"]) set(k, h[k] == null ? "0" : fmtInt(h[k]));
     }
+    renderEventFeed(h.events, set);
     const reasons = $("#feed-reasons");
-    const items = (h.reasons || []).map((r) => `<li data-code="${esc(r.code)}">${esc(reasonText(r))}</li>`).join("");
+    const evReasons = (h.events && h.events.reasons) || [];
+    const items = [...(h.reasons || []), ...evReasons].map((r) => `<li data-code="${esc(r.code)}">${esc(reasonText(r))}</li>`).join("");
     if (reasons.innerHTML !== items) reasons.innerHTML = items;
+  }
+
+  // the CDF event stream's own health, once the match has one
+  function renderEventFeed(ev, set) {
+    const box = $("#feed-events");
+    box.hidden = !ev;
+    if (!ev) return;
+    const st = $("#feed-events-state");
+    st.dataset.state = ev.state;
+    st.textContent = EVENT_WORDS[ev.state] || ev.state;
+    set("events.events", fmtInt(ev.events));
+    set("events.events_per_min", ev.events_per_min == null ? "–" : fmt1(ev.events_per_min));
+    set("events.lag_s", ev.lag_s == null ? "–" : fmtSeconds(ev.lag_s), "How far the events arrive behind the tracking (median)");
+    set("events.since_last_s", ev.since_last_s == null ? "–" : fmtSeconds(ev.since_last_s), "Seconds of play since the latest event");
+    set("events.corrections", fmtInt(ev.corrections));
+    set("events.rejected", fmtInt(ev.rejected));
   }
 
   function ageSeconds() {
@@ -572,6 +597,7 @@
         `${v == null ? "–" : fmt(v)}${unit && main ? `<span class="unit">${unit}</span>` : ""}</td>`;
     };
     const pp = o.per_player || {};
+    const phases = phaseBlock(o);
     return `<article class="team-card panel" data-team-id="${esc(tid)}" data-side="${side}">
       <header><h3><span class="team-glyph" data-side="${side}" aria-hidden="true"></span>${esc(t.name || tid)}</h3>
         <span class="side-tag">${side}</span><span class="team-score" aria-label="goals">${t.score ?? 0}</span></header>
@@ -584,8 +610,35 @@
           <td class="per-player" colspan="${cols.length}"><span data-window="per_player" data-field="distance_m" data-value="${pp.distance_m ?? ""}">${pp.distance_m == null ? "–" : fmtInt(pp.distance_m)} m per 90 min on the pitch</span> ·
           <span data-window="per_player" data-field="m_per_min" data-value="${pp.m_per_min ?? ""}">${pp.m_per_min == null ? "–" : fmtInt(pp.m_per_min)} m/min</span></td></tr>
         </tbody>
-      </table>
+      </table>${phases}
     </article>`;
+  }
+
+  // a team's work rate by game phase: shown once the feed tells possession (a ball, or the event stream)
+  function hasPhases(o) {
+    return !!(o && o.phases && (o.in_play_s > 0 || o.sequences));
+  }
+  function phaseBlock(o) {
+    if (!hasPhases(o)) return "";
+    const cell = (ph, key, v, fmt) =>
+      `<td data-window="phase:${ph}" data-field="${key}" data-value="${v ?? ""}">${v == null ? "–" : fmt(v)}</td>`;
+    const rows = PHASES.map(([ph, label]) => {
+      const f = o.phases[ph] || {};
+      return `<tr data-phase="${ph}"><th scope="row">${label}</th>${cell(ph, "seconds", f.seconds, (v) => fmt1(v / 60))}` +
+        `${cell(ph, "per_player_m_per_min", f.per_player_m_per_min, fmtInt)}${cell(ph, "hsr_m", f.hsr_m, fmtInt)}</tr>`;
+    }).join("");
+    const seq = o.sequences;
+    const seqText = (k, label) => {
+      const q = seq[k];
+      return `<span data-window="sequences" data-field="${k}" data-value="${q.m_per_min ?? ""}">${label}: ${q.count} ` +
+        `(${q.m_per_min == null ? "–" : fmtInt(q.m_per_min)} m/min, HSR ${q.hsr_m_per_min == null ? "–" : fmt1(q.hsr_m_per_min)} m/min)</span>`;
+    };
+    return `<table class="team-figs phase-figs" aria-label="By game phase">
+      <thead><tr><th scope="col">By phase</th><th scope="col">min</th><th scope="col">m/min per player</th><th scope="col">HSR m</th></tr></thead>
+      <tbody>${rows}</tbody></table>
+      <p class="sub in-play">In play <span data-window="in_play" data-field="in_play_s" data-value="${o.in_play_s ?? ""}">${fmt1((o.in_play_s || 0) / 60)} min</span> ·
+        <span data-window="in_play" data-field="m_per_min_in_play" data-value="${o.m_per_min_in_play ?? ""}">${o.m_per_min_in_play == null ? "–" : fmtInt(o.m_per_min_in_play)} m/min</span> team</p>` +
+      (seq ? `<p class="sub sequences">Possessions ${seqText("shot", "with a shot")} · ${seqText("no_shot", "without")}</p>` : "");
   }
 
   // -- chips: team filter and window switch ------------------------------------------------------------------------
@@ -606,8 +659,12 @@
       return ra[0] - rb[0] || ra[1] - rb[1];
     });
     const winOpts = [["cumulative", "Match so far"], ["period", "This period"], ...wins.map((k) => [k, windowLabel(k)])];
-    if (!winOpts.some(([v]) => v === S.win)) S.win = "cumulative";
+    const phased = teams.some((tid) => hasPhases(st.teams[tid].outfield));
+    const phaseOpts = PHASES.map(([ph, label]) => ["phase:" + ph, label]);
+    if (!winOpts.some(([v]) => v === S.win) && !(phased && phaseOpts.some(([v]) => v === S.win))) S.win = "cumulative";
     fillChips($("#window-switch"), "window", winOpts, S.win, "data-window");
+    $("#phase-switch").hidden = !phased;
+    if (phased) fillChips($("#phase-switch"), "window", phaseOpts, S.win, "data-window");
   }
 
   function fillChips(fs, name, opts, current, attr) {
@@ -652,6 +709,7 @@
   function source(p, win) {
     if (win === "cumulative") return p;
     if (win === "period") return (p.periods || {})[S.env.period] || null;
+    if (win.startsWith("phase:")) return (p.phases || {})[win.slice(6)] || null;
     return (p.windows || {})[win] || null;
   }
   const isWindow = (win) => win !== "cumulative" && win !== "period";
@@ -664,7 +722,9 @@
       case "team": { const t = S.state.teams[p.team_id]; return t ? t.name || p.team_id : p.team_id; }
       case "speed_ms": return p.speed_ms;
       case "coverage": return win === "period" ? (src ? src.coverage : null) : p.coverage;
-      case "minutes": return isWindow(win) ? (src && src.span_s != null ? src.span_s / 60 : null) : (src ? src.minutes : null);
+      case "minutes":
+        if (win.startsWith("phase:")) return src ? src.seconds / 60 : null;
+        return isWindow(win) ? (src && src.span_s != null ? src.span_s / 60 : null) : (src ? src.minutes : null);
       case "max_speed_ms": return isWindow(win) ? null : (src ? src.max_speed_ms : null);
       case "zones": return isWindow(win) ? null : (src ? src.zones : null);
       case "hr_bpm": case "hr_pct_max": return p[key] ?? null;
@@ -875,7 +935,9 @@
     $("#match-picker").addEventListener("change", (e) => { if (e.target.value) selectMatch(e.target.value); });
     $("#match-picker").addEventListener("focus", refreshMatches); // about to choose: show what is live now
     $("#team-filter").addEventListener("change", (e) => { if (e.target.name === "team") { S.team = e.target.value; renderTable(); } });
-    $("#window-switch").addEventListener("change", (e) => { if (e.target.name === "window") { S.win = e.target.value; renderTable(); } });
+    for (const fs of ["#window-switch", "#phase-switch"]) {
+      $(fs).addEventListener("change", (e) => { if (e.target.name === "window") { S.win = e.target.value; renderChips(); renderTable(); } });
+    }
     renderTable();
     refreshMatches();
     setInterval(refreshMatches, MATCHES_EVERY_MS);

@@ -1,9 +1,10 @@
 """The AsyncAPI 3.0 description of pacewire's WebSocket channels (README, "Consuming the stream").
 
-Two channels: ``/live/{match_id}`` (subscribe to a match's messages) and
-``/ingest/{match_id}`` (a provider pushes CDF frames and reads errors back).
+Three channels: ``/live/{match_id}`` (subscribe to a match's messages),
+``/ingest/{match_id}`` (a provider pushes CDF frames and reads errors back) and
+``/ingest/{match_id}/events`` (the same for CDF event objects).
 The document is written from pacewire's side: it *sends* on the live channel
-and *receives* frames on the ingest channel. Message payloads reference the
+and *receives* frames and events on the ingest channels. Message payloads reference the
 JSON Schemas of :mod:`pacewire.wire.schema` (2020-12) by URL, served beside the
 document at ``/api/schema/messages/NAME.json``.
 """
@@ -15,6 +16,7 @@ import sys
 from typing import Any
 
 from pacewire.engine.types import PERIODS
+from pacewire.wire.events import BODY_PARTS, EVENT_REQUIRED, X_LIM, Y_LIM
 from pacewire.wire.messages import CONTRACT_VERSION
 from pacewire.wire.schema import MESSAGES
 
@@ -30,7 +32,7 @@ _SUMMARY = {
     "status": "The match status changed: not_started, live, break, ended.",
     "alert": "A player crossed a configured rule.",
     "report": "A half-time or full-time report is ready.",
-    "error": "A bad frame (ingest) or a refused subscription (live, then closed with 1008 and a reason).",
+    "error": "A bad frame or event (ingest) or a refused subscription (live, then closed with 1008 and a reason).",
 }
 
 _MATCH_ID = {"description": "Match id, as set up with PUT /api/matches/{match_id}: 1-64 characters of "
@@ -68,6 +70,50 @@ def _frame_schema() -> dict[str, Any]:
     }
 
 
+def _event_schema() -> dict[str, Any]:
+    """A CDF v0.3.2 event line (Anzer et al. 2025) as pacewire accepts it: the validator's strictest mode."""
+    text, maybe = {"type": "string", "minLength": 1}, {"type": ["string", "null"], "minLength": 1}
+    snake = {"type": "string", "pattern": "^[a-z][a-z0-9_]*$"}
+    coord = {"x": X_LIM, "y": Y_LIM, "x_end": X_LIM, "y_end": Y_LIM}
+    props: dict[str, Any] = {
+        "id": {**text, "description": "Key of the event: the same id with other content is a correction "
+                                      "(the latest wins), with the same content a duplicate (dropped)."},
+        "time": {"type": "string", "format": "date-time", "pattern": "(Z|\\+00:00)$", "description": "UTC"},
+        "period": {"type": "string", "enum": list(PERIODS)},
+        "type": {**snake, "description": "pass, shot, carry, interception, tackle, clearance, referee, ..."},
+        "sub_type": {**snake, "type": ["string", "null"],
+                     "description": "kick_off, throw_in, goal_kick, corner_kick, free_kick, foul, ..."},
+        "is_successful": {"type": "boolean"}, "outcome_type": snake,
+        "player_id": text, "team_id": text, "official_id": text,
+        "receiver_id": maybe, "receiver_team_id": maybe,
+        "receiver_time": {"type": ["string", "null"], "format": "date-time"},
+        "body_part": {"enum": [*BODY_PARTS, None]},
+        "related_event_ids": {"type": ["array", "null"], "items": text},
+        "match_clock": {"type": "string"}, "metrics": {"type": "object"}, "var": {"type": "object"},
+        **{k: {"type": ["number", "null"], "minimum": -lim, "maximum": lim, "description": "m from the centre spot"}
+           for k, lim in coord.items()},
+    }
+    return {
+        "type": "object",
+        "description": "One CDF v0.3.2 event (the schema event.json of the PyPI package "
+                       "common-data-format-validator); a referee event has official_id and no player_id or "
+                       "team_id, every other event both. Each refused event is answered with an error message "
+                       "naming its code, reason and event_id; nothing of it is applied.",
+        "required": ["match", "meta", "event"],
+        "additionalProperties": False,
+        "properties": {
+            "match": {"type": "object", "required": ["id"], "properties": {"id": text}, "additionalProperties": False},
+            "meta": {"type": "object", "required": ["is_synced"], "additionalProperties": False,
+                     "properties": {"is_synced": {"type": "boolean"}}},
+            "event": {"type": "object", "required": list(EVENT_REQUIRED), "properties": props,
+                      "additionalProperties": False},
+            "tracking": {"type": "object", "additionalProperties": False, "properties": {
+                "frame_id": {"type": "integer", "minimum": 0}, "frame_id_end": {"type": "integer", "minimum": 0},
+                "player": {"type": "object"}}},
+        },
+    }
+
+
 def _message(kind: str, schema_base: str) -> dict[str, Any]:
     return {
         "name": kind,
@@ -90,7 +136,8 @@ def _info() -> dict[str, Any]:
         "version": str(CONTRACT_VERSION),
         "description": (
             "Live exertion figures of football matches, from positional tracking. Written from pacewire's "
-            "side: it sends on /live/{match_id} and receives CDF frames on /ingest/{match_id}. Every "
+            "side: it sends on /live/{match_id} and receives CDF frames on /ingest/{match_id} and CDF events "
+            "on /ingest/{match_id}/events. Every "
             f"message carries v (contract major version, now {CONTRACT_VERSION}); within it fields are only "
             "added, never removed or renamed, so ignore fields you do not know. seq increases by one per "
             "message of a subscription stream; on a gap, reconnect with since=LAST_SEQ. Figures are "
@@ -155,6 +202,24 @@ def _channels(live_query: dict[str, Any]) -> dict[str, Any]:
                 "type": "object", "properties": {"token": {"type": "string", "description": "Ingest token."}}},
                 "bindingVersion": "0.1.0"}},
         },
+        "ingest_events": {
+            "address": "/ingest/{match_id}/events",
+            "title": "CDF events in",
+            "description": "A provider sends one CDF event object, or a JSON array of them, per text message "
+                           "(pacewire's control events, period_start and the like, are taken here too). Each "
+                           "bad event and each duplicate is answered with an error message (code, message, "
+                           "event_id); the good ones are recorded in the match's event.jsonl, then applied. "
+                           "Needs the ingest token when the server has one.",
+            "parameters": {"match_id": _MATCH_ID},
+            "messages": {
+                "cdf_event": {"$ref": "#/components/messages/cdf_event"},
+                "cdf_events": {"$ref": "#/components/messages/cdf_events"},
+                "error": {"$ref": "#/components/messages/error"},
+            },
+            "bindings": {"ws": {"method": "GET", "headers": _AUTH_HEADER, "query": {
+                "type": "object", "properties": {"token": {"type": "string", "description": "Ingest token."}}},
+                "bindingVersion": "0.1.0"}},
+        },
     }
 
 
@@ -177,6 +242,18 @@ def _operations() -> dict[str, Any]:
             "summary": "pacewire answers a bad frame with an error message.",
             "messages": [{"$ref": "#/channels/ingest/messages/error"}],
         },
+        "receiveEvents": {
+            "action": "receive", "channel": {"$ref": "#/channels/ingest_events"},
+            "summary": "pacewire receives a match's CDF event stream from a provider.",
+            "security": _security(),
+            "messages": [{"$ref": "#/channels/ingest_events/messages/cdf_event"},
+                         {"$ref": "#/channels/ingest_events/messages/cdf_events"}],
+        },
+        "sendEventErrors": {
+            "action": "send", "channel": {"$ref": "#/channels/ingest_events"},
+            "summary": "pacewire answers a bad or repeated event with an error message.",
+            "messages": [{"$ref": "#/channels/ingest_events/messages/error"}],
+        },
     }
 
 
@@ -189,6 +266,11 @@ def _components(schema_base: str) -> dict[str, Any]:
             "frames": {"name": "frames", "title": "Frames", "summary": "A JSON array of CDF tracking frames.",
                        "contentType": "application/json",
                        "payload": {"type": "array", "items": _frame_schema()}},
+            "cdf_event": {"name": "cdf_event", "title": "CDF event", "summary": "One CDF event object.",
+                          "contentType": "application/json", "payload": _event_schema()},
+            "cdf_events": {"name": "cdf_events", "title": "CDF events",
+                           "summary": "A JSON array of CDF event objects.", "contentType": "application/json",
+                           "payload": {"type": "array", "items": _event_schema()}},
         },
         "securitySchemes": {
             "bearer": {"type": "http", "scheme": "bearer",

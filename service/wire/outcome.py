@@ -1,4 +1,4 @@
-"""The answer to a batch of frames or heart-rate samples: what was kept, what was refused and why."""
+"""The answer to a batch of frames, heart-rate samples or CDF events: what was kept, what was refused and why."""
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -32,3 +32,23 @@ def after_end_message(frames: int, where: str = "") -> str:
     """The answer to frames sent after the match ended (``where``: when it ended, if known)."""
     return (f"the match has ended{where}: {frames} frame{'s' if frames != 1 else ''} refused; "
             "a period_start event reopens it")
+
+
+@dataclass
+class EventOutcome:
+    """The answer to a batch of CDF events: corrections are accepted events whose id came before."""
+
+    accepted: int
+    rejected: int
+    duplicates: int
+    corrections: int
+    errors: list[FrameError]
+    stored: bool = True
+
+    def as_dict(self, limit: int = 20) -> dict[str, Any]:
+        return {"accepted": self.accepted, "rejected": self.rejected, "duplicates": self.duplicates,
+                "corrections": self.corrections, "errors": [e.as_dict() for e in self.errors[:limit]]}
+
+    @staticmethod
+    def unstored() -> EventOutcome:
+        return EventOutcome(0, 0, 0, 0, [], stored=False)

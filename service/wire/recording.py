@@ -1,5 +1,6 @@
 """Reading a recording: a CDF folder with meta.json, match.json and tracking.jsonl[.gz],
-and hr.jsonl[.gz] when the match had a heart-rate channel (docs/wearables.md)."""
+hr.jsonl[.gz] when the match had a heart-rate channel (docs/wearables.md), and event.jsonl[.gz],
+the CDF event stream, when it had one (pacewire's own control events are events.jsonl)."""
 from __future__ import annotations
 
 import gzip
@@ -11,6 +12,8 @@ from typing import Any
 import orjson
 
 from pacewire.errors import PacewireError
+
+EVENT_FILE = "event.jsonl"  # the CDF event file, named as in the CDF validator's samples (Anzer et al. 2025)
 
 
 class RecordingError(PacewireError, ValueError):
@@ -24,6 +27,7 @@ class Recording:
     sheet: dict[str, Any]
     tracking: Path
     hr: Path | None = None  # heart-rate samples, one JSON object per line
+    events: Path | None = None  # CDF events, one per line, in arrival order (corrections after what they correct)
 
     def lines(self) -> Iterator[bytes]:
         """The tracking file's lines, raw bytes, in file order."""
@@ -33,6 +37,11 @@ class Recording:
         """The heart-rate file's lines (none when the recording has no hr.jsonl)."""
         if self.hr is not None:
             yield from _read_lines(self.hr)
+
+    def event_lines(self) -> Iterator[bytes]:
+        """The CDF event file's lines (none when the recording has no event.jsonl)."""
+        if self.events is not None:
+            yield from _read_lines(self.events)
 
     def batches(self, size: int = 1500) -> Iterator[tuple[int, list[bytes]]]:
         """(first line number, lines) in batches of ``size`` lines."""
@@ -81,4 +90,5 @@ def open_recording(folder: str | Path) -> Recording:
     tracking = _first_file(folder, ("tracking.jsonl", "tracking.jsonl.gz"))
     if tracking is None:
         raise RecordingError(f"no tracking.jsonl or tracking.jsonl.gz in {folder}")
-    return Recording(folder, meta, sheet, tracking, _first_file(folder, ("hr.jsonl", "hr.jsonl.gz")))
+    return Recording(folder, meta, sheet, tracking, _first_file(folder, ("hr.jsonl", "hr.jsonl.gz")),
+                     _first_file(folder, (EVENT_FILE, EVENT_FILE + ".gz")))

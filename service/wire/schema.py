@@ -157,6 +157,32 @@ class Possession(_Shape):
     out_of_play: ContextFigures
 
 
+PhaseName = Literal["attack", "defence", "attacking_transition", "defensive_transition", "dead_ball", "unknown"]
+
+
+class PhaseFigures(_Shape):
+    """Figures over the seconds of one game phase (its team's phase, second by second)."""
+
+    seconds: float = Field(ge=0, description="Seconds in this phase: a player's while seen on the pitch, a team's "
+                                             "of match time.")
+    distance_m: float = Field(ge=0, description="Distance covered in this phase, m.")
+    m_per_min: float | None = Field(description="Distance per minute of this phase, m/min; null before any.")
+    hsr_m: float = Field(ge=0, description="High-speed running distance in this phase, m.")
+    sprint_m: float = Field(ge=0, description="Sprint distance in this phase, m.")
+
+
+class TeamPhaseFigures(PhaseFigures):
+    per_player_m_per_min: float | None = Field(description="Outfield distance per outfield player-minute in this "
+                                                           "phase, m/min.")
+
+
+PHASES_DESCRIPTION = ("Figures by game phase: attack and defence (organised possession and out of possession), "
+                      "attacking_transition and defensive_transition (the first seconds after the ball was won or "
+                      "lost in open play, phases.transition_s), dead_ball, and unknown (a loose ball, or no context). "
+                      "Possession from the CDF event stream, else the tracking's ball; the phases partition the "
+                      "totals.")
+
+
 class Player(PeriodFigures):
     """One player: identity, whole-match figures, windows, per-period figures."""
 
@@ -175,6 +201,9 @@ class Player(PeriodFigures):
     periods: dict[Period, PeriodFigures] = Field(description="The same figures per period played.")
     possession: Possession = _optional_key(description="Distance by ball context; "
                                                        "present when the feed has possession.")
+    phases: dict[PhaseName, PhaseFigures] = Field(description=PHASES_DESCRIPTION)
+    m_per_min_in_play: float | None = Field(description="Distance per minute of effective playing time (the ball in "
+                                                        "play), m/min (Altmann et al. 2023); null before any.")
     hr_bpm: float | None = Field(None, description="Latest heart rate, bpm; null when older than heart_rate.stale_s.")
     hr_pct_max: float | None = Field(None, description="hr_bpm as % of the player's HRmax; null without hr_max_bpm.")
     hr_peak_bpm: float | None = Field(None, description="Highest accepted heart rate, bpm.")
@@ -248,6 +277,24 @@ class TeamWindow(WindowFigures):
     span_s: float = Field(ge=0, description=f"Seconds of play the window covers, {_to('seconds', 's')}.")
 
 
+class SequenceFigures(_Shape):
+    """A team's possession sequences (spells with the ball in play) of one outcome."""
+
+    count: int = Field(ge=0, description="Sequences, count.")
+    seconds: float = Field(ge=0, description="Their total duration, s.")
+    mean_s: float | None = Field(description="Their mean duration, s; null without any.")
+    m_per_min: float | None = Field(description="Outfield distance per outfield player-minute during them, m/min.")
+    hsr_m_per_min: float | None = Field(description="Outfield high-speed running per outfield player-minute during "
+                                                    "them, m/min.")
+
+
+class Sequences(_Shape):
+    """Possession sequences by outcome (Bradley & Ade 2018): those in which the team shot, and the others."""
+
+    shot: SequenceFigures
+    no_shot: SequenceFigures
+
+
 class Outfield(WindowFigures):
     """A team's outfield players (goalkeepers excluded; every outfield player who has been on the pitch).
     distance_m, hsr_m, sprint_m, high_power_m and the four counts are the team's totals; m_per_min and
@@ -275,6 +322,13 @@ class Outfield(WindowFigures):
                                               "m_per_min (its distance was the total divided by the players used).")
     windows: dict[Annotated[str, Field(pattern=LAST_WINDOW_KEY)], TeamWindow] = Field(
         description="Rolling windows of the current period over the outfield players.")
+    phases: dict[PhaseName, TeamPhaseFigures] = Field(description=PHASES_DESCRIPTION + " m_per_min: per minute "
+                                                                  "of match time in the phase, as m_per_min above.")
+    m_per_min_in_play: float | None = Field(description="Outfield distance per minute of effective playing time, "
+                                                        "m/min (Altmann et al. 2023).")
+    in_play_s: float = Field(ge=0, description="Effective playing time so far (the ball in play), s.")
+    sequences: Sequences = _optional_key(description="Possession sequences by outcome; present when the match has "
+                                                     "a CDF event stream (shots come from it).")
 
 
 class Team(_Shape):
@@ -297,6 +351,24 @@ class ArtefactCount(_Shape):
 
     samples: int = Field(ge=0, description="Samples removed, count.")
     seconds: float = Field(ge=0, description="Their duration at the nominal frame rate, s.")
+
+
+class EventStreamHealth(_Shape):
+    """The CDF event stream's own health."""
+
+    state: Literal["ok", "degraded", "stalled"]
+    reasons: list[Reason] = Field(
+        description="Empty when ok: no_events, event_gap, event_stall, event_lag, event_ahead.")
+    events: int = Field(ge=0, description="Distinct events accepted (by id), count.")
+    events_per_min: float | None = Field(description="Events timed within the last window of match time, per minute.")
+    lag_s: float | None = Field(description="Median of how far events arrive behind the tracking, s; null offline.")
+    lag_p95_s: float | None = Field(description="95th percentile of that lag, s.")
+    since_last_s: float | None = Field(description="Seconds of play (the ball not known dead) since the latest "
+                                                   "event, s.")
+    corrections: int = Field(ge=0, description="Events sent again under their id with other content (the latest "
+                                               "wins), count.")
+    duplicates: int = Field(ge=0, description="Events sent again unchanged (dropped), count.")
+    rejected: int = Field(ge=0, description="Events refused as invalid, count.")
 
 
 class Health(_Shape):
@@ -347,6 +419,8 @@ class Health(_Shape):
                                                        "count.")
     hr_duplicates: int = _optional_key(ge=0, description="Heart-rate samples dropped as repeats, count.")
     hr_late: int = _optional_key(ge=0, description="Heart-rate samples dropped as older than the player's last, count.")
+    events: EventStreamHealth = _optional_key(description="The CDF event stream's health; present once the match "
+                                                          "has one.")
 
 
 MatchStatus = Literal["not_started", "live", "break", "ended"]

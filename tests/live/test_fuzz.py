@@ -218,7 +218,7 @@ def broken_budgets(draw, sheet: bool = True) -> tuple[object, str]:
     fault = draw(st.sampled_from(faults))
     if fault == "negative":
         caps[key] = draw(st.one_of(st.floats(max_value=lo, allow_nan=False, allow_infinity=False),
-                                   st.integers(max_value=lo)))
+                                   st.integers(-(2**63), lo)))
         return body, f"players.{pid}.{key}"
     if fault == "huge":
         # orjson writes 64-bit ints
@@ -242,7 +242,7 @@ def broken_budgets(draw, sheet: bool = True) -> tuple[object, str]:
         body["players"][other] = dict(caps)
         return body, f"players.{other}: not in the match sheet"
     if fault == "players_shape":
-        body["players"] = draw(st.one_of(st.lists(json_values, max_size=3), st.integers(), st.text(max_size=5),
+        body["players"] = draw(st.one_of(st.lists(json_values, max_size=3), INT64, st.text(max_size=5),
                                          st.none(), st.booleans()))
         return body, "players"
     if fault == "no_players":
@@ -251,7 +251,7 @@ def broken_budgets(draw, sheet: bool = True) -> tuple[object, str]:
         name = draw(st.text(min_size=1, max_size=10).filter(lambda t: t != "players"))
         body[name] = draw(json_values)
         return body, name
-    return draw(st.one_of(st.lists(json_values, max_size=3), st.integers(), st.text(max_size=5), st.none())), "body"
+    return draw(st.one_of(st.lists(json_values, max_size=3), INT64, st.text(max_size=5), st.none())), "body"
 
 
 def _put_budgets(world, content: bytes) -> httpx.Response:

@@ -172,7 +172,7 @@ def test_same_seed_gives_identical_bytes_and_another_seed_differs(tmp_path):
     a = _bytes(synth.write_match(tmp_path / "a", minutes=2, seed=5))
     b = _bytes(synth.write_match(tmp_path / "b", minutes=2, seed=5))
     c = _bytes(synth.write_match(tmp_path / "c", minutes=2, seed=6))
-    assert set(a) == {"meta.json", "match.json", "tracking.jsonl.gz", "faults.json"}
+    assert set(a) == {"meta.json", "match.json", "tracking.jsonl.gz", "faults.json", "event.jsonl"}
     assert a == b
     assert a["tracking.jsonl.gz"] != c["tracking.jsonl.gz"]
     assert a["faults.json"] != c["faults.json"]

@@ -538,3 +538,54 @@ def test_the_demo_clip_through_the_match_picker(bench):
     assert all(n in page.inner_text("#scoreline") for n in names)
     page.set_viewport_size({"width": 1440, "height": page.evaluate("document.documentElement.scrollHeight")})
     page.screenshot(path=str(ARTIFACTS / "bench-demo-clip-light.png"))
+
+
+def test_phase_view_of_the_demo_clip(bench):
+    """The demo clip's event stream gives game phases: each team card shows minutes, m/min per player and
+    HSR per phase, play time and possessions by outcome as REST has them; the phase switch shows each
+    player's figures in that phase; the feed panel shows the event stream's health."""
+    meta = orjson.loads((DEMO_CLIP / "meta.json").read_bytes())
+    mid = meta["match"]["id"]
+    if mid not in bench.page.input_value("#match-picker"):  # run alone: load the clip as the test above does
+        test_the_demo_clip_through_the_match_picker(bench)
+    events = (DEMO_CLIP / "event.jsonl").read_bytes()
+    r = httpx.post(f"{bench.srv.http}/api/matches/{mid}/events", content=events, timeout=30)
+    assert r.status_code == 200 and r.json()["rejected"] == 0, r.text
+    page = bench.page
+    page.wait_for_selector("#feed-events:not([hidden])")
+    rest = wait_for(lambda: (s := bench.rest(mid))["health"].get("events", {}).get("events") and s, 10,
+                    "the events to count")
+
+    def cards() -> dict:
+        return page.evaluate(READ_TEAMS)
+
+    def want(snap: dict) -> dict:
+        out = {}
+        for tid, t in snap["teams"].items():
+            o = t["outfield"]
+            rows = [[f"phase:{ph}", k, f[k]] for ph, f in o["phases"].items()
+                    for k in ("seconds", "per_player_m_per_min", "hsr_m")]
+            rows += [["in_play", "in_play_s", o["in_play_s"]], ["in_play", "m_per_min_in_play", o["m_per_min_in_play"]]]
+            rows += [["sequences", k, o["sequences"][k]["m_per_min"]] for k in ("shot", "no_shot")]
+            out[tid] = {(w, f): v for w, f, v in rows}
+        return out
+
+    def same() -> bool:
+        snap = bench.rest(mid)
+        got = {tid: {(w, f): num(v) for w, f, v in vals if w.startswith(("phase:", "in_play", "sequences"))}
+               for tid, vals in cards().items()}
+        return got == want(snap) and snap
+
+    rest = wait_for(same, 10, "the team cards to show REST's figures by phase")
+    assert any(t["outfield"]["phases"]["attack"]["seconds"] > 0 for t in rest["teams"].values())
+    page.click("label[data-window='phase:attack']")
+    page.wait_for_selector("#player-table[data-window='phase:attack']")
+    got = bench.table()
+    bad = mismatches(got, rest["players"], lambda p: p["phases"]["attack"], ("distance_m", "m_per_min", "hsr_m"))
+    assert not bad, "; ".join(bad[:6])
+    assert page.text_content("#feed-events-state") in ("Events OK", "Events degraded", "Events stalled")
+    assert num(page.get_attribute("[data-health='events.corrections']", "data-value")) == \
+        rest["health"]["events"]["corrections"]
+    page.set_viewport_size({"width": 1440, "height": page.evaluate("document.documentElement.scrollHeight")})
+    page.screenshot(path=str(ARTIFACTS / "bench-phases-light.png"))
+    page.click("label[data-window='cumulative']")
