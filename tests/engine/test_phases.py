@@ -24,7 +24,8 @@ H, A = cb.HOME, cb.AWAY
 def positions(seconds: float, seed: int = 0) -> np.ndarray:
     """Six players swaying 18 x 12 m about points 4 m apart (fictional movement), (T, 6, 2)."""
     centre = np.c_[4.0 * np.arange(6) - 10.0, np.zeros(6)]
-    return sway(seconds, 6, (18.0, 12.0), drawn_rates(6, 0.15, 0.6, seed), centre=centre)
+    # rates up to 0.5 Hz: the fastest player peaks near 9.6 m/s, within the physical bounds (config [kinematics])
+    return sway(seconds, 6, (18.0, 12.0), drawn_rates(6, 0.15, 0.5, seed), centre=centre)
 
 
 IN_PLAY = "in play throughout"
@@ -128,8 +129,8 @@ def test_phases_partition_every_figure_exactly():
     assert (ph.player.sum(axis=1) == totals).all()  # every figure, in micro-units: exact
     snap = build_snapshot(state)
     for pid, p in snap["players"].items():
-        # rounded to 0.1 m each: six phases differ from the rounded total by at most 6 x 0.05 m
-        assert sum(p["phases"][k]["distance_m"] for k in PHASES) == pytest.approx(p["distance_m"], abs=0.3), pid
+        # phases rounded to 0.1 m each (6 x 0.05 m), the total to 1 m (0.5 m; service/engine/precision.py)
+        assert sum(p["phases"][k]["distance_m"] for k in PHASES) == pytest.approx(p["distance_m"], abs=0.8), pid
         assert sum(p["phases"][k]["seconds"] for k in PHASES) == pytest.approx(120.0, abs=0.05)
     team_s = ph.team_s.sum(axis=1)
     assert team_s.tolist() == [120.0, 120.0]
