@@ -76,7 +76,8 @@ def test_a_slide_is_removed_not_run():
     assert 1 <= art <= 8 and health["artefact_samples"] == art
     assert health["artefacts"]["h1"]["seconds"] == pytest.approx(art / FPS)
     on_pitch = len(speed)
-    assert p["coverage"] == pytest.approx(1.0 - art / on_pitch, abs=0.002)  # removed samples are not covered
+    # removed samples are not covered; coverage goes out to 0.01 (service/engine/precision.py)
+    assert p["coverage"] == pytest.approx(1.0 - art / on_pitch, abs=0.0051)
 
 
 def test_a_reentry_slide_after_a_camera_gap_is_removed():
@@ -162,7 +163,8 @@ def test_an_acceleration_no_sprinter_has_at_that_speed_credits_nothing():
     snap = run(xy, profile=None)
     art = snap["health"]["artefacts"]["h1"]["samples"]
     assert 3 <= art <= 15
-    assert player(snap)["coverage"] == pytest.approx(1.0 - art / len(speed), abs=0.002)
+    # coverage goes out to 0.01 (service/engine/precision.py)
+    assert player(snap)["coverage"] == pytest.approx(1.0 - art / len(speed), abs=0.0051)
     # from 9 to 10 m/s at 1 m/s^2, under the bound all the way (2.0 m/s^2 at 10 m/s): nothing removed
     gentle = np.concatenate([np.full(20 * FPS, 9.0), 9.0 + 1.0 * np.arange(1, 11) / FPS, np.full(20 * FPS, 10.0)])
     assert run(lap(gentle)[:, None, :], profile=None)["health"]["artefact_samples"] == 0
