@@ -663,38 +663,52 @@ def _merge_codes(a: np.ndarray) -> np.ndarray:
     return out
 
 
-def _phase_block(sums: np.ndarray, seconds: np.ndarray, rate_s: np.ndarray) -> list[dict[str, Any]]:
+def _rate(value: float, seconds: float, prec: Precision) -> float | int | None:
+    """``value`` per minute over ``seconds`` at the precision of m/min (None without any time)."""
+    return _round_one(value / seconds * 60.0, prec.rate) if seconds > 0 else None
+
+
+def _round_one(value: float, decimals: int) -> float | int:
+    """One figure as _round_list rounds it (an int when ``decimals`` <= 0)."""
+    return _round_list(np.array([value]), decimals)[0]
+
+
+def _phase_block(sums: np.ndarray, seconds: np.ndarray, rate_s: np.ndarray, prec: Precision) -> list[dict[str, Any]]:
     """Per row: {phase: {seconds, distance_m, m_per_min, hsr_m, sprint_m}} from ``sums`` (rows, phases,
-    N_FIG) µm, ``seconds`` (rows, phases) shown and ``rate_s`` (rows, phases) the m/min divides by."""
+    N_FIG) µm, ``seconds`` (rows, phases) shown (0.1 s) and ``rate_s`` (rows, phases) the m/min divides
+    by; distances and m/min at the wire precision ``prec``."""
     dist = sums[..., ex.DIST] * _U
     ok = rate_s > 0
     rate = np.where(ok, dist / np.where(ok, rate_s, 1.0) * 60.0, 0.0)
-    cols = [seconds, dist, rate, sums[..., ex.HSR] * _U, sums[..., ex.SPRINT] * _U]
-    vals = np.round(np.stack(cols, -1), 1).tolist()  # (rows, phases, 5)
+    secs = np.round(seconds, 1).tolist()
+    d = prec.distance
+    dists = [_round_list(a, d) for a in (dist, sums[..., ex.HSR] * _U, sums[..., ex.SPRINT] * _U)]
+    rates = _round_list(rate, prec.rate)
     oks = ok.tolist()
-    return [{ph: {"seconds": v[0], "distance_m": v[1], "m_per_min": v[2] if o else None, "hsr_m": v[3],
-                  "sprint_m": v[4]} for ph, v, o in zip(PHASES, row, okr, strict=True)}
-            for row, okr in zip(vals, oks, strict=True)]
+    return [{ph: {"seconds": secs[i][j], "distance_m": dists[0][i][j], "m_per_min": rates[i][j] if oks[i][j] else None,
+                  "hsr_m": dists[1][i][j], "sprint_m": dists[2][i][j]} for j, ph in enumerate(PHASES)}
+            for i in range(len(oks))]
 
 
-def _in_play_rate(sums: np.ndarray, seconds: np.ndarray) -> list[float | None]:
+def _in_play_rate(sums: np.ndarray, seconds: np.ndarray, prec: Precision) -> list[float | int | None]:
     """Distance per minute of play from per-code sums (rows, N_CODES, N_FIG) and seconds (rows, N_CODES)."""
     dist = sums[:, IN_PLAY_CODES, ex.DIST].sum(axis=1) * _U
     secs = seconds[:, IN_PLAY_CODES].sum(axis=1)
-    return [round(d / s * 60.0, 1) if s > 0 else None for d, s in zip(dist.tolist(), secs.tolist(), strict=True)]
+    return [_rate(d, s, prec) for d, s in zip(dist.tolist(), secs.tolist(), strict=True)]
 
 
 def _player_phase_rows(state: MatchState, cache: dict[Any, Any], phases: PhaseTotals) -> _Rows:
     """Each player's ``phases`` and ``m_per_min_in_play`` (seconds: his samples seen / fps), see _reuse."""
     sums = phases.player  # (P, N_CODES, N_FIG)
     seen_s = sums[:, :, ex.SEEN] / state.fps
+    prec = state.params.precision
 
     def build(r: Any) -> list[dict[str, Any]]:
         merged = _merge_codes(sums[r].transpose(0, 2, 1)).transpose(0, 2, 1)
         secs = _merge_codes(seen_s[r])
-        blocks = _phase_block(merged, secs, secs)
-        return [{"phases": b, "m_per_min_in_play": m} for b, m in zip(blocks, _in_play_rate(sums[r], seen_s[r]),
-                                                                       strict=True)]
+        blocks = _phase_block(merged, secs, secs, prec)
+        in_play = _in_play_rate(sums[r], seen_s[r], prec)
+        return [{"phases": b, "m_per_min_in_play": m} for b, m in zip(blocks, in_play, strict=True)]
 
     return _reuse(cache, "phases", sums.reshape(state.n, -1).astype(float), build)
 
@@ -706,26 +720,26 @@ def _team_phases(state: MatchState, phases: PhaseTotals, k: int, mask: np.ndarra
     team_s = phases.team_s[k][None]
     player_s = sums[:, :, ex.SEEN] / state.fps
     merged = _merge_codes(sums.transpose(0, 2, 1)).transpose(0, 2, 1)
-    block = _phase_block(merged, _merge_codes(team_s), _merge_codes(team_s))[0]
+    prec = state.params.precision
+    block = _phase_block(merged, _merge_codes(team_s), _merge_codes(team_s), prec)[0]
     per_player = _merge_codes(player_s)[0].tolist()
     dist = (merged[0, :, ex.DIST] * _U).tolist()
     for ph, d, ps in zip(PHASES, dist, per_player, strict=True):
-        block[ph]["per_player_m_per_min"] = round(d / ps * 60.0, 1) if ps > 0 else None
-    out: dict[str, Any] = {"phases": block, "m_per_min_in_play": _in_play_rate(sums, team_s)[0],
+        block[ph]["per_player_m_per_min"] = _rate(d, ps, prec)
+    out: dict[str, Any] = {"phases": block, "m_per_min_in_play": _in_play_rate(sums, team_s, prec)[0],
                            "in_play_s": round(float(team_s[0, IN_PLAY_CODES].sum()), 1)}
     if phases.sequences is not None:
-        out["sequences"] = _sequences(phases.sequences[k], state.fps)
+        out["sequences"] = _sequences(phases.sequences[k], state.fps, prec)
     return out
 
 
-def _sequences(rows: np.ndarray, fps: int) -> dict[str, Any]:
+def _sequences(rows: np.ndarray, fps: int, prec: Precision) -> dict[str, Any]:
     """Possession sequences by outcome from rows (shot, no shot) of [spells, seconds, distance µm, HSR µm,
-    samples seen]: count, seconds, mean seconds, the outfield players' m/min and HSR m/min."""
+    samples seen]: count, seconds, mean seconds, the outfield players' m/min and HSR m/min (``prec``)."""
     out = {}
     for name, (count, secs, dist, hsr, seen) in zip(("shot", "no_shot"), rows.tolist(), strict=True):
-        minutes = seen / fps / 60.0
+        seen_s = seen / fps
         count = int(count)
         out[name] = {"count": count, "seconds": round(secs, 1), "mean_s": round(secs / count, 1) if count else None,
-                     "m_per_min": round(dist * _U / minutes, 1) if minutes > 0 else None,
-                     "hsr_m_per_min": round(hsr * _U / minutes, 1) if minutes > 0 else None}
+                     "m_per_min": _rate(dist * _U, seen_s, prec), "hsr_m_per_min": _rate(hsr * _U, seen_s, prec)}
     return out

@@ -164,16 +164,17 @@ class PhaseFigures(_Shape):
     """Figures over the seconds of one game phase (its team's phase, second by second)."""
 
     seconds: float = Field(ge=0, description="Seconds in this phase: a player's while seen on the pitch, a team's "
-                                             "of match time.")
-    distance_m: float = Field(ge=0, description="Distance covered in this phase, m.")
-    m_per_min: float | None = Field(description="Distance per minute of this phase, m/min; null before any.")
-    hsr_m: float = Field(ge=0, description="High-speed running distance in this phase, m.")
-    sprint_m: float = Field(ge=0, description="Sprint distance in this phase, m.")
+                                             "of match time, to 0.1 s.")
+    distance_m: float = Field(ge=0, description=f"Distance covered in this phase, m, {_to('distance', 'm')}.")
+    m_per_min: float | None = Field(description=f"Distance per minute of this phase, m/min, {_to('rate', 'm/min')}; "
+                                                "null before any.")
+    hsr_m: float = Field(ge=0, description=f"High-speed running distance in this phase, m, {_to('distance', 'm')}.")
+    sprint_m: float = Field(ge=0, description=f"Sprint distance in this phase, m, {_to('distance', 'm')}.")
 
 
 class TeamPhaseFigures(PhaseFigures):
     per_player_m_per_min: float | None = Field(description="Outfield distance per outfield player-minute in this "
-                                                           "phase, m/min.")
+                                                           f"phase, m/min, {_to('rate', 'm/min')}.")
 
 
 PHASES_DESCRIPTION = ("Figures by game phase: attack and defence (organised possession and out of possession), "
@@ -203,7 +204,8 @@ class Player(PeriodFigures):
                                                        "present when the feed has possession.")
     phases: dict[PhaseName, PhaseFigures] = Field(description=PHASES_DESCRIPTION)
     m_per_min_in_play: float | None = Field(description="Distance per minute of effective playing time (the ball in "
-                                                        "play), m/min (Altmann et al. 2023); null before any.")
+                                                        "play), m/min (Altmann et al. 2023), "
+                                                        f"{_to('rate', 'm/min')}; null before any.")
     hr_bpm: float | None = Field(None, description="Latest heart rate, bpm; null when older than heart_rate.stale_s.")
     hr_pct_max: float | None = Field(None, description="hr_bpm as % of the player's HRmax; null without hr_max_bpm.")
     hr_peak_bpm: float | None = Field(None, description="Highest accepted heart rate, bpm.")
@@ -283,9 +285,10 @@ class SequenceFigures(_Shape):
     count: int = Field(ge=0, description="Sequences, count.")
     seconds: float = Field(ge=0, description="Their total duration, s.")
     mean_s: float | None = Field(description="Their mean duration, s; null without any.")
-    m_per_min: float | None = Field(description="Outfield distance per outfield player-minute during them, m/min.")
+    m_per_min: float | None = Field(description="Outfield distance per outfield player-minute during them, m/min, "
+                                                f"{_to('rate', 'm/min')}.")
     hsr_m_per_min: float | None = Field(description="Outfield high-speed running per outfield player-minute during "
-                                                    "them, m/min.")
+                                                    f"them, m/min, {_to('rate', 'm/min')}.")
 
 
 class Sequences(_Shape):
@@ -325,7 +328,7 @@ class Outfield(WindowFigures):
     phases: dict[PhaseName, TeamPhaseFigures] = Field(description=PHASES_DESCRIPTION + " m_per_min: per minute "
                                                                   "of match time in the phase, as m_per_min above.")
     m_per_min_in_play: float | None = Field(description="Outfield distance per minute of effective playing time, "
-                                                        "m/min (Altmann et al. 2023).")
+                                                        f"m/min (Altmann et al. 2023), {_to('rate', 'm/min')}.")
     in_play_s: float = Field(ge=0, description="Effective playing time so far (the ball in play), s.")
     sequences: Sequences = _optional_key(description="Possession sequences by outcome; present when the match has "
                                                      "a CDF event stream (shots come from it).")

@@ -129,8 +129,8 @@ def test_phases_partition_every_figure_exactly():
     assert (ph.player.sum(axis=1) == totals).all()  # every figure, in micro-units: exact
     snap = build_snapshot(state)
     for pid, p in snap["players"].items():
-        # phases rounded to 0.1 m each (6 x 0.05 m), the total to 1 m (0.5 m; service/engine/precision.py)
-        assert sum(p["phases"][k]["distance_m"] for k in PHASES) == pytest.approx(p["distance_m"], abs=0.8), pid
+        # published to 1 m each (service/engine/precision.py): six phases and the total, 7 x 0.5 m at most
+        assert sum(p["phases"][k]["distance_m"] for k in PHASES) == pytest.approx(p["distance_m"], abs=3.5), pid
         assert sum(p["phases"][k]["seconds"] for k in PHASES) == pytest.approx(120.0, abs=0.05)
     team_s = ph.team_s.sum(axis=1)
     assert team_s.tolist() == [120.0, 120.0]
@@ -169,7 +169,8 @@ def test_effective_playing_time_rates():
     for i, pid in enumerate(IDS):
         p = snap["players"][pid]
         dist = (ph.player[i, :, ex.DIST].sum() - ph.player[i, 4, ex.DIST]) / 1e6
-        assert p["m_per_min_in_play"] == pytest.approx(dist / 45.0 * 60.0, abs=0.05)  # 45 s of play
+        # 45 s of play; published to 1 m/min (service/engine/precision.py)
+        assert p["m_per_min_in_play"] == pytest.approx(dist / 45.0 * 60.0, abs=0.5)
     out = snap["teams"][H]["outfield"]
     assert out["in_play_s"] == 45.0  # Altmann et al. 2023: effective time counts the ball in play only
 
@@ -219,14 +220,15 @@ def test_figures_per_phase_are_the_distance_run_in_those_seconds():
             want = float(per_s[lab == ph, i].sum())
             team_m[H if i < N_HOME else A][ph] += want
             # the engine smooths (Savitzky-Golay) and counts a frame step in the second it ends in: from memory,
-            # a few tenths of a metre on tens of metres; 0.5 m holds here, a second mislabelled moves ~6 m
-            assert got[ph]["distance_m"] == pytest.approx(want, abs=0.5), (pid, ph)
+            # a few tenths of a metre on tens of metres; 0.5 m holds here, a second mislabelled moves ~6 m;
+            # plus 0.5 m (1 m/min) as the figures are published to 1 m (service/engine/precision.py)
+            assert got[ph]["distance_m"] == pytest.approx(want, abs=1.0), (pid, ph)
             assert got[ph]["seconds"] == float((lab == ph).sum()), (pid, ph)
-            assert got[ph]["m_per_min"] == pytest.approx(want / (lab == ph).sum() * 60.0, abs=1.5), (pid, ph)
+            assert got[ph]["m_per_min"] == pytest.approx(want / (lab == ph).sum() * 60.0, abs=2.0), (pid, ph)
     for tid, by_phase in team_m.items():
         out = snap["teams"][tid]["outfield"]["phases"]
         for ph, want in by_phase.items():
-            assert out[ph]["distance_m"] == pytest.approx(want, abs=1.5), (tid, ph)
+            assert out[ph]["distance_m"] == pytest.approx(want, abs=2.0), (tid, ph)
 
 
 def test_events_at_the_same_instant_keep_the_order_their_ids_first_came_in():
