@@ -76,9 +76,11 @@ def test_cli_switches_each_model(tmp_path):
         out = tmp_path / flag.strip("-")
         assert synth.main(["--out", str(out), "--minutes", "2", "--fps", str(FPS), "--no-faults"]) == 0
         assert not {f["kind"] for f in _faults(out)} & NEW_KINDS
-        # the other faults off: in two minutes they would leave no room for a 6 s camera gap
+        # the other faults off (the event stream's too: they share the fault log); in two minutes they
+        # would leave no room for a 6 s camera gap
         assert synth.main(["--out", str(out), "--minutes", "2", "--fps", str(FPS), flag, "--no-outage",
-                           "--no-dropouts", "--no-duplicates", "--no-out-of-order", "--no-jumps"]) == 0
+                           "--no-dropouts", "--no-duplicates", "--no-out-of-order", "--no-jumps",
+                           "--no-event-gap", "--no-event-lag", "--no-corrections"]) == 0
         assert {f["kind"] for f in _faults(out)} == kinds
 
 
