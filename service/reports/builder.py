@@ -108,7 +108,7 @@ def draw_charts(snapshot: dict[str, Any], series: BlockSeries) -> dict[str, str]
     return out
 
 
-def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
+def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.8,
                  extra: dict[str, Any] | None = None) -> dict[str, Any]:
     """Write ``root/{kind}/`` and return its index entry (also written as index.json, last;
     ``extra`` fields are added to it)."""
