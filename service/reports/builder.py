@@ -123,9 +123,14 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.8,
     rate = ser.per_min(ex.DIST)
     per_min = {pid: [None if not np.isfinite(v) else round(float(v), 1) for v in rate[:, i]]
                for i, pid in enumerate(ser.player_ids)}
+    # the first page compares blocks a player spent at least half of on the pitch: a few seconds of a
+    # stoppage-time block, or of a block he came on in, make a rate that says nothing
+    full = ser.onpitch_s >= ser.block_min * 30.0
+    steady = {pid: [v if full[b, i] else None for b, v in enumerate(per_min[pid])]
+              for i, pid in enumerate(ser.player_ids)}
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,
                 [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min,
-                inp.alerts, phases_section)
+                inp.alerts, phases_section, steady)
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
                    players=snap["players"], teams=snap["teams"], health=snap["health"], alerts=inp.alerts)
     _write_atomic(folder / "report.html", text.encode("utf-8"))
