@@ -24,7 +24,8 @@ from pacewire.reports import charts
 from pacewire.reports.alert_log import alerts_csv
 from pacewire.reports.page import page, zone_names
 from pacewire.reports.phases import phases_section
-from pacewire.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
+from pacewire.reports.export import export_csv, report_table
+from pacewire.reports.table import has_heart_rate, player_order, tracked_teams
 from pacewire.wire.messages import envelope
 
 KINDS = ("half_time", "full_time")
@@ -134,7 +135,8 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.8,
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
                    players=snap["players"], teams=snap["teams"], health=snap["health"], alerts=inp.alerts)
     _write_atomic(folder / "report.html", text.encode("utf-8"))
-    _write_atomic(folder / "report.csv", to_csv(snap).encode("utf-8"))
+    # the report's figures under the export's names (export.csv); snapshot.json beside it holds every leaf
+    _write_atomic(folder / "report.csv", export_csv(*report_table(snap, list(ser.keys), per_min)).encode("utf-8"))
     _write_atomic(folder / "alerts.csv", alerts_csv(snap, inp.alerts).encode("utf-8"))
     _write_atomic(folder / "snapshot.json", orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
     entry = {"kind": inp.kind, "created_at": round(inp.created_at, 3), "match_time_s": snap["match_time_s"],
