@@ -22,9 +22,9 @@ from pacewire.engine import exertion as ex
 from pacewire.engine.blocks import BlockSeries
 from pacewire.reports import charts
 from pacewire.reports.alert_log import alerts_csv
+from pacewire.reports.export import export_csv, report_table
 from pacewire.reports.page import page, zone_names
 from pacewire.reports.phases import phases_section
-from pacewire.reports.export import export_csv, report_table
 from pacewire.reports.table import has_heart_rate, player_order, tracked_teams
 from pacewire.wire.messages import envelope
 
