@@ -38,11 +38,13 @@ def ops_routes(health: Callable[[], Awaitable[dict[str, Any]]], metrics: Metrics
 def page_settings(settings: Settings) -> dict[str, Any]:
     """The thresholds the page marks figures by, from the same config values the reports use: low
     coverage (a share of frames) and the share of the player's own peak window under which the first
-    drop-off rule against the peak alerts (None when no such rule is configured)."""
+    drop-off rule against the peak alerts, its window and the time on the pitch it needs (None when no such
+    rule is configured)."""
     peak = next((r for r in settings.alerts.rules if isinstance(r, DropOffPeak)), None)
     return {"low_coverage": settings.reports.low_coverage,
             "peak_share": None if peak is None else peak.share,
-            "peak_window_min": None if peak is None else peak.window_min}
+            "peak_window_min": None if peak is None else peak.window_min,
+            "peak_min_on_pitch_min": None if peak is None else peak.min_on_pitch_min}
 
 
 def mount_page(app: FastAPI, settings: dict[str, Any] | None = None) -> None:

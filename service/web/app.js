@@ -59,7 +59,7 @@
     { key: "zones", label: "Speed bands", unit: "m per band", kind: "zones", cls: "zones", tip: "Distance in each speed band, slow to fast (not sortable)" },
   ];
   // the first drop-off rule against the player's own peak (config [[alerts.rules]]), from /page-settings.json
-  const PEAK = { share: null, window_min: 5 };
+  const PEAK = { share: null, window_min: 5, min_on_pitch_min: 15 };
   const BY_KEY = Object.fromEntries(COLUMNS.map((c) => [c.key, c]));
   const LIVE_HR = new Set(["hr_bpm", "hr_pct_max"]); // the latest sample, whatever the window
 
@@ -651,11 +651,11 @@
     const cols = [["cumulative", o, "Match so far"], ...keys.map((k) => [k, w[k], windowLabel(k)])];
     const rows = [
       ["distance_m", "Distance", "m", fmtInt],
-      ["hsr_m", "High-speed running", "m", fmtInt],
-      ["sprint_m", "Sprinting", "m", fmtInt],
-      ["hsr_efforts", "High-speed runs", "", fmtInt],
+      ["hsr_m", "High-speed", "m", fmtInt],
+      ["sprint_m", "Sprint", "m", fmtInt],
+      ["hsr_efforts", "HS runs", "", fmtInt],
       ["sprints", "Sprints", "", fmtInt],
-      ["m_per_min", "Work rate, per player", "m/min", fmtInt],
+      ["m_per_min", "m/min per player", "m/min", fmtInt],
     ];
     const side = t.side === "away" ? "away" : "home";
     const cell = (win, src, key, fmt, unit, main) => {
@@ -748,7 +748,7 @@
   // -- the player table ------------------------------------------------------------------------------------------
   function buildHead(cols) {
     const tr = $("#player-head");
-    const sig = cols.map((c) => c.key).join(",") + "|" + PEAK.window_min;
+    const sig = cols.map((c) => c.key).join(",") + "|" + PEAK.window_min + "|" + PEAK.min_on_pitch_min;
     if (tr.dataset.sig === sig) return;
     tr.dataset.sig = sig;
     if (S.sort.col && !cols.some((c) => c.key === S.sort.col)) S.sort = { col: null, dir: "desc" };
@@ -756,7 +756,8 @@
       const text = c.kind === "text" ? " text" : "";
       const extra = c.core ? "" : " data-extra";
       const label = c.key === "peak_pct" ? `Last ${PEAK.window_min} min` : c.label;
-      const tip = c.key === "peak_pct" ? c.tip.replace(/5 min(ute)?s?/g, `${PEAK.window_min} minutes`) : c.tip;
+      const tip = c.key === "peak_pct" ? c.tip.replace(/5 min(ute)?s?/g, `${PEAK.window_min} minutes`) +
+        `; shown while he is on the pitch, once he has played ${PEAK.min_on_pitch_min} minutes` : c.tip;
       const inner = `<span class="h-label">${esc(label)}</span><span class="h-unit">${esc(c.unit || "\u00a0")}</span>`;
       if (c.kind === "zones") {
         return `<th scope="col" data-col="${c.key}"${extra} class="text" title="${esc(tip)}"><span class="plain-head">${inner}</span></th>`;
@@ -811,7 +812,10 @@
     const w = p.windows || {};
     const last = w[`last_${PEAK.window_min}min`], peak = w[`peak_${PEAK.window_min}min`];
     // off the pitch (substituted, or a break) the last minutes are not his: the window counts time off
-    if (!p.on_pitch || !last || !peak || last.m_per_min == null || !peak.m_per_min) return null;
+    // and, as for the drop-off rule, only after enough time on the pitch for his peak to be one (a player
+    // just on has a "peak" window that holds time before he came on)
+    if (!p.on_pitch || (p.minutes || 0) < PEAK.min_on_pitch_min) return null;
+    if (!last || !peak || last.m_per_min == null || !peak.m_per_min) return null;
     return 100 * last.m_per_min / peak.m_per_min;
   }
   // the player's usual work rate for this part of the match (history), when the snapshot carries one
@@ -1080,6 +1084,7 @@
       if (typeof cfg.low_coverage === "number") COVERAGE_LOW = cfg.low_coverage;
       PEAK.share = typeof cfg.peak_share === "number" ? cfg.peak_share : null;
       if (typeof cfg.peak_window_min === "number") PEAK.window_min = cfg.peak_window_min;
+      if (typeof cfg.peak_min_on_pitch_min === "number") PEAK.min_on_pitch_min = cfg.peak_min_on_pitch_min;
     } catch (e) { return; }
     $("#cov-threshold").textContent = Math.round(COVERAGE_LOW * 100);
     for (const el of document.querySelectorAll(".cov-threshold-hr")) el.textContent = Math.round(COVERAGE_LOW * 100);
