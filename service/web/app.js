@@ -1021,8 +1021,7 @@
     if (a.kind === "drop_off_baseline") return [`${fig} below usual`, `${num(a.value)} m/min, limit ${num(a.limit)} m/min`];
     if (a.kind === "load_budget") {
       const unit = FIG_UNITS[a.figure] || "";
-      const level = a.level != null ? ` (${Math.round(a.level * 100)} % of budget)` : "";
-      return [`load budget, ${fig}`, `${num(a.value)} ${unit}, limit ${num(a.limit)} ${unit}${level}`.replace(/ +/g, " ")];
+      return [`load budget, ${fig}`, `${num(a.value)} ${unit}, limit ${num(a.limit)} ${unit}`.replace(/ +/g, " ")];
     }
     return [String(a.rule || "alert").replace(/_/g, " "), `${num(a.value)}, limit ${num(a.limit)}`];
   }
