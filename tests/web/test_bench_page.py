@@ -417,6 +417,21 @@ IN_VIEW = """sel => { const b = document.querySelector(sel).getBoundingClientRec
   return b.top >= 0 && b.bottom <= innerHeight && b.width > 0; }"""
 
 
+def usual_marker(page: Any) -> None:
+    """A player's history, when the snapshot has one (``baseline``, written by the history store): "below
+    usual" beside his % of peak; no marker without it, nor with too few matches (no ``vs_baseline``). The
+    objects are set on the page's own state as the snapshot would carry them, then the table is redrawn."""
+    assert page.locator(".usual").count() == 0  # this feed has no history: nothing shown
+    page.evaluate("""() => { const ps = window.pacewire.state.players;
+      ps.h2.baseline = {matches: 6, required: 5, vs_baseline: {block: {m_per_min: {ratio: 0.82, below: true}}}};
+      ps.h3.baseline = {matches: 2, required: 5};
+      ps.h4.baseline = {matches: 7, required: 5, vs_baseline: {block: {m_per_min: {ratio: 1.03, below: false}}}}; }""")
+    page.click("label[data-window='period']")
+    page.click("label[data-window='cumulative']")
+    marks = page.eval_on_selector_all(".usual", "els => els.map(e => [e.closest('tr').dataset.playerId, e.innerText])")
+    assert sorted(marks) == [["h2", "BELOW USUAL"], ["h4", "USUAL"]], marks
+
+
 def test_first_screen_at_1280x720_in_both_themes(bench):
     """A laptop on the bench: the match line, the status and at least 8 players of the chosen team are
     on the first screen without scrolling, in either theme, and nothing scrolls sideways."""
@@ -438,6 +453,8 @@ def test_first_screen_at_1280x720_in_both_themes(bench):
             assert page.locator("th[data-col='peak_pct']").is_visible()
             assert page.locator("th[data-col='energy_jkg']").is_hidden()
             page.screenshot(path=str(ARTIFACTS / f"bench-1280x720-{scheme}.png"))
+            if scheme == "light":
+                usual_marker(page)
             page.click("label.more-switch")
             page.wait_for_selector("th[data-col='energy_jkg']")
             page.click("label.more-switch")
