@@ -66,11 +66,12 @@ footer{margin-top:28px;border-top:1px solid var(--grid);padding-top:8px;color:va
 .glance .box{min-width:0} .glance .box.wide{grid-column:1/-1}
 .glance h2{margin:4px 0 4px;font-size:16px}
 .glance table{margin:2px 0 4px;table-layout:fixed} .glance td,.glance th{padding:2px 5px;white-space:normal;
-overflow-wrap:anywhere} .glance-teams th.l{width:38%} .glance-drops th.l{width:34%} .glance .who{display:block}
+overflow-wrap:anywhere} .glance-teams th.l{width:38%} .glance .who{display:block}
 .glance .who,.glance .when{color:var(--muted);font-size:14px}
 .glance td.share{font-weight:750;color:var(--warn)}
-.glance-list{margin:0;padding-left:0;list-style:none;columns:2;column-gap:24px}
-.glance-list li{padding:1px 0;break-inside:avoid}
+.glance-list{margin:0;padding-left:0;list-style:none}
+.glance-list li{padding:1px 0;break-inside:avoid;white-space:nowrap;overflow:hidden;text-overflow:ellipsis}
+.glance-drops th.l{width:30%}
 .glance-teams th.home,.glance-teams th.away{color:var(--ink)}
 .mark{display:inline-block;width:.75em;height:.75em;margin-right:.35em;border:2px solid var(--home);vertical-align:-1px}
 .mark.home{background:var(--home)} .mark.away{border-color:var(--away);border-radius:50%}

@@ -13,7 +13,7 @@ from pacewire.reports.table import player_order, tracked_teams
 
 TITLES = {"half_time": "Half time", "full_time": "Full time"}
 DROPS_SHOWN = 6  # the largest falls listed on the first page; the block table in the detail has them all
-ALERTS_SHOWN = 6  # the latest alerts listed; the alerts section has every one
+ALERTS_SHOWN = 4  # the latest alerts listed, one line each; the alerts section has every one
 
 
 def _esc(v: Any) -> str:
@@ -90,22 +90,26 @@ def drop_offs(snapshot: dict[str, Any], blocks: list[tuple[str, str]] | None,
 
 
 def _drops_html(snapshot: dict[str, Any], drops: list[dict[str, Any]], alerts: list[dict[str, Any]]) -> str:
+    """The largest falls, each with the clock of any drop-off alert the bench got for that player."""
     players = snapshot["players"]
-    drop_alerts = [a for a in alerts if str(a.get("kind", "")).startswith("drop_off")]
+    told: dict[str, list[str]] = {}
+    for a in alerts:
+        if str(a.get("kind", "")).startswith("drop_off"):
+            told.setdefault(str(a.get("player_id")), []).append(_clock(a.get("match_time_s")))
     rows = "".join(
         f'<tr><td class="l">{_who(d["player_id"], players[d["player_id"]], snapshot)}</td>'
         f'<td>{_n(d["best"])} <span class="when">{_esc(d["best_block"])}</span></td>'
         f'<td>{_n(d["last"])} <span class="when">{_esc(d["last_block"])}</span></td>'
-        f'<td class="share">{d["share"]:.0%}</td></tr>' for d in drops[:DROPS_SHOWN])
+        f'<td class="share">{d["share"]:.0%}</td><td>{_esc(", ".join(told.get(d["player_id"], [])) or "–")}</td></tr>'
+        for d in drops[:DROPS_SHOWN])
     table = (f'<table class="glance-drops"><thead><tr><th class="l">player</th><th>best block, m/min</th>'
-             f'<th>last block, m/min</th><th>last / best</th></tr></thead><tbody>{rows}</tbody></table>'
+             '<th>last block, m/min</th><th>last / best</th><th>alert at</th></tr></thead>'
+             f'<tbody>{rows}</tbody></table>'
              if rows else '<p class="note">No outfield player ran slower in his last block than in his best.</p>')
-    told = "".join(f'<li><span class="when">{_clock(a.get("match_time_s"))}</span> '
-                   f'{_who(str(a.get("player_id")), players.get(a.get("player_id")) or {}, snapshot)}: '
-                   f'{_n(a.get("value"))} m/min, limit {_n(a.get("limit"))} m/min</li>' for a in drop_alerts)
-    alerted = (f'<p class="note">Drop-off alerts sent to the bench:</p><ul class="glance-list">{told}</ul>'
-               if told else '<p class="note">No drop-off alert was sent to the bench.</p>')
-    return table + alerted
+    n = sum(len(v) for v in told.values())
+    note = (f'{n} drop-off alert{"s" if n != 1 else ""} for {len(told)} player{"s" if len(told) != 1 else ""} '
+            "(all under Alerts below)." if n else "No drop-off alert was sent to the bench.")
+    return table + f'<p class="note">{note}</p>'
 
 
 UNITS = {"minutes": "min", "hsr_m": "m", "sprint_m": "m", "distance_m": "m", "sprints": "", "hsr_efforts": ""}
