@@ -730,3 +730,23 @@ def test_phase_view_of_the_demo_clip(bench):
     page.set_viewport_size({"width": 1440, "height": page.evaluate("document.documentElement.scrollHeight")})
     page.screenshot(path=str(ARTIFACTS / "bench-phases-light.png"))
     page.click("label[data-window='cumulative']")
+
+
+def test_no_match_says_so(bench, tmp_path):
+    """A server with no match set up: the page says there is none (no endless "Connecting…"), and the
+    theme button names what pressing it does."""
+    srv = LiveServer(tmp_path / "empty").start()
+    ctx = bench.browser.new_context(viewport={"width": 1280, "height": 720}, color_scheme="light")
+    try:
+        page = ctx.new_page()
+        page.goto(srv.http + "/")
+        page.wait_for_selector("#conn[data-status='none']", timeout=10_000)
+        assert page.inner_text("#conn-text") == "No match yet"
+        assert "No match" in page.inner_text("#match-picker")
+        assert page.locator("#banner").is_hidden()
+        assert page.inner_text("#theme-toggle").strip() == "Dark theme"
+        page.click("#theme-toggle")
+        assert page.inner_text("#theme-toggle").strip() == "Light theme"
+    finally:
+        ctx.close()
+        srv.stop()
