@@ -9,11 +9,12 @@ from pacewire.api.errors import install
 from pacewire.api.site import mount_page
 
 
-def build_app(title: str, routers: list[APIRouter], lifespan: Any = None, page: bool = False) -> FastAPI:
+def build_app(title: str, routers: list[APIRouter], lifespan: Any = None, page: bool = False,
+              page_settings: dict[str, Any] | None = None) -> FastAPI:
     app = FastAPI(title=title, lifespan=lifespan, docs_url=None, redoc_url=None)
     install(app)
     for router in routers:
         app.include_router(router)
     if page:
-        mount_page(app)
+        mount_page(app, page_settings)
     return app

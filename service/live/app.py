@@ -15,7 +15,7 @@ from pacewire.api.contract import contract_routes
 from pacewire.api.files import file_routes
 from pacewire.api.ingest import ingest_routes
 from pacewire.api.reads import read_routes
-from pacewire.api.site import ops_routes
+from pacewire.api.site import ops_routes, page_settings
 from pacewire.config import Settings
 from pacewire.live.backend import LocalBackend
 from pacewire.live.matches import Matches
@@ -50,7 +50,7 @@ def create_app(opts: ServerOptions) -> FastAPI:
 
     routers = [ingest_routes(backend, tokens, limits), read_routes(backend, tokens, limits),
                file_routes(backend, tokens, limits), contract_routes(limits), ops_routes(backend.health, backend)]
-    app = build_app("pacewire", routers, lifespan, page=True)
+    app = build_app("pacewire", routers, lifespan, page=True, page_settings=page_settings(opts.settings))
     app.state.matches = matches
     app.state.metrics = metrics
     return app

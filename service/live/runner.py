@@ -20,6 +20,8 @@ from collections.abc import Awaitable, Callable
 from pathlib import Path
 from typing import Any
 
+import orjson
+
 from pacewire.config import Settings
 from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
@@ -66,6 +68,7 @@ class MatchRunner:
         self._queue: asyncio.Queue[Queued] = asyncio.Queue()
         self._tasks: list[asyncio.Task[None]] = []
         self.score = [0, 0]
+        self._kickoff: str | None = None  # the meta's match.kickoff_time; "" when it has none
         self.events: list[dict[str, Any]] = []
         self.applied_frames = 0
         self.last_applied_wall = 0.0
@@ -337,7 +340,9 @@ class MatchRunner:
 
     def summary(self) -> dict[str, Any]:
         r = self.roster
-        return {"match_id": self.match_id,
+        if self._kickoff is None:  # read once: the match list names each match by its kick-off
+            self._kickoff = kickoff_time(self.folder)
+        return {"match_id": self.match_id, "kickoff_time": self._kickoff or None,
                 "teams": {tid: {"name": r.team_names[k], "side": ("home", "away")[k], "score": self.score[k]}
                           for k, tid in enumerate(r.team_ids)},
                 "period": self.state.period_name(), "match_time_s": round(self.state.match_time_s(), 2),
@@ -356,3 +361,14 @@ class MatchRunner:
                                "event_duplicates": st.event_feed.duplicates})
         except OSError:
             pass
+
+
+def kickoff_time(folder: Path) -> str:
+    """The CDF meta's ``match.kickoff_time`` (RFC 3339) from the match folder; "" when absent or unreadable."""
+    try:
+        meta = orjson.loads((folder / "meta.json").read_bytes())
+    except (OSError, ValueError):
+        return ""
+    match = meta.get("match") if isinstance(meta, dict) else None
+    value = match.get("kickoff_time") if isinstance(match, dict) else None
+    return value if isinstance(value, str) else ""

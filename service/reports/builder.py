@@ -22,9 +22,10 @@ from pacewire.engine import exertion as ex
 from pacewire.engine.blocks import BlockSeries
 from pacewire.reports import charts
 from pacewire.reports.alert_log import alerts_csv
+from pacewire.reports.export import export_csv, report_table
 from pacewire.reports.page import page, zone_names
 from pacewire.reports.phases import phases_section
-from pacewire.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
+from pacewire.reports.table import has_heart_rate, player_order, tracked_teams
 from pacewire.wire.messages import envelope
 
 KINDS = ("half_time", "full_time")
@@ -108,7 +109,7 @@ def draw_charts(snapshot: dict[str, Any], series: BlockSeries) -> dict[str, str]
     return out
 
 
-def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
+def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.8,
                  extra: dict[str, Any] | None = None) -> dict[str, Any]:
     """Write ``root/{kind}/`` and return its index entry (also written as index.json, last;
     ``extra`` fields are added to it)."""
@@ -123,13 +124,19 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
     rate = ser.per_min(ex.DIST)
     per_min = {pid: [None if not np.isfinite(v) else round(float(v), 1) for v in rate[:, i]]
                for i, pid in enumerate(ser.player_ids)}
+    # the first page compares blocks a player spent at least half of on the pitch: a few seconds of a
+    # stoppage-time block, or of a block he came on in, make a rate that says nothing
+    full = ser.onpitch_s >= ser.block_min * 30.0
+    steady = {pid: [v if full[b, i] else None for b, v in enumerate(per_min[pid])]
+              for i, pid in enumerate(ser.player_ids)}
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,
                 [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min,
-                inp.alerts, phases_section)
+                inp.alerts, phases_section, steady)
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
                    players=snap["players"], teams=snap["teams"], health=snap["health"], alerts=inp.alerts)
     _write_atomic(folder / "report.html", text.encode("utf-8"))
-    _write_atomic(folder / "report.csv", to_csv(snap).encode("utf-8"))
+    # the report's figures under the export's names (export.csv); snapshot.json beside it holds every leaf
+    _write_atomic(folder / "report.csv", export_csv(*report_table(snap, list(ser.keys), per_min)).encode("utf-8"))
     _write_atomic(folder / "alerts.csv", alerts_csv(snap, inp.alerts).encode("utf-8"))
     _write_atomic(folder / "snapshot.json", orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
     entry = {"kind": inp.kind, "created_at": round(inp.created_at, 3), "match_time_s": snap["match_time_s"],

@@ -26,6 +26,8 @@ if TYPE_CHECKING:  # matplotlib itself is imported when a chart is drawn
 # our own palette: ink, paper, grid; home and away; speed bands
 INK, PAPER, GRID, MUTED = "#1f2a30", "#fbf8f1", "#ddd6c6", "#6b7479"
 SIDE = {"home": "#12706b", "away": "#c8553d"}
+# teams told apart by shape as well as colour: marker, line style, bar hatch
+SIDE_MARK = {"home": ("o", "-", ""), "away": ("s", (0, (5, 2)), "////")}
 BANDS = {"below": "#b9c7bd", "hsr": "#e0a526", "sprint": "#8e3b46"}
 MAP_DIST = ("#f6f1e4", "#a9cfb2", "#2f7d6d", "#123535")
 MAP_HSR = ("#f6f1e4", "#f0c05a", "#c8553d", "#4f1a26")
@@ -74,10 +76,15 @@ def _cmap(colours: tuple[str, ...]) -> Colormap:
     return LinearSegmentedColormap.from_list("pacewire", colours).with_extremes(bad=PAPER)
 
 
+LEGEND_PAD = 0.2  # inches of top margin a legend row takes, between the title and the axes
+
+
 def _legend(ax: Any, ncols: int) -> None:
-    """Legend in the title line, right-aligned, clear of the data."""
-    ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncols=max(ncols, 1), fontsize=7, borderaxespad=0.1,
-              handlelength=1.4, columnspacing=1.0)
+    """Legend on its own row under the title, left-aligned, clear of the data; the title moves up over it
+    (a legend beside a long title overlapped it)."""
+    ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncols=max(ncols, 1), fontsize=7, borderaxespad=0.15,
+              handlelength=2.2, columnspacing=1.2)
+    ax.set_title(ax.get_title(loc="left"), loc="left", pad=17)
 
 
 def block_label(key: str) -> str:
@@ -103,9 +110,11 @@ def team_intensity(series: BlockSeries, teams: list[tuple[str, str, np.ndarray]]
         width = 0.8 / max(len(teams), 1)
         for k, (name, side, mask) in enumerate(teams):
             colour = SIDE.get(side, INK)
-            top.plot(x, series.group_per_min(ex.DIST, mask), marker="o", ms=3.5, lw=1.8, color=colour, label=name)
+            marker, line, hatch = SIDE_MARK.get(side, ("^", ":", ".."))
+            top.plot(x, series.group_per_min(ex.DIST, mask), marker=marker, ms=4, lw=1.8, ls=line, color=colour,
+                     label=name)
             bottom.bar(x - 0.4 + width * (k + 0.5), series.group_per_min(ex.HSR, mask), width=width * 0.92,
-                       color=colour, label=name)
+                       color=colour, label=name, hatch=hatch, edgecolor=PAPER if hatch else colour, lw=0)
         top.set_ylabel("distance, m/min")
         bottom.set_ylabel("HSR, m/min")
         top.set_title(f"Outfield, per {series.block_min}-min block")
@@ -116,7 +125,7 @@ def team_intensity(series: BlockSeries, teams: list[tuple[str, str, np.ndarray]]
         _legend(top, len(teams))
         bottom.set_xticks(x, labels, rotation=0 if len(x) <= 12 else 45)
 
-    return render("team-intensity", draw, (7.2, 3.8), (0.6, 0.15, 0.3, 0.55))
+    return render("team-intensity", draw, (7.2, 3.8), (0.6, 0.15, 0.3 + LEGEND_PAD, 0.55))
 
 
 def player_heatmap(series: BlockSeries, rows: list[int], names: list[str], team: str) -> str:
@@ -169,7 +178,8 @@ def player_bars(players: list[tuple[str, dict[str, Any]]], team: str) -> str:
         ax.set_title(f"{team}: distance by speed band")
         _legend(ax, 3)
 
-    return render(f"bars-{team}", draw, (7.2, 0.8 + 0.17 * max(len(players), 1)), (1.35, 0.15, 0.3, 0.4))
+    return render(f"bars-{team}", draw, (7.2, 0.8 + LEGEND_PAD + 0.17 * max(len(players), 1)),
+                  (1.35, 0.15, 0.3 + LEGEND_PAD, 0.4))
 
 
 def peak_timeline(players: list[tuple[str, dict[str, Any]]], windows: list[int], team: str) -> str:
@@ -195,7 +205,8 @@ def peak_timeline(players: list[tuple[str, dict[str, Any]]], windows: list[int],
         ax.set_title(f"{team}: when the peak windows happened")
         _legend(ax, len(windows))
 
-    return render(f"peaks-{team}", draw, (7.2, 0.8 + 0.17 * max(len(players), 1)), (1.35, 0.15, 0.3, 0.4))
+    return render(f"peaks-{team}", draw, (7.2, 0.8 + LEGEND_PAD + 0.17 * max(len(players), 1)),
+                  (1.35, 0.15, 0.3 + LEGEND_PAD, 0.4))
 
 
 def possession_split(teams: list[tuple[str, str, dict[str, float]]]) -> str:
@@ -218,7 +229,7 @@ def possession_split(teams: list[tuple[str, str, dict[str, float]]]) -> str:
         ax.set_title("Distance by ball context")
         _legend(ax, 3)
 
-    return render("possession", draw, (7.2, 1.6), (1.5, 0.15, 0.3, 0.45))
+    return render("possession", draw, (7.2, 1.6 + LEGEND_PAD), (1.5, 0.15, 0.3 + LEGEND_PAD, 0.45))
 
 
 def hr_zones(players: list[tuple[str, dict[str, Any]]], zones: list[str], team: str) -> str:
@@ -241,4 +252,5 @@ def hr_zones(players: list[tuple[str, dict[str, Any]]], zones: list[str], team: 
         ax.set_title(f"{team}: heart-rate zones")
         _legend(ax, len(zones))
 
-    return render(f"hr-zones-{team}", draw, (7.2, 0.8 + 0.17 * max(len(players), 1)), (1.35, 0.15, 0.45, 0.4))
+    return render(f"hr-zones-{team}", draw, (7.2, 0.8 + LEGEND_PAD + 0.17 * max(len(players), 1)),
+                  (1.35, 0.15, 0.45 + LEGEND_PAD, 0.4))

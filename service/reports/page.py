@@ -7,6 +7,7 @@ from collections.abc import Callable
 from typing import Any
 
 from pacewire.reports.alert_log import alert_rows, counts
+from pacewire.reports.summary import summary_section
 from pacewire.reports.table import has_heart_rate, one_team, player_order, tracked_teams
 
 HEALTH_CAUTION = ("Figures are estimates from positional data; decisions on injury, return-to-play and "
@@ -21,48 +22,71 @@ HR_ZONES = ("50-60%", "60-70%", "70-80%", "80-90%", "90-100%")
 OMITTED_MARK = "\u2014"  # em dash: left out for lack of a profile (an en dash is "no value")
 
 CSS = """
-:root{--ink:#1f2a30;--paper:#fbf8f1;--sand:#efe7d4;--grid:#ddd6c6;--muted:#6b7479;--home:#12706b;--away:#c8553d;
---hsr:#e0a526;--warn:#8e3b46}
+:root{--ink:#1f2a30;--paper:#fbf8f1;--card:#fffdf8;--sand:#efe7d4;--grid:#ddd6c6;--muted:#596267;--home:#12706b;
+--away:#c8553d;--hsr:#e0a526;--warn:#8e3b46;--stripe:#f3ede0}
+@media (prefers-color-scheme: dark){:root{--ink:#f1ebde;--paper:#10131b;--card:#191d28;--sand:#1f2432;--grid:#30364a;
+--muted:#b1b5c2;--home:#45c9b4;--away:#ff8a6b;--hsr:#f3c54a;--warn:#ff8a8a;--stripe:#1f2432}
+ svg.chart{border-radius:4px}}
 *{box-sizing:border-box}
-body{margin:0;background:var(--paper);color:var(--ink);font:13px/1.45 system-ui,-apple-system,"Segoe UI",Roboto,
+body{margin:0;background:var(--paper);color:var(--ink);font:15px/1.45 system-ui,-apple-system,"Segoe UI",Roboto,
 "Helvetica Neue",Arial,sans-serif}
-main{max-width:980px;margin:0 auto;padding:18px 22px 40px}
-.masthead{border-left:10px solid var(--home);padding:6px 0 8px 16px;margin-bottom:14px;
+main{max-width:1180px;margin:0 auto;padding:14px 22px 40px}
+.masthead{border-left:10px solid var(--home);padding:4px 0 6px 16px;margin-bottom:10px;
 background:linear-gradient(90deg,var(--sand),transparent 70%)}
-.kicker{font-size:11px;letter-spacing:.18em;text-transform:uppercase;color:var(--muted)}
-h1{margin:.15em 0;font-size:26px;font-weight:750;letter-spacing:-.01em}
+.kicker{font-size:14px;letter-spacing:.12em;text-transform:uppercase;color:var(--muted)}
+h1{margin:.1em 0;font-size:26px;font-weight:750;letter-spacing:-.01em}
 h1 .home{color:var(--home)} h1 .away{color:var(--away)} h1 .score{font-variant-numeric:tabular-nums;padding:0 .35em}
-.meta{margin:0;color:var(--muted);font-size:12px}
-h2{font-size:15px;margin:26px 0 8px;padding-bottom:3px;border-bottom:2px solid var(--ink);display:flex;gap:.6em;
-align-items:baseline} h2 .n{color:var(--muted);font-weight:500;font-size:12px}
-h3{font-size:13px;margin:16px 0 6px}
+.meta{margin:0;color:var(--muted);font-size:14px}
+h2{font-size:17px;margin:26px 0 8px;padding-bottom:3px;border-bottom:2px solid var(--ink);display:flex;gap:.6em;
+align-items:baseline;flex-wrap:wrap} h2 .n{color:var(--muted);font-weight:500;font-size:14px}
+h3{font-size:15px;margin:16px 0 6px}
 .cautions{display:grid;grid-template-columns:1fr 1fr;gap:10px}
-.cautions p{margin:0;padding:8px 11px;border:1px solid var(--grid);border-top:3px solid var(--warn);background:#fff8}
-.cautions p.live{border-top-color:var(--hsr)} .cautions p.hr{grid-column:1/-1;border-top-color:var(--home)}
-table{border-collapse:collapse;width:100%;font-variant-numeric:tabular-nums;font-size:12px;margin:4px 0 10px}
+.cautions p{margin:0;padding:8px 11px;border:1px solid var(--grid);border-top:3px solid var(--warn);
+background:var(--card)}
+.cautions p.live{border-top-color:var(--hsr)} .cautions p.hr{border-top-color:var(--home)}
+table{border-collapse:collapse;width:100%;font-variant-numeric:tabular-nums;font-size:14px;margin:4px 0 10px}
 th,td{padding:3px 6px;text-align:right;border-bottom:1px solid var(--grid);white-space:nowrap}
-th{font-weight:650;font-size:11px;color:var(--muted);border-bottom:1.5px solid var(--ink)}
-td.l,th.l{text-align:left} tbody tr:nth-child(even){background:#f3ede0}
+th{font-weight:650;font-size:14px;color:var(--muted);border-bottom:1.5px solid var(--ink)}
+td.l,th.l{text-align:left} tbody tr:nth-child(even){background:var(--stripe)}
 td.low{color:var(--warn);font-weight:700} td.low::after{content:" \\25BE"}
-td.gaps{font-weight:700} td.gaps .tag{font-size:9.5px;font-weight:700;letter-spacing:.04em;text-transform:uppercase;
+td.gaps{font-weight:700} td.gaps .tag{font-size:14px;font-weight:700;letter-spacing:.04em;text-transform:uppercase;
 border:1px dashed var(--warn);color:var(--warn);padding:0 3px;margin-left:4px;border-radius:2px}
 td.omitted{color:var(--muted);cursor:help}
-ul.why{margin:0 0 10px;padding-left:18px;color:var(--muted);font-size:11.5px}
+ul.why{margin:0 0 10px;padding-left:18px;color:var(--muted);font-size:14px}
 .tracking{display:inline-block;margin-left:.5em;padding:1px 7px;border:1.5px solid var(--ink);border-radius:2px;
-font-size:10.5px;font-weight:700;letter-spacing:.08em;text-transform:uppercase;vertical-align:middle}
+font-size:14px;font-weight:700;letter-spacing:.08em;text-transform:uppercase;vertical-align:middle}
 .teamhead th.home{color:var(--home)} .teamhead th.away{color:var(--away)}
 svg.chart{display:block;width:100%;height:auto;margin:6px 0 12px}
-.note{color:var(--muted);font-size:11.5px;margin:2px 0 8px}
-.unused{color:var(--muted);font-size:12px}
-#intensity table{font-size:10.5px} #intensity td,#intensity th{padding:2px 3px}
-footer{margin-top:28px;border-top:1px solid var(--grid);padding-top:8px;color:var(--muted);font-size:11px}
+.note{color:var(--muted);font-size:14px;margin:2px 0 8px}
+.unused{color:var(--muted);font-size:14px}
+#intensity td,#intensity th{padding:2px 4px}
+footer{margin-top:28px;border-top:1px solid var(--grid);padding-top:8px;color:var(--muted);font-size:14px}
+.summary .status{margin:0 0 6px;font-size:17px}
+.glance{display:grid;grid-template-columns:1fr 1fr;gap:10px 18px}
+.glance .box{min-width:0} .glance .box.wide{grid-column:1/-1}
+.glance h2{margin:4px 0 4px;font-size:16px}
+.glance table{margin:2px 0 4px;table-layout:fixed} .glance td,.glance th{padding:2px 5px;white-space:normal;
+overflow-wrap:anywhere} .glance-teams th.l{width:38%} .glance .who{display:block}
+.glance .who,.glance .when{color:var(--muted);font-size:14px}
+.glance td.share{font-weight:750;color:var(--warn)}
+.glance-list{margin:0;padding-left:0;list-style:none}
+.glance-list li{padding:1px 0;break-inside:avoid;white-space:nowrap;overflow:hidden;text-overflow:ellipsis}
+.glance-drops th.l{width:30%}
+.glance-teams th.home,.glance-teams th.away{color:var(--ink)}
+.mark{display:inline-block;width:.75em;height:.75em;margin-right:.35em;border:2px solid var(--home);vertical-align:-1px}
+.mark.home{background:var(--home)} .mark.away{border-color:var(--away);border-radius:50%}
+.caution-line{margin:8px 0 0;padding:5px 10px;border-left:4px solid var(--warn);background:var(--card);font-size:14px}
 @page{size:A4;margin:12mm 11mm}
 @media print{
- body{background:#fff;font-size:9pt} main{max-width:none;padding:0}
+ :root{--ink:#1f2a30;--paper:#fff;--card:#fff;--sand:#efe7d4;--grid:#ddd6c6;--muted:#4f575c;--home:#12706b;
+ --away:#c8553d;--stripe:#f4f4f4}
+ body{background:#fff;font-size:9.5pt} main{max-width:none;padding:0}
+ table,th,.note,.glance .who,.glance .when,.caution-line,.meta,.kicker{font-size:8.5pt}
  .masthead{background:none} h2{break-after:avoid;margin-top:14px}
+ .summary{break-after:page} .glance{grid-template-columns:1fr 1fr}
  section{break-inside:auto} tr,svg.chart,.cautions p{break-inside:avoid}
  thead{display:table-header-group} svg.chart{max-width:188mm}
- tbody tr:nth-child(even){background:#f4f4f4;-webkit-print-color-adjust:exact;print-color-adjust:exact}
+ tbody tr:nth-child(even){-webkit-print-color-adjust:exact;print-color-adjust:exact}
 }
 """
 
@@ -79,6 +103,11 @@ def num(v: Any, nd: int = 0) -> str:
     if isinstance(v, int) and nd == 0:
         return f"{v:,}".replace(",", "\u2009")
     return f"{float(v):,.{nd}f}".replace(",", "\u2009")
+
+
+def kmh(ms: float | None) -> str:
+    """A speed for the eye: km/h to 0.1 (the JSON and CSV keep m/s)."""
+    return "–" if ms is None else num(ms * 3.6, 1)
 
 
 def clock(seconds: float | None) -> str:
@@ -125,7 +154,7 @@ def team_table(snapshot: dict[str, Any], possession: dict[str, dict[str, float]]
 
 def player_table(players: list[tuple[str, dict[str, Any]]], low_coverage: float) -> str:
     head = [("#", ""), ("player", "l"), ("min", ""), ("dist m", ""), ("m/min", ""), ("HSR m", ""), ("sprint m", ""),
-            ("HSR eff", ""), ("sprints", ""), ("acc", ""), ("dec", ""), ("vmax m/s", ""), ("HP m", ""),
+            ("HSR eff", ""), ("sprints", ""), ("acc", ""), ("dec", ""), ("top km/h", ""), ("HP m", ""),
             ("W/kg", ""), ("coverage", "")]
     rows = []
     for pid, p in players:
@@ -134,7 +163,7 @@ def player_table(players: list[tuple[str, dict[str, Any]]], low_coverage: float)
             (num(p["jersey_number"]), ""), (esc(p.get("name") or pid) + (" (GK)" if p["is_goalkeeper"] else ""), "l"),
             (num(p["minutes"], 1), ""), (num(p["distance_m"]), ""), (num(p["m_per_min"]), ""),
             (num(p["hsr_m"]), ""), (num(p["sprint_m"]), ""), (num(p["hsr_efforts"]), ""), (num(p["sprints"]), ""),
-            (num(p["accels"]), ""), (num(p["decels"]), ""), (num(p["max_speed_ms"], 2), ""),
+            (num(p["accels"]), ""), (num(p["decels"]), ""), (kmh(p["max_speed_ms"]), ""),
             (num(p["high_power_m"]), ""), (num(p["metabolic_power_wkg"], 1), ""),
             (f"{cov:.0%}" if cov is not None else "–", "low" if cov is not None and cov < low_coverage else ""),
         ])
@@ -285,7 +314,6 @@ def _head_and_masthead(kind: str, snapshot: dict[str, Any], source: str, created
 def _cautions(heart: bool) -> list[str]:
     return [
         '<section class="cautions" id="cautions">',
-        f'<p class="health"><strong>Health caution.</strong> {esc(HEALTH_CAUTION)}</p>',
         f'<p class="live"><strong>Live data.</strong> {esc(LIVE_CAVEAT)}</p>',
         f'<p class="hr"><strong>Heart rate.</strong> {esc(HR_CAVEAT)}</p>' if heart else "",
         "</section>",
@@ -434,11 +462,13 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
          source: str, created_at: float, low_coverage: float,
          blocks: list[tuple[str, str]] | None = None, per_min: dict[str, list[float | None]] | None = None,
          alerts: list[dict[str, Any]] | None = None,
-         more: Callable[[list[tuple[str, dict[str, Any]]], dict[str, Played]], list[str]] | None = None) -> str:
+         more: Callable[[list[tuple[str, dict[str, Any]]], dict[str, Played]], list[str]] | None = None,
+         steady_per_min: dict[str, list[float | None]] | None = None) -> str:
     """The whole report page. ``charts``: inline SVGs by name (see builder); ``blocks``:
     (label, period) of each block; ``per_min``: each player's distance per minute in them;
     ``alerts``: those raised up to the report; ``more``: further sections, given the tracked teams and
-    the players of each who played (game phases)."""
+    the players of each who played (game phases); ``steady_per_min``: ``per_min`` keeping only blocks a
+    player spent most of on the pitch (the first page's drop-offs; ``per_min`` when not given)."""
     teams = tracked_teams(snapshot)
     heart = has_heart_rate(snapshot)
     players = snapshot["players"]
@@ -448,6 +478,8 @@ def page(kind: str, snapshot: dict[str, Any], charts: dict[str, str], possession
                             if players[pid]["team_id"] == tid and players[pid]["minutes"]] for tid, _ in teams}
     parts = [
         *_head_and_masthead(kind, snapshot, source, created_at),
+        *summary_section(kind, snapshot, blocks, steady_per_min if steady_per_min is not None else per_min,
+                         alerts or [], HEALTH_CAUTION),
         *_cautions(heart),
         *_teams_section(snapshot, charts, possession),
         *_intensity_section(teams, charts, played_by_team, blocks, per_min),

@@ -20,7 +20,7 @@ from pacewire.api.auth import Tokens
 from pacewire.api.contract import contract_routes
 from pacewire.api.ingest import ingest_routes
 from pacewire.api.reads import read_routes
-from pacewire.api.site import ops_routes
+from pacewire.api.site import ops_routes, page_settings
 from pacewire.config import ConfigError, Settings
 from pacewire.live.server import load, serve
 from pacewire.scale.settings import ScaleSettings
@@ -73,7 +73,7 @@ def gateway_app(redis: Any, settings: Settings, scale: ScaleSettings, tokens: To
 
     routers = [read_routes(backend, tokens, settings.server), contract_routes(settings.server),
                ops_routes(backend.health)]
-    app = build_app("pacewire gateway", routers, lifespan, page=True)
+    app = build_app("pacewire gateway", routers, lifespan, page=True, page_settings=page_settings(settings))
     app.state.gateway = gw
     return app
 

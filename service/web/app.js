@@ -3,7 +3,7 @@
 "use strict";
 
 (function () {
-  const COVERAGE_LOW = 0.8;      // below this share of frames seen, a player's figures are marked uncertain
+  let COVERAGE_LOW = 0.8;        // below this share of frames seen, a player's figures are marked uncertain (config: reports.low_coverage)
   const STALE_AFTER_S = 3;       // "data is N s old" once nothing arrived for this long
   const OFFLINE_BANNER_S = 1;    // a dropped socket shows the banner after this long (hides blips)
   const EVERY_S = 1;             // delta cadence asked of the server
@@ -18,41 +18,48 @@
     first_half: "1st half", second_half: "2nd half",
     first_half_extratime: "Extra time 1", second_half_extratime: "Extra time 2", shootout: "Penalties",
   };
-  const STATE_WORDS = { ok: "Feed OK", degraded: "Feed degraded", stalled: "Feed stalled", finished: "Feed finished" };
+  const STATE_WORDS = { ok: "Feed OK", degraded: "Feed degraded", stalled: "Feed stalled", finished: "Match over: no frames due" };
+  const STATUS_WORDS = { not_started: "not started", live: "live", break: "break", ended: "ended" };
   const EVENT_WORDS = { ok: "Events OK", degraded: "Events degraded", stalled: "Events stalled" };
   // game phases, in the snapshot's order (README: figures by game phase)
   const PHASES = [["attack", "Attack"], ["defence", "Defence"], ["attacking_transition", "Won the ball"],
     ["defensive_transition", "Lost the ball"], ["dead_ball", "Dead ball"], ["unknown", "Unknown"]];
   const PHASE_LABEL = Object.fromEntries(PHASES);
 
-  // Columns of the player table. `win`: how the column reads in a rolling/peak window.
+  // Columns of the player table. `core`: shown by default (the essentials); the rest sit behind "More figures".
+  // `bar`: a thin comparison bar under the number, only where comparing players is the point.
   const COLUMNS = [
-    { key: "jersey_number", label: "No.", unit: "", kind: "text", cls: "jersey" },
-    { key: "name", label: "Player", unit: "", kind: "text", cls: "pname" },
-    { key: "team", label: "Team", unit: "", kind: "text", cls: "team" },
-    { key: "distance_m", label: "Distance", unit: "m", fmt: fmtInt, bar: true, tip: "Distance covered" },
-    { key: "m_per_min", label: "Work rate", unit: "m/min", fmt: fmtInt, bar: true, tip: "Metres per minute on the pitch" },
-    { key: "hsr_m", label: "High-speed", unit: "m", fmt: fmtInt, bar: true, tip: "High-speed running distance" },
-    { key: "sprint_m", label: "Sprint", unit: "m", fmt: fmtInt, bar: true, tip: "Sprint distance" },
-    { key: "hsr_efforts", label: "HS runs", unit: "count", fmt: fmtInt, bar: true, tip: "High-speed running efforts (sprints included)" },
-    { key: "sprints", label: "Sprints", unit: "count", fmt: fmtInt, bar: true, tip: "Sprint efforts" },
-    { key: "accels", label: "Accels", unit: "count", fmt: fmtInt, bar: true, tip: "High accelerations" },
-    { key: "decels", label: "Decels", unit: "count", fmt: fmtInt, bar: true, tip: "High decelerations" },
-    { key: "high_power_m", label: "High power", unit: "m", fmt: fmtInt, bar: true, tip: "Distance at high metabolic power" },
-    { key: "metabolic_power_wkg", label: "Met. power", unit: "W/kg", fmt: fmt1, bar: true, tip: "Average metabolic power" },
-    { key: "energy_jkg", label: "Energy", unit: "kJ/kg", fmt: (v) => fmt1(v / 1000), bar: true, tip: "Energy spent per kilogram" },
-    { key: "max_speed_ms", label: "Top speed", unit: "km/h", fmt: (v) => fmt1(v * 3.6), bar: true, tip: "Highest speed (match or period only)" },
-    { key: "speed_ms", label: "Speed now", unit: "km/h", fmt: (v) => fmt1(v * 3.6), bar: true, tip: "Current speed" },
+    { key: "jersey_number", label: "No.", unit: "", kind: "text", cls: "jersey", core: true },
+    { key: "name", label: "Player", unit: "", kind: "text", cls: "pname", core: true },
+    { key: "team", label: "Team", unit: "", kind: "text", cls: "team", core: true },
+    { key: "distance_m", label: "Distance", unit: "m", fmt: fmtInt, bar: true, core: true, tip: "Distance covered" },
+    { key: "m_per_min", label: "Work rate", unit: "m/min", fmt: fmtInt, core: true, tip: "Metres per minute on the pitch" },
+    { key: "hsr_m", label: "High-speed", unit: "m", fmt: fmtInt, bar: true, core: true, tip: "High-speed running distance (19.8–25.2 km/h)" },
+    { key: "sprint_m", label: "Sprint", unit: "m", fmt: fmtInt, core: true, tip: "Sprint distance (over 25.2 km/h)" },
+    { key: "sprints", label: "Sprints", unit: "count", fmt: fmtInt, core: true, tip: "Sprint efforts" },
+    { key: "acc_dec", label: "Acc + dec", unit: "count", fmt: fmtInt, core: true, tip: "High accelerations plus high decelerations (± 3 m/s²)" },
+    { key: "max_speed_ms", label: "Top speed", unit: "km/h", fmt: (v) => fmt1(v * 3.6), core: true, tip: "Highest speed (match or period only)" },
+    { key: "peak_pct", label: "Last 5 min", unit: "% own peak", fmt: fmtInt, bar: true, core: true, live: true,
+      tip: "Work rate over the last 5 minutes as a share of the player's own best 5 minutes this match (whatever the view)" },
+    { key: "hsr_efforts", label: "HS runs", unit: "count", fmt: fmtInt, tip: "High-speed running efforts (sprints included)" },
+    { key: "accels", label: "Accels", unit: "count", fmt: fmtInt, tip: "High accelerations" },
+    { key: "decels", label: "Decels", unit: "count", fmt: fmtInt, tip: "High decelerations" },
+    { key: "high_power_m", label: "High power", unit: "m", fmt: fmtInt, tip: "Distance at high metabolic power" },
+    { key: "metabolic_power_wkg", label: "Met. power", unit: "W/kg", fmt: fmt1, tip: "Average metabolic power" },
+    { key: "energy_jkg", label: "Energy", unit: "kJ/kg", fmt: (v) => fmt1(v / 1000), tip: "Energy spent per kilogram" },
+    { key: "speed_ms", label: "Speed now", unit: "km/h", fmt: (v) => fmt1(v * 3.6), tip: "Current speed" },
     { key: "minutes", label: "Time", unit: "min", fmt: fmt1, tip: "Minutes on the pitch; in a window, the window's length" },
     { key: "coverage", label: "Seen", unit: "% frames", fmt: fmtPct, cls: "cov", tip: "Share of frames on the pitch in which the player was seen, tracking artefacts taken out" },
-    // heart rate (docs/wearables.md): shown only once the match has heart-rate samples
+    // heart rate (docs/wearables.md): shown only once the match has heart-rate samples; % HRmax is an essential
     { key: "hr_bpm", label: "HR now", unit: "bpm", fmt: fmtInt, hr: true, tip: "Latest heart rate (live, whatever the window)" },
-    { key: "hr_pct_max", label: "% HRmax", unit: "%", fmt: fmtInt, hr: true, tip: "Latest heart rate as a share of the player's maximum (live)" },
+    { key: "hr_pct_max", label: "% HRmax", unit: "%", fmt: fmtInt, hr: true, core: true, tip: "Latest heart rate as a share of the player's maximum (live)" },
     { key: "hr_mean_bpm", label: "HR mean", unit: "bpm", fmt: fmtInt, hr: true, tip: "Time-weighted mean heart rate over the chosen span" },
-    { key: "trimp_edwards", label: "TRIMP", unit: "Edwards", fmt: fmt1, bar: true, hr: true, tip: "Training impulse: minutes in each heart-rate zone × 1 to 5 (Edwards 1993)" },
+    { key: "trimp_edwards", label: "TRIMP", unit: "Edwards", fmt: fmt1, hr: true, tip: "Training impulse: minutes in each heart-rate zone × 1 to 5 (Edwards 1993)" },
     { key: "hr_coverage", label: "HR seen", unit: "% samples", fmt: fmtPct, cls: "hrcov", hr: true, tip: "Share of expected heart-rate samples received while on the pitch" },
     { key: "zones", label: "Speed bands", unit: "m per band", kind: "zones", cls: "zones", tip: "Distance in each speed band, slow to fast (not sortable)" },
   ];
+  // the first drop-off rule against the player's own peak (config [[alerts.rules]]), from /page-settings.json
+  const PEAK = { share: null, window_min: 5, min_on_pitch_min: 15 };
   const BY_KEY = Object.fromEntries(COLUMNS.map((c) => [c.key, c]));
   const LIVE_HR = new Set(["hr_bpm", "hr_pct_max"]); // the latest sample, whatever the window
 
@@ -76,6 +83,12 @@
     win: "cumulative",
     windowKeys: [],
     notice: "",
+    connText: "",
+    matchStatus: null,      // not_started, live, break, ended: the snapshot's match_status and status messages
+    matchesLoaded: false,
+    authError: "",
+    more: false,            // "More figures": every column, not only the essentials
+    showUnused: false,      // the players who have not played, listed instead of one line
   };
   let ws = null;
   let reconnectTimer = null;
@@ -99,6 +112,13 @@
     if (s < 7200) return Math.round(s / 60) + " min";
     if (s < 172800) return Math.round(s / 3600) + " h";
     return Math.round(s / 86400) + " days";
+  }
+  // a kick-off time as the bench reads it: the browser's own time zone, named
+  function fmtKickoff(iso) {
+    const t = iso ? Date.parse(iso) : NaN;
+    if (!isFinite(t)) return "";
+    return new Intl.DateTimeFormat("en-GB", { day: "numeric", month: "short", year: "numeric",
+      hour: "2-digit", minute: "2-digit", timeZoneName: "short" }).format(new Date(t));
   }
   function cap(s) { return s ? s[0].toUpperCase() + s.slice(1) : s; }
   function esc(s) {
@@ -152,11 +172,15 @@
       if (e.status === 401) {
         $("#match-picker").innerHTML = '<option value="">Needs a view token: open this page with ?token=…</option>';
         $("#match-picker").dataset.sig = "";
-        setConn("closed", TOKEN ? "Token refused" : "No token");
+        S.authError = TOKEN ? "Token refused" : "Needs a view token";
+        setConn("closed", S.authError);
       }
       return; // otherwise keep the last list: the connection status already tells the user
     }
+    S.authError = "";
+    S.matchesLoaded = true;
     renderPicker();
+    renderStatus();
     if (!S.matchId && S.matches.length) {
       const wanted = params.get("match") || safeStorage("pacewire.match");
       const pick = S.matches.find((m) => m.match_id === wanted) || S.matches[0];
@@ -190,9 +214,11 @@
     S.alerts = [];
     S.reports = [];
     S.periodEnded = false;
+    S.matchStatus = null;
     S.stalledSince = null;
     S.stallSeen = false;
     S.attempts = 0;
+    S.showUnused = false;
     safeStorage("pacewire.match", id);
     const u = new URL(location.href);
     u.searchParams.set("match", id);
@@ -245,8 +271,8 @@
   function scheduleReconnect() {
     S.attempts += 1;
     const delay = Math.min(500 * 2 ** (S.attempts - 1), 3000);
-    const why = S.notice ? "Refused: " + S.notice : "Connection lost";
-    setConn("closed", why + " · retrying in " + Math.max(1, Math.round(delay / 1000)) + " s");
+    const why = S.notice ? "Refused: " + S.notice : "No connection";
+    setConn("closed", why + " · retry in " + Math.max(1, Math.round(delay / 1000)) + " s");
     reconnectTimer = setTimeout(connect, delay);
   }
 
@@ -254,9 +280,9 @@
     if (kind !== "open" && S.conn === "open") S.closedAt = performance.now();
     if (kind === "open") S.closedAt = null;
     S.conn = kind;
-    const el = $("#conn");
-    el.dataset.conn = kind;
-    $("#conn-text").textContent = text;
+    S.connText = text;
+    $("#conn").dataset.conn = kind;
+    renderStatus();
     renderBanner();
   }
 
@@ -282,7 +308,7 @@
     if (msg.type === "snapshot") {
       S.state = { players: msg.players || {}, teams: msg.teams || {}, health: msg.health || {} };
       S.lastSeq = msg.seq;
-      if (Array.isArray(msg.alerts)) { // the alerts raised so far, oldest first: newest first here
+      if (Array.isArray(msg.alerts)) { // the alerts raised so far (kept by the server): newest first here
         S.alerts = msg.alerts.slice(-50).reverse();
         renderAlerts();
       }
@@ -299,6 +325,8 @@
         S.state.health = msg.health || S.state.health;
       } else if (msg.type === "period") {
         S.periodEnded = msg.event === "end";
+      } else if (msg.type === "status") {
+        refreshReports();
       } else if (msg.type === "alert") {
         S.alerts.unshift({ ...msg, received: Date.now() });
         S.alerts.length = Math.min(S.alerts.length, 50);
@@ -312,6 +340,7 @@
     if (msg.type === "snapshot" || msg.type === "delta") {
       if (msg.period !== S.env.period && msg.period) S.periodEnded = false;
     }
+    if (typeof msg.match_status === "string") S.matchStatus = msg.match_status;
     S.env = { match_time_s: msg.match_time_s, period: msg.period };
     const stalled = S.state && S.state.health && S.state.health.state === "stalled";
     if (!stalled) {
@@ -351,6 +380,7 @@
   function render() {
     renderMatchLine();
     renderFeed();
+    renderStatus();
     renderBanner();
     renderAge();
     renderTeams();
@@ -368,16 +398,20 @@
     const sel = $("#match-picker");
     const keep = S.matchId;
     if (!S.matches.length) {
-      sel.innerHTML = '<option value="">No matches yet · waiting for a feed</option>';
+      sel.innerHTML = '<option value="">No match set up yet</option>';
       sel.dataset.sig = "";
       return;
     }
-    const html = S.matches.map((m) => {
+    // newest kick-off first; each line tells its match apart: teams and score, kick-off, id, where it stands
+    const kick = (m) => (m.kickoff_time ? Date.parse(m.kickoff_time) || 0 : 0);
+    const list = [...S.matches].sort((a, b) => kick(b) - kick(a) || String(a.match_id).localeCompare(String(b.match_id)));
+    const html = list.map((m) => {
       const ids = sidesOf(m.teams);
       const t = ids.map((id) => m.teams[id]);
       const score = t.length === 2 ? `${t[0].name} ${t[0].score ?? 0}–${t[1].score ?? 0} ${t[1].name}` : m.match_id;
-      const when = m.period ? PERIODS[m.period] || m.period : "not started";
-      return `<option value="${esc(m.match_id)}">${esc(score)} · ${esc(when)}</option>`;
+      const where = STATUS_WORDS[m.status] || (m.period ? PERIODS[m.period] || m.period : "not started");
+      const parts = [score, fmtKickoff(m.kickoff_time), m.match_id, where].filter(Boolean);
+      return `<option value="${esc(m.match_id)}">${esc(parts.join(" · "))}</option>`;
     }).join("");
     if (sel.dataset.sig === html) return; // unchanged: leave an open list alone
     sel.dataset.sig = html;
@@ -434,8 +468,8 @@
     };
     if (!h) return;
     const fast = h.rate_clock === "frames";
-    set("fps_observed", h.fps_observed == null ? "–" : fmt1(h.fps_observed) + (fast && h.feed_speed ? ` · replay ${fmt1(h.feed_speed)}×` : ""),
-      fast ? "Counted per second of the frames' own time: they arrive faster than real time" : "Frames received per second");
+    set("fps_observed", h.fps_observed == null ? "–" : fmt1(h.fps_observed),
+      fast ? "Counted per second of the frames' own time (a replay: the status says how fast)" : "Frames received per second");
     set("fps_nominal", h.fps_nominal ?? "–");
     const lagText = (v) => (v == null ? "–" : Math.abs(v) < 120 ? fmtSeconds(v) : "other clock");
     const lagTitle = h.lag_s != null && Math.abs(h.lag_s) >= 120
@@ -490,11 +524,15 @@
   function renderAge() {
     const el = $("#age");
     const age = ageSeconds();
-    if (age == null) { el.textContent = ""; el.dataset.stale = "false"; return; }
+    const [status] = statusNow();
+    // after full time or in a break nothing new is due: an old message is not stale data
+    const due = ["live", "replay", "degraded", "stalled", "offline"].includes(status);
+    if (age == null || !due) { el.textContent = ""; el.dataset.stale = "false"; el.hidden = true; return; }
     const stale = age >= STALE_AFTER_S;
     el.dataset.stale = String(stale);
     el.dataset.age = String(Math.floor(age));
-    el.textContent = stale ? `Data is ${Math.floor(age)} s old` : "Up to date";
+    el.hidden = !stale;
+    el.textContent = stale ? `Data is ${Math.floor(age)} s old` : "";
   }
 
   // seconds without frames the server had counted when it sent its last message ("no frame for 2.3 s")
@@ -520,35 +558,64 @@
     return !Object.values(st.players).some((p) => p.on_pitch);
   }
 
+  // The match status: the server's (snapshot and status messages), else what the feed shows.
+  function matchStatus() {
+    if (S.matchStatus) return S.matchStatus;
+    const h = S.state ? S.state.health : null;
+    if (!h || !h.frames) return "not_started";
+    if (h.state === "finished") return "ended";
+    return periodOver() ? "break" : "live";
+  }
+  // while play is on (or due), "off" marks who is not on the pitch; in a break or after the end nobody is
+  const PLAY_ON = new Set(["live", "not_started"]);
+  const fmtSpeed = (v) => (v >= 10 ? String(Math.round(v)) : fmt1(v).replace(/\.0$/, ""));
+
+  // ONE place says where the match and its feed stand: [kind, words]; the band below only amplifies it
+  function statusNow() {
+    if (S.authError) return ["offline", S.authError];
+    if (!S.matchId) return S.matchesLoaded ? ["none", "No match yet"] : ["connecting", "Looking for matches…"];
+    const offlineFor = S.closedAt == null ? 0 : (performance.now() - S.closedAt) / 1000;
+    if (S.conn !== "open" && (S.state === null ? S.attempts > 0 : offlineFor >= OFFLINE_BANNER_S)) {
+      return ["offline", S.connText || "No connection"];
+    }
+    if (!S.state) return ["connecting", "Connecting…"];
+    const h = S.state.health || {};
+    const ms = matchStatus();
+    if (ms === "ended") return ["ended", "Full time · final figures"];
+    if (ms === "break") return ["break", (PERIODS[S.env.period] || "Period") + " over · break"];
+    if (ms === "not_started" || !h.frames) return ["waiting", "Not started · no frames yet"];
+    if (h.state === "stalled") return ["stalled", "Feed stalled"];
+    const replay = h.rate_clock === "frames" && h.feed_speed ? "Replay ×" + fmtSpeed(h.feed_speed) : "";
+    if (h.state === "degraded") return ["degraded", (replay || "Live") + " · feed degraded"];
+    return replay ? ["replay", replay] : ["live", "Live"];
+  }
+
+  function renderStatus() {
+    const [kind, text] = statusNow();
+    const el = $("#conn");
+    el.dataset.status = kind;
+    const t = $("#conn-text");
+    if (t.textContent !== text) t.textContent = text;
+  }
+
   function renderBanner() {
     const b = $("#banner");
     let kind = "none", title = "", text = "";
     const h = S.state ? S.state.health : null;
-    const offlineFor = S.closedAt == null ? 0 : (performance.now() - S.closedAt) / 1000;
+    const [status] = statusNow();
     const age = ageSeconds();
-    if (S.matchId && S.conn !== "open" && (S.state === null ? S.attempts > 0 : offlineFor >= OFFLINE_BANNER_S)) {
+    if (status === "offline" && S.matchId) {
       kind = "offline";
       title = "No connection";
       text = S.state
         ? `Lost contact with pacewire; reconnecting. The figures shown are ${Math.floor(age || 0)} s old.`
         : "Cannot reach pacewire yet; retrying.";
-    } else if (h && h.state === "finished") {
-      // full time: no frame is due, the figures are final
-      kind = "break";
-      title = "Full time";
-      text = "The match has ended; the figures are final.";
-    } else if (h && h.state === "stalled" && periodOver() && (h.reasons || []).every((r) => r.code === "no_frames")) {
-      // a break between periods: no frames are expected, the figures are final for the period
-      kind = "break";
-      title = (PERIODS[S.env.period] || "Period") + " ended";
-      text = `No frames until play resumes; the figures are final for the period. ${reasonText((h.reasons || [])[0] || { code: "no_frames" })}.`;
-    } else if (h && h.state === "stalled") {
+    } else if (status === "stalled") {
       kind = "stalled";
       title = "Feed stalled";
       const why = cap((h.reasons || []).map(reasonText).join("; ") || "No new frames");
-      text = h.frames ? `${why}. The figures are frozen at ${fmtClock(S.env.match_time_s)}: do not read them as live.`
-        : `${why}. Nothing to show until the feed starts.`;
-    } else if (h && h.state === "degraded") {
+      text = `${why}. Figures frozen at ${fmtClock(S.env.match_time_s)}: do not read them as live.`;
+    } else if (status === "degraded") {
       kind = "degraded";
       title = "Feed degraded";
       const why = cap((h.reasons || []).map((r) => r.message).join("; ") || "the feed is not complete");
@@ -584,11 +651,11 @@
     const cols = [["cumulative", o, "Match so far"], ...keys.map((k) => [k, w[k], windowLabel(k)])];
     const rows = [
       ["distance_m", "Distance", "m", fmtInt],
-      ["hsr_m", "High-speed running", "m", fmtInt],
-      ["sprint_m", "Sprinting", "m", fmtInt],
-      ["hsr_efforts", "High-speed runs", "", fmtInt],
+      ["hsr_m", "High-speed", "m", fmtInt],
+      ["sprint_m", "Sprint", "m", fmtInt],
+      ["hsr_efforts", "HS runs", "", fmtInt],
       ["sprints", "Sprints", "", fmtInt],
-      ["m_per_min", "Work rate, per player", "m/min", fmtInt],
+      ["m_per_min", "m/min per player", "m/min", fmtInt],
     ];
     const side = t.side === "away" ? "away" : "home";
     const cell = (win, src, key, fmt, unit, main) => {
@@ -601,7 +668,7 @@
     return `<article class="team-card panel" data-team-id="${esc(tid)}" data-side="${side}">
       <header><h3><span class="team-glyph" data-side="${side}" aria-hidden="true"></span>${esc(t.name || tid)}</h3>
         <span class="side-tag">${side}</span><span class="team-score" aria-label="goals">${t.score ?? 0}</span></header>
-      <p class="sub">Outfield: <span data-field="players">${o.players ?? 0}</span> players · ${o.minutes == null ? "–" : fmt1(o.minutes)} min of play</p>
+      <p class="sub"><span data-field="players">${o.players ?? 0}</span> outfield players have played (goalkeepers left out) · ${o.minutes == null ? "–" : fmt1(o.minutes)} min of play</p>
       <table class="team-figs">
         <thead><tr><th scope="col"><span class="sr-only">Figure</span></th>${cols.map((c) => `<th scope="col">${c[2]}</th>`).join("")}</tr></thead>
         <tbody>
@@ -681,18 +748,22 @@
   // -- the player table ------------------------------------------------------------------------------------------
   function buildHead(cols) {
     const tr = $("#player-head");
-    const sig = cols.map((c) => c.key).join(",");
+    const sig = cols.map((c) => c.key).join(",") + "|" + PEAK.window_min + "|" + PEAK.min_on_pitch_min;
     if (tr.dataset.sig === sig) return;
     tr.dataset.sig = sig;
     if (S.sort.col && !cols.some((c) => c.key === S.sort.col)) S.sort = { col: null, dir: "desc" };
     tr.innerHTML = cols.map((c) => {
       const text = c.kind === "text" ? " text" : "";
-      const inner = `<span class="h-label">${esc(c.label)}</span><span class="h-unit">${esc(c.unit || "\u00a0")}</span>`;
+      const extra = c.core ? "" : " data-extra";
+      const label = c.key === "peak_pct" ? `Last ${PEAK.window_min} min` : c.label;
+      const tip = c.key === "peak_pct" ? c.tip.replace(/5 min(ute)?s?/g, `${PEAK.window_min} minutes`) +
+        `; shown while he is on the pitch, once he has played ${PEAK.min_on_pitch_min} minutes` : c.tip;
+      const inner = `<span class="h-label">${esc(label)}</span><span class="h-unit">${esc(c.unit || "\u00a0")}</span>`;
       if (c.kind === "zones") {
-        return `<th scope="col" data-col="${c.key}" class="text" title="${esc(c.tip)}"><span class="plain-head">${inner}</span></th>`;
+        return `<th scope="col" data-col="${c.key}"${extra} class="text" title="${esc(tip)}"><span class="plain-head">${inner}</span></th>`;
       }
-      return `<th scope="col" data-col="${c.key}" class="${text.trim()}" aria-sort="none">` +
-        `<button type="button" class="sort" data-sort="${c.key}" title="${esc((c.tip || c.label) + ": sort")}">${inner}<span class="h-arrow" aria-hidden="true"></span></button></th>`;
+      return `<th scope="col" data-col="${c.key}"${extra} class="${text.trim()}" aria-sort="none">` +
+        `<button type="button" class="sort" data-sort="${c.key}" title="${esc((tip || label) + ": sort")}">${inner}<span class="h-arrow" aria-hidden="true"></span></button></th>`;
     }).join("");
   }
 
@@ -728,9 +799,35 @@
       case "max_speed_ms": return isWindow(win) ? null : (src ? src.max_speed_ms : null);
       case "zones": return isWindow(win) ? null : (src ? src.zones : null);
       case "hr_bpm": case "hr_pct_max": return p[key] ?? null;
+      case "acc_dec": return src && (src.accels != null || src.decels != null) ? (src.accels || 0) + (src.decels || 0) : null;
+      case "peak_pct": return peakPct(p);
       case "hr_coverage": return win === "period" ? (src ? src.hr_coverage ?? null : null) : p.hr_coverage ?? null;
       default: return src ? src[key] ?? null : null;
     }
+  }
+
+  // the last N minutes' m/min as a share of the player's own best N minutes this match, in %: the same
+  // windows the drop-off rule reads (N from its config); null until both windows exist
+  function peakPct(p) {
+    const w = p.windows || {};
+    const last = w[`last_${PEAK.window_min}min`], peak = w[`peak_${PEAK.window_min}min`];
+    // off the pitch (substituted, or a break) the last minutes are not his: the window counts time off
+    // and, as for the drop-off rule, only after enough time on the pitch for his peak to be one (a player
+    // just on has a "peak" window that holds time before he came on)
+    if (!p.on_pitch || (p.minutes || 0) < PEAK.min_on_pitch_min) return null;
+    if (!last || !peak || last.m_per_min == null || !peak.m_per_min) return null;
+    return 100 * last.m_per_min / peak.m_per_min;
+  }
+  // the player's usual work rate for this part of the match (history), when the snapshot carries one
+  function baselineMark(p) {
+    const b = p && typeof p.baseline === "object" ? p.baseline : null;
+    const vs = b && b.vs_baseline && b.vs_baseline.block ? b.vs_baseline.block.m_per_min : null;
+    if (!vs || typeof vs.ratio !== "number" || !isFinite(vs.ratio)) return "";
+    const below = vs.below === true;
+    const n = typeof b.matches === "number" ? ` over ${b.matches} past matches` : "";
+    const tip = `Work rate in this part of the match is ${Math.round(vs.ratio * 100)} % of his usual${n}` +
+      (below ? ": below his usual band" : ": within or above his usual band");
+    return `<span class="usual" data-below="${below}" data-ratio="${vs.ratio}" title="${esc(tip)}">${below ? "below usual" : "usual"}</span>`;
   }
 
   function compare(a, b, key, dir) {
@@ -754,6 +851,9 @@
     table.dataset.team = S.team;
     table.dataset.heartRate = String(heart);
     table.classList.toggle("one-team", S.hideTeam);
+    table.dataset.more = String(S.more);
+    table.dataset.play = String(!!st && PLAY_ON.has(matchStatus()));
+    document.querySelector(".layout").dataset.more = String(S.more);
     $("#hr-legend").hidden = !heart;
     for (const th of document.querySelectorAll("#player-head th[data-col]")) {
       const k = th.dataset.col;
@@ -784,8 +884,27 @@
     const empty = S.win !== "cumulative" && rows.length && rows.every((r) => source(r.p, S.win) === null);
     note.hidden = !empty;
     note.textContent = empty ? `${windowLabel(S.win)}: not enough play yet, so its figures show as a dash.` : "";
-    const html = rows.map((r) => rowHtml(r, cols, max, zmax)).join("");
+    // players who have not played yet: one line until they come on (or the line is opened)
+    const played = (p) => (p.minutes || 0) > 0 || !!p.on_pitch;
+    const used = rows.filter((r) => played(r.p));
+    const unused = rows.filter((r) => !played(r.p))
+      .sort((a, b) => homeFirst(a.p.team_id) - homeFirst(b.p.team_id) || (a.p.jersey_number ?? 0) - (b.p.jersey_number ?? 0));
+    let html = used.map((r) => rowHtml(r, cols, max, zmax)).join("");
+    html += unused.map((r) => rowHtml(r, cols, max, zmax).replace("<tr ", `<tr class="unused"${S.showUnused ? "" : " hidden"} `)).join("");
+    if (unused.length) html += unusedLine(unused, cols.length);
     if (body.innerHTML !== html) body.innerHTML = html;
+  }
+
+  function unusedLine(unused, span) {
+    const byTeam = {};
+    for (const r of unused) byTeam[r.p.team_id] = (byTeam[r.p.team_id] || 0) + 1;
+    const teams = Object.keys(byTeam);
+    const words = teams.length > 1
+      ? teams.map((tid) => `${(S.state.teams[tid] || {}).name || tid} ${byTeam[tid]}`).join(" · ") + " not used"
+      : `${unused.length} not used`;
+    return `<tr class="unused-line" data-unused="${unused.length}"><td colspan="${span}">` +
+      `<button type="button" data-unused-toggle aria-expanded="${S.showUnused}">${esc(words)} · ${S.showUnused ? "hide" : "show"}</button>` +
+      ` <span class="why">(no minutes yet: listed once they come on)</span></td></tr>`;
   }
 
   function rowHtml(r, cols, max, zmax) {
@@ -802,35 +921,51 @@
     const gapTip = gaps ? `The strap sent only ${fmtPct(hrCov)} of the expected samples: heart-rate figures miss that time (missing data, not a low heart rate).` : "";
     const omitted = p.hr_omitted || {};
     const cells = cols.map((c) => {
-      const raw = v[c.key];
-      if (c.hr) return hrCell(c, raw, p, played, gaps, gapTip, omitted, max);
-      if (c.key === "jersey_number") return `<td class="jersey" data-col="jersey_number" data-value="${raw ?? ""}">${raw ?? ""}</td>`;
-      if (c.key === "name") {
-        const badges = (p.is_goalkeeper ? '<span class="badge-gk" title="Goalkeeper">GK</span>' : "") +
-          (p.on_pitch ? "" : '<span class="badge-off" title="Not on the pitch">off</span>');
-        return `<td class="pname text" data-col="name" data-value="${esc(raw)}"><span class="n">${esc(raw)}</span>${badges ? `<span class="badges">${badges}</span>` : ""}</td>`;
-      }
-      if (c.key === "team") {
-        return `<td class="team text" data-col="team" data-value="${esc(raw)}" title="${esc(raw)}"${S.hideTeam ? " hidden" : ""}><span class="team-glyph" data-side="${side}" aria-hidden="true"></span>${esc(shortName(raw))}</td>`;
-      }
-      if (c.key === "zones") return zonesCell(raw, zmax);
-      if (c.key === "coverage") {
-        const low = played && raw != null && raw < COVERAGE_LOW;
-        const text = raw == null || !played ? "–" : fmtPct(raw);
-        return `<td class="cov${low ? " low" : ""}" data-col="coverage" data-value="${raw ?? ""}"${low ? ` title="${esc(covTip)}"` : ""}>` +
-          `<span class="fig"><span class="v">${text}</span></span></td>`;
-      }
-      const none = raw == null;
-      const mark = uncertain && c.key !== "speed_ms" && c.key !== "minutes" && !none;
-      const frozen = c.key === "speed_ms" && !none && feedStalled;
-      const cls = ["num", none ? "none" : "", mark ? "uncertain" : "", frozen ? "frozen" : ""].filter(Boolean).join(" ");
-      const text = none ? "–" : c.fmt(raw);
-      const bar = c.bar ? `<span class="bar" aria-hidden="true"><i style="--w:${none || !max[c.key] ? 0 : (Math.max(raw, 0) / max[c.key]).toFixed(4)}"></i></span>` : "";
-      const title = mark ? ` title="${esc(covTip)}"` : frozen ? ' title="Last speed before the feed stopped, not the speed now"' : "";
-      const sr = mark ? '<span class="sr-only"> (uncertain: low coverage)</span>' : "";
-      return `<td class="${cls}" data-col="${c.key}" data-value="${none ? "" : raw}"${title}><span class="fig"><span class="v">${text}</span>${sr}${bar}</span></td>`;
+      const td = cellHtml(c, v[c.key], p, played, uncertain, covTip, gaps, gapTip, omitted, max, zmax, side, feedStalled);
+      return c.core ? td : td.replace(/^<td/, "<td data-extra");
     }).join("");
     return `<tr data-player-id="${esc(pid)}" data-team-id="${esc(p.team_id)}" data-on-pitch="${!!p.on_pitch}" data-uncertain="${uncertain}" data-hr-gaps="${gaps}">${cells}</tr>`;
+  }
+
+  function cellHtml(c, raw, p, played, uncertain, covTip, gaps, gapTip, omitted, max, zmax, side, feedStalled) {
+    if (c.hr) return hrCell(c, raw, p, played, gaps, gapTip, omitted, max);
+    if (c.key === "jersey_number") return `<td class="jersey" data-col="jersey_number" data-value="${raw ?? ""}">${raw ?? ""}</td>`;
+    if (c.key === "name") {
+      const badges = (p.is_goalkeeper ? '<span class="badge-gk" title="Goalkeeper">GK</span>' : "") +
+        (p.on_pitch || !PLAY_ON.has(matchStatus()) ? "" : '<span class="badge-off" title="Not on the pitch">off</span>');
+      return `<td class="pname text" data-col="name" data-value="${esc(raw)}"><span class="n">${esc(raw)}</span>${badges ? `<span class="badges">${badges}</span>` : ""}</td>`;
+    }
+    if (c.key === "team") {
+      return `<td class="team text" data-col="team" data-value="${esc(raw)}" title="${esc(raw)}"${S.hideTeam ? " hidden" : ""}><span class="team-glyph" data-side="${side}" aria-hidden="true"></span>${esc(shortName(raw))}</td>`;
+    }
+    if (c.key === "zones") return zonesCell(raw, zmax);
+    if (c.key === "coverage") {
+      const low = played && raw != null && raw < COVERAGE_LOW;
+      const text = raw == null || !played ? "–" : fmtPct(raw);
+      return `<td class="cov${low ? " low" : ""}" data-col="coverage" data-value="${raw ?? ""}"${low ? ` title="${esc(covTip)}"` : ""}>` +
+        `<span class="fig"><span class="v">${text}</span></span></td>`;
+    }
+    const none = raw == null;
+    const mark = uncertain && c.key !== "speed_ms" && c.key !== "minutes" && !none;
+    const frozen = c.key === "speed_ms" && !none && feedStalled;
+    const cls = ["num", none ? "none" : "", mark ? "uncertain" : "", frozen ? "frozen" : ""].filter(Boolean).join(" ");
+    const text = none ? "–" : c.fmt(raw);
+    const bar = c.bar ? `<span class="bar" aria-hidden="true"><i style="--w:${none || !max[c.key] ? 0 : (Math.max(raw, 0) / max[c.key]).toFixed(4)}"></i></span>` : "";
+    const title = mark ? ` title="${esc(covTip)}"` : frozen ? ' title="Last speed before the feed stopped, not the speed now"' : "";
+    const sr = mark ? '<span class="sr-only"> (uncertain: low coverage)</span>' : "";
+    if (c.key === "peak_pct") return peakCell(raw, p, cls, mark, title, sr);
+    return `<td class="${cls}" data-col="${c.key}" data-value="${none ? "" : raw}"${title}><span class="fig"><span class="v">${text}</span>${sr}${bar}</span></td>`;
+  }
+
+  // "% own peak": the number, a bar against 100 %, marked under the drop-off rule's share; the usual-band word
+  function peakCell(raw, p, cls, mark, title, sr) {
+    const none = raw == null;
+    const low = !none && PEAK.share != null && raw < PEAK.share * 100;
+    const w = none ? 0 : Math.min(Math.max(raw, 0) / 100, 1).toFixed(4);
+    const lowTip = low ? ` title="${esc(`Under ${Math.round(PEAK.share * 100)} % of his own best ${PEAK.window_min} minutes: the drop-off alert's limit`)}"` : "";
+    return `<td class="${cls} peak${low ? " low" : ""}" data-col="peak_pct" data-value="${none ? "" : raw}"${title || lowTip}>` +
+      `<span class="fig"><span class="v pct">${none ? "–" : fmtInt(raw)}</span>${sr}` +
+      `<span class="bar" aria-hidden="true"><i style="--w:${w}"></i></span>${baselineMark(p)}</span></td>`;
   }
 
   // A heart-rate cell: "—" with the reason when the profile cannot support the figure; the coverage cell
@@ -870,20 +1005,38 @@
     return `<td class="zones text" data-col="zones" data-value="${esc(JSON.stringify(zones))}"><span class="zbar" title="${esc(tip)}" role="img" aria-label="${esc(tip.replace(/\n/g, "; "))}">${segs}</span></td>`;
   }
 
+  // an alert as one line: player, the rule in words, value against limit with units
+  const FIG_UNITS = { minutes: "min", hsr_m: "m", sprint_m: "m", distance_m: "m", sprints: "sprints", hsr_efforts: "runs" };
+  const FIG_WORDS = { minutes: "minutes", hsr_m: "high-speed m", sprint_m: "sprint m", distance_m: "distance",
+    sprints: "sprints", hsr_efforts: "high-speed runs", distance: "work rate", hsr: "high-speed m/min" };
+  function alertWords(a, p) {
+    const num = (v) => (typeof v === "number" ? (Number.isInteger(v) ? fmtInt(v) : fmt1(v)) : String(v ?? "–"));
+    const fig = FIG_WORDS[a.figure] || String(a.figure || "").replace(/_/g, " ");
+    if (a.kind === "drop_off_peak") {
+      // the same figure as the table's "% own peak": the last window's m/min against the peak window's
+      const peak = p && p.windows ? (p.windows[`peak_${PEAK.window_min}min`] || {}).m_per_min : null;
+      const pct = (v) => (peak ? ` (${Math.round(100 * v / peak)} % of peak)` : "");
+      return [`${fig} vs own peak`, `${num(a.value)} m/min${pct(a.value)}, limit ${num(a.limit)}${pct(a.limit)}`];
+    }
+    if (a.kind === "drop_off_baseline") return [`${fig} below usual`, `${num(a.value)} m/min, limit ${num(a.limit)} m/min`];
+    if (a.kind === "load_budget") {
+      const unit = FIG_UNITS[a.figure] || "";
+      return [`load budget, ${fig}`, `${num(a.value)} ${unit}, limit ${num(a.limit)} ${unit}`.replace(/ +/g, " ")];
+    }
+    return [String(a.rule || "alert").replace(/_/g, " "), `${num(a.value)}, limit ${num(a.limit)}`];
+  }
+
   function renderAlerts() {
     const ol = $("#alerts");
     if (!S.alerts.length) { ol.innerHTML = '<li class="empty">No alerts so far.</li>'; return; }
-    const num = (v) => (typeof v === "number" ? (Number.isInteger(v) ? fmtInt(v) : fmt1(v)) : String(v));
-    ol.innerHTML = S.alerts.map((a) => {
+    const newest = [...S.alerts].sort((x, y) => (y.match_time_s ?? 0) - (x.match_time_s ?? 0));
+    ol.innerHTML = newest.map((a) => {
       const pid = a.player_id || "";
       const p = S.state && pid ? S.state.players[pid] : null;
       const who = p ? `#${p.jersey_number} ${p.name || pid}` : pid;
-      const rule = String(a.rule || "alert");
-      const what = a.message || `${who}: ${rule.replace(/_/g, " ")}`;
-      const figs = [a.value != null ? `value ${num(a.value)}` : "", a.limit != null ? `limit ${num(a.limit)}` : ""].filter(Boolean).join(" · ");
-      return `<li class="alert-item" data-rule="${esc(rule)}" data-player-id="${esc(pid)}" data-value="${esc(a.value ?? "")}" data-limit="${esc(a.limit ?? "")}">` +
-        `<span class="when">${fmtClock(a.match_time_s)}</span><span class="what">${esc(what)}</span>` +
-        `<span class="detail">${esc(rule.replace(/_/g, " "))}${figs ? " · " + esc(figs) : ""}</span></li>`;
+      const [rule, figs] = alertWords(a, p);
+      return `<li class="alert-item" data-rule="${esc(a.rule || "")}" data-player-id="${esc(pid)}" data-value="${esc(a.value ?? "")}" data-limit="${esc(a.limit ?? "")}" title="${esc(a.message || "")}">` +
+        `<span class="when">${fmtClock(a.match_time_s)}</span><span class="what"><b>${esc(who)}</b> · ${esc(rule)} · ${esc(figs)}</span></li>`;
     }).join("");
   }
 
@@ -903,7 +1056,8 @@
     document.documentElement.setAttribute("data-theme", t);
     const btn = $("#theme-toggle");
     btn.setAttribute("aria-pressed", String(t === "dark"));
-    btn.querySelector(".theme-text").textContent = t === "dark" ? "Dark" : "Light";
+    // the button names what pressing it does
+    btn.querySelector(".theme-text").textContent = t === "dark" ? "Light theme" : "Dark theme";
     btn.title = t === "dark" ? "Switch to the light theme" : "Switch to the dark theme";
   }
 
@@ -922,6 +1076,20 @@
     }
   }
 
+  // thresholds from the server's config (the same values the reports use); the defaults stand until then
+  async function loadSettings() {
+    try {
+      const cfg = await getJSON("page-settings.json");
+      if (typeof cfg.low_coverage === "number") COVERAGE_LOW = cfg.low_coverage;
+      PEAK.share = typeof cfg.peak_share === "number" ? cfg.peak_share : null;
+      if (typeof cfg.peak_window_min === "number") PEAK.window_min = cfg.peak_window_min;
+      if (typeof cfg.peak_min_on_pitch_min === "number") PEAK.min_on_pitch_min = cfg.peak_min_on_pitch_min;
+    } catch (e) { return; }
+    $("#cov-threshold").textContent = Math.round(COVERAGE_LOW * 100);
+    for (const el of document.querySelectorAll(".cov-threshold-hr")) el.textContent = Math.round(COVERAGE_LOW * 100);
+    scheduleRender();
+  }
+
   // -- wiring -----------------------------------------------------------------------------------------------------------
   function init() {
     initTheme();
@@ -930,6 +1098,21 @@
       const btn = ev.target.closest("button[data-sort]");
       if (btn) sortBy(btn.dataset.sort);
     });
+    $("#player-body").addEventListener("click", (ev) => {
+      if (!ev.target.closest("button[data-unused-toggle]")) return;
+      S.showUnused = !S.showUnused;
+      renderTable();
+      const again = document.querySelector("button[data-unused-toggle]");
+      if (again) again.focus(); // keyboard users stay on the line they pressed
+    });
+    S.more = safeStorage("pacewire.more") === "true";
+    $("#more-figures").checked = S.more;
+    $("#more-figures").addEventListener("change", (e) => {
+      S.more = e.target.checked;
+      safeStorage("pacewire.more", String(S.more));
+      renderTable();
+    });
+    loadSettings();
     $("#cov-threshold").textContent = Math.round(COVERAGE_LOW * 100);
     for (const el of document.querySelectorAll(".cov-threshold-hr")) el.textContent = Math.round(COVERAGE_LOW * 100);
     $("#match-picker").addEventListener("change", (e) => { if (e.target.value) selectMatch(e.target.value); });
@@ -942,7 +1125,7 @@
     refreshMatches();
     setInterval(refreshMatches, MATCHES_EVERY_MS);
     setInterval(refreshReports, REPORTS_EVERY_MS);
-    setInterval(() => { renderAge(); renderBanner(); renderFeed(); }, 500);
+    setInterval(() => { renderStatus(); renderAge(); renderBanner(); renderFeed(); }, 500);
     setInterval(watchdog, 5000);
     window.addEventListener("online", () => { if (S.conn !== "open") connect(); });
   }

@@ -62,8 +62,52 @@ def read_csv(text: str) -> tuple[list[str], list[dict[str, str]]]:
     return list(rows[0].keys()) if rows else [], rows
 
 
+# what a report CSV column's name must end in: its SI unit, minutes, a count, or one of the id / share columns
+UNIT_ENDINGS = ("_m", "_s", "_ms", "_wkg", "_jkg", "_m_per_min", "_bpm", "minutes", "m_per_min")
+COUNT_OR_ID = {"player_id", "team_id", "jersey_number", "name", "is_goalkeeper", "on_pitch", "hsr_efforts", "sprints",
+               "accels", "decels", "coverage", "hr_coverage", "trimp_edwards", "trimp_banister", "hr_omitted"}
+
+
+def expected_cell(p: dict[str, Any], col: str) -> tuple[bool, Any]:
+    """(known, value): a report CSV column's value re-derived from the player's snapshot object by its name
+    (the naming rule of export.csv, written out here again so the test does not read the code's own map)."""
+    if col in p and not isinstance(p[col], dict):
+        return True, p[col]
+    for prefix, key in (("zone_", "zones"), ("hr_zone_", "hr_zones")):
+        if col.startswith(prefix):
+            band = col[len(prefix):].rsplit("_", 1)[0]
+            return True, (p.get(key) or {}).get(band)
+    if col.startswith("peak_"):
+        win, _, fig = col.partition("min_")
+        w = (p.get("windows") or {}).get(win + "min")
+        return True, (w or {}).get(fig) if w else None
+    if col.startswith("possession_"):
+        for ctx in ("in_possession", "out_of_possession", "out_of_play"):
+            if col.startswith(f"possession_{ctx}_"):
+                return True, ((p.get("possession") or {}).get(ctx) or {}).get(col[len(f"possession_{ctx}_"):])
+    return False, None
+
+
+def assert_report_csv(csv_text: str, snapshot: dict[str, Any]) -> list[str]:
+    """Every player is one row; every column names its unit (or is an id, a count or a share); every column
+    the snapshot holds equals it. Returns the columns (blocks, HR omissions) the snapshot does not hold."""
+    columns, rows = read_csv(csv_text)
+    assert sorted(r["player_id"] for r in rows) == sorted(snapshot["players"])
+    unitless = [c for c in columns if c not in COUNT_OR_ID and not c.endswith(UNIT_ENDINGS)]
+    assert not unitless, f"columns without a unit: {unitless}"
+    other = []
+    for c in columns[1:]:  # after player_id
+        for r in rows:
+            known, want = expected_cell(snapshot["players"][r["player_id"]], c)
+            if not known:
+                other.append(c)
+                break
+            assert parse_cell(r[c]) == want, (r["player_id"], c)
+    return other
+
+
 def assert_csv_equals_snapshot(csv_text: str, snapshot: dict[str, Any]) -> None:
-    """Every player is one row; every leaf of his snapshot object is a cell holding its value."""
+    """Every player is one row; every leaf of his snapshot object is a cell holding its value (``to_csv``)."""
     _, rows = read_csv(csv_text)
     assert sorted(r["player_id"] for r in rows) == sorted(snapshot["players"])
     for r in rows:

@@ -409,6 +409,68 @@ def test_themes_follow_the_system_and_the_toggle(bench):
         ctx.close()
 
 
+# players of one team whose row lies wholly inside the viewport (above the fixed caution strip)
+ROWS_IN_VIEW = """team => { const bottom = document.querySelector('#caution').getBoundingClientRect().top;
+  return [...document.querySelectorAll(`#player-body tr[data-team-id="${team}"]:not([hidden])`)].filter(tr => {
+    const b = tr.getBoundingClientRect(); return b.top >= 0 && b.bottom <= bottom; }).length; }"""
+IN_VIEW = """sel => { const b = document.querySelector(sel).getBoundingClientRect();
+  return b.top >= 0 && b.bottom <= innerHeight && b.width > 0; }"""
+
+
+def usual_marker(page: Any) -> None:
+    """A player's history, when the snapshot has one (``baseline``, written by the history store): "below
+    usual" beside his % of peak; no marker without it, nor with too few matches (no ``vs_baseline``). The
+    objects are set on the page's own state as the snapshot would carry them, then the table is redrawn."""
+    assert page.locator(".usual").count() == 0  # this feed has no history: nothing shown
+    page.evaluate("""() => { const ps = window.pacewire.state.players;
+      ps.h2.baseline = {matches: 6, required: 5, vs_baseline: {block: {m_per_min: {ratio: 0.82, below: true}}}};
+      ps.h3.baseline = {matches: 2, required: 5};
+      ps.h4.baseline = {matches: 7, required: 5, vs_baseline: {block: {m_per_min: {ratio: 1.03, below: false}}}}; }""")
+    page.click("label[data-window='period']")
+    page.click("label[data-window='cumulative']")
+    marks = page.eval_on_selector_all(".usual", "els => els.map(e => [e.closest('tr').dataset.playerId, e.innerText])")
+    assert sorted(marks) == [["h2", "BELOW USUAL"], ["h4", "USUAL"]], marks
+
+
+def test_first_screen_at_1280x720_in_both_themes(bench):
+    """A laptop on the bench: the match line, the status and at least 8 players of the chosen team are
+    on the first screen without scrolling, in either theme, and nothing scrolls sideways."""
+    for scheme in ("light", "dark"):
+        ctx = bench.browser.new_context(viewport={"width": 1280, "height": 720}, color_scheme=scheme)
+        try:
+            page = ctx.new_page()
+            page.goto(bench.srv.http + "/")
+            page.wait_for_selector("#player-body tr[data-player-id]")
+            page.click(f"label[data-team-filter='{HOME}']")
+            page.wait_for_selector(f"#player-body tr[data-team-id='{AWAY}']", state="detached")
+            assert page.get_attribute("html", "data-theme") == scheme
+            shown = page.evaluate(ROWS_IN_VIEW, HOME)
+            assert shown >= 8, f"{scheme}: only {shown} players of the chosen team on the first screen"
+            for sel in (".matchline", "#conn", "#clock"):
+                assert page.evaluate(IN_VIEW, sel), f"{scheme}: {sel} is not on the first screen"
+            assert page.evaluate("document.documentElement.scrollWidth <= document.documentElement.clientWidth")
+            # the essentials only, by default: the rest behind "More figures"
+            assert page.locator("th[data-col='peak_pct']").is_visible()
+            assert page.locator("th[data-col='energy_jkg']").is_hidden()
+            page.screenshot(path=str(ARTIFACTS / f"bench-1280x720-{scheme}.png"))
+            if scheme == "light":
+                usual_marker(page)
+            page.click("label.more-switch")
+            page.wait_for_selector("th[data-col='energy_jkg']")
+            page.click("label.more-switch")
+        finally:
+            ctx.close()
+    ctx = bench.browser.new_context(viewport={"width": 1440, "height": 900}, color_scheme="light")
+    try:
+        page = ctx.new_page()
+        page.goto(bench.srv.http + "/")
+        page.wait_for_selector("#player-body tr[data-player-id]")
+        assert page.evaluate(ROWS_IN_VIEW, HOME) >= 8
+        page.screenshot(path=str(ARTIFACTS / "bench-1440x900-light.png"))
+    finally:
+        ctx.close()
+
+
 def test_recovers_after_the_socket_is_cut_from_the_page(bench):
     page = bench.page
     bench.settle()
@@ -496,19 +558,83 @@ def test_alerts_and_report_links_as_they_arrive(bench):
     page.wait_for_selector("#conn[data-conn='open']", timeout=12_000)
     wait_for(lambda: page.locator(sel).count() == 2, 10, "the alerts on the reloaded page")
     assert sorted(float(v) for v in page.eval_on_selector_all(sel, "els => els.map(e => e.dataset.limit)")) == limits
+    # one line each: the player, the rule in words, value against limit with the unit
+    lines = page.eval_on_selector_all(sel, """els => els.map(e => [e.innerText, e.getBoundingClientRect().height,
+      parseFloat(getComputedStyle(e).lineHeight) || 20])""")
+    for text, height, line in lines:
+        assert "Caspar Lunde" in text and "load budget" in text and "limit" in text and " min" in text, text
+        assert height < 2 * line, f"an alert takes more than one line: {text!r}"
     # full time: the period ends, the report is built, and its link shows up by itself
     last = bench.feed.frames[bench.feed.cursor - 1]["frame_id"]
     r = httpx.post(f"{base}/events", json=[{"type": "period_end", "period": "second_half", "frame_id": last}],
                    timeout=10)
     assert r.status_code == 200, r.text
     wait_for(lambda: "ended" in page.inner_text("#period"), 5, "the period shown as ended")
-    wait_for(lambda: bench.banner() == "break", 5, "the calmer end-of-period banner instead of the stall alarm")
+    # the end is said in the one status place; no band (the stall band least of all)
+    wait_for(lambda: page.get_attribute("#conn", "data-status") == "ended", 5, "the ended status")
+    assert bench.banner() == "none"
+    assert "Full time" in page.inner_text("#conn")
+    time.sleep(3.0)  # past the server's 2 s stall time: a finished match never shows the stall band
+    assert bench.banner() == "none" and page.get_attribute("#conn", "data-status") == "ended"
+    assert page.locator("#age").is_hidden()
     link = page.wait_for_selector("#reports li[data-kind='full_time'] a.report-main", timeout=40_000)
     href = link.get_attribute("href")
     listed = httpx.get(f"{base}/reports", timeout=10).json()["reports"]
     assert any(x["kind"] == "full_time" and href.endswith(x["url"]) for x in listed)
     assert httpx.get(href, timeout=10).status_code == 200
     shoot(page, "bench-full-time")
+
+
+# text boxes of the report's first page (text nodes, outside charts) and of each chart's SVG text, with
+# every pair of boxes that overlap by more than a pixel each way
+TEXT_BOXES = """() => {
+  const boxes = [];
+  const walker = document.createTreeWalker(document.querySelector('#summary'), NodeFilter.SHOW_TEXT);
+  for (let n = walker.nextNode(); n; n = walker.nextNode()) {
+    if (!n.textContent.trim()) continue;
+    const r = document.createRange(); r.selectNodeContents(n);
+    for (const b of r.getClientRects()) boxes.push({g: 'summary', t: n.textContent.trim(), b,
+      size: parseFloat(getComputedStyle(n.parentElement).fontSize)});
+  }
+  document.querySelectorAll('svg.chart').forEach((svg, k) => svg.querySelectorAll('text').forEach(t => {
+    if (t.textContent.trim()) boxes.push({g: 'chart' + k, t: t.textContent.trim(), b: t.getBoundingClientRect()});
+  }));
+  const clash = [];
+  for (let i = 0; i < boxes.length; i++) for (let j = i + 1; j < boxes.length; j++) {
+    const a = boxes[i], c = boxes[j];
+    if (a.g !== c.g) continue;
+    const w = Math.min(a.b.right, c.b.right) - Math.max(a.b.left, c.b.left);
+    const h = Math.min(a.b.bottom, c.b.bottom) - Math.max(a.b.top, c.b.top);
+    if (w > 1 && h > 1) clash.push(a.g + ': ' + a.t + ' / ' + c.t);
+  }
+  const s = document.querySelector('#summary').getBoundingClientRect();
+  const small = boxes.filter(x => x.size !== undefined && x.size < 14).map(x => x.t + ' ' + x.size);
+  return {bottom: s.bottom, clash, small, n: boxes.length};
+}"""
+
+
+def test_the_report_first_page_fits_one_screen(bench):
+    """The full-time report of the match the test above ended: its first page (the summary) fits a
+    1280 x 900 screen in both themes with body text of 14 px or more, and no two text boxes overlap, on
+    it or in any chart (a legend once sat on its chart's title)."""
+    listed = httpx.get(f"{bench.srv.http}/api/matches/{bench.feed.match_id}/reports", timeout=10).json()["reports"]
+    url = next(r["url"] for r in listed if r["kind"] == "full_time")
+    for scheme in ("light", "dark"):
+        ctx = bench.browser.new_context(viewport={"width": 1280, "height": 900}, color_scheme=scheme)
+        try:
+            page = ctx.new_page()
+            page.goto(f"{bench.srv.http}{url}" if url.startswith("/") else f"{bench.srv.http}/{url}")
+            page.wait_for_selector("#summary")
+            got = page.evaluate(TEXT_BOXES)
+            assert got["n"] > 50, got  # the summary and the charts have text to check
+            assert got["bottom"] <= 900, f"{scheme}: the first page ends at {got['bottom']:.0f} px"
+            assert not got["clash"], f"{scheme}: overlapping text: {got['clash'][:6]}"
+            assert not got["small"], f"{scheme}: text under 14 px: {got['small'][:6]}"
+            text = page.inner_text("#summary")
+            assert "Full time" in text and "Who dropped off" in text and "Caspar Lunde" in text  # his budget alerts
+            page.screenshot(path=str(ARTIFACTS / f"report-first-page-{scheme}.png"))
+        finally:
+            ctx.close()
 
 
 def test_the_demo_clip_through_the_match_picker(bench):
@@ -536,6 +662,21 @@ def test_the_demo_clip_through_the_match_picker(bench):
         assert shown == rest["players"][pid]["name"]
     names = [t["name"] for t in meta["teams"].values()]
     assert all(n in page.inner_text("#scoreline") for n in names)
+    # the substitutes who never came on: hidden under one line until it is opened
+    unused = {pid for pid, p in rest["players"].items() if not p["minutes"] and not p["on_pitch"]}
+    assert unused, "the demo clip has substitutes who did not play"
+    hidden = set(page.eval_on_selector_all("#player-body tr[data-player-id][hidden]",
+                                           "els => els.map(e => e.dataset.playerId)"))
+    assert hidden == unused
+    line = page.locator("tr.unused-line button")
+    assert "not used" in line.inner_text()
+    line.click()
+    wait_for(lambda: page.locator("#player-body tr[data-player-id][hidden]").count() == 0, 3, "the unused rows shown")
+    page.locator("tr.unused-line button").press("Enter")  # the keyboard closes it again
+    wait_for(lambda: page.locator("#player-body tr[data-player-id][hidden]").count() == len(unused), 3, "hidden again")
+    # the match picker tells matches apart: kick-off and id on every line
+    option = page.inner_text(f"#match-picker option[value='{mid}']")
+    assert mid in option and "2026" in option, option
     page.set_viewport_size({"width": 1440, "height": page.evaluate("document.documentElement.scrollHeight")})
     page.screenshot(path=str(ARTIFACTS / "bench-demo-clip-light.png"))
 
@@ -589,3 +730,23 @@ def test_phase_view_of_the_demo_clip(bench):
     page.set_viewport_size({"width": 1440, "height": page.evaluate("document.documentElement.scrollHeight")})
     page.screenshot(path=str(ARTIFACTS / "bench-phases-light.png"))
     page.click("label[data-window='cumulative']")
+
+
+def test_no_match_says_so(bench, tmp_path):
+    """A server with no match set up: the page says there is none (no endless "Connecting…"), and the
+    theme button names what pressing it does."""
+    srv = LiveServer(tmp_path / "empty").start()
+    ctx = bench.browser.new_context(viewport={"width": 1280, "height": 720}, color_scheme="light")
+    try:
+        page = ctx.new_page()
+        page.goto(srv.http + "/")
+        page.wait_for_selector("#conn[data-status='none']", timeout=10_000)
+        assert page.inner_text("#conn-text") == "No match yet"
+        assert "No match" in page.inner_text("#match-picker")
+        assert page.locator("#banner").is_hidden()
+        assert page.inner_text("#theme-toggle").strip() == "Dark theme"
+        page.click("#theme-toggle")
+        assert page.inner_text("#theme-toggle").strip() == "Light theme"
+    finally:
+        ctx.close()
+        srv.stop()
