@@ -31,6 +31,7 @@ from pacewire.wire.messages import envelope
 KINDS = ("half_time", "full_time")
 FILES = ("report.html", "report.csv", "snapshot.json", "alerts.csv")
 SOURCES = ("live", "replay", "offline")
+WHOLE_BLOCK = 0.9  # share of a block on the pitch for it to count as played whole (pacewire default)
 
 
 def report_kind(period: str) -> str:
@@ -124,9 +125,10 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.8,
     rate = ser.per_min(ex.DIST)
     per_min = {pid: [None if not np.isfinite(v) else round(float(v), 1) for v in rate[:, i]]
                for i, pid in enumerate(ser.player_ids)}
-    # the first page compares blocks a player spent at least half of on the pitch: a few seconds of a
-    # stoppage-time block, or of a block he came on in, make a rate that says nothing
-    full = ser.onpitch_s >= ser.block_min * 30.0
+    # the first page compares whole blocks only (90 % of the block on the pitch): a stoppage-time block of
+    # 2-3 min, mostly the game winding down, or a block he came on in, set against a full 5 min, reads as
+    # a drop-off that is not one
+    full = ser.onpitch_s >= ser.block_min * 60.0 * WHOLE_BLOCK
     steady = {pid: [v if full[b, i] else None for b, v in enumerate(per_min[pid])]
               for i, pid in enumerate(ser.player_ids)}
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,

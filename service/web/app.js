@@ -1008,15 +1008,18 @@
   // an alert as one line: player, the rule in words, value against limit with units
   const FIG_UNITS = { minutes: "min", hsr_m: "m", sprint_m: "m", distance_m: "m", sprints: "sprints", hsr_efforts: "runs" };
   const FIG_WORDS = { minutes: "minutes", hsr_m: "high-speed m", sprint_m: "sprint m", distance_m: "distance",
-    sprints: "sprints", hsr_efforts: "high-speed runs", distance: "work rate", hsr: "high-speed m/min" };
+    sprints: "sprints", hsr_efforts: "high-speed runs", distance: "work rate", m_per_min: "work rate", hsr: "high-speed m/min" };
   function alertWords(a, p) {
     const num = (v) => (typeof v === "number" ? (Number.isInteger(v) ? fmtInt(v) : fmt1(v)) : String(v ?? "–"));
     const fig = FIG_WORDS[a.figure] || String(a.figure || "").replace(/_/g, " ");
     if (a.kind === "drop_off_peak") {
       // the same figure as the table's "% own peak": the last window's m/min against the peak window's
       const peak = p && p.windows ? (p.windows[`peak_${PEAK.window_min}min`] || {}).m_per_min : null;
-      const pct = (v) => (peak ? ` (${Math.round(100 * v / peak)} % of peak)` : "");
-      return [`${fig} vs own peak`, `${num(a.value)} m/min${pct(a.value)}, limit ${num(a.limit)}${pct(a.limit)}`];
+      if (!peak) return [`${fig} vs own peak`, `${num(a.value)} m/min, limit ${num(a.limit)} m/min`];
+      // whole percent, or a tenth where both round alike (an alert at "65 %, limit 65 %" reads as none)
+      const digits = Math.round(100 * a.value / peak) === Math.round(100 * a.limit / peak) ? 1 : 0;
+      const pct = (v) => (100 * v / peak).toFixed(digits);
+      return [`${fig} vs own peak`, `${pct(a.value)} % (${num(a.value)} m/min), limit ${pct(a.limit)} %`];
     }
     if (a.kind === "drop_off_baseline") return [`${fig} below usual`, `${num(a.value)} m/min, limit ${num(a.limit)} m/min`];
     if (a.kind === "load_budget") {

@@ -558,12 +558,22 @@ def test_alerts_and_report_links_as_they_arrive(bench):
     page.wait_for_selector("#conn[data-conn='open']", timeout=12_000)
     wait_for(lambda: page.locator(sel).count() == 2, 10, "the alerts on the reloaded page")
     assert sorted(float(v) for v in page.eval_on_selector_all(sel, "els => els.map(e => e.dataset.limit)")) == limits
-    # one line each: the player, the rule in words, value against limit with the unit
+    # a line each: the player, the rule in words, value against limit with the unit; nothing of it cut off
+    # (a clipped line still holds the words in innerText, so the widths are compared too). The side column
+    # of a wide screen may wrap a long one onto a second line; a full-width list keeps each to one
     lines = page.eval_on_selector_all(sel, """els => els.map(e => [e.innerText, e.getBoundingClientRect().height,
-      parseFloat(getComputedStyle(e).lineHeight) || 20])""")
-    for text, height, line in lines:
+      parseFloat(getComputedStyle(e).lineHeight) || 20, e.scrollWidth <= e.clientWidth + 1])""")
+    for text, height, line, whole in lines:
         assert "Caspar Lunde" in text and "load budget" in text and "limit" in text and " min" in text, text
-        assert height < 2 * line, f"an alert takes more than one line: {text!r}"
+        assert height < 3 * line, f"an alert takes more than two lines: {text!r}"
+        assert whole, f"an alert's line is cut off: {text!r}"
+    size = page.viewport_size
+    page.set_viewport_size({"width": 1280, "height": size["height"]})  # the list under the table, full width
+    for text, height, line, whole in page.eval_on_selector_all(sel, """els => els.map(e => [e.innerText,
+      e.getBoundingClientRect().height, parseFloat(getComputedStyle(e).lineHeight) || 20,
+      e.scrollWidth <= e.clientWidth + 1])"""):
+        assert height < 2 * line and whole, f"an alert at full width is not one whole line: {text!r}"
+    page.set_viewport_size(size)
     # full time: the period ends, the report is built, and its link shows up by itself
     last = bench.feed.frames[bench.feed.cursor - 1]["frame_id"]
     r = httpx.post(f"{base}/events", json=[{"type": "period_end", "period": "second_half", "frame_id": last}],
