@@ -27,6 +27,7 @@ import orjson
 
 from pacewire.analyze import FiguresIndex
 from pacewire.config import Settings
+from pacewire.engine.baseline import Baselines
 from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
 from pacewire.engine.types import PERIOD_INDEX, Roster
@@ -81,6 +82,7 @@ class Followup:
         # figures at an earlier match time (export ?at=): checkpoints over the recording, warmed at each report
         self.rewind = FiguresIndex(runner.folder, s, runner.match_id)
         self.alerter.set_budgets(self._initial_budgets())
+        self.baselines: Baselines | None = None  # set once at the match's start (watch)
 
     # -- budgets -----------------------------------------------------------------------------------
     @property
@@ -215,15 +217,22 @@ class Followup:
         await self._load_baselines()
 
     async def _load_baselines(self) -> None:
-        if not any(isinstance(r, DropOffBaseline) for r in self.alerter.rules) or not self.db.exists():
-            return
+        """Bands from the history, once per match start (the history does not change mid-match): the
+        snapshot's ``baseline`` and the baseline alert rule read the same bands."""
         h = self.settings.history
+        ids = [p.id for p in self.runner.roster.players]
+        if not h.enabled:
+            return
         try:
-            self.alerter.baselines = await asyncio.to_thread(
-                history.baselines, self.db, [p.id for p in self.runner.roster.players], h.baseline_matches,
-                h.min_minutes, self.runner.match_id)
+            b = await asyncio.to_thread(history.player_baselines, self.db, ids, h.baseline_matches, h.min_minutes,
+                                        h.min_matches, h.band_spreads, h.block_min, self.runner.match_id)
         except (history.HistoryError, OSError) as exc:
             log.error("%s: no baselines: %s", self.runner.match_id, exc)
+            return
+        self.baselines = b
+        if any(isinstance(r, DropOffBaseline) for r in self.alerter.rules):
+            self.alerter.baselines = history.alert_bands(b)
+        self.runner.broadcaster.invalidate()  # the snapshot gains each player's baseline
 
     # -- reports ---------------------------------------------------------------------------------------
     async def build_for(self, period: str) -> dict[str, Any] | None:

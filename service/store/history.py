@@ -15,9 +15,10 @@ from contextlib import closing
 from pathlib import Path
 from typing import Any
 
+from pacewire.engine.baseline import STORED, Baselines, PlayerBaseline, block_label, make_band, robust_band
 from pacewire.errors import PacewireError
 from pacewire.reports.alerts import Band
-from pacewire.store.record import MatchRecord, robust_band
+from pacewire.store.record import MatchRecord
 
 BASELINE_SOURCES = ("live", "replay")  # live against live: never post-match figures
 
@@ -171,3 +172,76 @@ def baselines(path: str | Path, player_ids: Iterable[str], last_n: int, min_minu
                 med, spread = robust_band(vals)
                 per.setdefault(scope, {})[fig] = Band(round(med, 3), round(spread, 3), len(vals))
     return out
+
+
+def _qualifying(conn: sqlite3.Connection, pid: str, last_n: int, min_minutes: float,
+                exclude_key: str | None) -> list[tuple[str, float | None]]:
+    """(match key, kick-off) of a player's last ``last_n`` live or replayed matches with at least
+    ``min_minutes`` played, newest first."""
+    marks = ",".join("?" * len(BASELINE_SOURCES))
+    return [(k, t) for k, t in conn.execute(
+        f"SELECT m.match_key, m.kickoff_t FROM players p JOIN matches m ON m.match_key = p.match_key "
+        f"WHERE p.player_id = ? AND p.minutes >= ? AND m.source IN ({marks}) AND m.match_key IS NOT ? "
+        f"ORDER BY COALESCE(m.kickoff_t, m.stored_at) DESC, m.match_key DESC LIMIT ?",
+        (pid, min_minutes, *BASELINE_SOURCES, exclude_key, last_n))]
+
+
+def _rates(conn: sqlite3.Connection, pid: str, keys: list[str]) -> dict[str, dict[str, dict[str, float]]]:
+    """scope ("match" or a block label) -> rate -> match key -> value: each block's stored totals ÷ its
+    stored minutes on the pitch; the match's from the sum of its blocks."""
+    want = sorted({f for figs in STORED.values() for f in figs} | {"minutes"})
+    per: dict[tuple[str, str], dict[str, float]] = {}  # (key, block label) -> figure -> value
+    for key, scope, fig, value in conn.execute(
+            f"SELECT match_key, scope, figure, value FROM figures WHERE player_id = ? AND scope LIKE 'block!_%' "
+            f"ESCAPE '!' AND match_key IN ({','.join('?' * len(keys))}) AND figure IN ({','.join('?' * len(want))})",
+            (pid, *keys, *want)):
+        per.setdefault((key, block_label(scope)), {})[fig] = value
+    match: dict[str, dict[str, float]] = {}
+    for (key, _), figs in per.items():
+        acc = match.setdefault(key, {})
+        for f, v in figs.items():
+            acc[f] = acc.get(f, 0.0) + v
+    out: dict[str, dict[str, dict[str, float]]] = {}
+    scoped = [*per.items(), *(((k, "match"), f) for k, f in match.items())]
+    for (key, label), figs in scoped:
+        minutes = figs.get("minutes") or 0.0
+        if minutes <= 0:
+            continue
+        for rate, names in STORED.items():
+            if all(n in figs for n in names):
+                out.setdefault(label, {}).setdefault(rate, {})[key] = sum(figs[n] for n in names) / minutes
+    return out
+
+
+def player_baselines(path: str | Path, player_ids: Iterable[str], last_n: int, min_minutes: float, required: int,
+                     spreads: float, block_min: int = 15, exclude_key: str | None = None) -> Baselines:
+    """Every player's baseline over his last ``last_n`` live or replayed matches with at least
+    ``min_minutes`` played: bands (:func:`pacewire.engine.baseline.make_band`) of each rate for the
+    match and each 15-minute block, once ``required`` matches qualify; a block's band needs ``required``
+    matches with minutes in that block. One read of the history, at a match's start."""
+    players: dict[str, PlayerBaseline] = {}
+    if not Path(path).exists():  # no history yet: nobody has a match, and no database is made for it
+        return Baselines({pid: PlayerBaseline(0, required) for pid in player_ids}, block_min)
+    with closing(connect(path)) as conn:
+        for pid in player_ids:
+            quals = _qualifying(conn, pid, last_n, min_minutes, exclude_key)
+            if len(quals) < required:
+                players[pid] = PlayerBaseline(len(quals), required)
+                continue
+            order = [k for k, _ in quals]
+            bands, formed = {}, {}
+            for scope, per_rate in _rates(conn, pid, order).items():
+                keys = [k for k in order if all(k in v for v in per_rate.values())]
+                if len(keys) < required:
+                    continue
+                bands[scope] = {r: make_band([v[k] for k in keys], spreads) for r, v in per_rate.items()}
+                formed[scope] = tuple(keys)
+            players[pid] = PlayerBaseline(len(quals), required, tuple(quals), bands, formed)
+    return Baselines(players, block_min)
+
+
+def alert_bands(b: Baselines) -> dict[str, dict[str, dict[str, Band]]]:
+    """The baseline alert rule's view of the same bands: player -> ``block_0_15`` ... -> rate -> Band."""
+    return {pid: {f"block_{scope.replace('-', '_')}": {r: Band(x.median, x.spread, x.n) for r, x in per.items()}
+                  for scope, per in pb.bands.items() if scope != "match"}
+            for pid, pb in b.players.items()}
