@@ -18,19 +18,32 @@ def db_path(data: str | Path, settings: Settings) -> Path:
     return Path(data) / settings.history.path
 
 
+def _refuse_post_processed(folder: str) -> int:
+    """Post-processed data is kept out of the history unless asked: say why."""
+    print(f"pacewire: {folder} holds post-processed data (its meta does not say the tracking was collected "
+          "live): such figures run a few percent above live ones, so a live match compared with them would show "
+          "drops that are not there. Baselines use live and replayed matches only. Pass --allow-post-processed "
+          "to store it anyway as source 'import' (listed, never in a baseline), or --source replay if it is a "
+          "recording of live data.", file=sys.stderr)
+    return 2
+
+
 def _import(args: argparse.Namespace, settings: Settings) -> int:
     from pacewire.engine.blocks import block_series
     from pacewire.engine.snapshot import build_snapshot
     from pacewire.reports.offline import run_recording, source_of
     from pacewire.wire.cdf import SetupError
-    from pacewire.wire.recording import RecordingError
+    from pacewire.wire.recording import RecordingError, open_recording
 
     try:
+        meta = open_recording(args.folder).meta  # decide before running the engine over the whole match
+        source = args.source or ("replay" if source_of(meta) == "replay" else "import")
+        if source == "import" and not args.allow_post_processed:
+            return _refuse_post_processed(args.folder)
         state, rec, _, _ = run_recording(args.folder, settings, progress=not args.quiet)
     except (RecordingError, SetupError, OSError) as exc:
         print(f"pacewire: {exc}", file=sys.stderr)
         return 2
-    source = args.source or source_of(rec.meta)
     snap = build_snapshot(state)
     record = match_record(snap, block_series(state, settings.history.block_min, "merge"), source,
                           key=args.key, kickoff_t=state.periods[0].t0 if state.periods else None,
@@ -55,7 +68,8 @@ def _list(args: argparse.Namespace, settings: Settings) -> int:
                            for t in r["teams"])
         mins = int(r["match_time_s"] // 60)
         print(f"{r['match_key']:<24.24} {r['source']:<8} {kick:<17} {mins:>5}' {r['played']:>6}  {teams}")
-    print(f"{len(rows)} match{'es' if len(rows) != 1 else ''} in {path}; baselines use live and replay only")
+    print(f"{len(rows)} match{'es' if len(rows) != 1 else ''} in {path}; baselines use live and replay only "
+          "(import: post-processed data, never in a baseline)")
     return 0
 
 
@@ -76,8 +90,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         if name == "import":
             q.add_argument("folder", help="a CDF folder (meta.json, match.json, tracking.jsonl[.gz])")
             q.add_argument("--as", dest="key", help="store under this name instead of the match id")
-            q.add_argument("--source", choices=("replay", "offline"),
-                           help="where the figures came from (default: replay when the meta says the data was "
-                                "collected live, offline otherwise)")
+            q.add_argument("--source", choices=("replay", "import"),
+                           help="where the figures came from: replay (a recording of live data) or import "
+                                "(post-processed data); default: replay when the meta says the data was collected "
+                                "live, import otherwise")
+            q.add_argument("--allow-post-processed", action="store_true",
+                           help="store post-processed data (source import); it is listed but never used in a "
+                                "baseline")
             q.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=cli_history)

@@ -28,7 +28,7 @@ MIGRATIONS: tuple[str, ...] = (
     CREATE TABLE matches (
         match_key    TEXT PRIMARY KEY,
         match_id     TEXT NOT NULL,
-        source       TEXT NOT NULL CHECK (source IN ('live', 'replay', 'offline')),
+        source       TEXT NOT NULL CHECK (source IN ('live', 'replay', 'offline')),  -- version 1's names
         kickoff_t    REAL,
         match_time_s REAL NOT NULL,
         frames       INTEGER NOT NULL,
@@ -65,6 +65,25 @@ MIGRATIONS: tuple[str, ...] = (
     CREATE INDEX players_by_player ON players (player_id, minutes);
     CREATE INDEX matches_by_time ON matches (source, kickoff_t);
     """,
+    # 2: sources named live | replay | import ('offline' becomes 'import': post-processed data); SQLite
+    # cannot alter a CHECK, so the table is rebuilt with every row (foreign keys off meanwhile, see migrate)
+    """
+    CREATE TABLE matches_v2 (
+        match_key    TEXT PRIMARY KEY,
+        match_id     TEXT NOT NULL,
+        source       TEXT NOT NULL CHECK (source IN ('live', 'replay', 'import')),
+        kickoff_t    REAL,
+        match_time_s REAL NOT NULL,
+        frames       INTEGER NOT NULL,
+        origin       TEXT NOT NULL,
+        stored_at    REAL NOT NULL
+    );
+    INSERT INTO matches_v2 SELECT match_key, match_id, CASE source WHEN 'offline' THEN 'import' ELSE source END,
+        kickoff_t, match_time_s, frames, origin, stored_at FROM matches;
+    DROP TABLE matches;
+    ALTER TABLE matches_v2 RENAME TO matches;
+    CREATE INDEX matches_by_time ON matches (source, kickoff_t);
+    """,
 )
 VERSION = len(MIGRATIONS)
 
@@ -96,9 +115,25 @@ def migrate(conn: sqlite3.Connection) -> int:
     if start > VERSION:
         raise HistoryError(f"the history database is at schema version {start}, newer than this pacewire "
                            f"(version {VERSION}): upgrade pacewire or use another database")
-    for v in range(start, VERSION):
-        # one transaction: the tables and the version bump land together or not at all
-        conn.executescript(f"BEGIN IMMEDIATE; {MIGRATIONS[v]}; PRAGMA user_version = {v + 1}; COMMIT;")
+    if start == VERSION:
+        return start
+    # a rebuilt parent table must not cascade deletes into its children; the check below stands in for them
+    conn.execute("PRAGMA foreign_keys = OFF")
+    try:
+        for v in range(start, VERSION):
+            # one transaction: the tables and the version bump land together or not at all
+            try:
+                conn.executescript(f"BEGIN IMMEDIATE; {MIGRATIONS[v]};")
+                if conn.execute("PRAGMA foreign_key_check").fetchone() is not None:
+                    raise HistoryError(f"migration to version {v + 1} would break a reference: nothing changed")
+                conn.execute(f"PRAGMA user_version = {v + 1}")
+                conn.execute("COMMIT")
+            except BaseException:
+                if conn.in_transaction:
+                    conn.execute("ROLLBACK")
+                raise
+    finally:
+        conn.execute("PRAGMA foreign_keys = ON")
     return start
 
 

@@ -14,7 +14,7 @@ from pacewire.engine import exertion as ex
 from pacewire.engine.baseline import robust_band  # noqa: F401  (the history's spread; re-exported)
 from pacewire.engine.blocks import BlockSeries
 
-SOURCES = ("live", "replay", "offline")
+SOURCES = ("live", "replay", "import")  # import: post-processed data, never in a baseline
 TOTALS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",
           "high_power_m", "m_per_min", "metabolic_power_wkg", "minutes", "max_speed_ms", "coverage")
 PEAK = ("distance_m", "hsr_m", "sprint_m", "m_per_min", "start_s")
@@ -27,7 +27,7 @@ _BLOCK_COLS = (("distance_m", ex.DIST), ("hsr_m", ex.HSR), ("sprint_m", ex.SPRIN
 class MatchRecord:
     key: str  # the history's name for the match (the match id unless imported under another)
     match_id: str
-    source: str  # live | replay | offline
+    source: str  # live | replay | import
     kickoff_t: float | None  # epoch s of the first frame
     match_time_s: float
     frames: int
