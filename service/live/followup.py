@@ -34,6 +34,7 @@ from pacewire.engine.types import PERIOD_INDEX, Roster
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.recorder import write_json_atomic
 from pacewire.reports.alerts import evaluate_state, new_alerter, rules_from_settings
+from pacewire.reports.baseline import comparison
 from pacewire.reports.builder import ReportInput, build_report, list_reports, report_kind
 from pacewire.reports.offline import report_input, state_until
 from pacewire.store import history
@@ -266,8 +267,12 @@ class Followup:
         # nothing shared with the live state
         inp = replace(inp, snapshot=orjson.loads(orjson.dumps(inp.snapshot)), alerts=self.alerts(per.index))
         blocks = None
-        if kind == "full_time" and self.settings.history.enabled:
+        if self.settings.history.enabled and (kind == "full_time" or self.baselines is not None):
             blocks = block_series(state_until(base, per.index), self.settings.history.block_min, "merge")
+            if self.baselines is not None:
+                inp = replace(inp, against_own=comparison(self.baselines, blocks))
+            if kind != "full_time":
+                blocks = None  # the history stores a match at full time only
         kickoff = state.periods[0].t0
         entry = await asyncio.to_thread(build_report, inp, self.root, self.settings.reports.low_coverage,
                                         {"basis": list(key)})

@@ -22,7 +22,8 @@ from pacewire.engine import exertion as ex
 from pacewire.engine.blocks import BlockSeries
 from pacewire.reports import charts
 from pacewire.reports.alert_log import alerts_csv
-from pacewire.reports.page import page, zone_names
+from pacewire.reports.baseline import baseline_section, with_comparison
+from pacewire.reports.page import Played, page, zone_names
 from pacewire.reports.phases import phases_section
 from pacewire.reports.table import has_heart_rate, player_order, to_csv, tracked_teams
 from pacewire.wire.messages import envelope
@@ -45,6 +46,8 @@ class ReportInput:
     source: str  # live | replay | offline: where the figures came from
     created_at: float  # epoch s
     alerts: list[dict[str, Any]] = field(default_factory=list)  # raised up to the report, oldest first
+    # each player's blocks against his own past matches (pacewire.reports.baseline.comparison); None: no history
+    against_own: dict[str, dict[str, Any]] | None = None
 
 
 def _write_atomic(path: Path, data: bytes) -> None:
@@ -123,13 +126,18 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.9,
     rate = ser.per_min(ex.DIST)
     per_min = {pid: [None if not np.isfinite(v) else round(float(v), 1) for v in rate[:, i]]
                for i, pid in enumerate(ser.player_ids)}
+    own = inp.against_own
+
+    def more(teams: list[tuple[str, dict[str, Any]]], played: dict[str, Played]) -> list[str]:
+        return phases_section(teams, played) + (baseline_section(teams, played, own) if own else [])
+
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,
                 [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min,
-                inp.alerts, phases_section)
+                inp.alerts, more)
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
                    players=snap["players"], teams=snap["teams"], health=snap["health"], alerts=inp.alerts)
     _write_atomic(folder / "report.html", text.encode("utf-8"))
-    _write_atomic(folder / "report.csv", to_csv(snap).encode("utf-8"))
+    _write_atomic(folder / "report.csv", to_csv(with_comparison(snap, own) if own else snap).encode("utf-8"))
     _write_atomic(folder / "alerts.csv", alerts_csv(snap, inp.alerts).encode("utf-8"))
     _write_atomic(folder / "snapshot.json", orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
     entry = {"kind": inp.kind, "created_at": round(inp.created_at, 3), "match_time_s": snap["match_time_s"],

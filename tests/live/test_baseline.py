@@ -153,3 +153,40 @@ def test_the_alert_rule_reads_the_same_bands(served):
             # the rule's limit at its default spreads (1.5) is the published low edge
             assert band.median - SPREADS * band.spread == pytest.approx(per["m_per_min"]["low"], abs=0.005 + 1e-9)
             assert np.isclose(band.median, per["m_per_min"]["median"], atol=0.005 + 1e-9)
+
+
+def test_the_report_sets_each_block_against_the_band_and_names_its_matches(served):
+    db, snap, srv = served
+    import csv
+    import io
+
+    for kind, blocks in (("half_time", ["0-15"]), ("full_time", ["0-15", "45-60"])):
+        html = httpx.get(f"{srv.http}/api/matches/{MATCH}/reports/{kind}/report.html", timeout=10).text
+        assert 'id="against-own"' in html and "Against own recent matches" in html
+        assert "Matches behind the bands" in html and "s3, s2, s1" in html
+        rows = list(csv.DictReader(io.StringIO(
+            httpx.get(f"{srv.http}/api/matches/{MATCH}/reports/{kind}/report.csv", timeout=10).text)))
+        by_id = {r["player_id"]: r for r in rows}
+        checked = 0
+        for pid, p in snap["players"].items():
+            b = p["baseline"]
+            r = by_id[pid]
+            if "bands" not in b:
+                if p["minutes"] and kind == "full_time":  # a substitute may not have played the half
+                    assert r["against_own.history_matches"] == str(b["matches"]) and r["against_own.required"] == "3"
+                continue
+            for label in blocks:
+                # the CSV names the matches behind the block's band, as the snapshot does
+                assert r[f"against_own.{label}.matches"].split() == [m["match_id"] for m in b["formed_by"][label]]
+                band = b["bands"]["blocks"][label]["m_per_min"]
+                assert float(r[f"against_own.{label}.m_per_min.median"]) == pytest.approx(band["median"], abs=0.011)
+                assert float(r[f"against_own.{label}.m_per_min.low"]) == pytest.approx(band["low"], abs=0.011)
+                value = stored_rates(db, pid, [MATCH])[label]["m_per_min"][0]  # this match's block, by hand
+                assert float(r[f"against_own.{label}.m_per_min.value"]) == pytest.approx(value, abs=0.005 + value * 1e-3)
+                below = r[f"against_own.{label}.m_per_min.below"] == "true"
+                assert below == (float(r[f"against_own.{label}.m_per_min.value"]) < band["low"]) or \
+                    abs(value - band["low"]) < 0.02
+                checked += 1
+        assert checked >= 14 * len(blocks)
+        if kind == "half_time":
+            assert not any(k.startswith("against_own.45-60") for k in rows[0])  # the half only
