@@ -18,6 +18,7 @@ from typing import Any
 from pacewire.engine.baseline import STORED, Baselines, PlayerBaseline, block_label, make_band, robust_band
 from pacewire.errors import PacewireError
 from pacewire.reports.alerts import Band
+from pacewire.store.deficit import Deficit
 from pacewire.store.record import MatchRecord
 
 BASELINE_SOURCES = ("live", "replay")  # live against live: never post-match figures
@@ -83,6 +84,22 @@ MIGRATIONS: tuple[str, ...] = (
     DROP TABLE matches;
     ALTER TABLE matches_v2 RENAME TO matches;
     CREATE INDEX matches_by_time ON matches (source, kickoff_t);
+    """,
+    # 3: how far live ran below post-processed figures (pacewire history compare), per comparison and figure
+    """
+    CREATE TABLE live_deficits (
+        compare_key TEXT NOT NULL,
+        match_id    TEXT NOT NULL,
+        live_origin TEXT NOT NULL,
+        post_origin TEXT NOT NULL,
+        position    INTEGER NOT NULL,
+        figure      TEXT NOT NULL,
+        median_pct  REAL NOT NULL,
+        spread_pct  REAL NOT NULL,
+        players     INTEGER NOT NULL,
+        stored_at   REAL NOT NULL,
+        PRIMARY KEY (compare_key, figure)
+    ) WITHOUT ROWID;
     """,
 )
 VERSION = len(MIGRATIONS)
@@ -280,3 +297,28 @@ def alert_bands(b: Baselines) -> dict[str, dict[str, dict[str, Band]]]:
     return {pid: {f"block_{scope.replace('-', '_')}": {r: Band(x.median, x.spread, x.n) for r, x in per.items()}
                   for scope, per in pb.bands.items() if scope != "match"}
             for pid, pb in b.players.items()}
+
+
+def save_deficits(path: str | Path, key: str, match_id: str, live_origin: str, post_origin: str,
+                  rows: list[Deficit]) -> None:
+    """Store one comparison of a live recording with its post-processed twin, replacing any under ``key``."""
+    now = time.time()
+    with closing(connect(path)) as conn:
+        conn.execute("BEGIN IMMEDIATE")
+        try:
+            conn.execute("DELETE FROM live_deficits WHERE compare_key = ?", (key,))
+            conn.executemany("INSERT INTO live_deficits VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                             [(key, match_id, live_origin, post_origin, i, d.figure, d.median_pct, d.spread_pct,
+                               d.players, now) for i, d in enumerate(rows)])
+            conn.execute("COMMIT")
+        except BaseException:
+            conn.execute("ROLLBACK")
+            raise
+
+
+def stored_deficits(path: str | Path, key: str) -> list[Deficit]:
+    """One stored comparison, in the order it was stored."""
+    with closing(connect(path)) as conn:
+        return [Deficit(f, m, s, n) for f, m, s, n in conn.execute(
+            "SELECT figure, median_pct, spread_pct, players FROM live_deficits WHERE compare_key = ? "
+            "ORDER BY position", (key,))]
