@@ -85,14 +85,15 @@ def with_comparison(snapshot: dict[str, Any], comp: dict[str, dict[str, Any]]) -
 
 
 def _cell(scope: dict[str, Any] | None) -> tuple[str, str]:
-    """One block's cell: m/min against the band (median and edges); ▾ marks a rate under the low edge."""
+    """One block's cell: m/min, the m/min band (low-high) under it, and ▾ with the rates under their bands."""
     if scope is None:
         return "–", ""
     low = [RATE_WORDS[r] for r in METRICS if (scope.get(r) or {}).get("below")]
     d = scope.get("m_per_min") or {}
-    text = f'{num(d.get("value"), 1)} <span class="n">({num(d.get("low"), 1)}–{num(d.get("high"), 1)})</span>'
+    text = (f'{num(d.get("value"), 1)}{" ▾" if low else ""}<br><span class="n">{num(d.get("low"), 0)}–'
+            f'{num(d.get("high"), 0)}</span>')
     if low:
-        text += f' <b class="below">▾ {esc(", ".join(low))}</b>'
+        text += f'<br><b class="below">▾ {esc(", ".join(low))}</b>'
     return text, "below" if low else ""
 
 
@@ -103,8 +104,8 @@ def baseline_section(teams: list[tuple[str, dict[str, Any]]], played_by_team: di
         return []
     labels = sorted({k for row in comp.values() for k in row if k[:1].isdigit()}, key=lambda k: int(k.split("-")[0]))
     parts = ['<section id="against-own"><h2>Against own recent matches <span class="n">m/min per block of the match '
-             "clock against the player's band over his own last live and replayed matches (median ∓ 1.5 robust "
-             "spreads); ▾ marks a rate under the band</span></h2>"]
+             "clock; under it the player's band over his own last live and replayed matches (median ∓ 1.5 robust "
+             "spreads); ▾ marks rates under their band</span></h2>"]
     for tid, t in teams:
         rows = []
         for pid, p in played_by_team.get(tid, []):
@@ -113,7 +114,7 @@ def baseline_section(teams: list[tuple[str, dict[str, Any]]], played_by_team: di
                 continue
             cells = [(num(p["jersey_number"]), ""), (esc(p.get("name") or pid), "l")]
             if "history_matches" in row:
-                cells += [(f'{row["history_matches"]} of {row["required"]} matches needed: no band', "l")]
+                cells += [(f'no band: {row["history_matches"]} of {row["required"]} matches', "l")]
                 cells += [("", "")] * len(labels)
             else:
                 cells += [_cell(row.get("match"))] + [_cell(row.get(k)) for k in labels]
@@ -121,7 +122,7 @@ def baseline_section(teams: list[tuple[str, dict[str, Any]]], played_by_team: di
         if rows:
             parts.append(f'<h3>{esc(t["name"] or tid)}</h3>')
             parts.append(_table([("#", ""), ("player", "l"), ("so far", "")] + [(k, "") for k in labels], rows))
-    parts.append(_sources(comp, labels, [pp for tid, _ in teams for pp in played_by_team.get(tid, [])]))
+            parts.append(_sources(comp, labels, played_by_team.get(tid, [])))
     parts.append('<p class="note">Bands come from live and replayed matches only (post-processed figures run a few '
                  "percent higher); a block's band needs enough matches with minutes in it. Stoppage time counts in "
                  "the half's last block.</p></section>")
@@ -143,4 +144,4 @@ def _sources(comp: dict[str, dict[str, Any]], labels: list[str], played: Played)
     items = "".join(f"<li>{esc(', '.join(m.split()))}: {esc(', '.join(sorted(scopes)))} "
                     f'<span class="n">({esc(" ".join(who))})</span></li>'
                     for m, (scopes, who) in sorted(sets.items()))
-    return f'<h3>Matches behind the bands</h3><ul class="sources">{items}</ul>' if items else ""
+    return f'<p class="note">Matches behind the bands:</p><ul class="sources">{items}</ul>' if items else ""
