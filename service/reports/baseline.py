@@ -55,7 +55,10 @@ def _scope(pb: PlayerBaseline, scope: str, values: np.ndarray, minutes: float) -
 
 def comparison(baselines: Baselines, series: BlockSeries) -> dict[str, dict[str, Any]]:
     """Per player: ``{block label | "match": {minutes, matches, rate: {value, median, low, high, ratio, below}}}``
-    for his blocks with a band; a player without enough history gets ``{history_matches, required}``."""
+    for his blocks with a band; a player without enough history gets ``{history_matches, required}``. Empty
+    when no player has a band (no section, no columns: the report then equals one built offline)."""
+    if not any(pb.enough for pb in baselines.players.values()):
+        return {}
     per_block, so_far, minutes = _rates(series)
     labels = [block_label(k) for k in series.keys]
     out: dict[str, dict[str, Any]] = {}
