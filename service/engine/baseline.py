@@ -135,7 +135,8 @@ def _versus(bands: dict[str, Band], values: np.ndarray) -> dict[str, Any] | None
         v = float(values[j])
         if b is None or not np.isfinite(v) or b.median <= 0:
             continue
-        out[metric] = {"value": _r(v), "ratio": _r(v / b.median), "below": bool(v < b.low)}
+        # no value beside the ratio: every rate's value changes every second, and deltas would carry it
+        out[metric] = {"ratio": _r(v / b.median), "below": bool(v < b.low)}
     return out or None
 
 

@@ -207,9 +207,8 @@ class BaselineBands(_Shape):
 
 
 class VersusRate(_Shape):
-    value: float = Field(description="This match's rate, per minute on the pitch, to 0.01.")
-    ratio: float = Field(description="value / the band's median, to 0.01.")
-    below: bool = Field(description="value is under the band's low edge.")
+    ratio: float = Field(description="This match's rate (per minute on the pitch) / the band's median, to 0.01.")
+    below: bool = Field(description="This match's rate is under the band's low edge.")
 
 
 class VersusBaseline(_Shape):
