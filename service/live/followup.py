@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import sqlite3
 import time
 from dataclasses import replace
 from pathlib import Path
@@ -222,12 +223,10 @@ class Followup:
         snapshot's ``baseline`` and the baseline alert rule read the same bands."""
         h = self.settings.history
         ids = [p.id for p in self.runner.roster.players]
-        if not h.enabled:
-            return
-        try:
+        try:  # read even when this service stores nothing itself ([history] enabled = false), as before
             b = await asyncio.to_thread(history.player_baselines, self.db, ids, h.baseline_matches, h.min_minutes,
                                         h.min_matches, h.band_spreads, h.block_min, self.runner.match_id)
-        except (history.HistoryError, OSError) as exc:
+        except (history.HistoryError, OSError, sqlite3.Error) as exc:
             log.error("%s: no baselines: %s", self.runner.match_id, exc)
             return
         self.baselines = b
@@ -267,12 +266,13 @@ class Followup:
         # nothing shared with the live state
         inp = replace(inp, snapshot=orjson.loads(orjson.dumps(inp.snapshot)), alerts=self.alerts(per.index))
         blocks = None
-        if self.settings.history.enabled and (kind == "full_time" or self.baselines is not None):
+        store = kind == "full_time" and self.settings.history.enabled  # the history keeps a match at full time
+        if store or self.baselines is not None:
             blocks = block_series(state_until(base, per.index), self.settings.history.block_min, "merge")
             if self.baselines is not None:
                 inp = replace(inp, against_own=comparison(self.baselines, blocks))
-            if kind != "full_time":
-                blocks = None  # the history stores a match at full time only
+            if not store:
+                blocks = None
         kickoff = state.periods[0].t0
         entry = await asyncio.to_thread(build_report, inp, self.root, self.settings.reports.low_coverage,
                                         {"basis": list(key)})
