@@ -264,6 +264,8 @@ class History(_Section):
     baseline_matches: int = Field(ge=1, le=50)
     min_minutes: float = Field(ge=0, le=150)
     block_min: int = Field(ge=1, le=45)
+    min_matches: int = Field(ge=1, le=50)
+    band_spreads: float = Field(ge=0, le=10)
 
 
 class Settings(_Section):

@@ -54,7 +54,7 @@ Modules, in the order the match is made
 * ``wearables``  the wearables variant: units, heart rate and its faults, GNSS
 * ``documents``  meta.json and match.json
 * ``lines``      the JSON lines of tracking.jsonl and hr.jsonl
-* ``folder``     write_match: the recording folder on disk
+* ``folder``     write_match: the recording folder on disk; write_twin: its post-processed twin
 * ``stats``      per-role movement statistics (``--stats``)
 * ``positions``  the engine's figures of a written match by position (what the tests check)
 * ``cli``        ``pacewire synth``
@@ -66,12 +66,12 @@ byte-identical files.
 
 from pacewire.replay.synth.cli import main
 from pacewire.replay.synth.documents import build_meta, build_sheet
-from pacewire.replay.synth.folder import write_match
+from pacewire.replay.synth.folder import write_match, write_twin
 from pacewire.replay.synth.match import SynthMatch, simulate_match
 from pacewire.replay.synth.stats import movement_stats
 from pacewire.replay.synth.wearables import plan_wearables
 
 __all__ = [
-    "write_match", "simulate_match", "plan_wearables", "movement_stats", "main", "SynthMatch", "build_meta",
-    "build_sheet",
+    "write_match", "write_twin", "simulate_match", "plan_wearables", "movement_stats", "main", "SynthMatch",
+    "build_meta", "build_sheet",
 ]

@@ -8,7 +8,7 @@ import time
 
 import orjson
 
-from pacewire.replay.synth.folder import write_match
+from pacewire.replay.synth.folder import write_match, write_twin
 from pacewire.replay.synth.match import simulate_match
 from pacewire.replay.synth.stats import movement_stats
 
@@ -40,6 +40,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--wearables", action="store_true",
                    help="the one-team GNSS + heart-rate variant (docs/wearables.md): home players only with "
                         "lat/long, no ball, hr.jsonl")
+    p.add_argument("--twin", type=pathlib.Path, metavar="FOLDER",
+                   help="also write the match's post-processed twin there: the same movement with no feed fault "
+                        "and no artefact, its meta saying post_match (for pacewire history compare)")
     p.add_argument("--stats", action="store_true", help="also print per-role movement statistics")
     return p
 
@@ -59,6 +62,9 @@ def main(argv: list[str] | None = None) -> int:
     kind = "the wearables variant in " if args.wearables else ""
     print(f"wrote {kind}{folder} ({args.minutes:g} min at {args.fps} fps, seed {args.seed}, {n_faults} faults) "
           f"in {time.perf_counter() - t0:.1f} s")
+    if args.twin is not None:
+        twin = write_twin(args.twin, minutes=args.minutes, fps=args.fps, seed=args.seed, compress=not args.no_compress)
+        print(f"wrote the post-processed twin {twin} (no feed faults, no artefacts, post_match)")
     if args.stats:
         stats = movement_stats(simulate_match(args.minutes, args.fps, args.seed))
         for role, s in sorted(stats.items()):

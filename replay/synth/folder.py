@@ -90,6 +90,20 @@ def write_match(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int
     return out
 
 
+def write_twin(out: pathlib.Path, minutes: float = 95, fps: int = 25, seed: int = 0,
+               compress: bool = True) -> pathlib.Path:
+    """The provider's post-processed twin of the match ``write_match`` writes with the same minutes,
+    fps and seed: the same movement, with no dropout, outage or other feed fault and no tracking
+    artefact (full coverage), and a meta that says it was collected after the match
+    (``meta.tracking.collection_timing`` = ``post_match``): what ``pacewire history compare`` sets
+    a live recording against."""
+    folder = write_match(out, minutes, fps, seed, faults=False, compress=compress)
+    meta = orjson.loads((folder / "meta.json").read_bytes())
+    meta["meta"]["tracking"]["collection_timing"] = "post_match"
+    _write_json(folder / "meta.json", meta)
+    return folder
+
+
 def feed_profile(broadcast: bool, gnss: bool) -> str | None:
     """The feed profile the artefacts switched on stand for (written as meta.tracking.feed_profile,
     a pacewire extension), None when none is: the recording then reads as the config says."""

@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 
 from pacewire.engine import exertion as ex
+from pacewire.engine.baseline import Baselines
 from pacewire.engine.heart import HR_N
 from pacewire.engine.match import CLOCK_START_MIN, CONTEXTS, MatchState
 from pacewire.engine.period import Period
@@ -481,12 +482,14 @@ def build_health(state: MatchState, now: float | None, extra_reasons: list[dict[
 
 
 def build_snapshot(state: MatchState, now: float | None = None,
-                   extra_reasons: list[dict[str, str]] | None = None) -> dict[str, Any]:
+                   extra_reasons: list[dict[str, str]] | None = None,
+                   baselines: Baselines | None = None) -> dict[str, Any]:
     """The snapshot body plus ``match_time_s`` and ``period`` (envelope fields).
 
     ``now``: wall-clock seconds for health (live); None evaluates at the last
     frame's time (offline: no arrival lag is known). ``extra_reasons``: health
-    reasons the caller adds (``{"code", "message"}``).
+    reasons the caller adds (``{"code", "message"}``). ``baselines``: the
+    players' bands from past matches (``players.{id}.baseline``), or None.
     """
     roster = state.roster
     total, zones, poss, onp, vmax = _match_sums(state)
@@ -504,7 +507,9 @@ def build_snapshot(state: MatchState, now: float | None = None,
     poss_rows = _possession_rows(cache, poss, state.params.precision) if state.has_ball else None
     phases = state.phases()
     phase_rows = _player_phase_rows(state, cache, phases)
-    players = _players(state, cache, on_pitch, speed, figs, windows, per_figs, poss_rows, hr_rows, phase_rows)
+    base_rows = _baseline_rows(state, cache, baselines)
+    players = _players(state, cache, on_pitch, speed, figs, windows, per_figs, poss_rows, hr_rows, phase_rows,
+                       base_rows)
     teams = _teams(state, total, onp, onp_s, team_last, phases)
     health = _health(state, now, extra_reasons, on_pitch, cov)
     return {
@@ -575,9 +580,23 @@ def _possession_rows(cache: dict[Any, Any], poss: np.ndarray, prec: Precision) -
     return _reuse(cache, "possession", flat.astype(float), poss_build)
 
 
+def _baseline_rows(state: MatchState, cache: dict[Any, Any], baselines: Baselines | None
+                   ) -> list[dict[str, Any] | None] | None:
+    """Each player's ``baseline`` (roster order), rebuilt when a second completes or the bands change."""
+    if baselines is None:
+        return None
+    key = (id(baselines), tuple((p.index, p.bins.complete, p.bins.end_slot if p.ended else -1) for p in state.periods))
+    hit = cache.get("baseline")
+    if hit is not None and hit[0] == key and hit[2] is baselines:
+        return hit[1]
+    rows = baselines.bodies(state)
+    cache["baseline"] = (key, rows, baselines)
+    return rows
+
+
 def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], speed: list[float | None], figs: _Rows,
              windows: _Rows, per_figs: _PeriodRows, poss_rows: _Rows | None, hr_rows: _Rows | None,
-             phase_rows: _Rows) -> dict[str, Any]:
+             phase_rows: _Rows, base_rows: list[dict[str, Any] | None] | None = None) -> dict[str, Any]:
     """The snapshot's ``players``. A player whose every part is the object of the last snapshot keeps
     that player object (a diff skips it)."""
     roster = state.roster
@@ -587,7 +606,8 @@ def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], spe
     period_names = [name for name, _ in per_figs]
     for i, pl in enumerate(roster.players):
         parts = (figs[i], windows[i], *(pf[i] for _, pf in per_figs),
-                 None if poss_rows is None else poss_rows[i], phase_rows[i])
+                 None if poss_rows is None else poss_rows[i], phase_rows[i],
+                 None if base_rows is None else base_rows[i])
         old = prev.get(pl.id) if prev is not None else None
         if (hr_rows is None and old is not None and old[0][0] == on_pitch[i] and old[0][1] == speed[i]
                 and old[0][2] == period_names and len(old[0][3]) == len(parts)
@@ -611,6 +631,8 @@ def _players(state: MatchState, cache: dict[Any, Any], on_pitch: list[bool], spe
             obj["phases"] = phase_rows[i]["phases"]
             if hr_rows is not None:
                 obj.update(hr_rows[i])
+            if base_rows is not None and base_rows[i] is not None:
+                obj["baseline"] = base_rows[i]
         made[pl.id] = ((on_pitch[i], speed[i], period_names, parts), obj)
         players[pl.id] = obj
     cache["players"] = made

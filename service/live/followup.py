@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import sqlite3
 import time
 from dataclasses import replace
 from pathlib import Path
@@ -27,12 +28,14 @@ import orjson
 
 from pacewire.analyze import FiguresIndex
 from pacewire.config import Settings
+from pacewire.engine.baseline import Baselines
 from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
 from pacewire.engine.types import PERIOD_INDEX, Roster
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.recorder import write_json_atomic
 from pacewire.reports.alerts import evaluate_state, new_alerter, rules_from_settings
+from pacewire.reports.baseline import comparison
 from pacewire.reports.builder import ReportInput, build_report, list_reports, report_kind
 from pacewire.reports.offline import report_input, state_until
 from pacewire.store import history
@@ -81,6 +84,7 @@ class Followup:
         # figures at an earlier match time (export ?at=): checkpoints over the recording, warmed at each report
         self.rewind = FiguresIndex(runner.folder, s, runner.match_id)
         self.alerter.set_budgets(self._initial_budgets())
+        self.baselines: Baselines | None = None  # set once at the match's start (watch)
 
     # -- budgets -----------------------------------------------------------------------------------
     @property
@@ -215,15 +219,20 @@ class Followup:
         await self._load_baselines()
 
     async def _load_baselines(self) -> None:
-        if not any(isinstance(r, DropOffBaseline) for r in self.alerter.rules) or not self.db.exists():
-            return
+        """Bands from the history, once per match start (the history does not change mid-match): the
+        snapshot's ``baseline`` and the baseline alert rule read the same bands."""
         h = self.settings.history
-        try:
-            self.alerter.baselines = await asyncio.to_thread(
-                history.baselines, self.db, [p.id for p in self.runner.roster.players], h.baseline_matches,
-                h.min_minutes, self.runner.match_id)
-        except (history.HistoryError, OSError) as exc:
+        ids = [p.id for p in self.runner.roster.players]
+        try:  # read even when this service stores nothing itself ([history] enabled = false), as before
+            b = await asyncio.to_thread(history.player_baselines, self.db, ids, h.baseline_matches, h.min_minutes,
+                                        h.min_matches, h.band_spreads, h.block_min, self.runner.match_id)
+        except (history.HistoryError, OSError, sqlite3.Error) as exc:
             log.error("%s: no baselines: %s", self.runner.match_id, exc)
+            return
+        self.baselines = b
+        if any(isinstance(r, DropOffBaseline) for r in self.alerter.rules):
+            self.alerter.baselines = history.alert_bands(b)
+        self.runner.broadcaster.invalidate()  # the snapshot gains each player's baseline
 
     # -- reports ---------------------------------------------------------------------------------------
     async def build_for(self, period: str) -> dict[str, Any] | None:
@@ -257,8 +266,13 @@ class Followup:
         # nothing shared with the live state
         inp = replace(inp, snapshot=orjson.loads(orjson.dumps(inp.snapshot)), alerts=self.alerts(per.index))
         blocks = None
-        if kind == "full_time" and self.settings.history.enabled:
+        store = kind == "full_time" and self.settings.history.enabled  # the history keeps a match at full time
+        if store or self.baselines is not None:
             blocks = block_series(state_until(base, per.index), self.settings.history.block_min, "merge")
+            if self.baselines is not None:
+                inp = replace(inp, against_own=comparison(self.baselines, blocks))
+            if not store:
+                blocks = None
         kickoff = state.periods[0].t0
         entry = await asyncio.to_thread(build_report, inp, self.root, self.settings.reports.low_coverage,
                                         {"basis": list(key)})

@@ -331,7 +331,8 @@ class MatchRunner:
 
     def snapshot_body(self) -> dict[str, Any]:
         now = time.time()
-        snap = build_snapshot(self.feed.shown(now), now=now, extra_reasons=self.extra_reasons())
+        snap = build_snapshot(self.feed.shown(now), now=now, extra_reasons=self.extra_reasons(),
+                              baselines=self.followup.baselines)
         for k, tid in enumerate(self.roster.team_ids):
             snap["teams"][tid]["score"] = self.score[k]
         snap["match_status"] = self.status.told

@@ -22,8 +22,9 @@ from pacewire.engine import exertion as ex
 from pacewire.engine.blocks import BlockSeries
 from pacewire.reports import charts
 from pacewire.reports.alert_log import alerts_csv
+from pacewire.reports.baseline import baseline_section, comparison_columns
 from pacewire.reports.export import export_csv, report_table
-from pacewire.reports.page import page, zone_names
+from pacewire.reports.page import Played, page, zone_names
 from pacewire.reports.phases import phases_section
 from pacewire.reports.table import has_heart_rate, player_order, tracked_teams
 from pacewire.wire.messages import envelope
@@ -47,6 +48,8 @@ class ReportInput:
     source: str  # live | replay | offline: where the figures came from
     created_at: float  # epoch s
     alerts: list[dict[str, Any]] = field(default_factory=list)  # raised up to the report, oldest first
+    # each player's blocks against his own past matches (pacewire.reports.baseline.comparison); None: no history
+    against_own: dict[str, dict[str, Any]] | None = None
 
 
 def _write_atomic(path: Path, data: bytes) -> None:
@@ -131,14 +134,25 @@ def build_report(inp: ReportInput, root: Path, low_coverage: float = 0.8,
     full = ser.onpitch_s >= ser.block_min * 60.0 * WHOLE_BLOCK
     steady = {pid: [v if full[b, i] else None for b, v in enumerate(per_min[pid])]
               for i, pid in enumerate(ser.player_ids)}
+    own = inp.against_own
+
+    def more(teams: list[tuple[str, dict[str, Any]]], played: dict[str, Played]) -> list[str]:
+        return phases_section(teams, played) + (baseline_section(teams, played, own) if own else [])
+
     text = page(inp.kind, snap, svgs, outfield_possession(snap), inp.source, inp.created_at, low_coverage,
                 [(charts.block_label(k), per) for k, per in zip(ser.keys, ser.periods, strict=True)], per_min,
-                inp.alerts, phases_section, steady)
+                inp.alerts, more, steady)
     msg = envelope("snapshot", snap["match_id"], 0, snap["match_time_s"], snap["period"],
                    players=snap["players"], teams=snap["teams"], health=snap["health"], alerts=inp.alerts)
     _write_atomic(folder / "report.html", text.encode("utf-8"))
     # the report's figures under the export's names (export.csv); snapshot.json beside it holds every leaf
-    _write_atomic(folder / "report.csv", export_csv(*report_table(snap, list(ser.keys), per_min)).encode("utf-8"))
+    columns, rows = report_table(snap, list(ser.keys), per_min)
+    if own:
+        own_columns, own_rows = comparison_columns(own)
+        columns += own_columns
+        for row in rows:
+            row.update(dict.fromkeys(own_columns), **own_rows.get(row["player_id"], {}))
+    _write_atomic(folder / "report.csv", export_csv(columns, rows).encode("utf-8"))
     _write_atomic(folder / "alerts.csv", alerts_csv(snap, inp.alerts).encode("utf-8"))
     _write_atomic(folder / "snapshot.json", orjson.dumps(msg, option=orjson.OPT_INDENT_2) + b"\n")
     entry = {"kind": inp.kind, "created_at": round(inp.created_at, 3), "match_time_s": snap["match_time_s"],

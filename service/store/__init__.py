@@ -5,6 +5,8 @@
 
 Every stored match says where its figures came from: ``live`` (the service at
 full time), ``replay`` (a recording of live data run through the same engine)
-or ``offline`` (post-match data). Baselines use live and replay only, so live
-figures are compared with live figures, never with post-match ones.
+or ``import`` (the provider's post-processed data, stored only when asked:
+``pacewire history import --allow-post-processed``). Baselines use live and
+replay only, so live figures are compared with live figures, never with
+post-processed ones, which run a few percent higher.
 """

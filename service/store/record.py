@@ -10,12 +10,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
-
 from pacewire.engine import exertion as ex
+from pacewire.engine.baseline import robust_band  # noqa: F401  (the history's spread; re-exported)
 from pacewire.engine.blocks import BlockSeries
 
-SOURCES = ("live", "replay", "offline")
+SOURCES = ("live", "replay", "import")  # import: post-processed data, never in a baseline
 TOTALS = ("distance_m", "hsr_m", "sprint_m", "hsr_efforts", "sprints", "accels", "decels", "energy_jkg",
           "high_power_m", "m_per_min", "metabolic_power_wkg", "minutes", "max_speed_ms", "coverage")
 PEAK = ("distance_m", "hsr_m", "sprint_m", "m_per_min", "start_s")
@@ -28,7 +27,7 @@ _BLOCK_COLS = (("distance_m", ex.DIST), ("hsr_m", ex.HSR), ("sprint_m", ex.SPRIN
 class MatchRecord:
     key: str  # the history's name for the match (the match id unless imported under another)
     match_id: str
-    source: str  # live | replay | offline
+    source: str  # live | replay | import
     kickoff_t: float | None  # epoch s of the first frame
     match_time_s: float
     frames: int
@@ -86,11 +85,3 @@ def match_record(snapshot: dict[str, Any], blocks: BlockSeries, source: str, key
         key=key or snapshot["match_id"], match_id=snapshot["match_id"], source=source, kickoff_t=kickoff_t,
         match_time_s=float(snapshot["match_time_s"]), frames=int(snapshot["health"].get("frames") or 0),
         origin=origin, teams=teams, players=tuple(players), figures=tuple(figures))
-
-
-def robust_band(values: list[float]) -> tuple[float, float]:
-    """(median, spread) with spread = 1.4826 × median absolute deviation, a robust
-    standard deviation (Rousseeuw & Croux 1993)."""
-    a = np.asarray(values, float)
-    med = float(np.median(a))
-    return med, float(1.4826 * np.median(np.abs(a - med)))

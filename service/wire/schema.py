@@ -184,6 +184,59 @@ PHASES_DESCRIPTION = ("Figures by game phase: attack and defence (organised poss
                       "totals.")
 
 
+BaselineRate = Literal["m_per_min", "hsr_m_per_min", "sprint_m_per_min", "accel_decel_per_min"]
+BLOCK_LABEL = r"^[0-9]+-[0-9]+$"
+
+
+class BaselineBand(_Shape):
+    """One rate over the player's past live and replayed matches: the median, and median -/+
+    history.band_spreads x spread (spread: 1.4826 x median absolute deviation, Rousseeuw & Croux 1993);
+    per minute on the pitch, to 0.01."""
+
+    median: float = Field(description="Median over the matches behind the band.")
+    low: float = Field(description="Lower edge: median - band_spreads x spread (the baseline alert rule's limit).")
+    high: float = Field(description="Upper edge: median + band_spreads x spread.")
+
+
+class BaselineBands(_Shape):
+    match: dict[BaselineRate, BaselineBand] = Field(description="Whole-match rates (the sum of the blocks).")
+    blocks: dict[Annotated[str, Field(pattern=BLOCK_LABEL)], dict[BaselineRate, BaselineBand]] = Field(
+        description="15-minute blocks of the match clock: 0-15, 15-30, 30-45 (with first-half stoppage time), "
+                    "45-60, 60-75, 75-90 (with second-half stoppage time); extra time 90-105, 105-120. A block "
+                    "appears once history.min_matches matches hold minutes in it.")
+
+
+class VersusRate(_Shape):
+    ratio: float = Field(description="This match's rate (per minute on the pitch) / the band's median, to 0.01.")
+    below: bool = Field(description="This match's rate is under the band's low edge.")
+
+
+class VersusBaseline(_Shape):
+    block_key: str | None = Field(description="The block in progress (the latest with data); null before any.")
+    block: dict[BaselineRate, VersusRate] | None = Field(
+        description="The block in progress against its band; null without minutes in it or a band for it.")
+    match: dict[BaselineRate, VersusRate] | None = Field(description="The match so far against the match band.")
+
+
+class MatchRef(_Shape):
+    match_id: ID = Field(description="The match's name in the history (its match id unless imported under another).")
+    kickoff: float | None = Field(description="Kick-off, epoch seconds (UTC); null when unknown.")
+
+
+class Baseline(_Shape):
+    """The player against his own past live and replayed matches (history.sqlite), fixed at the match's start.
+    Without enough matches only ``matches`` and ``required`` are sent: no bands, never zeros."""
+
+    matches: int = Field(ge=0, description="His qualifying matches: live or replayed, at least history.min_minutes "
+                                           "played, the last history.baseline_matches.")
+    required: int = Field(ge=1, description="The minimum for bands (history.min_matches).")
+    match_ids: list[MatchRef] = _optional_key(description="The matches behind the bands, newest first.")
+    bands: BaselineBands = _optional_key(description="The bands.")
+    formed_by: dict[str, list[MatchRef]] = _optional_key(
+        description="Per scope (match, or a block) the matches whose figures formed its bands.")
+    vs_baseline: VersusBaseline = _optional_key(description="This match against the bands.")
+
+
 class Player(PeriodFigures):
     """One player: identity, whole-match figures, windows, per-period figures."""
 
@@ -211,6 +264,7 @@ class Player(PeriodFigures):
     hr_peak_bpm: float | None = Field(None, description="Highest accepted heart rate, bpm.")
     hr_omitted: dict[str, str] = _optional_key(description="Heart-rate figures left out for this player, each with why "
                                                            "(a profile value is missing).")
+    baseline: Baseline = _optional_key(description="Against his own past matches (live service; absent offline).")
 
 
 class PerPlayer(_Shape):

@@ -17,6 +17,7 @@ import dataclasses
 import sys
 import tempfile
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -30,8 +31,9 @@ from pacewire.wire.recording import open_recording
 from pacewire.wire.view import View
 
 
-def delta_sizes(folder: Path, precision: Precision, stride_s: int) -> list[int]:
-    """Bytes of each delta a view=all stream sends, one per ``stride_s`` of match clock."""
+def delta_sizes(folder: Path, precision: Precision, stride_s: int, baselines: Any = None) -> list[int]:
+    """Bytes of each delta a view=all stream sends, one per ``stride_s`` of match clock (with the
+    players' ``baseline`` when ``baselines`` are given)."""
     settings = load_settings()
     rec = open_recording(folder)
     state, decoder = new_match(rec.meta, rec.sheet, settings)
@@ -41,7 +43,7 @@ def delta_sizes(folder: Path, precision: Precision, stride_s: int) -> list[int]:
     sizes = []
     for seq, (first, lines) in enumerate(rec.batches(state.fps * stride_s)):
         state.ingest(decoder.decode_lines(lines, first_line=first))
-        snap = build_snapshot(state)
+        snap = build_snapshot(state, baselines=baselines)
         body = view.body(snap)
         if prev is not None:
             d = changed(prev, body) or {}

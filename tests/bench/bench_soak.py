@@ -171,7 +171,8 @@ def rss_mb(pid: int) -> float:
 def figures(snap: dict) -> tuple[dict, dict]:
     """What must equal the offline pass: players' figures (on_pitch is live state) and the teams'
     (but the score, which comes from goal events: ``pacewire analyze`` reads frames only)."""
-    players = {pid: {k: v for k, v in p.items() if k != "on_pitch"} for pid, p in snap["players"].items()}
+    live_only = ("on_pitch", "baseline")  # baseline: the history the live service reads at the start
+    players = {pid: {k: v for k, v in p.items() if k not in live_only} for pid, p in snap["players"].items()}
     teams = {tid: {k: v for k, v in t.items() if k != "score"} for tid, t in snap["teams"].items()}
     return players, teams
 

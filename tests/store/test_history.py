@@ -33,7 +33,7 @@ def imported(tmp_path_factory):
         args = ["history", "import", str(folder), "--data", str(data), "--config", str(cfg), "--as", f"s{seed}",
                 "--quiet"]
         if seed == 4:
-            args += ["--source", "offline"]
+            args += ["--source", "import", "--allow-post-processed"]
         assert cli(args) == 0
     return data, cfg, snaps
 
@@ -49,7 +49,7 @@ def test_import_and_list(imported, capsys):
     out = capsys.readouterr().out
     rows = {line.split()[0]: line.split()[1] for line in out.splitlines()[1:] if line.startswith("s")}
     # the synthetic meta says the data was collected live: replayed through the same engine
-    assert rows == {"s1": "replay", "s2": "replay", "s3": "replay", "s4": "offline"}
+    assert rows == {"s1": "replay", "s2": "replay", "s3": "replay", "s4": "import"}
     assert "4 matches" in out
     stored = history.matches(data / "history.sqlite")
     assert [m["match_key"] for m in stored] == ["s1", "s2", "s3", "s4"]
@@ -103,7 +103,7 @@ def test_last_n_matches_minimum_minutes_and_sources(tmp_path):
         j = (3 * k) % 7
         history.save(db, _record(f"m{j}", float(j + 1), 1.7e9 + j * 86400))
     history.save(db, _record("short", 100.0, 1.8e9, minutes=30.0))  # latest, but too few minutes
-    history.save(db, _record("post", 100.0, 1.8e9, source="offline"))  # latest, but post-match figures
+    history.save(db, _record("post", 100.0, 1.8e9, source="import"))  # latest, but post-processed figures
     history.save(db, _record("replayed", 8.0, 1.75e9, source="replay"))  # latest of all that count
     b = history.baselines(db, ["p7"], 5, 60.0)["p7"]
     band = b["match"]["m_per_min"]  # over 4, 5, 6, 7, 8: median 6, MAD 1 (arithmetic)
@@ -131,7 +131,7 @@ def test_records_name_their_source():
 
     empty = BlockSeries(15, (), (), np.zeros(0), np.zeros(0), np.zeros((0, 0, 11), np.int64), np.zeros((0, 0)), ())
     assert match_record(snap, empty, "live").source == "live"
-    with pytest.raises(ValueError, match="live, replay, offline"):
+    with pytest.raises(ValueError, match="live, replay, import"):
         match_record(snap, empty, "post_match")
 
 
@@ -169,3 +169,54 @@ def test_import_refuses_what_is_not_a_recording(tmp_path, capsys):
     assert "not a folder" in capsys.readouterr().err
     assert cli(["history", "list", "--data", str(tmp_path)]) == 0
     assert "no history yet" in capsys.readouterr().out
+
+
+def test_post_processed_data_is_refused_unless_asked(tmp_path, capsys):
+    """A recording whose meta does not say the tracking was collected live is post-processed: refused,
+    with why, and nothing stored; with --allow-post-processed it is stored as 'import', out of baselines."""
+    import orjson
+
+    folder = write_match(tmp_path / "post", minutes=2, fps=25, seed=7, faults=False)
+    meta = orjson.loads((folder / "meta.json").read_bytes())
+    meta["meta"]["tracking"]["collection_timing"] = "post_match"
+    (folder / "meta.json").write_bytes(orjson.dumps(meta))
+    data = tmp_path / "data"
+    args = ["history", "import", str(folder), "--data", str(data), "--quiet"]
+    assert cli(args) == 2
+    err = capsys.readouterr().err
+    assert "post-processed" in err and "drops that are not there" in err and "--allow-post-processed" in err
+    assert not (data / "history.sqlite").exists()
+    assert cli([*args, "--source", "import"]) == 2  # naming the source is not asking for it
+    assert cli([*args, "--allow-post-processed"]) == 0
+    assert [m["source"] for m in history.matches(data / "history.sqlite")] == ["import"]
+    pids = list(analyze_folder(folder).snapshot()["players"])
+    b = history.player_baselines(data / "history.sqlite", pids, 5, 0.0, 1, 1.5)
+    assert all(pb.matches == 0 and not pb.bands for pb in b.players.values())  # never in a baseline
+    assert cli(["history", "list", "--data", str(data)]) == 0
+    assert " import " in capsys.readouterr().out
+
+
+def test_version_1_databases_migrate_without_losing_rows(tmp_path):
+    """A database written before sources were named live | replay | import: every row kept, 'offline'
+    renamed 'import', the children (teams, players, figures) still attached."""
+    db = tmp_path / "v1.sqlite"
+    con = sqlite3.connect(db, isolation_level=None)
+    con.executescript(f"BEGIN; {history.MIGRATIONS[0]}; PRAGMA user_version = 1; COMMIT;")
+    for key, source in (("a", "live"), ("b", "replay"), ("c", "offline")):
+        con.execute("INSERT INTO matches VALUES (?, ?, ?, 1.7e9, 5400, 1, 'test', 0)", (key, key, source))
+        con.execute("INSERT INTO teams VALUES (?, 't1', 'Harbour Town', 'home', 1)", (key,))
+        con.execute("INSERT INTO players VALUES (?, 'p7', 't1', 'Test P7', 7, 0, 90, 1)", (key,))
+        con.execute("INSERT INTO figures VALUES (?, 'p7', 'match', 'm_per_min', 100)", (key,))
+    con.close()
+    rows = {m["match_key"]: m["source"] for m in history.matches(db)}
+    assert rows == {"a": "live", "b": "replay", "c": "import"}
+    con = sqlite3.connect(db)
+    assert con.execute("PRAGMA user_version").fetchone()[0] == history.VERSION
+    counts = [con.execute(f"SELECT COUNT(*) FROM {t}").fetchone()[0] for t in ("teams", "players", "figures")]
+    assert counts == [3, 3, 3]
+    con.close()
+    history.save(db, _record("d", 5.0, 1.8e9, source="import"))  # the new name is accepted ...
+    with pytest.raises(sqlite3.IntegrityError):  # ... and the old one no longer
+        history.save(db, MatchRecord(**{**_record("e", 5.0, 1.8e9).__dict__, "source": "offline"}))
+    history.save(db, _record("a", 6.0, 1.7e9))  # replacing a migrated match deletes its old children
+    assert history.figures(db, "a", "p7")["match"]["m_per_min"] == 6.0

@@ -62,8 +62,10 @@ def read_csv(text: str) -> tuple[list[str], list[dict[str, str]]]:
     return list(rows[0].keys()) if rows else [], rows
 
 
-# what a report CSV column's name must end in: its SI unit, minutes, a count, or one of the id / share columns
-UNIT_ENDINGS = ("_m", "_s", "_ms", "_wkg", "_jkg", "_m_per_min", "_bpm", "minutes", "m_per_min")
+# what a report CSV column's name must end in: its SI unit, minutes, a count (per minute), or one of the id /
+# share / flag columns (the comparison with a player's own matches: a ratio, below-band flag, the match ids)
+UNIT_ENDINGS = ("_m", "_s", "_ms", "_wkg", "_jkg", "_m_per_min", "_bpm", "minutes", "m_per_min", "_per_min",
+                "_ratio", "_below", "_matches")
 COUNT_OR_ID = {"player_id", "team_id", "jersey_number", "name", "is_goalkeeper", "on_pitch", "hsr_efforts", "sprints",
                "accels", "decels", "coverage", "hr_coverage", "trimp_edwards", "trimp_banister", "hr_omitted"}
 

@@ -10,8 +10,10 @@ from tests.support.live_server import LiveServer
 
 
 def player_figures(snap: dict[str, Any]) -> dict[str, Any]:
-    """Players' figures; on_pitch is live state (offline, the match is over and nobody is on)."""
-    return {pid: {k: v for k, v in p.items() if k != "on_pitch"} for pid, p in snap["players"].items()}
+    """Players' figures; on_pitch is live state (offline, the match is over and nobody is on), and so is
+    baseline (the live service's history; offline has none)."""
+    live_only = ("on_pitch", "baseline")
+    return {pid: {k: v for k, v in p.items() if k not in live_only} for pid, p in snap["players"].items()}
 
 
 def settled_snapshot(srv: LiveServer, match_id: str = "m_test") -> dict[str, Any]:
