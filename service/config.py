@@ -7,7 +7,7 @@ from __future__ import annotations
 
 from itertools import pairwise
 from pathlib import Path
-from typing import Any, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
@@ -266,6 +266,8 @@ class History(_Section):
     block_min: int = Field(ge=1, le=45)
     min_matches: int = Field(ge=1, le=50)
     band_spreads: float = Field(ge=0, le=10)
+    min_spread_share: dict[Literal["m_per_min", "hsr_m_per_min", "sprint_m_per_min", "accel_decel_per_min"],
+                           Annotated[float, Field(ge=0, le=1)]]
 
 
 class Settings(_Section):

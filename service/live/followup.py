@@ -223,9 +223,11 @@ class Followup:
         snapshot's ``baseline`` and the baseline alert rule read the same bands."""
         h = self.settings.history
         ids = [p.id for p in self.runner.roster.players]
+        shares = {str(rate): share for rate, share in h.min_spread_share.items()}
         try:  # read even when this service stores nothing itself ([history] enabled = false), as before
             b = await asyncio.to_thread(history.player_baselines, self.db, ids, h.baseline_matches, h.min_minutes,
-                                        h.min_matches, h.band_spreads, h.block_min, self.runner.match_id)
+                                        h.min_matches, h.band_spreads, h.block_min, self.runner.match_id,
+                                        shares)
         except (history.HistoryError, OSError, sqlite3.Error) as exc:
             log.error("%s: no baselines: %s", self.runner.match_id, exc)
             return

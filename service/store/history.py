@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import sqlite3
 import time
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from contextlib import closing
 from pathlib import Path
 from typing import Any
@@ -266,7 +266,8 @@ def _rates(conn: sqlite3.Connection, pid: str, keys: list[str]) -> dict[str, dic
 
 
 def player_baselines(path: str | Path, player_ids: Iterable[str], last_n: int, min_minutes: float, required: int,
-                     spreads: float, block_min: int = 15, exclude_key: str | None = None) -> Baselines:
+                     spreads: float, block_min: int = 15, exclude_key: str | None = None,
+                     min_share: Mapping[str, float] | None = None) -> Baselines:
     """Every player's baseline over his last ``last_n`` live or replayed matches with at least
     ``min_minutes`` played: bands (:func:`pacewire.engine.baseline.make_band`) of each rate for the
     match and each 15-minute block, once ``required`` matches qualify; a block's band needs ``required``
@@ -286,7 +287,8 @@ def player_baselines(path: str | Path, player_ids: Iterable[str], last_n: int, m
                 keys = [k for k in order if all(k in v for v in per_rate.values())]
                 if len(keys) < required:
                     continue
-                bands[scope] = {r: make_band([v[k] for k in keys], spreads) for r, v in per_rate.items()}
+                bands[scope] = {r: make_band([v[k] for k in keys], spreads, (min_share or {}).get(r, 0.0))
+                                for r, v in per_rate.items()}
                 formed[scope] = tuple(keys)
             players[pid] = PlayerBaseline(len(quals), required, tuple(quals), bands, formed)
     return Baselines(players, block_min)

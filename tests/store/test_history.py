@@ -10,6 +10,7 @@ import pytest
 from pacewire.analyze import analyze_folder
 from pacewire.cli import main as cli
 from pacewire.config import load_settings
+from pacewire.engine.baseline import make_band
 from pacewire.replay.synth import write_match
 from pacewire.store import history
 from pacewire.store.record import MatchRecord, match_record, robust_band
@@ -123,6 +124,15 @@ def test_robust_band():
     med, spread = robust_band([204.0, 180.0, 192.0])
     assert med == 192.0 and spread == pytest.approx(17.7912)
     assert robust_band([5.0]) == (5.0, 0.0)
+
+
+def test_a_band_is_never_narrower_than_its_floor_nor_below_zero():
+    # three matches alike: MAD 0, so the spread is the floor, 4 % of 126.6 = 5.064; edges 126.6 -/+ 1.5 x 5.064
+    b = make_band([126.6, 126.6, 126.6], 1.5, 0.04)
+    assert (b.spread, b.low, b.high) == pytest.approx((5.064, 119.004, 134.196))
+    # sprint m/min 0, 0.5, 1.0: median 0.5, spread 1.4826 x 0.5 = 0.7413 over the 31 % floor; 0.5 - 1.11 < 0
+    b = make_band([0.0, 0.5, 1.0], 1.5, 0.31)
+    assert b.spread == pytest.approx(0.7413) and b.low == 0.0 and b.high == pytest.approx(1.61195)
 
 
 def test_records_name_their_source():
