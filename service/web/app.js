@@ -41,6 +41,8 @@
     { key: "max_speed_ms", label: "Top speed", unit: "km/h", fmt: (v) => fmt1(v * 3.6), core: true, tip: "Highest speed (match or period only)" },
     { key: "peak_pct", label: "Last 5 min", unit: "% own peak", fmt: fmtInt, bar: true, core: true, live: true,
       tip: "Work rate over the last 5 minutes as a share of the player's own best 5 minutes this match (whatever the view)" },
+    { key: "usual_pct", label: "This block", unit: "% of usual", fmt: fmtInt, core: true, live: true,
+      tip: "Work rate in this 15-minute block of the match as a share of his usual for the same block (median of his own past live and replayed matches); ▾ under his usual band. Blank without enough history" },
     { key: "hsr_efforts", label: "HS runs", unit: "count", fmt: fmtInt, tip: "High-speed running efforts (sprints included)" },
     { key: "accels", label: "Accels", unit: "count", fmt: fmtInt, tip: "High accelerations" },
     { key: "decels", label: "Decels", unit: "count", fmt: fmtInt, tip: "High decelerations" },
@@ -801,6 +803,7 @@
       case "hr_bpm": case "hr_pct_max": return p[key] ?? null;
       case "acc_dec": return src && (src.accels != null || src.decels != null) ? (src.accels || 0) + (src.decels || 0) : null;
       case "peak_pct": return peakPct(p);
+      case "usual_pct": return usualPct(p);
       case "hr_coverage": return win === "period" ? (src ? src.hr_coverage ?? null : null) : p.hr_coverage ?? null;
       default: return src ? src[key] ?? null : null;
     }
@@ -818,16 +821,31 @@
     if (!last || !peak || last.m_per_min == null || !peak.m_per_min) return null;
     return 100 * last.m_per_min / peak.m_per_min;
   }
-  // the player's usual work rate for this part of the match (history), when the snapshot carries one
-  function baselineMark(p) {
+  // the player's work rate in this block of the match against his usual for it (history), when the snapshot
+  // carries one: {ratio, below} of baseline.vs_baseline.block.m_per_min
+  function usualOf(p) {
     const b = p && typeof p.baseline === "object" ? p.baseline : null;
     const vs = b && b.vs_baseline && b.vs_baseline.block ? b.vs_baseline.block.m_per_min : null;
-    if (!vs || typeof vs.ratio !== "number" || !isFinite(vs.ratio)) return "";
-    const below = vs.below === true;
-    const n = typeof b.matches === "number" ? ` over ${b.matches} past matches` : "";
-    const tip = `Work rate in this part of the match is ${Math.round(vs.ratio * 100)} % of his usual${n}` +
+    return vs && typeof vs.ratio === "number" && isFinite(vs.ratio) ? { ...vs, matches: b.matches } : null;
+  }
+  function usualPct(p) {
+    const u = usualOf(p);
+    return u ? 100 * u.ratio : null;
+  }
+  function usualCell(raw, p, cls) {
+    const u = usualOf(p);
+    const b = p && typeof p.baseline === "object" ? p.baseline : null;
+    if (!u) {
+      const why = b && typeof b.matches === "number" && typeof b.required === "number" && b.matches < b.required ?
+        ` title="${esc(`Not enough history: ${b.matches} of ${b.required} past matches`)}"` : "";
+      return `<td class="${cls} none" data-col="usual_pct" data-value=""${why}><span class="fig"><span class="v">–</span></span></td>`;
+    }
+    const below = u.below === true;
+    const tip = `${Math.round(raw)} % of his usual work rate for this block, over ${u.matches} past matches` +
       (below ? ": below his usual band" : ": within or above his usual band");
-    return `<span class="usual" data-below="${below}" data-ratio="${vs.ratio}" title="${esc(tip)}">${below ? "below usual" : "usual"}</span>`;
+    return `<td class="${cls}${below ? " low" : ""}" data-col="usual_pct" data-value="${raw}" title="${esc(tip)}">` +
+      `<span class="fig"><span class="v usual" data-below="${below}">${fmtInt(raw)}${below ? " ▾" : ""}</span>` +
+      `${below ? '<span class="sr-only"> (below his usual band)</span>' : ""}</span></td>`;
   }
 
   function compare(a, b, key, dir) {
@@ -954,10 +972,11 @@
     const title = mark ? ` title="${esc(covTip)}"` : frozen ? ' title="Last speed before the feed stopped, not the speed now"' : "";
     const sr = mark ? '<span class="sr-only"> (uncertain: low coverage)</span>' : "";
     if (c.key === "peak_pct") return peakCell(raw, p, cls, mark, title, sr);
+    if (c.key === "usual_pct") return usualCell(raw, p, cls);
     return `<td class="${cls}" data-col="${c.key}" data-value="${none ? "" : raw}"${title}><span class="fig"><span class="v">${text}</span>${sr}${bar}</span></td>`;
   }
 
-  // "% own peak": the number, a bar against 100 %, marked under the drop-off rule's share; the usual-band word
+  // "% own peak": the number, a bar against 100 %, marked under the drop-off rule's share
   function peakCell(raw, p, cls, mark, title, sr) {
     const none = raw == null;
     const low = !none && PEAK.share != null && raw < PEAK.share * 100;
@@ -965,7 +984,7 @@
     const lowTip = low ? ` title="${esc(`Under ${Math.round(PEAK.share * 100)} % of his own best ${PEAK.window_min} minutes: the drop-off alert's limit`)}"` : "";
     return `<td class="${cls} peak${low ? " low" : ""}" data-col="peak_pct" data-value="${none ? "" : raw}"${title || lowTip}>` +
       `<span class="fig"><span class="v pct">${none ? "–" : fmtInt(raw)}</span>${sr}` +
-      `<span class="bar" aria-hidden="true"><i style="--w:${w}"></i></span>${baselineMark(p)}</span></td>`;
+      `<span class="bar" aria-hidden="true"><i style="--w:${w}"></i></span></span></td>`;
   }
 
   // A heart-rate cell: "—" with the reason when the profile cannot support the figure; the coverage cell

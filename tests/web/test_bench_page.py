@@ -418,8 +418,9 @@ IN_VIEW = """sel => { const b = document.querySelector(sel).getBoundingClientRec
 
 
 def usual_marker(page: Any) -> None:
-    """A player's history, when the snapshot has one (``baseline``, written by the history store): "below
-    usual" beside his % of peak; no marker without it, nor with too few matches (no ``vs_baseline``). The
+    """A player's history, when the snapshot has one (``baseline``, written by the history store): his work
+    rate in this block as % of his usual, marked below his band; nothing without it, nor with too few matches
+    (no ``vs_baseline``; the cell's tip says why). The
     objects are set on the page's own state as the snapshot would carry them, then the table is redrawn."""
     assert page.locator(".usual").count() == 0  # this feed has no history: nothing shown
     page.evaluate("""() => { const ps = window.pacewire.state.players;
@@ -429,7 +430,9 @@ def usual_marker(page: Any) -> None:
     page.click("label[data-window='period']")
     page.click("label[data-window='cumulative']")
     marks = page.eval_on_selector_all(".usual", "els => els.map(e => [e.closest('tr').dataset.playerId, e.innerText])")
-    assert sorted(marks) == [["h2", "BELOW USUAL"], ["h4", "USUAL"]], marks
+    assert sorted(marks) == [["h2", "82 ▾"], ["h4", "103"]], marks
+    tip = page.get_attribute("tr[data-player-id='h3'] td[data-col='usual_pct']", "title")
+    assert tip == "Not enough history: 2 of 5 past matches", tip
 
 
 def test_first_screen_at_1280x720_in_both_themes(bench):
