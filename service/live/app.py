@@ -1,6 +1,7 @@
 """The single-process app: every route, over the matches this process runs."""
 from __future__ import annotations
 
+import asyncio
 import logging
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
@@ -20,6 +21,7 @@ from pacewire.config import Settings
 from pacewire.live.backend import LocalBackend
 from pacewire.live.matches import Matches
 from pacewire.live.metrics import Metrics
+from pacewire.store import history
 
 log = logging.getLogger("pacewire.app")
 
@@ -42,6 +44,11 @@ def create_app(opts: ServerOptions) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         opts.data_dir.mkdir(parents=True, exist_ok=True)
+        if opts.settings.history.enabled:
+            try:  # the schema once, before any report is stored
+                await asyncio.to_thread(history.prepare, opts.data_dir / opts.settings.history.path)
+            except (history.HistoryError, OSError) as exc:
+                log.error("the history database is not usable: %s", exc)
         recovered = matches.recover_all()  # before serving: frames must find their match rebuilt
         if recovered:
             log.info("recovered matches: %s", ", ".join(recovered))
