@@ -266,6 +266,11 @@ class History(_Section):
     block_min: int = Field(ge=1, le=45)
 
 
+class Archive(_Section):
+    grace_s: float = Field(ge=0, le=7 * 24 * 3600)
+    check_s: float = Field(gt=0, le=3600)
+
+
 class Settings(_Section):
     decode: Decode
     gnss: Gnss
@@ -284,6 +289,7 @@ class Settings(_Section):
     reports: Reports
     alerts: AlertsSection
     history: History
+    archive: Archive
     # Sections owned by the shell (server, limits, ...) validate themselves there.
     extra: dict[str, Any] = Field(default_factory=dict)
 

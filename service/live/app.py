@@ -22,6 +22,7 @@ from pacewire.live.backend import LocalBackend
 from pacewire.live.matches import Matches
 from pacewire.live.metrics import Metrics
 from pacewire.store import history
+from pacewire.tasks import cancel
 
 log = logging.getLogger("pacewire.app")
 
@@ -49,10 +50,12 @@ def create_app(opts: ServerOptions) -> FastAPI:
                 await asyncio.to_thread(history.prepare, opts.data_dir / opts.settings.history.path)
             except (history.HistoryError, OSError) as exc:
                 log.error("the history database is not usable: %s", exc)
-        recovered = matches.recover_all()  # before serving: frames must find their match rebuilt
-        if recovered:
-            log.info("recovered matches: %s", ", ".join(recovered))
+        pending = matches.index_all()  # no engine work: /healthz answers at once
+        log.info("%d finished matches indexed, %d to rebuild", len(matches.archived), len(pending))
+        tasks = [asyncio.create_task(matches.rebuild_pending(), name="rebuild"),
+                 asyncio.create_task(matches.archive_loop(), name="archive")]
         yield
+        await cancel(tasks)
         await matches.stop_all()
 
     routers = [ingest_routes(backend, tokens, limits), read_routes(backend, tokens, limits),

@@ -30,6 +30,7 @@ from pacewire.config import Settings
 from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
 from pacewire.engine.types import PERIOD_INDEX, Roster
+from pacewire.live.archive import report_entries
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.recorder import write_json_atomic
 from pacewire.reports.alerts import evaluate_state, new_alerter, rules_from_settings
@@ -286,6 +287,8 @@ class Followup:
         return f"/api/matches/{self.runner.match_id}/reports/{kind}/{name}"
 
     def listing(self) -> list[dict[str, Any]]:
-        return [{**e, "url": self.url(e["kind"], "report.html"), "csv": self.url(e["kind"], "report.csv"),
-                 "json": self.url(e["kind"], "snapshot.json"), "alerts_csv": self.url(e["kind"], "alerts.csv")}
-                for e in list_reports(self.root)]
+        return report_entries(self.runner.match_id, self.root)
+
+    def idle(self) -> bool:
+        """No report pending or being built, no history write under way."""
+        return not self._pending and not self._tasks and not self._lock.locked()

@@ -342,7 +342,12 @@ class MatchRunner:
                           for k, tid in enumerate(r.team_ids)},
                 "period": self.state.period_name(), "match_time_s": round(self.state.match_time_s(), 2),
                 "status": self.status.told, "frames": self.state.frames, "health": self.feed.state,
-                "subscribers": self.broadcaster.subscriber_count, "last_frame_at": self.state.health.last_arrival}
+                "subscribers": self.broadcaster.subscriber_count, "last_frame_at": self.state.health.last_arrival,
+                "kickoff_t": self.state.periods[0].t0 if self.state.periods else None, "archived": False}
+
+    def idle(self) -> bool:
+        """Nothing queued, nothing being built or recorded for this match (it may be archived)."""
+        return self._queue.empty() and not self._side and self.followup.idle()
 
     def save_counters(self) -> None:
         """The drop counts beside the recording (recovered frames carry none)."""
