@@ -10,7 +10,6 @@ from pathlib import Path
 from typing import Any
 
 import httpx
-import orjson
 import pytest
 
 from pacewire.analyze import analyze_folder
@@ -104,7 +103,7 @@ def restart_mid_match(data: Path, live: Path) -> tuple[LiveServer, float]:
     """The live match replayed 15 s into the second half, the server killed, started again;
     returns the new server and its RSS once the live match answers."""
     srv = LiveServer(data, config_text=CONFIG).start()
-    asyncio.run(replay(live, f"{srv.ws}/ingest/{LIVE}", None, until_s=2715.0))  # 15 s into the second half (match clock)
+    asyncio.run(replay(live, f"{srv.ws}/ingest/{LIVE}", None, until_s=2715.0))  # match clock: 45:00 + 15 s
     feed = httpx.get(f"{srv.http}/api/matches/{LIVE}/feed", timeout=30).json()
     assert feed["period"] == "second_half" and feed["match_status"] == "live"
     time.sleep(1.5)  # the recorder's fsync interval (1 s): what was acknowledged is on disk
@@ -135,7 +134,7 @@ def test_a_season_restarts_from_disk_and_memory_stays_flat(season, tmp_path):
             assert (health["archived"], health["in_memory"]) == (n, 1)  # finished matches only indexed
             check_finished(srv, ids)
             asyncio.run(replay(live, f"{srv.ws}/ingest/{LIVE}", None))  # the provider resumes to the end
-            wait_for(lambda: archived(srv, LIVE), "the live match archived after its end")
+            wait_for(lambda s=srv: archived(s, LIVE), "the live match archived after its end")
             got = httpx.get(f"{srv.http}/api/matches/{LIVE}/snapshot", timeout=30).json()
             assert got["match_status"] == "ended"
             assert player_figures(got) == want  # killed mid-match, restarted: the uninterrupted figures
