@@ -3,7 +3,7 @@
 A match that has ended (its reports built, ``[archive] grace_s`` after its
 end) is archived: ``final.json`` beside its recording holds a format
 version, the entry the match list shows, the final snapshot body, the match
-events, the budgets, and the size of every recorded file it covers;
+events, the budgets, where the feed stands, and the size of every recorded file it covers;
 ``export.csv`` holds the final per-player export. Its engine state then
 leaves memory. At start a folder whose ``final.json`` still covers its files
 (nothing was recorded since) is only indexed: no engine work, no report
@@ -77,6 +77,11 @@ class Archived:
         events: list[dict[str, Any]] = self._final()["events"]
         return events
 
+    def position(self) -> dict[str, Any]:
+        """Where the stored feed stands (``GET /api/matches/{id}/feed``), as it was archived."""
+        pos: dict[str, Any] = self._final()["position"]
+        return pos
+
     def budgets(self) -> dict[str, Any]:
         budgets: dict[str, Any] = self._final()["budgets"]
         return budgets
@@ -91,7 +96,7 @@ class Archived:
 
 
 def write_archive(folder: Path, match_id: str, summary: dict[str, Any], snapshot: dict[str, Any],
-                  events: list[dict[str, Any]], budgets: dict[str, Any]) -> Archived:
+                  events: list[dict[str, Any]], budgets: dict[str, Any], position: dict[str, Any]) -> Archived:
     """Write ``final.json`` and ``export.csv`` (each atomically) once the recorders are stopped."""
     columns, rows = export_table(snapshot)
     tmp = folder / (EXPORT + ".tmp")
@@ -99,7 +104,8 @@ def write_archive(folder: Path, match_id: str, summary: dict[str, Any], snapshot
     tmp.replace(folder / EXPORT)
     summary = {**summary, "archived": True}
     write_json_atomic(folder / FINAL, {"format": FORMAT, "summary": summary, "covers": recorded_sizes(folder),
-                                       "snapshot": snapshot, "events": events, "budgets": budgets})
+                                       "snapshot": snapshot, "events": events, "budgets": budgets,
+                                       "position": position})
     return Archived(match_id, folder, summary)
 
 

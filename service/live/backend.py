@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import asyncio
-import math
 import time
 from pathlib import Path
 from typing import Any
@@ -11,7 +10,7 @@ from pacewire.analyze import FiguresIndex, MatchTimeError
 from pacewire.api.backend import Send
 from pacewire.api.errors import ApiError, unknown_match
 from pacewire.api.requests import StreamParams
-from pacewire.engine.types import PERIODS, Roster
+from pacewire.engine.types import Roster
 from pacewire.errors import NotStored
 from pacewire.live.archive import Archived
 from pacewire.live.broadcaster import Broadcaster, Subscriber
@@ -52,14 +51,50 @@ class LocalWriter:
         return self.runner.state.match_time_s(), self.runner.state.period_name()
 
     async def position(self) -> dict[str, Any]:
-        r = self.runner
-        gate = r.decoder.gate  # what the recording holds: accepted frames, applied or still queued
-        hr_t = r.intake.hr_decoder.gate.last_t
-        hr_last = float(hr_t.max()) if len(hr_t) and math.isfinite(hr_t.max()) else None
-        return {"last_frame_id": gate.last_id if gate.last_id >= 0 else None,
-                "last_timestamp": gate.last_t if math.isfinite(gate.last_t) else None,
-                "period": PERIODS[gate.period] if gate.period >= 0 else None,
-                "hr_last_timestamp": hr_last, "match_status": r.status.told}
+        return self.runner.position()
+
+
+class ArchivedWriter:
+    """A finished match's write side: where its feed stands comes from its archive; a write first
+    brings the match back into memory (rebuilt from its recording), then goes to its runner."""
+
+    def __init__(self, matches: Matches, archived: Archived) -> None:
+        self.matches, self.archived = matches, archived
+        self._writer: LocalWriter | None = None
+
+    async def _live(self) -> LocalWriter:
+        if self._writer is None:
+            runner = await self.matches.ready(self.archived.match_id, reopen=True)
+            if runner is None:
+                raise NotStored("the finished match cannot be rebuilt from its recording")
+            self._writer = LocalWriter(runner)
+        return self._writer
+
+    async def frames(self, data: list[bytes] | bytes | str, durable: bool) -> IngestOutcome:
+        return await (await self._live()).frames(data, durable)
+
+    async def heart_rate(self, data: bytes | str | list[bytes], durable: bool) -> IngestOutcome:
+        return await (await self._live()).heart_rate(data, durable)
+
+    async def cdf_events(self, data: bytes | str | list[bytes], durable: bool) -> EventOutcome:
+        return await (await self._live()).cdf_events(data, durable)
+
+    async def add_event(self, event: Any) -> None:
+        await (await self._live()).add_event(event)
+
+    def store_error(self) -> str:
+        return self._writer.store_error() if self._writer is not None else "the recording cannot be written"
+
+    def clock(self) -> tuple[float, str | None]:
+        if self._writer is not None:
+            return self._writer.clock()
+        s = self.archived.summary
+        return float(s.get("match_time_s") or 0.0), s.get("period")
+
+    async def position(self) -> dict[str, Any]:
+        if self._writer is not None:
+            return await self._writer.position()
+        return await asyncio.to_thread(self.archived.position)
 
 
 class LocalSubscription:
@@ -109,9 +144,11 @@ class LocalBackend:
             raise ApiError(503, "storage", f"cannot write the match folder: {exc.strerror or exc}") from None
         return runner.roster, created
 
-    async def writer(self, match_id: str) -> LocalWriter | None:
-        runner = await self.matches.ready(match_id, reopen=True)  # a write brings a finished match back
-        return None if runner is None else LocalWriter(runner)
+    async def writer(self, match_id: str) -> LocalWriter | ArchivedWriter | None:
+        found = await self._match(match_id)
+        if isinstance(found, Archived):
+            return ArchivedWriter(self.matches, found)  # a write brings the finished match back into memory
+        return None if found is None else LocalWriter(found)
 
     # -- reads ------------------------------------------------------------------------------
     async def list_matches(self) -> list[dict[str, Any]]:

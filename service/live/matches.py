@@ -179,9 +179,10 @@ class Matches:
         runner.save_counters()
         await runner.stop()  # recorders flushed: the archive covers every byte recorded
         snap = runner.snapshot_body()
+        position = runner.position()
         try:
             archived = await asyncio.to_thread(write_archive, runner.folder, match_id, runner.summary(), snap,
-                                               list(runner.events), runner.followup.budgets_body())
+                                               list(runner.events), runner.followup.budgets_body(), position)
         except OSError as exc:
             log.error("%s: not archived, rebuilt on the next request: %s", match_id, exc)
             self.pending[match_id] = runner.folder

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import math
 import time
 from collections.abc import Awaitable, Callable
 from pathlib import Path
@@ -344,6 +345,16 @@ class MatchRunner:
                 "status": self.status.told, "frames": self.state.frames, "health": self.feed.state,
                 "subscribers": self.broadcaster.subscriber_count, "last_frame_at": self.state.health.last_arrival,
                 "kickoff_t": self.state.periods[0].t0 if self.state.periods else None, "archived": False}
+
+    def position(self) -> dict[str, Any]:
+        """Where the stored feed stands (``GET /api/matches/{id}/feed``)."""
+        gate = self.decoder.gate  # what the recording holds: accepted frames, applied or still queued
+        hr_t = self.intake.hr_decoder.gate.last_t
+        hr_last = float(hr_t.max()) if len(hr_t) and math.isfinite(hr_t.max()) else None
+        return {"last_frame_id": gate.last_id if gate.last_id >= 0 else None,
+                "last_timestamp": gate.last_t if math.isfinite(gate.last_t) else None,
+                "period": PERIODS[gate.period] if gate.period >= 0 else None,
+                "hr_last_timestamp": hr_last, "match_status": self.status.told}
 
     def idle(self) -> bool:
         """Nothing queued, nothing being built or recorded for this match (it may be archived)."""

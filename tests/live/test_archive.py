@@ -154,6 +154,12 @@ def test_a_write_brings_an_archived_match_back_and_a_period_start_reopens_it(sea
     try:
         assert httpx.get(f"{srv.http}/healthz", timeout=30).json()["in_memory"] == 0
         before = httpx.get(f"{srv.http}/api/matches/f0000/snapshot", timeout=30).json()
+        feed = httpx.get(f"{srv.http}/api/matches/f0000/feed", timeout=30).json()
+        assert feed["match_status"] == "ended" and feed["period"] == "second_half"
+        assert httpx.get(f"{srv.http}/healthz", timeout=30).json()["in_memory"] == 0  # reads stay on disk
+        # frames after the end are refused as before (the match comes back into memory to count them)
+        r = httpx.post(f"{srv.http}/api/matches/f0000/frames", content=b"{}\n", timeout=60)
+        assert r.status_code == 409 and r.json()["error"]["code"] == "match_ended"
         r = httpx.post(f"{srv.http}/api/matches/f0000/events", json={"type": "period_start", "period": "second_half",
                                                                    "match_time_s": 2700.0}, timeout=60)
         assert r.status_code == 200, r.text
