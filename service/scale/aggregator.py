@@ -20,7 +20,6 @@ from __future__ import annotations
 import asyncio
 import logging
 import os
-import pickle
 import socket
 import time
 import uuid
@@ -32,6 +31,7 @@ import orjson
 from redis.exceptions import RedisError, ResponseError
 
 from pacewire.config import Settings
+from pacewire.engine.stateio import from_npz, to_npz
 from pacewire.live.broadcaster import Group, Subscriber
 from pacewire.live.metrics import Hooks
 from pacewire.live.runner import MatchRunner
@@ -43,6 +43,8 @@ from pacewire.wire.heart import HrResult
 from pacewire.wire.messages import snapshot_message
 from pacewire.wire.view import View, ViewError
 
+# the only classes a Redis checkpoint may build: engine state, decoder gates and ids, the match status
+CHECKPOINT_CLASSES = ("pacewire.engine.", "pacewire.wire.", "pacewire.live.status:")
 log = logging.getLogger("pacewire.scale.aggregator")
 
 GROUP = "aggregators"
@@ -174,9 +176,9 @@ class AggMatch:
         cp = await self.redis.get(keys.checkpoint(self.match_id))
         if cp is not None:
             try:
-                self._restore(pickle.loads(cp))
-            except Exception:  # an unreadable checkpoint: the whole stream will do
-                log.warning("%s: checkpoint unreadable, replaying the whole stream", self.match_id)
+                self._restore(from_npz(cp, CHECKPOINT_CLASSES))
+            except Exception as exc:  # an unreadable or old-format checkpoint: the whole stream will do
+                log.warning("%s: checkpoint unreadable (%s), replaying the whole stream", self.match_id, exc)
                 self.runner = r = _fresh_runner(self.agg, self.match_id, r.roster)
                 r.record_end = self.record_end
                 self.last_id = self.hr_last_id = self.ev_last_id = b"0-0"
@@ -230,7 +232,7 @@ class AggMatch:
 
     async def checkpoint(self) -> None:
         """Engine state + stream position, so a successor replays only what came after."""
-        blob = pickle.dumps(self._checkpoint_state(), protocol=pickle.HIGHEST_PROTOCOL)
+        blob = to_npz(self._checkpoint_state(), CHECKPOINT_CLASSES)  # npz + JSON, no pickle
         await self.redis.set(keys.checkpoint(self.match_id), blob)
         self.last_checkpoint = time.monotonic()
 
