@@ -269,6 +269,7 @@ class History(_Section):
 class Archive(_Section):
     grace_s: float = Field(ge=0, le=7 * 24 * 3600)
     check_s: float = Field(gt=0, le=3600)
+    checkpoint_s: float = Field(ge=0, le=3600)
 
 
 class Settings(_Section):

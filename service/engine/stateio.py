@@ -217,6 +217,11 @@ def decode(text: bytes, arrays: Callable[[int], np.ndarray], allowed: tuple[str,
 def to_npz(obj: Any, allowed: tuple[str, ...]) -> bytes:
     """``obj`` as the bytes of one ``.npz`` (compressed): its arrays and its JSON tree."""
     text, arrays = encode(obj, allowed, keep=lambda a: a)
+    return npz_bytes(text, arrays)
+
+
+def npz_bytes(text: bytes, arrays: list[np.ndarray]) -> bytes:
+    """What :func:`encode` gave as the bytes of one compressed ``.npz``."""
     buf = io.BytesIO()
     entries: dict[str, Any] = {f"a{i}": a for i, a in enumerate(arrays)}
     entries[_JSON_KEY] = np.frombuffer(text, np.uint8)

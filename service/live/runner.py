@@ -26,6 +26,7 @@ from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import PERIOD_INDEX, PERIODS, Roster
 from pacewire.events import apply_event, check_event
+from pacewire.live import checkpoints
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.feedwatch import FeedWatch
 from pacewire.live.followup import Followup
@@ -80,6 +81,7 @@ class MatchRunner:
         self.record_end: Callable[[dict[str, Any]], Awaitable[bool]] = self._record_end
         self._closing: tuple[int, int] | None = None  # (period, last slot) whose timeout end is being recorded
         self._side: set[asyncio.Task[Any]] = set()
+        self._checkpoint_frames = 0  # state.frames at the last checkpoint (or the rebuild)
 
     # -- life cycle ------------------------------------------------------------------
     def start(self) -> None:
@@ -174,6 +176,30 @@ class MatchRunner:
             self.last_frame_arrival = {int(merged.block.frame_id[-1]): frames[-1][1]}
             self._release()
             self.after_block(len(merged.block), t0)
+            self._checkpoint_due()
+
+    def queue_empty(self) -> bool:
+        return self._queue.empty()
+
+    def _checkpoint_due(self) -> None:
+        """Every ``[archive] checkpoint_s`` of play, the state beside the recording (written in a thread)."""
+        every = self.settings.archive.checkpoint_s
+        due = self.state.frames - self._checkpoint_frames >= every * self.roster.fps
+        if every <= 0 or not due or any(not t.done() for t in self._side if t.get_name() == "checkpoint"):
+            return
+        captured = checkpoints.capture(self)
+        if captured is None:
+            return  # some recorded line is not applied yet: after a later block
+        self._checkpoint_frames = self.state.frames
+        task = asyncio.get_running_loop().create_task(self._write_checkpoint(*captured), name="checkpoint")
+        self._side.add(task)
+        task.add_done_callback(self._side.discard)
+
+    async def _write_checkpoint(self, text: bytes, arrays: list[Any]) -> None:
+        try:
+            await asyncio.to_thread(checkpoints.write, self.folder, text, arrays)
+        except OSError as exc:  # the recording stands; a restart replays more of it
+            log.error("%s: checkpoint not written: %s", self.match_id, exc)
 
     def apply_lines(self, lines: list[bytes], now: float | None = None) -> int:
         """Recorded frame lines (a recording, a stream) into the engine; their drops were counted
@@ -228,6 +254,7 @@ class MatchRunner:
         self.status.frames_in(time.time())  # the silence before a period's timeout counts from the rebuild
         self.status.told = self.status.judge(self.state, time.time()).status  # told before the restart
         h.finished = self.status.told == ENDED
+        self._checkpoint_frames = self.state.frames
         self.broadcaster.invalidate()
 
     # -- match events -------------------------------------------------------------------

@@ -18,7 +18,7 @@ from pacewire.replay.synth import write_match
 from tests.support.live_server import LiveServer
 from tests.support.snapshots import player_figures
 
-CONFIG = "[archive]\ngrace_s = 0.5\ncheck_s = 0.2\n"
+CONFIG = "[archive]\ngrace_s = 0.5\ncheck_s = 0.2\ncheckpoint_s = 10.0\n"
 LIVE = "m_live"
 SRC = "f_src"  # the archived match copied; the copies' ids have its length
 RSS_SLACK_MB = 10.0  # allocator noise between two processes (common practice); a rebuilt match costs more
@@ -99,7 +99,7 @@ def check_finished(srv: LiveServer, ids: list[str]) -> None:
         assert csv.status_code == 200 and len(csv.text.splitlines()) > 10  # a header and a row per player
 
 
-def restart_mid_match(data: Path, live: Path) -> tuple[LiveServer, float]:
+def restart_mid_match(data: Path, live: Path, damage: bool) -> tuple[LiveServer, float]:
     """The live match replayed 15 s into the second half, the server killed, started again;
     returns the new server and its RSS once the live match answers."""
     srv = LiveServer(data, config_text=CONFIG).start()
@@ -108,6 +108,10 @@ def restart_mid_match(data: Path, live: Path) -> tuple[LiveServer, float]:
     assert feed["period"] == "second_half" and feed["match_status"] == "live"
     time.sleep(1.5)  # the recorder's fsync interval (1 s): what was acknowledged is on disk
     srv.kill9()
+    cp = data / "matches" / LIVE / "checkpoint.npz"
+    assert cp.exists()  # written during the replay: the restart goes on from it
+    if damage:
+        cp.write_bytes(b"not a checkpoint")  # a torn or foreign file: the whole recording instead
     again = LiveServer(data, config_text=CONFIG)
     again.port = srv.port
     again.start()
@@ -116,6 +120,7 @@ def restart_mid_match(data: Path, live: Path) -> tuple[LiveServer, float]:
     after = httpx.get(f"{again.http}/api/matches/{LIVE}/feed", timeout=30).json()
     assert after["last_frame_id"] == feed["last_frame_id"]  # every acknowledged frame survived the kill
     wait_for(lambda: httpx.get(f"{again.http}/healthz", timeout=30).json()["recovering"] == 0, "rebuilds done")
+    assert ("checkpoint not used" in again.log.read_text()) == damage
     assert again.proc is not None
     return again, rss_mb(again.proc.pid)
 
@@ -128,7 +133,7 @@ def test_a_season_restarts_from_disk_and_memory_stays_flat(season, tmp_path):
     for n in (5, 40):
         data = tmp_path / f"season{n}"
         ids = fill(data, src, n)
-        srv, rss[n] = restart_mid_match(data, live)
+        srv, rss[n] = restart_mid_match(data, live, damage=n == 5)
         try:
             health = httpx.get(f"{srv.http}/healthz", timeout=30).json()
             assert (health["archived"], health["in_memory"]) == (n, 1)  # finished matches only indexed
