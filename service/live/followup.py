@@ -12,16 +12,18 @@ after the last period that end is recorded as an event, so it comes through
 Whatever reads the engine state runs on the event loop and is cheap: one
 snapshot and the per-block sums (a stalled period is first copied with its
 tail finalised, as the stall view does). Drawing and writing the report and
-every SQLite call run in worker threads (``asyncio.to_thread``).
+every SQLite call run off the live path, on the background lane
+(:mod:`pacewire.live.lane`: one niced worker thread, one job at a time).
 """
 from __future__ import annotations
 
 import asyncio
 import logging
 import time
+from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
-from typing import Any, Protocol
+from typing import Any, Protocol, TypeVar
 
 import orjson
 
@@ -40,6 +42,7 @@ from pacewire.store import history
 from pacewire.store.record import match_record
 from pacewire.wire.rules import Budgets, DropOffBaseline, RulesError, load_budgets, parse_budgets
 
+T = TypeVar("T")
 log = logging.getLogger("pacewire.followup")
 
 
@@ -55,6 +58,8 @@ class Followed(Protocol):
     score: list[int]
 
     def extra_reasons(self) -> list[dict[str, str]]: ...
+
+    async def off_live(self, fn: Callable[..., T], *args: Any) -> T: ...
 
 
 class Followup:
@@ -220,7 +225,7 @@ class Followup:
             return
         h = self.settings.history
         try:
-            self.alerter.baselines = await asyncio.to_thread(
+            self.alerter.baselines = await self.runner.off_live(
                 history.baselines, self.db, [p.id for p in self.runner.roster.players], h.baseline_matches,
                 h.min_minutes, self.runner.match_id)
         except (history.HistoryError, OSError) as exc:
@@ -261,14 +266,14 @@ class Followup:
         if kind == "full_time" and self.settings.history.enabled:
             blocks = block_series(state_until(base, per.index), self.settings.history.block_min, "merge")
         kickoff = state.periods[0].t0
-        entry = await asyncio.to_thread(build_report, inp, self.root, self.settings.reports.low_coverage,
+        entry = await self.runner.off_live(build_report, inp, self.root, self.settings.reports.low_coverage,
                                         {"basis": list(key)})
         self._built[kind] = key
         r.broadcaster.publish("report", kind=kind, url=self.url(kind, "report.html"))
         log.info("%s: %s report ready in %.2f s", r.match_id, kind, time.time() - now)
         if blocks is not None:
-            await asyncio.to_thread(self._store, inp, blocks, kickoff)
-        self._spawn(asyncio.to_thread(self._warm))  # outside the lock: the next report never waits for it
+            await self.runner.off_live(self._store, inp, blocks, kickoff)
+        self._spawn(self.runner.off_live(self._warm))  # outside the lock: the next report never waits for it
         return entry
 
     def _warm(self) -> None:

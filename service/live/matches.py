@@ -21,6 +21,7 @@ import orjson
 from pacewire.config import Settings
 from pacewire.errors import PacewireError
 from pacewire.live.archive import Archived, read_archive, write_archive
+from pacewire.live.lane import BACKGROUND, URGENT, Lane
 from pacewire.live.metrics import Hooks
 from pacewire.live.recorder import write_json_atomic
 from pacewire.live.recovery import recover
@@ -49,6 +50,7 @@ class Matches:
         self.pending: dict[str, Path] = {}  # found unfinished at start, not rebuilt yet
         self._building: dict[str, asyncio.Future[MatchRunner | None]] = {}
         self._ended_at: dict[str, float] = {}  # monotonic time each ended match was first seen idle
+        self.lane = Lane()  # rebuilds, reports, history writes: off the live path
 
     def get(self, match_id: str) -> MatchRunner | None:
         return self.runners.get(match_id)
@@ -70,7 +72,7 @@ class Matches:
         folder.mkdir(parents=True, exist_ok=True)
         write_json_atomic(folder / "meta.json", meta)
         write_json_atomic(folder / "match.json", sheet)
-        runner = MatchRunner(roster, self.settings, folder, self.hooks)
+        runner = MatchRunner(roster, self.settings, folder, self.hooks, self.lane)
         if existing is not None:
             self.runners.pop(match_id)
             self._retire.append(existing)
@@ -99,24 +101,24 @@ class Matches:
     async def rebuild_pending(self) -> None:
         """Rebuild the matches found unfinished at start, one at a time (a request for one comes first)."""
         while self.pending:
-            await self.ready(next(iter(self.pending)))
+            await self.ready(next(iter(self.pending)), urgent=False)
 
-    async def ready(self, match_id: str, reopen: bool = False) -> MatchRunner | None:
+    async def ready(self, match_id: str, reopen: bool = False, urgent: bool = True) -> MatchRunner | None:
         """The match in memory: rebuilt first if it is still queued, or (``reopen``) archived."""
         runner = self.runners.get(match_id)
         if runner is not None or not (match_id in self.pending or (reopen and match_id in self.archived)):
             return runner
         task = self._building.get(match_id)
         if task is None:
-            task = self._building[match_id] = asyncio.ensure_future(self._rebuild(match_id))
+            task = self._building[match_id] = asyncio.ensure_future(self._rebuild(match_id, urgent))
             task.add_done_callback(lambda _: self._building.pop(match_id, None))
         return await asyncio.shield(task)
 
-    async def _rebuild(self, match_id: str) -> MatchRunner | None:
+    async def _rebuild(self, match_id: str, urgent: bool) -> MatchRunner | None:
         folder = self.root / match_id
         t0 = time.perf_counter()
-        try:  # in a worker thread: /healthz and the other matches go on meanwhile
-            runner = await asyncio.to_thread(self._load, folder)
+        try:  # on the background lane: /healthz and the live matches go on meanwhile
+            runner = await self.lane.run(self._load, folder, priority=URGENT if urgent else BACKGROUND)
         finally:
             self.pending.pop(match_id, None)
         if runner is not None:
@@ -134,7 +136,7 @@ class Matches:
         except (OSError, ValueError) as exc:
             log.warning("skipping %s: %s", folder, exc)
             return None
-        runner = MatchRunner(roster, self.settings, folder, self.hooks)
+        runner = MatchRunner(roster, self.settings, folder, self.hooks, self.lane)
         n = recover(runner)
         log.info("recovered %s: %d frames", folder.name, n)
         return runner
@@ -181,7 +183,7 @@ class Matches:
         snap = runner.snapshot_body()
         position = runner.position()
         try:
-            archived = await asyncio.to_thread(write_archive, runner.folder, match_id, runner.summary(), snap,
+            archived = await self.lane.run(write_archive, runner.folder, match_id, runner.summary(), snap,
                                                list(runner.events), runner.followup.budgets_body(), position)
         except OSError as exc:
             log.error("%s: not archived, rebuilt on the next request: %s", match_id, exc)
@@ -197,3 +199,4 @@ class Matches:
         for r in [*self.runners.values(), *self._retire]:
             r.save_counters()
             await r.stop()
+        await self.lane.close()

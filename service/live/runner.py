@@ -19,7 +19,7 @@ import math
 import time
 from collections.abc import Awaitable, Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 from pacewire.config import Settings
 from pacewire.engine.match import MatchState
@@ -31,6 +31,7 @@ from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.feedwatch import FeedWatch
 from pacewire.live.followup import Followup
 from pacewire.live.intake import Intake, Queued
+from pacewire.live.lane import Lane
 from pacewire.live.metrics import Hooks
 from pacewire.live.periods import PeriodAnnouncer
 from pacewire.live.recorder import Recorder, write_json_atomic
@@ -43,12 +44,15 @@ from pacewire.wire.heart import HrDecoder, HrResult
 from pacewire.wire.outcome import after_end_message
 from pacewire.wire.recording import EVENT_FILE
 
+T = TypeVar("T")
 log = logging.getLogger("pacewire.runner")
 
 
 class MatchRunner:
-    def __init__(self, roster: Roster, settings: Settings, folder: Path, hooks: Hooks | None = None) -> None:
+    def __init__(self, roster: Roster, settings: Settings, folder: Path, hooks: Hooks | None = None,
+                 lane: Lane | None = None) -> None:
         self.roster = roster
+        self.lane = lane  # the background lane (reports, history); None: worker threads
         self.match_id = roster.match_id
         self.settings = settings
         self.folder = folder
@@ -178,6 +182,12 @@ class MatchRunner:
             self.after_block(len(merged.block), t0)
             self._checkpoint_due()
 
+    async def off_live(self, fn: Callable[..., T], *args: Any) -> T:
+        """``fn(*args)`` off the live path: on the background lane, or a worker thread without one."""
+        if self.lane is not None:
+            return await self.lane.run(fn, *args)
+        return await asyncio.to_thread(fn, *args)
+
     def queue_empty(self) -> bool:
         return self._queue.empty()
 
@@ -197,7 +207,7 @@ class MatchRunner:
 
     async def _write_checkpoint(self, text: bytes, arrays: list[Any]) -> None:
         try:
-            await asyncio.to_thread(checkpoints.write, self.folder, text, arrays)
+            await self.off_live(checkpoints.write, self.folder, text, arrays)
         except OSError as exc:  # the recording stands; a restart replays more of it
             log.error("%s: checkpoint not written: %s", self.match_id, exc)
 

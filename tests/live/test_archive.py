@@ -176,3 +176,27 @@ def test_a_write_brings_an_archived_match_back_and_a_period_start_reopens_it(sea
         assert player_figures(now) == player_figures(before)  # rebuilt from the recording: the same figures
     finally:
         srv.stop()
+
+
+@pytest.mark.slow
+def test_live_frames_are_accepted_while_old_matches_are_rebuilt(season, tmp_path):
+    """Forty matches that must be rebuilt from their recordings (finished before they were archived)
+    and one live match: the live match is set up, fed and answers while the rebuilds still run."""
+    src, live = season
+    data = tmp_path / "data"
+    ids = fill(data, src, 40)
+    for mid in ids:
+        (data / "matches" / mid / "final.json").unlink()  # as a match finished before archiving existed
+    srv = LiveServer(data, config_text="[archive]\ngrace_s = 3600.0\n").start()
+    try:
+        assert httpx.get(f"{srv.http}/healthz", timeout=30).json()["recovering"] > 0
+        sent, _ = asyncio.run(replay(live, f"{srv.ws}/ingest/{LIVE}", None, until_s=20.0))
+        snap = httpx.get(f"{srv.http}/api/matches/{LIVE}/snapshot", timeout=30).json()
+        health = httpx.get(f"{srv.http}/healthz", timeout=30).json()
+        assert snap["health"]["frames"] == sent  # every frame sent is applied ...
+        assert health["recovering"] > 0  # ... while old matches are still waiting to be rebuilt
+        wait_for(lambda: httpx.get(f"{srv.http}/healthz", timeout=30).json()["recovering"] == 0, "rebuilds done")
+        rows = {r["match_id"]: r for r in httpx.get(f"{srv.http}/api/matches", timeout=30).json()["matches"]}
+        assert all(rows[mid]["status"] == "ended" for mid in ids)  # and they were rebuilt after
+    finally:
+        srv.stop()
