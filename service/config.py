@@ -244,6 +244,7 @@ class Server(_Section):
     max_batch_frames: int = Field(ge=1, le=1_000_000)
     max_subscribers: int = Field(ge=1, le=1_000_000)
     resume_buffer_s: float = Field(ge=0, le=24 * 3600)
+    resume_buffer_mb: float = Field(gt=0, le=4096)
     subscriber_queue: int = Field(ge=1, le=100_000)
     fsync_interval_s: float = Field(gt=0, le=60)
     health_check_s: float = Field(gt=0, le=10)

@@ -67,7 +67,8 @@ class MatchRunner:
                              self.hr_recorder, self, self.event_recorder)
         self.broadcaster = Broadcaster(self.match_id, self.snapshot_body, srv.resume_buffer_s, srv.subscriber_queue,
                                        srv.max_subscribers, on_message=self.hooks.messages_out,
-                                       on_drop=self.hooks.dropped, fps=roster.fps)
+                                       on_drop=self.hooks.dropped, fps=roster.fps,
+                                       buffer_bytes=int(srv.resume_buffer_mb * 1024 * 1024))
         self.feed = FeedWatch(self, settings.health.stall_s, srv.health_check_s)
         self._queue: asyncio.Queue[Queued] = asyncio.Queue()
         self._tasks: list[asyncio.Task[None]] = []

@@ -9,7 +9,6 @@ offline give identical numbers).
 from __future__ import annotations
 
 import asyncio
-import pickle
 import time
 
 import httpx
@@ -19,6 +18,8 @@ import pytest
 import websockets
 
 from pacewire.analyze import analyze_folder
+from pacewire.engine.stateio import from_npz
+from pacewire.scale.aggregator import CHECKPOINT_CLASSES
 from tests.support import cdf_build as cb
 from tests.support.cluster import Cluster, holder
 from tests.support.live_server import LiveServer
@@ -242,7 +243,7 @@ def test_aggregator_sigkill_mid_stream_loses_no_heart_rate_sample(league):
         sub = asyncio.create_task(collect(f"{gw.ws}/live/{mid}?every=0.2", texts, done, 90))
         await asyncio.sleep(3.5)
         cp = redis_py.Redis(host="127.0.0.1", port=league.redis.port).get(f"pw:checkpoint:{mid}")
-        assert cp is not None and pickle.loads(cp)["hr_last_id"] != b"0-0", "the checkpoint holds heart-rate state"
+        assert cp is not None and from_npz(cp, CHECKPOINT_CLASSES)["hr_last_id"] != b"0-0", "the checkpoint holds heart-rate state"
         first.kill9()  # mid-match: frames and samples keep arriving at ingest
         assert not feeder.done()
         second = await asyncio.to_thread(holder, aggs, mid)  # claims the match once the lease expires
