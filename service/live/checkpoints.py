@@ -16,15 +16,14 @@ from __future__ import annotations
 import logging
 import os
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 
 from pacewire.engine.stateio import StateFormatError, encode, from_npz, npz_bytes
 from pacewire.live.archive import recorded_sizes
 
-if TYPE_CHECKING:
-    from pacewire.live.runner import MatchRunner
+MatchRunner = Any  # pacewire.live.runner.MatchRunner, which imports this module
 
 log = logging.getLogger("pacewire.checkpoints")
 

@@ -235,6 +235,20 @@ class AggMatch:
         blob = to_npz(self._checkpoint_state(), CHECKPOINT_CLASSES)  # npz + JSON, no pickle
         await self.redis.set(keys.checkpoint(self.match_id), blob)
         self.last_checkpoint = time.monotonic()
+        await self.trim()
+
+    async def trim(self) -> None:
+        """Trim each stream below the oldest position both the checkpoint just written and the recorder
+        (its files fsynced) have confirmed: nothing a successor or the recording still needs goes.
+        Without a recorder's position nothing is trimmed (the stream is then the only log)."""
+        rec = await self.redis.hgetall(keys.recorded(self.match_id))
+        for key, field, mine in ((self.key, b"frames", self.last_id), (self.hr_key, b"hr", self.hr_last_id),
+                                 (self.ev_key, b"ev", self.ev_last_id)):
+            theirs = rec.get(field)
+            if theirs is None or mine == b"0-0" or theirs == b"0-0":
+                continue
+            ms, seq = min(_entry_id(mine), _entry_id(theirs))
+            await self.redis.xtrim(key, minid=f"{ms}-{seq}", approximate=False)
 
     # -- the stream -------------------------------------------------------------------------------
     def _apply(self, entries: list[tuple[bytes, dict[bytes, bytes]]], now: float | None) -> int:
@@ -514,6 +528,12 @@ def _restore_group(g: Group, msg: dict[str, Any]) -> None:
     g.seq = int(msg["seq"])
     g.state = {k: msg[k] for k in ("players", "teams", "health", "match_status") if k in msg}
     g.meta = (msg["match_time_s"], msg["period"])
+
+
+def _entry_id(raw: bytes) -> tuple[int, int]:
+    """A stream entry id as (milliseconds, sequence), for comparing positions."""
+    ms, _, seq = raw.decode().partition("-")
+    return int(ms), int(seq or 0)
 
 
 def _fresh_runner(agg: Aggregator, match_id: str, roster: Any) -> MatchRunner:
