@@ -257,6 +257,7 @@ class Reports(_Section):
     period_timeout_s: float = Field(gt=0, le=3600)
     intensity_block_min: int = Field(ge=1, le=15)
     low_coverage: float = Field(ge=0, le=1)
+    worker_process: bool
 
 
 class History(_Section):

@@ -38,6 +38,7 @@ from pacewire.live.recorder import write_json_atomic
 from pacewire.reports.alerts import evaluate_state, new_alerter, rules_from_settings
 from pacewire.reports.builder import ReportInput, build_report, list_reports, report_kind
 from pacewire.reports.offline import report_input, state_until
+from pacewire.reports.worker import build_report_in_process
 from pacewire.store import history
 from pacewire.store.record import match_record
 from pacewire.wire.rules import Budgets, DropOffBaseline, RulesError, load_budgets, parse_budgets
@@ -266,7 +267,8 @@ class Followup:
         if kind == "full_time" and self.settings.history.enabled:
             blocks = block_series(state_until(base, per.index), self.settings.history.block_min, "merge")
         kickoff = state.periods[0].t0
-        entry = await self.runner.off_live(build_report, inp, self.root, self.settings.reports.low_coverage,
+        build = build_report_in_process if self.settings.reports.worker_process else build_report
+        entry = await self.runner.off_live(build, inp, self.root, self.settings.reports.low_coverage,
                                         {"basis": list(key)})
         self._built[kind] = key
         r.broadcaster.publish("report", kind=kind, url=self.url(kind, "report.html"))
