@@ -11,8 +11,10 @@ pickle): a 95-minute match checkpointed every minute keeps a few MB.
 """
 from __future__ import annotations
 
+import io
 import zlib
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -25,25 +27,33 @@ ENGINE = ("pacewire.engine.",)  # the only classes an engine checkpoint may hold
 @dataclass(frozen=True)
 class Checkpoint:
     blob: bytes  # the state's JSON tree (zlib, level 1)
-    arrays: tuple[np.ndarray, ...]  # its arrays: the history arrays shared, the others copied
+    shared: dict[int, np.ndarray]  # the history arrays it refers to, by their index in the tree
+    packed: bytes  # its other arrays, copied into one compressed npz (mostly empty smoothing buffers)
 
 
 def checkpoint(state: MatchState) -> Checkpoint:
     """The state as it stands (it may go on stepping: what it writes later never reaches the
     checkpoint)."""
-    shared = {id(per.bins._cs) for per in state.periods}
+    history = {id(per.bins._cs) for per in state.periods}
     cache = state.__dict__.pop("_snapshot_cache", None)  # rebuilt on demand
     try:
-        text, arrays = encode(state, ENGINE, keep=lambda a: a if id(a) in shared else a.copy())
+        text, arrays = encode(state, ENGINE, keep=lambda a: a)
     finally:
         if cache is not None:
             state.__dict__["_snapshot_cache"] = cache
-    return Checkpoint(zlib.compress(text, 1), tuple(arrays))
+    shared = {i: a for i, a in enumerate(arrays) if id(a) in history}
+    buf = io.BytesIO()
+    own: dict[str, Any] = {f"a{i}": a for i, a in enumerate(arrays) if i not in shared}
+    np.savez_compressed(buf, **own)
+    return Checkpoint(zlib.compress(text, 1), shared, buf.getvalue())
 
 
 def resume(point: Checkpoint) -> MatchState:
     """A state to go on with from a checkpoint, with its own copy of every array it holds."""
-    state: MatchState = decode(zlib.decompress(point.blob), lambda i: point.arrays[i].copy(), ENGINE)
+    with np.load(io.BytesIO(point.packed), allow_pickle=False) as z:
+        own = {int(k[1:]): z[k] for k in z.files}
+    state: MatchState = decode(zlib.decompress(point.blob), lambda i: own[i] if i in own else point.shared[i],
+                               ENGINE)
     for per in state.periods:
         bins = per.bins
         bins._cs = bins._cs[: bins.complete + 1].copy()  # the rows it holds; never the shared ones
