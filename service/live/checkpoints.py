@@ -45,7 +45,10 @@ def capture(runner: MatchRunner) -> tuple[bytes, list[np.ndarray]] | None:
                 "hr_gate": runner.intake.hr_decoder.gate, "ev_ids": (ev.content, ev.keys),
                 "score": runner.score, "events": runner.events, "told": runner.periods.told,
                 "status": runner.status, "parked": runner.parked}
-        return encode(body, CLASSES)
+        # the per-second history is append-only (rows up to ``complete`` never change): shared, not
+        # copied; the rows past it are cut on loading
+        history = {id(per.bins._cs) for per in state.periods}
+        return encode(body, CLASSES, keep=lambda a: a if id(a) in history else a.copy())
     finally:
         if cache is not None:
             state.__dict__["_snapshot_cache"] = cache
@@ -82,6 +85,9 @@ def load(folder: Path) -> dict[str, Any] | None:
 def restore(runner: MatchRunner, cp: dict[str, Any]) -> None:
     """Put a loaded checkpoint into a runner that has not started."""
     runner.state, runner.decoder.gate = cp["state"], cp["gate"]
+    for per in runner.state.periods:
+        bins = per.bins
+        bins._cs = bins._cs[: bins.complete + 1].copy()  # the rows the checkpoint holds
     runner.intake.hr_decoder.gate = cp["hr_gate"]
     ev = runner.intake.event_decoder
     ev.content, ev.keys = cp["ev_ids"]
