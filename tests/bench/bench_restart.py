@@ -13,7 +13,8 @@ holds N copies of the finished match (renamed) and the unfinished one. A real se
 * ``restart_rss_mb_N``: the server's RSS once every rebuild is done (``/healthz`` ``recovering`` 0).
 
 Baseline, measured in the same run on the same folders with the archive files removed: every finished
-match is then rebuilt from its recording at start and kept in memory, as every restart did before
+match is then rebuilt at start (from its recording, after its ``checkpoint.npz`` when the live run wrote
+one) and kept in memory, as every restart did before
 finished matches were archived (``[archive] grace_s`` set to an hour so none leaves memory while
 measured). ratio = value / baseline. Quick: 1-minute finished matches instead of 3.
 
