@@ -244,6 +244,7 @@ class Server(_Section):
     max_batch_frames: int = Field(ge=1, le=1_000_000)
     max_subscribers: int = Field(ge=1, le=1_000_000)
     resume_buffer_s: float = Field(ge=0, le=24 * 3600)
+    resume_buffer_mb: float = Field(gt=0, le=4096)
     subscriber_queue: int = Field(ge=1, le=100_000)
     fsync_interval_s: float = Field(gt=0, le=60)
     health_check_s: float = Field(gt=0, le=10)
@@ -256,6 +257,7 @@ class Reports(_Section):
     period_timeout_s: float = Field(gt=0, le=3600)
     intensity_block_min: int = Field(ge=1, le=15)
     low_coverage: float = Field(ge=0, le=1)
+    worker_process: bool
 
 
 class History(_Section):
@@ -268,6 +270,12 @@ class History(_Section):
     band_spreads: float = Field(ge=0, le=10)
     min_spread_share: dict[Literal["m_per_min", "hsr_m_per_min", "sprint_m_per_min", "accel_decel_per_min"],
                            Annotated[float, Field(ge=0, le=1)]]
+
+
+class Archive(_Section):
+    grace_s: float = Field(ge=0, le=7 * 24 * 3600)
+    check_s: float = Field(gt=0, le=3600)
+    checkpoint_s: float = Field(ge=0, le=3600)
 
 
 class Settings(_Section):
@@ -288,6 +296,7 @@ class Settings(_Section):
     reports: Reports
     alerts: AlertsSection
     history: History
+    archive: Archive
     # Sections owned by the shell (server, limits, ...) validate themselves there.
     extra: dict[str, Any] = Field(default_factory=dict)
 

@@ -80,7 +80,7 @@ class _Fit:
         return self  # read-only: a copied track shares it
 
     def __reduce__(self) -> tuple[Any, ...]:
-        return _fit, (self.window, self.order, self.dt)  # a pickled track carries no matrices
+        return _fit, (self.window, self.order, self.dt)  # a checkpointed track carries no matrices (engine.stateio)
 
 
 _FITS: dict[tuple[int, int, float], _Fit] = {}

@@ -2,7 +2,7 @@
 
 The engine reads no settings file: :func:`pacewire.params.match_params` builds these
 from the settings and the roster, and :class:`pacewire.engine.match.MatchState` takes
-them. Frozen, so one object can serve every copy of a state; they pickle with it.
+them. Frozen, so one object can serve every copy of a state; they are checkpointed with it.
 """
 from __future__ import annotations
 

@@ -1,6 +1,7 @@
 """The single-process app: every route, over the matches this process runs."""
 from __future__ import annotations
 
+import asyncio
 import logging
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
@@ -20,6 +21,8 @@ from pacewire.config import Settings
 from pacewire.live.backend import LocalBackend
 from pacewire.live.matches import Matches
 from pacewire.live.metrics import Metrics
+from pacewire.store import history
+from pacewire.tasks import cancel
 
 log = logging.getLogger("pacewire.app")
 
@@ -42,10 +45,17 @@ def create_app(opts: ServerOptions) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         opts.data_dir.mkdir(parents=True, exist_ok=True)
-        recovered = matches.recover_all()  # before serving: frames must find their match rebuilt
-        if recovered:
-            log.info("recovered matches: %s", ", ".join(recovered))
+        if opts.settings.history.enabled:
+            try:  # the schema once, before any report is stored
+                await asyncio.to_thread(history.prepare, opts.data_dir / opts.settings.history.path)
+            except (history.HistoryError, OSError) as exc:
+                log.error("the history database is not usable: %s", exc)
+        pending = matches.index_all()  # no engine work: /healthz answers at once
+        log.info("%d finished matches indexed, %d to rebuild", len(matches.archived), len(pending))
+        tasks = [asyncio.create_task(matches.rebuild_pending(), name="rebuild"),
+                 asyncio.create_task(matches.archive_loop(), name="archive")]
         yield
+        await cancel(tasks)
         await matches.stop_all()
 
     routers = [ingest_routes(backend, tokens, limits), read_routes(backend, tokens, limits),

@@ -104,6 +104,7 @@ class Group:
     tokens: float = 0.0  # deltas the stream may send ahead of its wall-time cadence (Broadcaster._due)
     tokens_at: float = 0.0
     buffer: deque[tuple[int, float, str | bytes]] = field(default_factory=deque)  # (seq, time, text or _pack(text))
+    buffer_bytes: int = 0  # what the buffer's entries hold (text length or deflated bytes)
     subscribers: set[Subscriber] = field(default_factory=set)
     idle_since: float | None = None
 
@@ -113,12 +114,14 @@ class Broadcaster:
 
     def __init__(self, match_id: str, snapshot: Callable[[], dict[str, Any]], buffer_s: float,
                  queue_size: int, max_subscribers: int, on_message: Callable[[int], None] | None = None,
-                 on_drop: Callable[[], None] | None = None, fps: float | None = None) -> None:
+                 on_drop: Callable[[], None] | None = None, fps: float | None = None,
+                 buffer_bytes: int = 1 << 62) -> None:
         self.match_id = match_id
         self.fps = fps  # the feed's nominal rate: cadences also count in frames (see tick)
         self._snapshot_fn = snapshot
         self.buffer_s = buffer_s
         self.buffer_max = 100_000
+        self.buffer_bytes_max = buffer_bytes  # per stream: a resume from further back gets a snapshot
         self.idle_max = 32  # streams kept for resumes with nobody on them; beyond, the longest idle go
         self.queue_size = queue_size
         self.max_subscribers = max_subscribers
@@ -156,13 +159,15 @@ class Broadcaster:
         text = dumps(envelope(msg_type, self.match_id, g.seq, snap_time, period, **body)).decode()
         now = time.monotonic()
         g.buffer.append((g.seq, now, text))
+        g.buffer_bytes += len(text)
         self._trim(g, now)
         return text
 
     def _trim(self, g: Group, now: float) -> None:
         horizon = now - self.buffer_s
-        while g.buffer and (g.buffer[0][1] < horizon or len(g.buffer) > self.buffer_max):
-            g.buffer.popleft()
+        while g.buffer and (g.buffer[0][1] < horizon or len(g.buffer) > self.buffer_max
+                            or g.buffer_bytes > self.buffer_bytes_max):
+            g.buffer_bytes -= len(g.buffer.popleft()[2])
 
     def _fan_out(self, g: Group, text: str) -> None:
         for sub in list(g.subscribers):
@@ -257,7 +262,9 @@ class Broadcaster:
         self._fan_out(g, text)
         if g.buffer and g.buffer[-1][2] is text:  # written: the resume buffer keeps it deflated
             seq, t, _ = g.buffer[-1]
-            g.buffer[-1] = (seq, t, _pack(text))
+            packed = _pack(text)
+            g.buffer[-1] = (seq, t, packed)
+            g.buffer_bytes += len(packed) - len(text)
 
     def catch_up(self, g: Group) -> None:
         """A stream that sent nothing while idle gets followed again: bring it to the current state

@@ -12,7 +12,8 @@ after the last period that end is recorded as an event, so it comes through
 Whatever reads the engine state runs on the event loop and is cheap: one
 snapshot and the per-block sums (a stalled period is first copied with its
 tail finalised, as the stall view does). Drawing and writing the report and
-every SQLite call run in worker threads (``asyncio.to_thread``).
+every SQLite call run off the live path, on the background lane
+(:mod:`pacewire.live.lane`: one niced worker thread, one job at a time).
 """
 from __future__ import annotations
 
@@ -20,9 +21,10 @@ import asyncio
 import logging
 import sqlite3
 import time
+from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
-from typing import Any, Protocol
+from typing import Any, Protocol, TypeVar
 
 import orjson
 
@@ -32,16 +34,19 @@ from pacewire.engine.baseline import Baselines
 from pacewire.engine.blocks import block_series
 from pacewire.engine.match import MatchState
 from pacewire.engine.types import PERIOD_INDEX, Roster
+from pacewire.live.archive import report_entries
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.recorder import write_json_atomic
 from pacewire.reports.alerts import evaluate_state, new_alerter, rules_from_settings
 from pacewire.reports.baseline import comparison
 from pacewire.reports.builder import ReportInput, build_report, list_reports, report_kind
 from pacewire.reports.offline import report_input, state_until
+from pacewire.reports.worker import build_report_in_process
 from pacewire.store import history
 from pacewire.store.record import match_record
 from pacewire.wire.rules import Budgets, DropOffBaseline, RulesError, load_budgets, parse_budgets
 
+T = TypeVar("T")
 log = logging.getLogger("pacewire.followup")
 
 
@@ -57,6 +62,8 @@ class Followed(Protocol):
     score: list[int]
 
     def extra_reasons(self) -> list[dict[str, str]]: ...
+
+    async def off_live(self, fn: Callable[..., T], *args: Any) -> T: ...
 
 
 class Followup:
@@ -225,9 +232,8 @@ class Followup:
         ids = [p.id for p in self.runner.roster.players]
         shares = {str(rate): share for rate, share in h.min_spread_share.items()}
         try:  # read even when this service stores nothing itself ([history] enabled = false), as before
-            b = await asyncio.to_thread(history.player_baselines, self.db, ids, h.baseline_matches, h.min_minutes,
-                                        h.min_matches, h.band_spreads, h.block_min, self.runner.match_id,
-                                        shares)
+            b = await self.runner.off_live(history.player_baselines, self.db, ids, h.baseline_matches, h.min_minutes,
+                                           h.min_matches, h.band_spreads, h.block_min, self.runner.match_id, shares)
         except (history.HistoryError, OSError, sqlite3.Error) as exc:
             log.error("%s: no baselines: %s", self.runner.match_id, exc)
             return
@@ -276,14 +282,15 @@ class Followup:
             if not store:
                 blocks = None
         kickoff = state.periods[0].t0
-        entry = await asyncio.to_thread(build_report, inp, self.root, self.settings.reports.low_coverage,
+        build = build_report_in_process if self.settings.reports.worker_process else build_report
+        entry = await self.runner.off_live(build, inp, self.root, self.settings.reports.low_coverage,
                                         {"basis": list(key)})
         self._built[kind] = key
         r.broadcaster.publish("report", kind=kind, url=self.url(kind, "report.html"))
         log.info("%s: %s report ready in %.2f s", r.match_id, kind, time.time() - now)
         if blocks is not None:
-            await asyncio.to_thread(self._store, inp, blocks, kickoff)
-        self._spawn(asyncio.to_thread(self._warm))  # outside the lock: the next report never waits for it
+            await self.runner.off_live(self._store, inp, blocks, kickoff)
+        self._spawn(self.runner.off_live(self._warm))  # outside the lock: the next report never waits for it
         return entry
 
     def _warm(self) -> None:
@@ -302,6 +309,8 @@ class Followup:
         return f"/api/matches/{self.runner.match_id}/reports/{kind}/{name}"
 
     def listing(self) -> list[dict[str, Any]]:
-        return [{**e, "url": self.url(e["kind"], "report.html"), "csv": self.url(e["kind"], "report.csv"),
-                 "json": self.url(e["kind"], "snapshot.json"), "alerts_csv": self.url(e["kind"], "alerts.csv")}
-                for e in list_reports(self.root)]
+        return report_entries(self.runner.match_id, self.root)
+
+    def idle(self) -> bool:
+        """No report pending or being built, no history write under way."""
+        return not self._pending and not self._tasks and not self._lock.locked()

@@ -54,6 +54,7 @@ class Recorder:
         self.events_path = folder / "events.jsonl"
         self.fsync_interval_s = fsync_interval_s
         self._queue: asyncio.Queue[_Job] = asyncio.Queue()
+        self._busy = False  # a job taken from the queue whose lines may be in the file, not yet handed on
         self._fd: int | None = None
         self._dirty = False
         self._last_sync = time.monotonic()
@@ -77,6 +78,10 @@ class Recorder:
             os.close(self._fd)
             self._fd = None
 
+    def idle(self) -> bool:
+        """Every line in the file has been handed on (``after``): nothing queued or being written."""
+        return self._queue.empty() and not self._busy
+
     def append(self, lines: list[bytes], durable: bool = False, after: Callable[[], None] | None = None
                ) -> Awaitable[None]:
         """Queue lines (without newlines); ``after`` runs right after they reach the OS.
@@ -91,6 +96,7 @@ class Recorder:
     async def _run(self) -> None:
         while True:
             job = await self._queue.get()
+            self._busy = True
             try:
                 self._write(job.lines)
                 if job.durable:
@@ -103,6 +109,8 @@ class Recorder:
                 if not job.done.done():
                     job.done.set_exception(RecorderError(self.error))
                 continue
+            finally:
+                self._busy = False
             if job.after is not None:
                 job.after()
             if not job.done.done():

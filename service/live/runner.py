@@ -15,10 +15,11 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import math
 import time
 from collections.abc import Awaitable, Callable
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import orjson
 
@@ -27,10 +28,12 @@ from pacewire.engine.match import MatchState
 from pacewire.engine.snapshot import build_snapshot
 from pacewire.engine.types import PERIOD_INDEX, PERIODS, Roster
 from pacewire.events import apply_event, check_event
+from pacewire.live import checkpoints
 from pacewire.live.broadcaster import Broadcaster
 from pacewire.live.feedwatch import FeedWatch
 from pacewire.live.followup import Followup
 from pacewire.live.intake import Intake, Queued
+from pacewire.live.lane import Lane
 from pacewire.live.metrics import Hooks
 from pacewire.live.periods import PeriodAnnouncer
 from pacewire.live.recorder import Recorder, write_json_atomic
@@ -43,12 +46,15 @@ from pacewire.wire.heart import HrDecoder, HrResult
 from pacewire.wire.outcome import after_end_message
 from pacewire.wire.recording import EVENT_FILE
 
+T = TypeVar("T")
 log = logging.getLogger("pacewire.runner")
 
 
 class MatchRunner:
-    def __init__(self, roster: Roster, settings: Settings, folder: Path, hooks: Hooks | None = None) -> None:
+    def __init__(self, roster: Roster, settings: Settings, folder: Path, hooks: Hooks | None = None,
+                 lane: Lane | None = None) -> None:
         self.roster = roster
+        self.lane = lane  # the background lane (reports, history); None: worker threads
         self.match_id = roster.match_id
         self.settings = settings
         self.folder = folder
@@ -63,7 +69,8 @@ class MatchRunner:
                              self.hr_recorder, self, self.event_recorder)
         self.broadcaster = Broadcaster(self.match_id, self.snapshot_body, srv.resume_buffer_s, srv.subscriber_queue,
                                        srv.max_subscribers, on_message=self.hooks.messages_out,
-                                       on_drop=self.hooks.dropped, fps=roster.fps)
+                                       on_drop=self.hooks.dropped, fps=roster.fps,
+                                       buffer_bytes=int(srv.resume_buffer_mb * 1024 * 1024))
         self.feed = FeedWatch(self, settings.health.stall_s, srv.health_check_s)
         self._queue: asyncio.Queue[Queued] = asyncio.Queue()
         self._tasks: list[asyncio.Task[None]] = []
@@ -82,6 +89,7 @@ class MatchRunner:
         self.record_end: Callable[[dict[str, Any]], Awaitable[bool]] = self._record_end
         self._closing: tuple[int, int] | None = None  # (period, last slot) whose timeout end is being recorded
         self._side: set[asyncio.Task[Any]] = set()
+        self._checkpoint_frames = 0  # state.frames at the last checkpoint (or the rebuild)
 
     # -- life cycle ------------------------------------------------------------------
     def start(self) -> None:
@@ -176,6 +184,36 @@ class MatchRunner:
             self.last_frame_arrival = {int(merged.block.frame_id[-1]): frames[-1][1]}
             self._release()
             self.after_block(len(merged.block), t0)
+            self._checkpoint_due()
+
+    async def off_live(self, fn: Callable[..., T], *args: Any) -> T:
+        """``fn(*args)`` off the live path: on the background lane, or a worker thread without one."""
+        if self.lane is not None:
+            return await self.lane.run(fn, *args)
+        return await asyncio.to_thread(fn, *args)
+
+    def queue_empty(self) -> bool:
+        return self._queue.empty()
+
+    def _checkpoint_due(self) -> None:
+        """Every ``[archive] checkpoint_s`` of play, the state beside the recording (written in a thread)."""
+        every = self.settings.archive.checkpoint_s
+        due = self.state.frames - self._checkpoint_frames >= every * self.roster.fps
+        if every <= 0 or not due or any(not t.done() for t in self._side if t.get_name() == "checkpoint"):
+            return
+        captured = checkpoints.capture(self)
+        if captured is None:
+            return  # some recorded line is not applied yet: after a later block
+        self._checkpoint_frames = self.state.frames
+        task = asyncio.get_running_loop().create_task(self._write_checkpoint(*captured), name="checkpoint")
+        self._side.add(task)
+        task.add_done_callback(self._side.discard)
+
+    async def _write_checkpoint(self, text: bytes, arrays: list[Any]) -> None:
+        try:
+            await self.off_live(checkpoints.write, self.folder, text, arrays)
+        except OSError as exc:  # the recording stands; a restart replays more of it
+            log.error("%s: checkpoint not written: %s", self.match_id, exc)
 
     def apply_lines(self, lines: list[bytes], now: float | None = None) -> int:
         """Recorded frame lines (a recording, a stream) into the engine; their drops were counted
@@ -230,6 +268,7 @@ class MatchRunner:
         self.status.frames_in(time.time())  # the silence before a period's timeout counts from the rebuild
         self.status.told = self.status.judge(self.state, time.time()).status  # told before the restart
         h.finished = self.status.told == ENDED
+        self._checkpoint_frames = self.state.frames
         self.broadcaster.invalidate()
 
     # -- match events -------------------------------------------------------------------
@@ -348,7 +387,22 @@ class MatchRunner:
                           for k, tid in enumerate(r.team_ids)},
                 "period": self.state.period_name(), "match_time_s": round(self.state.match_time_s(), 2),
                 "status": self.status.told, "frames": self.state.frames, "health": self.feed.state,
-                "subscribers": self.broadcaster.subscriber_count, "last_frame_at": self.state.health.last_arrival}
+                "subscribers": self.broadcaster.subscriber_count, "last_frame_at": self.state.health.last_arrival,
+                "kickoff_t": self.state.periods[0].t0 if self.state.periods else None, "archived": False}
+
+    def position(self) -> dict[str, Any]:
+        """Where the stored feed stands (``GET /api/matches/{id}/feed``)."""
+        gate = self.decoder.gate  # what the recording holds: accepted frames, applied or still queued
+        hr_t = self.intake.hr_decoder.gate.last_t
+        hr_last = float(hr_t.max()) if len(hr_t) and math.isfinite(hr_t.max()) else None
+        return {"last_frame_id": gate.last_id if gate.last_id >= 0 else None,
+                "last_timestamp": gate.last_t if math.isfinite(gate.last_t) else None,
+                "period": PERIODS[gate.period] if gate.period >= 0 else None,
+                "hr_last_timestamp": hr_last, "match_status": self.status.told}
+
+    def idle(self) -> bool:
+        """Nothing queued, nothing being built or recorded for this match (it may be archived)."""
+        return self._queue.empty() and not self._side and self.followup.idle()
 
     def save_counters(self) -> None:
         """The drop counts beside the recording (recovered frames carry none)."""

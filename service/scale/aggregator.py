@@ -20,7 +20,6 @@ from __future__ import annotations
 import asyncio
 import logging
 import os
-import pickle
 import socket
 import time
 import uuid
@@ -32,6 +31,7 @@ import orjson
 from redis.exceptions import RedisError, ResponseError
 
 from pacewire.config import Settings
+from pacewire.engine.stateio import from_npz, to_npz
 from pacewire.live.broadcaster import Group, Subscriber
 from pacewire.live.metrics import Hooks
 from pacewire.live.runner import MatchRunner
@@ -43,6 +43,8 @@ from pacewire.wire.heart import HrResult
 from pacewire.wire.messages import snapshot_message
 from pacewire.wire.view import View, ViewError
 
+# the only classes a Redis checkpoint may build: engine state, decoder gates and ids, the match status
+CHECKPOINT_CLASSES = ("pacewire.engine.", "pacewire.wire.", "pacewire.live.status:")
 log = logging.getLogger("pacewire.scale.aggregator")
 
 GROUP = "aggregators"
@@ -174,9 +176,9 @@ class AggMatch:
         cp = await self.redis.get(keys.checkpoint(self.match_id))
         if cp is not None:
             try:
-                self._restore(pickle.loads(cp))
-            except Exception:  # an unreadable checkpoint: the whole stream will do
-                log.warning("%s: checkpoint unreadable, replaying the whole stream", self.match_id)
+                self._restore(from_npz(cp, CHECKPOINT_CLASSES))
+            except Exception as exc:  # an unreadable or old-format checkpoint: the whole stream will do
+                log.warning("%s: checkpoint unreadable (%s), replaying the whole stream", self.match_id, exc)
                 self.runner = r = _fresh_runner(self.agg, self.match_id, r.roster)
                 r.record_end = self.record_end
                 self.last_id = self.hr_last_id = self.ev_last_id = b"0-0"
@@ -230,9 +232,23 @@ class AggMatch:
 
     async def checkpoint(self) -> None:
         """Engine state + stream position, so a successor replays only what came after."""
-        blob = pickle.dumps(self._checkpoint_state(), protocol=pickle.HIGHEST_PROTOCOL)
+        blob = to_npz(self._checkpoint_state(), CHECKPOINT_CLASSES)  # npz + JSON, no pickle
         await self.redis.set(keys.checkpoint(self.match_id), blob)
         self.last_checkpoint = time.monotonic()
+        await self.trim()
+
+    async def trim(self) -> None:
+        """Trim each stream below the oldest position both the checkpoint just written and the recorder
+        (its files fsynced) have confirmed: nothing a successor or the recording still needs goes.
+        Without a recorder's position nothing is trimmed (the stream is then the only log)."""
+        rec = await self.redis.hgetall(keys.recorded(self.match_id))
+        for key, field, mine in ((self.key, b"frames", self.last_id), (self.hr_key, b"hr", self.hr_last_id),
+                                 (self.ev_key, b"ev", self.ev_last_id)):
+            theirs = rec.get(field)
+            if theirs is None or mine == b"0-0" or theirs == b"0-0":
+                continue
+            ms, seq = min(_entry_id(mine), _entry_id(theirs))
+            await self.redis.xtrim(key, minid=f"{ms}-{seq}", approximate=False)
 
     # -- the stream -------------------------------------------------------------------------------
     def _apply(self, entries: list[tuple[bytes, dict[bytes, bytes]]], now: float | None) -> int:
@@ -512,6 +528,12 @@ def _restore_group(g: Group, msg: dict[str, Any]) -> None:
     g.seq = int(msg["seq"])
     g.state = {k: msg[k] for k in ("players", "teams", "health", "match_status") if k in msg}
     g.meta = (msg["match_time_s"], msg["period"])
+
+
+def _entry_id(raw: bytes) -> tuple[int, int]:
+    """A stream entry id as (milliseconds, sequence), for comparing positions."""
+    ms, _, seq = raw.decode().partition("-")
+    return int(ms), int(seq or 0)
 
 
 def _fresh_runner(agg: Aggregator, match_id: str, roster: Any) -> MatchRunner:

@@ -54,6 +54,11 @@ def checkpoint(m: str) -> str:
     return f"{PREFIX}:checkpoint:{m}"
 
 
+def recorded(m: str) -> str:
+    """Hash: the stream positions the recorder role has written to disk (``frames``, ``hr``, ``ev``)."""
+    return f"pw:recorded:{m}"
+
+
 def snapshot(m: str) -> str:
     return f"{PREFIX}:snapshot:{m}"  # full snapshot message (REST reads)
 

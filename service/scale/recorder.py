@@ -125,7 +125,11 @@ class StreamRecorder:
                 for key, entries in resp or []:
                     _, kind, mid = key.decode().split(":", 2)
                     if entries:
-                        await asyncio.to_thread(self.matches[mid].write, entries, kind)
+                        m = self.matches[mid]
+                        await asyncio.to_thread(m.write, entries, kind)
+                        # on disk and fsynced: the stream may be trimmed up to here (with the checkpoint)
+                        await self.redis.hset(keys.recorded(mid), mapping={"frames": m.last_id, "hr": m.hr_last_id,
+                                                                          "ev": m.ev_last_id})
             except asyncio.CancelledError:
                 raise
             except RedisError as exc:

@@ -3,12 +3,17 @@
 Every function opens its own connection and closes it: the live service
 calls them from a worker thread (``asyncio.to_thread``), never on the event
 loop. The schema version is SQLite's ``user_version``; each migration runs
-in one transaction together with the version bump, so a database is always
-at a whole version. A database written by a newer pacewire is refused.
+in one transaction together with the version bump, and the version is read
+again inside that transaction (under SQLite's write lock), so connections
+opened at the same moment never both create the tables. The live service
+creates the schema once at start (:func:`prepare`); saves to one database
+are serialised in this process (one lock per file). A database written by a
+newer pacewire is refused.
 """
 from __future__ import annotations
 
 import sqlite3
+import threading
 import time
 from collections.abc import Iterable, Mapping
 from contextlib import closing
@@ -126,37 +131,67 @@ def connect(path: str | Path) -> sqlite3.Connection:
     return conn
 
 
+_LOCKS: dict[str, threading.Lock] = {}
+_LOCKS_GUARD = threading.Lock()
+
+
+def _write_lock(path: Path) -> threading.Lock:
+    """One lock per database file: this process's writers take turns (SQLite would make them wait anyway)."""
+    key = str(path.resolve())
+    with _LOCKS_GUARD:
+        return _LOCKS.setdefault(key, threading.Lock())
+
+
+def prepare(path: str | Path) -> None:
+    """Create or migrate the schema now (the live service's start), so no save has to."""
+    with closing(connect(path)):
+        pass
+
+
+def _version(conn: sqlite3.Connection) -> int:
+    v = int(conn.execute("PRAGMA user_version").fetchone()[0])
+    if v > VERSION:
+        raise HistoryError(f"the history database is at schema version {v}, newer than this pacewire "
+                           f"(version {VERSION}): upgrade pacewire or use another database")
+    return v
+
+
 def migrate(conn: sqlite3.Connection) -> int:
     """Bring the schema to :data:`VERSION`; returns the version it started at."""
-    start = conn.execute("PRAGMA user_version").fetchone()[0]
-    if start > VERSION:
-        raise HistoryError(f"the history database is at schema version {start}, newer than this pacewire "
-                           f"(version {VERSION}): upgrade pacewire or use another database")
+    start = _version(conn)
     if start == VERSION:
         return start
     # a rebuilt parent table must not cascade deletes into its children; the check below stands in for them
-    conn.execute("PRAGMA foreign_keys = OFF")
+    conn.execute("PRAGMA foreign_keys = OFF")  # outside any transaction, or SQLite ignores it
     try:
-        for v in range(start, VERSION):
-            # one transaction: the tables and the version bump land together or not at all
-            try:
-                conn.executescript(f"BEGIN IMMEDIATE; {MIGRATIONS[v]};")
+        conn.execute("BEGIN IMMEDIATE")  # the write lock first, then the version again: another may have migrated
+        try:
+            for v in range(_version(conn), VERSION):
+                # one transaction: the tables and the version bump land together or not at all
+                for stmt in _statements(MIGRATIONS[v]):
+                    conn.execute(stmt)
                 if conn.execute("PRAGMA foreign_key_check").fetchone() is not None:
                     raise HistoryError(f"migration to version {v + 1} would break a reference: nothing changed")
                 conn.execute(f"PRAGMA user_version = {v + 1}")
-                conn.execute("COMMIT")
-            except BaseException:
-                if conn.in_transaction:
-                    conn.execute("ROLLBACK")
-                raise
+            conn.execute("COMMIT")
+        except BaseException:
+            if conn.in_transaction:
+                conn.execute("ROLLBACK")
+            raise
     finally:
         conn.execute("PRAGMA foreign_keys = ON")
     return start
 
 
+def _statements(script: str) -> list[str]:
+    """A migration's statements (they hold no semicolon inside a literal)."""
+    return [s.strip() for s in script.split(";") if s.strip()]
+
+
 def save(path: str | Path, rec: MatchRecord) -> None:
     """Store a match, replacing any stored under the same key."""
-    with closing(connect(path)) as conn:
+    path = Path(path)
+    with _write_lock(path), closing(connect(path)) as conn:
         conn.execute("BEGIN IMMEDIATE")
         try:
             conn.execute("DELETE FROM matches WHERE match_key = ?", (rec.key,))

@@ -245,3 +245,37 @@ def test_a_resume_gets_exactly_the_messages_sent_after_its_seq():
             s.task.cancel()
 
     asyncio.run(main())
+
+
+def test_the_resume_buffer_is_bounded_in_bytes_and_a_resume_from_beyond_gets_a_snapshot():
+    """However many messages the cadence makes, a stream keeps at most ``buffer_bytes`` of them
+    (the newest); a ``since`` older than what it keeps is answered with a fresh snapshot."""
+
+    async def main() -> None:
+        feed = _Feed()
+        limit = 2_000  # bytes: a few dozen small deltas
+        b = Broadcaster("m", feed.snapshot, buffer_s=3600.0, queue_size=10_000, max_subscribers=10, fps=FPS,
+                        buffer_bytes=limit)
+        sock = _Socket()
+        first = Subscriber(sock.send, 10_000)
+        b.attach(first, View("all"), 1 / FPS, None)
+        first.task = asyncio.get_running_loop().create_task(b.pump(first))
+        await asyncio.sleep(0)
+        for _ in range(500):
+            _frame(feed, b)
+        g = b.groups[("all", 0.04)]
+        held = sum(len(e) for _, _, e in g.buffer)
+        assert g.buffer_bytes == held and held <= limit  # the count kept is what the entries hold
+        assert 0 < len(g.buffer) < 500 and g.buffer[-1][0] == g.seq  # the newest stay
+        late = _Socket()
+        sub = Subscriber(late.send, 10_000)
+        b.attach(sub, View("all"), 1 / FPS, since=3)
+        sub.task = asyncio.get_running_loop().create_task(b.pump(sub))
+        for _ in range(5):
+            await asyncio.sleep(0)
+        assert late.sent[0]["type"] == "snapshot"  # seq 4 is long gone from the buffer
+        for s in (first, sub):
+            b.detach(s)
+            s.task.cancel()
+
+    asyncio.run(main())

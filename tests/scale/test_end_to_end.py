@@ -19,7 +19,7 @@ from tests.support import cdf_build as cb
 from tests.support.cluster import Cluster, holder
 from tests.support.live_match import IDS, frames, setup_body
 from tests.support.live_server import LiveServer
-from tests.support.redis_server import RedisServer, cli, require_redis
+from tests.support.redis_server import RedisServer, added, require_redis
 from tests.support.sockets import collect, replay_state, stream
 from tests.support.trajectories import FPS
 
@@ -151,7 +151,7 @@ def test_aggregator_sigkill_loses_no_frame_and_no_seq(league):
     state, seqs = replay_state(texts)  # asserts no seq gap
     assert seqs == list(range(seqs[0], seqs[0] + len(seqs)))
     assert state["health"]["frames"] == len(objs), "no frame lost, none applied twice"
-    assert cli(league.redis.port, "XLEN", f"pw:frames:{mid}") == str(len(objs))
+    assert added(league.redis.port, f"pw:frames:{mid}") == len(objs)
     # the successor's figures equal an offline pass over exactly the frames sent
     folder = cb.write_folder(league.tmp / "sent", cb.meta(mid), cb.sheet(3, 2), objs)
     assert_equal_offline(state, folder)
@@ -227,4 +227,4 @@ def test_redis_down_ingest_refuses_then_recovers(cluster):
     assert r.status_code == 200 and r.json()["accepted"] == len(second), r.text
     r = httpx.post(f"{ing2.http}/api/matches/m_live/frames", content=b"\n".join(cb.lines(fourth)), timeout=30)
     assert r.status_code == 200 and r.json()["accepted"] == len(fourth)
-    assert cli(cluster.redis.port, "XLEN", "pw:frames:m_live") == str(len(objs))
+    assert added(cluster.redis.port, "pw:frames:m_live") == len(objs)

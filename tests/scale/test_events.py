@@ -23,7 +23,7 @@ from tests.support import cdf_build as cb, cdf_events as ce
 from tests.support.cluster import Cluster, holder
 from tests.support.live_match import frames, setup_body
 from tests.support.live_server import LiveServer
-from tests.support.redis_server import RedisServer, cli, require_redis
+from tests.support.redis_server import RedisServer, added, require_redis
 from tests.support.sockets import recv
 
 require_redis("scale event-stream tests")
@@ -127,7 +127,7 @@ def test_events_through_two_ingest_nodes_equal_the_single_process_and_analyze(le
     assert phases(snap) == phases(one)
     ev = snap["health"]["events"]
     assert (ev["events"], ev["corrections"], ev["duplicates"], ev["rejected"]) == (9, 1, 1, 1)
-    assert cli(league.redis.port, "XLEN", f"pw:ev:{mid}") == "10"  # nine events and one correction
+    assert added(league.redis.port, f"pw:ev:{mid}") == 10  # nine events and one correction
     folder = league.recorder.data / "matches" / mid
     deadline = time.monotonic() + 10
     while time.monotonic() < deadline and len((folder / "event.jsonl").read_bytes().splitlines()
@@ -190,6 +190,6 @@ def test_the_events_socket_of_an_ingest_node_stores_in_redis_and_answers_each_re
     assert [(e["type"], e["code"], e["event_id"]) for e in errs] == [("error", "unknown_player", "i1"),
                                                                     ("error", "duplicate", "k0")]
     deadline = time.monotonic() + 10
-    while time.monotonic() < deadline and cli(league.redis.port, "XLEN", f"pw:ev:{mid}") != "3":
+    while time.monotonic() < deadline and added(league.redis.port, f"pw:ev:{mid}") != 3:
         time.sleep(0.1)
-    assert cli(league.redis.port, "XLEN", f"pw:ev:{mid}") == "3"  # k0, p1, p2: stored once Redis answered
+    assert added(league.redis.port, f"pw:ev:{mid}") == 3  # k0, p1, p2: stored once Redis answered

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import sqlite3
 import statistics
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -230,3 +231,44 @@ def test_version_1_databases_migrate_without_losing_rows(tmp_path):
         history.save(db, MatchRecord(**{**_record("e", 5.0, 1.8e9).__dict__, "source": "offline"}))
     history.save(db, _record("a", 6.0, 1.7e9))  # replacing a migrated match deletes its old children
     assert history.figures(db, "a", "p7")["match"]["m_per_min"] == 6.0
+
+
+def _save_in_process(db: str, key: str) -> None:
+    history.save(db, _record(key, 1.0, 1.7e9))
+
+
+def test_many_reports_stored_at_once_on_a_new_database(tmp_path):
+    """Full-time reports of many matches stored at the same moment, on a database nobody has opened:
+    threads of this process and other processes (which share no lock) all create the schema at once."""
+    import multiprocessing
+    import threading
+    from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
+
+    n_threads, n_procs, rounds = 16, 4, 8
+    barrier = threading.Barrier(n_threads)
+
+    def store(db: Path, k: int) -> None:
+        barrier.wait()  # all start together: the first writes race for the schema
+        history.connect(db).close()  # as a reader would (baselines, list): no lock of this process
+        history.save(db, _record(f"t{k}", float(k), 1.7e9 + k))
+
+    with ProcessPoolExecutor(n_procs, mp_context=multiprocessing.get_context("spawn")) as procs, \
+            ThreadPoolExecutor(n_threads) as threads:
+        for r in range(rounds):  # a race lost only now and then: several fresh databases
+            db = tmp_path / f"h{r}.sqlite"
+            done = [procs.submit(_save_in_process, str(db), f"p{k}") for k in range(n_procs)]
+            done += [threads.submit(store, db, k) for k in range(n_threads)]
+            for f in done:
+                f.result()  # "table matches already exists" would be raised here
+            keys = {m["match_key"] for m in history.matches(db)}
+            assert keys == {f"t{k}" for k in range(n_threads)} | {f"p{k}" for k in range(n_procs)}
+
+
+def test_schema_is_created_once_and_only_by_the_first(tmp_path):
+    db = tmp_path / "h.sqlite"
+    history.prepare(db)
+    con = sqlite3.connect(db)
+    assert con.execute("PRAGMA user_version").fetchone()[0] == history.VERSION
+    con.close()
+    # a second connection finds the schema and runs no migration (it would fail on the existing tables)
+    assert history.migrate(history.connect(db)) == history.VERSION

@@ -82,3 +82,9 @@ def cli(port: int, *args: str) -> str:
     exe = shutil.which("redis-cli") or "redis-cli"
     return subprocess.run([exe, "-p", str(port), *args], capture_output=True, text=True, timeout=10,
                           env={**os.environ}).stdout.strip()
+
+
+def added(port: int, key: str) -> int:
+    """Entries ever added to a stream (XINFO STREAM ``entries-added``, Redis 7): unchanged by trimming."""
+    lines = cli(port, "XINFO", "STREAM", key).splitlines()
+    return int(lines[lines.index("entries-added") + 1])
